@@ -1,0 +1,210 @@
+"""The ``rundash`` command line. ``main(argv) -> int``; every command is a function.
+
+Expected errors (bad input, a refused import, a missing run) print one line and exit 1;
+Ctrl-C exits 130. Dash is imported only by the commands that serve the dashboard.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Sequence
+
+from rundash import CAUTION, __version__
+from rundash.errors import InputError, RundashError
+
+DEMO_DB = "rundash-demo.sqlite"
+
+
+def _parse_time(text: str | None) -> datetime | None:
+    if text is None:
+        return None
+    try:
+        t = datetime.fromisoformat(text.replace("Z", "+00:00"))
+    except ValueError:
+        raise InputError(f"Invalid value for '--started': allowed an ISO 8601 time such as "
+                         f"2026-05-01T06:00:00Z, got {text!r}") from None
+    if t.tzinfo is None:
+        raise InputError(f"Invalid value for '--started': allowed a time with its zone "
+                         f"(Z or +hh:mm), got {text!r}")
+    return t.astimezone(timezone.utc)
+
+
+def _open(db: str | None):
+    from rundash.storage.engine import open_database
+    return open_database(db)
+
+
+def _bar(quiet: bool):
+    from rundash.progress import Bar, no_progress
+    return no_progress if quiet else Bar()
+
+
+# ----------------------------------------------------------------------------- commands
+def cmd_import(*, db: str | None, data: str, machine: str, label: str, cycle: str, notes: str,
+               started: str | None, kind: str, force: bool, process: bool, quiet: bool) -> int:
+    from rundash.ingest.importer import import_run
+    from rundash.ingest.machine_file import load_machine_description
+
+    desc, text = load_machine_description(machine)
+    database = _open(db)
+    bar = _bar(quiet)
+    res = import_run(database, data, desc, description_text=text, label=label, cycle=cycle,
+                     notes=notes, started_at=_parse_time(started), kind=kind, force=force,
+                     progress=bar)
+    if hasattr(bar, "close"):
+        bar.close()
+    for w in res.warnings:
+        print(f"warning: {w}", file=sys.stderr)
+    if process:
+        from rundash.pipeline import process_run
+        process_run(database, res.run_id, progress=bar)
+        if hasattr(bar, "close"):
+            bar.close()
+    print(res.run_id)
+    return 0
+
+
+def cmd_runs(*, db: str | None, machine: str | None, as_json: bool) -> int:
+    from rundash.storage import queries as q
+
+    database = _open(db)
+    with database.read() as conn:
+        runs = q.list_runs(conn)
+    if machine:
+        runs = [r for r in runs if r.machine_name == machine]
+    if as_json:
+        print(json.dumps([{
+            "id": r.id, "machine": r.machine_name, "kind": r.kind, "label": r.label,
+            "cycle": r.cycle, "started_at": r.started_at.isoformat() if r.started_at else None,
+            "state": r.state, "source": r.source_name, "duration_s": round(r.duration_s, 3),
+            "processed": r.processed, "verdict": r.verdict} for r in runs], indent=2))
+        return 0
+    rows = [("id", "machine", "kind", "started (UTC)", "cycle", "label", "state", "processed",
+             "verdict")]
+    for r in runs:
+        rows.append((str(r.id), r.machine_name, r.kind,
+                     r.started_at.strftime("%Y-%m-%d %H:%M") if r.started_at else "-",
+                     r.cycle or "-", r.label, r.state, "yes" if r.processed else "no",
+                     r.verdict or "-"))
+    _table(rows)
+    return 0
+
+
+def cmd_machines(*, db: str | None) -> int:
+    from rundash.storage import queries as q
+
+    database = _open(db)
+    with database.read() as conn:
+        machines = q.list_machines(conn)
+    rows = [("id", "name", "kind", "operating range (rpm)", "trip (rpm)", "profile", "probes",
+             "runs")]
+    for m in machines:
+        s = m.spec
+        rows.append((str(m.id), s.name, s.kind,
+                     f"{s.min_operating_speed_rpm:g}-{s.max_continuous_speed_rpm:g}",
+                     f"{s.trip_speed_rpm:g}" if s.trip_speed_rpm else "-", s.profile,
+                     str(len(m.probes)), str(m.n_runs)))
+    _table(rows)
+    return 0
+
+
+def _table(rows: list[tuple[str, ...]]) -> None:
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    for k, r in enumerate(rows):
+        print("  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip())
+        if k == 0:
+            print("  ".join("-" * w for w in widths))
+
+
+def cmd_serve(*, db: str | None, host: str, port: int, debug: bool) -> int:
+    from rundash.dashboard.app import serve
+
+    database = _open(db)
+    return serve(database, host=host, port=port, debug=debug)
+
+
+def cmd_demo(*, db: str | None, host: str, port: int, serve: bool, quiet: bool) -> int:
+    from rundash.demo import build_demo
+
+    database = _open(db or DEMO_DB)
+    ids = build_demo(database, progress=_bar(quiet), log=print)
+    print(f"demo database: {database.url} ({len(ids)} runs)")
+    if not serve:
+        return 0
+    from rundash.dashboard.app import serve as serve_app
+    return serve_app(database, host=host, port=port, debug=False)
+
+
+# ----------------------------------------------------------------------------- parser
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="rundash",
+        description="Start-up and coast-down analysis of rotating machines. " + CAUTION)
+    p.add_argument("--version", action="version", version=f"rundash {__version__}")
+    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    def with_db(sp):
+        sp.add_argument("--db", help="database file or SQLAlchemy URL (default: $RUNDASH_DB, "
+                                     "else ./rundash.sqlite)")
+        return sp
+
+    s = with_db(sub.add_parser("import", help="import a recorded data file as a new run"))
+    s.add_argument("data", help="data file: .csv, .wav, .h5/.hdf5 or .parquet")
+    s.add_argument("--machine", required=True, help="machine description file (TOML)")
+    s.add_argument("--label", default="", help="a short name for the run (default: file name)")
+    s.add_argument("--cycle", default="", help="overhaul-cycle tag, e.g. '2026 overhaul'")
+    s.add_argument("--notes", default="", help="free text kept with the run")
+    s.add_argument("--started", help="start time of the record, ISO 8601 with zone")
+    s.add_argument("--kind", default="mixed", choices=["run-up", "coast-down", "mixed", "steady"],
+                   help="what the run is (processing corrects it from the speed profile)")
+    s.add_argument("--force", action="store_true", help="import a file imported before")
+    s.add_argument("--process", action="store_true", help="process the run right after import")
+    s.add_argument("--quiet", action="store_true", help="no progress bar")
+
+    s = with_db(sub.add_parser("runs", help="list the stored runs, newest first"))
+    s.add_argument("--machine", help="only this machine's runs")
+    s.add_argument("--json", dest="as_json", action="store_true", help="JSON output")
+
+    with_db(sub.add_parser("machines", help="list the stored machines"))
+
+    s = with_db(sub.add_parser("serve", help="serve the dashboard"))
+    s.add_argument("--host", default="127.0.0.1", help="address to bind (default 127.0.0.1)")
+    s.add_argument("--port", type=int, default=8050)
+    s.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+
+    s = sub.add_parser("demo", help="build the demo database from the bundled sample runs, "
+                                    "process them and serve the dashboard")
+    s.add_argument("--db", help=f"demo database (default ./{DEMO_DB})")
+    s.add_argument("--host", default="127.0.0.1")
+    s.add_argument("--port", type=int, default=8050)
+    s.add_argument("--no-serve", dest="serve", action="store_false",
+                   help="build and process only; do not start the dashboard")
+    s.add_argument("--quiet", action="store_true", help="no progress bar")
+    return p
+
+
+COMMANDS = {"import": cmd_import, "runs": cmd_runs, "machines": cmd_machines,
+            "serve": cmd_serve, "demo": cmd_demo}
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    kwargs = {k: v for k, v in vars(args).items() if k not in ("command", "func")}
+    func = getattr(args, "func", None) or COMMANDS[args.command]
+    try:
+        return func(**kwargs)
+    except RundashError as exc:
+        print(f"rundash {args.command}: error: {exc}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print("interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,161 @@
+"""Import one data file as one run, in one transaction: it lands whole or not at all."""
+
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass
+from datetime import datetime
+from pathlib import Path
+
+import numpy as np
+
+from rundash.errors import DuplicateRunError, InputError
+from rundash.ingest import open_reader
+from rundash.model import RUN_KINDS, MachineDescription
+from rundash.progress import Progress, no_progress
+from rundash.storage import queries as q
+from rundash.storage.engine import Database
+from rundash.units import STORAGE_UNIT, storage_factor
+
+
+@dataclass(frozen=True)
+class ImportResult:
+    run_id: int
+    machine_id: int
+    n_samples: int
+    n_channels: int
+    sample_rate_hz: float
+    warnings: tuple[str, ...]
+
+
+def file_sha256(path: Path, progress: Progress = no_progress) -> str:
+    h = hashlib.sha256()
+    size = max(path.stat().st_size, 1)
+    done = 0
+    with open(path, "rb") as fh:
+        while True:
+            b = fh.read(1 << 22)
+            if not b:
+                break
+            h.update(b)
+            done += len(b)
+            progress(done / size, "checking file")
+    return h.hexdigest()
+
+
+def _channel_plan(desc: MachineDescription, channels: tuple[str, ...], name: str):
+    """(file column index, role, probe, unit, scale) for the tach and every probe."""
+    index = {c: i for i, c in enumerate(channels)}
+    plan = []
+    missing = [c for c in [desc.tach.column, *(p.column for p in desc.probes)] if c not in index]
+    if missing:
+        raise InputError(f"{name}: channel {missing[0]!r} named in the machine description is "
+                         f"not in the file; the file has {', '.join(channels)}")
+    plan.append((index[desc.tach.column], "tach", None, "V" if desc.data.signal_units == "V"
+                 else "raw", 1.0))
+    for p in desc.probes:
+        factor = storage_factor(p.units, p.kind)
+        if desc.data.signal_units == "V":
+            scale = factor * 1000.0 / p.sensitivity_mv_per_unit  # V -> units -> storage unit
+        else:
+            scale = factor
+        plan.append((index[p.column], "probe", p, STORAGE_UNIT[p.kind], scale))
+    return plan
+
+
+def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
+               description_text: str = "", label: str = "", cycle: str = "",
+               notes: str = "", started_at: datetime | None = None, kind: str = "mixed",
+               force: bool = False, progress: Progress = no_progress) -> ImportResult:
+    """Import ``data_path`` as a new run of the machine ``desc`` describes.
+
+    The file is streamed block by block into waveform chunks of
+    :data:`~rundash.storage.queries.CHUNK_SAMPLES` samples. Every row is written in one
+    write transaction; any error rolls it back and leaves the database as it was.
+    ``kind`` may be corrected by processing once the speed profile is known.
+    """
+    path = Path(data_path)
+    if kind not in RUN_KINDS:
+        raise InputError(f"Invalid value for 'kind': allowed {', '.join(RUN_KINDS)}, got {kind!r}")
+    if started_at is not None and started_at.tzinfo is None:
+        raise InputError("Invalid value for 'started_at': allowed a UTC time with its zone "
+                         f"(e.g. 2026-05-01T06:00:00Z), got {started_at.isoformat()!r}")
+    reader = open_reader(path, desc.data)
+    try:
+        plan = _channel_plan(desc, reader.channels, path.name)
+        sha = file_sha256(path, progress)
+        warnings: list[str] = []
+        unused = sorted(set(reader.channels) - {reader.channels[i] for i, *_ in plan})
+        if unused:
+            warnings.append(f"file channels not named in the machine description were not "
+                            f"stored: {', '.join(unused)}")
+        with db.write() as conn:
+            dup = q.find_run_by_hash(conn, sha)
+            if dup is not None and not force:
+                raise DuplicateRunError(
+                    f"{path.name}: this file was imported before as run {dup} (same content "
+                    "hash); use --force to import it again")
+            mid, _ = q.upsert_machine(conn, desc)
+            fs = reader.sample_rate_hz
+            run_id = q.create_run(
+                conn, machine_id=mid, kind=kind, label=label or path.stem, cycle=cycle,
+                notes=notes, started_at=started_at, source_name=path.name, source_sha256=sha,
+                sample_rate_hz=fs, description_toml=description_text)
+            ch_ids = []
+            for pos, (col, role, probe, unit, scale) in enumerate(plan):
+                ch_ids.append(q.add_channel(
+                    conn, run_id=run_id, position=pos, name=reader.channels[col], role=role,
+                    probe_name=probe.name if probe else None, kind=probe.kind if probe else None,
+                    unit=unit, scale=scale, sample_rate_hz=fs))
+            cols = np.array([col for col, *_ in plan])
+            names = [reader.channels[c] for c in cols]
+            scales = np.array([s for *_, s in plan])[:, None]
+            stats_min = np.full(len(plan), np.inf)
+            stats_max = np.full(len(plan), -np.inf)
+            start = 0
+            chunk_index = 0
+            pending: list[np.ndarray] = []
+            pending_n = 0
+            for block, frac in reader.blocks(q.CHUNK_SAMPLES):
+                pending.append(block[cols] * scales)
+                pending_n += block.shape[1]
+                while pending_n >= q.CHUNK_SAMPLES:
+                    data = np.concatenate(pending, axis=1) if len(pending) > 1 else pending[0]
+                    chunk, rest = data[:, :q.CHUNK_SAMPLES], data[:, q.CHUNK_SAMPLES:]
+                    start, chunk_index = _flush(conn, ch_ids, chunk, start, chunk_index, fs,
+                                                stats_min, stats_max, names, path.name)
+                    pending, pending_n = ([rest], rest.shape[1]) if rest.shape[1] else ([], 0)
+                progress(frac, "importing")
+            if pending_n:
+                data = np.concatenate(pending, axis=1)
+                start, chunk_index = _flush(conn, ch_ids, data, start, chunk_index, fs,
+                                            stats_min, stats_max, names, path.name)
+            if start == 0:
+                raise InputError(f"{path.name}: no samples")
+            for i, (col, role, probe, unit, _) in enumerate(plan):
+                if stats_max[i] == stats_min[i]:
+                    warnings.append(f"channel {reader.channels[col]!r}"
+                                    f"{' (probe ' + probe.name + ')' if probe else ' (tach)'} is "
+                                    f"flat: every sample equals {stats_min[i]:g} {unit}")
+            q.set_channel_lengths(conn, {cid: start for cid in ch_ids})
+            q.update_run(conn, run_id, n_samples=start, state="complete", warnings=warnings)
+            progress(1.0, "importing")
+    finally:
+        reader.close()
+    return ImportResult(run_id=run_id, machine_id=mid, n_samples=start, n_channels=len(plan),
+                        sample_rate_hz=fs, warnings=tuple(warnings))
+
+
+def _flush(conn, ch_ids, chunk, start, chunk_index, fs, smin, smax, names, source):
+    chunk32 = chunk.astype(np.float32)
+    bad = ~np.isfinite(chunk32)
+    if bad.any():
+        ch, idx = np.argwhere(bad)[0]
+        raise InputError(f"{source}: channel {names[ch]!r}, sample {start + idx}: value "
+                         f"{chunk[ch, idx]:.6g} after scaling does not fit a float32 sample "
+                         "(expected |value| < 3.4e38 in the stored unit)")
+    np.minimum(smin, chunk32.min(axis=1), out=smin)
+    np.maximum(smax, chunk32.max(axis=1), out=smax)
+    q.write_chunks(conn, [(cid, chunk_index, start, chunk32[i]) for i, cid in enumerate(ch_ids)],
+                   fs)
+    return start + chunk.shape[1], chunk_index + 1

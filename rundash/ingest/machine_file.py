@@ -1,0 +1,198 @@
+"""The machine description file (TOML, read with the standard library).
+
+Every key is documented in the README. Validation is complete: an unknown key, a missing
+key or an impossible value gives one :class:`~rundash.errors.ConfigError` naming the file
+and the key (``[machine].min_operating_speed_rpm``, ``[[probes]] #2 .units``, ...).
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from pathlib import Path
+from typing import Any
+
+from rundash.errors import ConfigError, invalid_value
+from rundash.model import (
+    MACHINE_KINDS, TRANSDUCER_KINDS, DataSpec, MachineDescription, MachineSpec, ProbeSpec,
+    TachSpec,
+)
+from rundash.units import TO_STORAGE
+
+_MACHINE_KEYS = {
+    "name": (str, True), "kind": (str, True), "rated_speed_rpm": (float, True),
+    "min_operating_speed_rpm": (float, True), "max_continuous_speed_rpm": (float, True),
+    "trip_speed_rpm": (float, False), "profile": (str, False), "rotation": (str, False),
+    "description": (str, False),
+}
+_TACH_KEYS = {
+    "column": (str, True), "pulses_per_rev": (int, False), "edge": (str, False),
+    "threshold": (float, False), "hysteresis": (float, False), "angle_deg": (float, False),
+}
+_PROBE_KEYS = {
+    "name": (str, True), "column": (str, True), "kind": (str, True), "units": (str, True),
+    "sensitivity_mv_per_unit": (float, False), "angle_deg": (float, False),
+    "bearing": (str, False), "axis": (str, False), "pair": (str, False),
+}
+_DATA_KEYS = {
+    "format": (str, False), "time_column": (str, False), "sample_rate_hz": (float, False),
+    "full_scale_v": (float, False), "signal_units": (str, False), "dataset": (str, False),
+}
+FORMATS = ("auto", "csv", "wav", "hdf5", "parquet")
+
+
+class _Checker:
+    def __init__(self, source: str):
+        self.source = source
+
+    def fail(self, where: str, msg: str) -> None:
+        raise ConfigError(f"{self.source}: {where}: {msg}")
+
+    def table(self, raw: Any, where: str, spec: dict[str, tuple[type, bool]]) -> dict[str, Any]:
+        if not isinstance(raw, dict):
+            self.fail(where, "expected a table")
+        unknown = sorted(set(raw) - set(spec))
+        if unknown:
+            self.fail(f"{where}.{unknown[0]}",
+                      f"unknown key; allowed keys: {', '.join(sorted(spec))}")
+        out: dict[str, Any] = {}
+        for key, (typ, required) in spec.items():
+            if key not in raw:
+                if required:
+                    self.fail(f"{where}.{key}", "missing required key")
+                continue
+            val = raw[key]
+            if typ is float:
+                if isinstance(val, bool) or not isinstance(val, (int, float)):
+                    self.fail(f"{where}.{key}", f"expected a number, got {val!r}")
+                val = float(val)
+                if not math.isfinite(val):
+                    self.fail(f"{where}.{key}", f"expected a finite number, got {val!r}")
+            elif typ is int:
+                if isinstance(val, bool) or not isinstance(val, int):
+                    self.fail(f"{where}.{key}", f"expected a whole number, got {val!r}")
+            elif typ is str:
+                if not isinstance(val, str):
+                    self.fail(f"{where}.{key}", f"expected a string, got {val!r}")
+            out[key] = val
+        return out
+
+    def choice(self, where: str, val: str, allowed: tuple[str, ...]) -> None:
+        if val not in allowed:
+            self.fail(where, invalid_value(where.rsplit(".", 1)[-1], val,
+                                           ", ".join(repr(a) for a in allowed)))
+
+    def positive(self, where: str, val: float | None) -> None:
+        if val is not None and not val > 0:
+            self.fail(where, f"expected a positive value, got {val!r}")
+
+
+def parse_machine_description(text: str, source: str = "<machine file>") -> MachineDescription:
+    """Parse and validate the text of a machine description file."""
+    ck = _Checker(source)
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"{source}: not valid TOML: {exc}") from exc
+    unknown = sorted(set(raw) - {"machine", "tach", "probes", "data"})
+    if unknown:
+        ck.fail(unknown[0], "unknown table; allowed: [machine], [tach], [[probes]], [data]")
+    for key in ("machine", "tach", "probes"):
+        if key not in raw:
+            ck.fail(f"[{key}]" if key != "probes" else "[[probes]]", "missing required table")
+
+    m = ck.table(raw["machine"], "[machine]", _MACHINE_KEYS)
+    ck.choice("[machine].kind", m["kind"], MACHINE_KINDS)
+    for key in ("rated_speed_rpm", "min_operating_speed_rpm", "max_continuous_speed_rpm",
+                "trip_speed_rpm"):
+        ck.positive(f"[machine].{key}", m.get(key))
+    if m["min_operating_speed_rpm"] > m["max_continuous_speed_rpm"]:
+        ck.fail("[machine].min_operating_speed_rpm",
+                f"minimum operating speed {m['min_operating_speed_rpm']:g} rpm is above the "
+                f"maximum continuous speed {m['max_continuous_speed_rpm']:g} rpm")
+    if not m["min_operating_speed_rpm"] <= m["rated_speed_rpm"] <= m["max_continuous_speed_rpm"]:
+        ck.fail("[machine].rated_speed_rpm",
+                f"rated speed {m['rated_speed_rpm']:g} rpm is outside the operating range "
+                f"{m['min_operating_speed_rpm']:g}-{m['max_continuous_speed_rpm']:g} rpm")
+    trip = m.get("trip_speed_rpm")
+    if trip is not None and trip < m["max_continuous_speed_rpm"]:
+        ck.fail("[machine].trip_speed_rpm",
+                f"trip speed {trip:g} rpm is below the maximum continuous speed "
+                f"{m['max_continuous_speed_rpm']:g} rpm")
+    if "rotation" in m:
+        ck.choice("[machine].rotation", m["rotation"], ("cw", "ccw"))
+    if not m["name"].strip():
+        ck.fail("[machine].name", "expected a non-empty name")
+    machine = MachineSpec(**m)
+
+    t = ck.table(raw["tach"], "[tach]", _TACH_KEYS)
+    if "edge" in t:
+        ck.choice("[tach].edge", t["edge"], ("rising", "falling"))
+    if "pulses_per_rev" in t and t["pulses_per_rev"] < 1:
+        ck.fail("[tach].pulses_per_rev", f"expected a whole number >= 1, got {t['pulses_per_rev']}")
+    ck.positive("[tach].hysteresis", t.get("hysteresis"))
+    tach = TachSpec(**t)
+
+    if not isinstance(raw["probes"], list) or not raw["probes"]:
+        ck.fail("[[probes]]", "expected at least one [[probes]] table")
+    probes: list[ProbeSpec] = []
+    names: set[str] = set()
+    columns: set[str] = {tach.column}
+    for i, rp in enumerate(raw["probes"], start=1):
+        where = f"[[probes]] #{i}"
+        p = ck.table(rp, where, _PROBE_KEYS)
+        where = f"[[probes]] {p['name']!r}"
+        ck.choice(f"{where}.kind", p["kind"], TRANSDUCER_KINDS)
+        if p["units"] not in TO_STORAGE:
+            ck.fail(f"{where}.units", invalid_value("units", p["units"],
+                                                    ", ".join(sorted(TO_STORAGE))))
+        if TO_STORAGE[p["units"]][0] != p["kind"]:
+            allowed = [u for u, (k, _) in TO_STORAGE.items() if k == p["kind"]]
+            ck.fail(f"{where}.units", f"unit {p['units']!r} does not fit a {p['kind']} "
+                                      f"transducer; allowed: {', '.join(allowed)}")
+        ck.positive(f"{where}.sensitivity_mv_per_unit", p.get("sensitivity_mv_per_unit"))
+        if "axis" in p:
+            ck.choice(f"{where}.axis", p["axis"], ("X", "Y", "none"))
+        if p["name"] in names:
+            ck.fail(f"{where}.name", "duplicate probe name")
+        if p["column"] in columns:
+            ck.fail(f"{where}.column", f"column {p['column']!r} is already used by the tach "
+                                       "or another probe")
+        names.add(p["name"])
+        columns.add(p["column"])
+        pair = p.pop("pair", None)
+        probes.append(ProbeSpec(**p, pair=pair))
+    for p in probes:
+        if p.pair is not None and p.pair not in names:
+            ck.fail(f"[[probes]] {p.name!r}.pair", f"names no probe: {p.pair!r}")
+
+    d = ck.table(raw.get("data", {}), "[data]", _DATA_KEYS)
+    if "format" in d:
+        ck.choice("[data].format", d["format"], FORMATS)
+    if "signal_units" in d:
+        ck.choice("[data].signal_units", d["signal_units"], ("V", "engineering"))
+    ck.positive("[data].sample_rate_hz", d.get("sample_rate_hz"))
+    ck.positive("[data].full_scale_v", d.get("full_scale_v"))
+    data = DataSpec(**d)
+    if data.signal_units == "V":
+        for p in probes:
+            if p.sensitivity_mv_per_unit is None:
+                ck.fail(f"[[probes]] {p.name!r}.sensitivity_mv_per_unit",
+                        "missing: [data].signal_units is 'V', so every probe needs its "
+                        "sensitivity (or set signal_units = 'engineering')")
+    return MachineDescription(machine=machine, tach=tach, probes=tuple(probes), data=data,
+                              source=source)
+
+
+def load_machine_description(path: str | Path) -> tuple[MachineDescription, str]:
+    """Read a machine description file; returns the description and the file's text."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise ConfigError(f"{path}: machine description file not found") from None
+    except UnicodeDecodeError as exc:
+        raise ConfigError(f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None
+    except OSError as exc:
+        raise ConfigError(f"{path}: cannot read machine description: {exc.strerror}") from None
+    return parse_machine_description(text, source=path.name), text
