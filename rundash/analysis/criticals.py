@@ -1,0 +1,628 @@
+"""Critical speeds from a 1X response versus speed: find, confirm, classify, compare.
+
+Input is one probe and one run direction: shaft speeds in rpm and the slow-roll
+compensated complex 1X phasors ``c`` of :mod:`rundash.conventions` (``|c|`` peak amplitude
+in storage units, lag ``= conventions.lag_deg_from_phasor(c)``). Per-revolution data
+(thousands of noisy points, speed not uniformly spaced, not monotonic at the ends) are
+averaged as complex vectors into speed bins, then smoothed, before anything is read.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+from scipy import signal
+
+from rundash.analysis.amplification import (
+    HalfPower,
+    Mode,
+    PhaseAF,
+    fit_modes,
+    half_power,
+    phase_af,
+)
+from rundash.errors import AnalysisError, SweepRateWarning, invalid_value
+
+Direction = Literal["run-up", "coast-down"]
+Classification = Literal["confirmed", "amplitude-only", "phase-only"]
+Confidence = Literal["high", "medium", "low"]
+
+#: AF below which a mode counts as critically damped (API 617 rule, from memory).
+CRITICALLY_DAMPED_AF = 2.5
+#: Default quasi-steady rule: the half-power band must take at least this many modal
+#: decay times ``1/(zeta*omega_n)`` to cross (our own choice; see find_criticals).
+QUASI_STEADY_RATIO = 10.0
+
+
+@dataclass(frozen=True)
+class Critical:
+    """One critical speed (or candidate) of one probe in one run direction.
+
+    Speeds in rpm; ``peak_amplitude`` in the caller's amplitude unit times
+    ``amplitude_factor`` (e.g. um p-p); lags in degrees.
+
+    Attributes
+    ----------
+    speed_rpm : float
+        The reported critical speed; ``speed_basis`` says which one it is
+        (``'amplitude peak'`` for peaks, ``'90 deg phase'`` for phase-only criticals).
+    peak_speed_rpm, quadrature_speed_rpm : float or None
+        Amplitude-peak speed and the speed where the lag is 90 deg above the mode's
+        below-resonance baseline. Both are kept: they differ with damping (the
+        unbalance-response peak sits at ``fn/sqrt(1-2 zeta^2)``, the 90 deg point at fn).
+    peak_amplitude : float or None
+    phase_change_deg : float
+        Lag change across the peak band (about 180 deg for a lightly damped mode).
+    lag_at_peak_deg : float or None
+        Measured lag at the peak, wrapped to [0, 360).
+    lag_above_baseline_deg : float or None
+        Lag at the peak minus ``baseline_lag_deg`` (about 90 deg at a critical).
+    baseline_lag_deg : float
+        Below-resonance lag of the mode (from the modal fit when it succeeded, else the
+        lag at the low edge of the band), wrapped to [0, 360).
+    band_rpm : tuple of float
+        Speed band used for phase, fit and sweep rate.
+    half_power, phase_af, fit :
+        The three AF estimates (:class:`HalfPower`, :class:`PhaseAF`, :class:`Mode`).
+    af_governing, af_method, af_reason :
+        The AF used for margins, which estimate it is and why.
+    critically_damped : bool
+        ``af_governing < critically_damped_af`` (2.5): no separation margin required.
+    sweep_rate_rpm_s, sweep_decay_ratio, sweep_note :
+        Speed rate through the band (signed), band crossing time over the modal decay
+        time, and a note when the sweep is too fast for a quasi-steady reading.
+    polar_loop : bool or None
+        Whether the 1X vector traces a circular loop through the band.
+    classification, confidence, evidence :
+        ``'confirmed'`` | ``'amplitude-only'`` | ``'phase-only'``; ``'high'`` |
+        ``'medium'`` | ``'low'``; plain sentences a reviewer can check.
+    """
+
+    speed_rpm: float
+    speed_basis: str
+    peak_speed_rpm: float | None
+    quadrature_speed_rpm: float | None
+    peak_amplitude: float | None
+    phase_change_deg: float
+    lag_at_peak_deg: float | None
+    lag_above_baseline_deg: float | None
+    baseline_lag_deg: float
+    band_rpm: tuple[float, float]
+    half_power: HalfPower | None
+    phase_af: PhaseAF
+    fit: Mode | None
+    af_governing: float | None
+    af_method: str
+    af_reason: str
+    critically_damped: bool
+    sweep_rate_rpm_s: float | None
+    sweep_decay_ratio: float | None
+    sweep_note: str
+    polar_loop: bool | None
+    classification: str
+    confidence: str
+    evidence: tuple[str, ...]
+    direction: str
+    amplitude_factor: float
+
+
+# --------------------------------------------------------------------------- preparation
+@dataclass(frozen=True)
+class _Curve:
+    speed: np.ndarray  # uniform grid, rpm
+    vector: np.ndarray  # smoothed complex phasor (|c| units)
+    amp: np.ndarray  # amplitude_factor * |vector|
+    lag: np.ndarray  # unwrapped lag, deg
+    noise: float  # 1-sigma noise of the smoothed amplitude, amplitude_factor units
+
+
+def _bin(speed: np.ndarray, vector: np.ndarray, bin_rpm: float | None):
+    order = np.argsort(speed, kind="stable")
+    s, v = speed[order], vector[order]
+    if bin_rpm is None:
+        d = np.diff(s)
+        d = d[d > 0]
+        step = float(np.median(d)) if d.size else 1.0
+        bin_rpm = max(step, (s[-1] - s[0]) / 4000.0)
+    elif not (np.isfinite(bin_rpm) and bin_rpm > 0):
+        raise AnalysisError(invalid_value("bin_rpm", bin_rpm, "a positive bin width in rpm or None"))
+    n_bins = int(math.floor((s[-1] - s[0]) / bin_rpm + 0.5)) + 1
+    centres = s[0] + bin_rpm * np.arange(n_bins)
+    k = np.clip(np.floor((s - s[0]) / bin_rpm + 0.5).astype(int), 0, n_bins - 1)
+    count = np.bincount(k, minlength=n_bins)
+    re = np.bincount(k, v.real, minlength=n_bins)
+    im = np.bincount(k, v.imag, minlength=n_bins)
+    filled = count > 0
+    mean = (re[filled] + 1j * im[filled]) / count[filled]
+    x = centres[filled]
+    out = np.interp(centres, x, mean.real) + 1j * np.interp(centres, x, mean.imag)
+    return centres, out, float(bin_rpm)
+
+
+def _prepare(speed, vector, amplitude_factor, bin_rpm, smooth_rpm) -> _Curve:
+    grid, v, w = _bin(speed, vector, bin_rpm)
+    d2 = v[:-2] - 2 * v[1:-1] + v[2:]
+    sigma = 1.4826 * float(np.median(np.abs(np.concatenate([d2.real, d2.imag])))) / math.sqrt(6.0)
+    vmax = float(np.max(np.abs(v))) or 1.0
+    gain = 1.0
+    if smooth_rpm is None:
+        smooth_rpm = 0.004 * float(grid[-1]) if sigma > 1e-4 * vmax else 0.0
+    if smooth_rpm < 0:
+        raise AnalysisError(invalid_value("smooth_rpm", smooth_rpm, "a window >= 0 rpm or None"))
+    n_win = int(round(smooth_rpm / w)) | 1
+    if n_win >= 5 and n_win < grid.size:
+        coeffs = signal.savgol_coeffs(n_win, 2)
+        gain = float(np.sqrt(np.sum(coeffs ** 2)))
+        v = signal.savgol_filter(v.real, n_win, 2) + 1j * signal.savgol_filter(v.imag, n_win, 2)
+    lag = np.degrees(np.unwrap(-np.angle(v)))
+    return _Curve(grid, v, amplitude_factor * np.abs(v), lag, amplitude_factor * sigma * gain)
+
+
+def _band_edges(amp: np.ndarray, i: int, frac: float, tol: float) -> tuple[int, int]:
+    """Indices where the amplitude first falls below ``frac`` x peak, or its valley if it
+    turns up (by more than ``tol``) first, or the data end."""
+    target = frac * amp[i]
+    out = []
+    for step in (-1, 1):
+        j, jmin = i, i
+        while 0 <= j + step < amp.size:
+            j += step
+            if amp[j] < target:
+                jmin = j
+                break
+            if amp[j] < amp[jmin]:
+                jmin = j
+            elif amp[j] > amp[jmin] + tol:
+                break
+        else:
+            jmin = j
+        out.append(jmin)
+    return out[0], out[1]
+
+
+def _polar_loop(v: np.ndarray) -> tuple[bool | None, str]:
+    """Kasa circle fit of the complex vectors; a loop if they sweep >= 90 deg on a circle."""
+    if v.size < 8:
+        return None, ""
+    x, y = v.real, v.imag
+    a = np.column_stack([x, y, np.ones_like(x)])
+    b = x * x + y * y
+    (p, q, r), *_ = np.linalg.lstsq(a, b, rcond=None)
+    xc, yc = p / 2, q / 2
+    rad = math.sqrt(max(r + xc * xc + yc * yc, 0.0))
+    if rad == 0:
+        return False, ""
+    dist = np.hypot(x - xc, y - yc)
+    misfit = float(np.sqrt(np.mean((dist - rad) ** 2)) / rad)
+    arc = float(np.ptp(np.degrees(np.unwrap(np.angle((x - xc) + 1j * (y - yc))))))
+    ok = arc >= 90.0 and misfit <= 0.1
+    return ok, (f"the polar plot {'traces' if ok else 'does not trace'} a circular loop "
+                f"through the band (arc {arc:.0f} deg, radial misfit {100 * misfit:.0f} % of "
+                f"the radius)")
+
+
+def _sweep(speed, time_s, band, zeta, nc, ratio_min):
+    if time_s is None:
+        return None, None, ""
+    m = (speed >= band[0]) & (speed <= band[1])
+    if np.count_nonzero(m) < 3 or np.ptp(time_s[m]) <= 0:
+        return None, None, "too few samples in the band to measure the sweep rate"
+    rate = float(np.polyfit(time_s[m], speed[m], 1)[0])
+    if rate == 0 or zeta is None or not zeta > 0:
+        return rate, None, ""
+    width = band[1] - band[0]
+    t_band = width / abs(rate)
+    tau = 1.0 / (zeta * 2 * math.pi * nc / 60.0)
+    ratio = t_band / tau
+    note = ""
+    if ratio < ratio_min:
+        note = (f"sweep too fast for a quasi-steady reading: the band ({width:.0f} rpm) is "
+                f"crossed in {t_band:.2f} s, {ratio:.1f} modal decay times (rule: at least "
+                f"{ratio_min:g}); the apparent peak shifts in the sweep direction and the AF "
+                f"reads low (F. M. Lewis, Trans. ASME, 1932)")
+    return rate, ratio, note
+
+
+def _quadrature(curve: _Curve, lo: int, hi: int, base: float, near: float) -> float | None:
+    s, rel = curve.speed[lo:hi + 1], curve.lag[lo:hi + 1] - base
+    rel = rel - 360.0 * np.round((rel[0] - 0.0) / 360.0 - 0.25)  # branch: start near 0..360
+    d = rel - 90.0
+    idx = np.nonzero((d[:-1] < 0) & (d[1:] >= 0))[0]
+    if idx.size == 0:
+        return None
+    xs = s[idx] + (s[idx + 1] - s[idx]) * (-d[idx]) / (d[idx + 1] - d[idx])
+    return float(xs[np.argmin(np.abs(xs - near))])
+
+
+def _fit_band(curve: _Curve, lo: int, hi: int, initial) -> Mode | None:
+    idx = np.arange(lo, hi + 1)
+    if idx.size < 12:
+        return None
+    if idx.size > 400:
+        idx = idx[np.linspace(0, idx.size - 1, 400).astype(int)]
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            res = fit_modes(curve.speed[idx], curve.vector[idx], n_modes=1, initial=(initial,),
+                            residual="linear")
+    except (AnalysisError, ValueError, np.linalg.LinAlgError):
+        return None
+    m = res.modes[0]
+    s0, s1 = curve.speed[lo], curve.speed[hi]
+    if not (res.success and res.relative_error < 0.15 and s0 <= m.fn_rpm <= s1
+            and 0 < m.zeta < 1.5 and m.af_std < 0.5 * m.af):
+        return None
+    return m
+
+
+def _governing(hp: HalfPower | None, fit: Mode | None, pa: PhaseAF):
+    if hp is not None and hp.determinable:
+        return hp.af, "half-power", ("half-power bandwidth, the estimate API 684 and API 617 "
+                                     "specify")
+    why = hp.reason if hp is not None else "no amplitude peak"
+    if fit is not None:
+        return fit.af, "modal fit", f"{why}; modal-fit AF = 1/(2 zeta) used instead"
+    if pa.af_45_135 is not None:
+        return pa.af_45_135, "phase 45/135", f"{why}; no usable modal fit; 45/135 deg phase points used"
+    if pa.af_slope is not None:
+        return pa.af_slope, "phase slope", f"{why}; no usable modal fit; phase slope used"
+    return None, "none", f"{why}; no other estimate available"
+
+
+# --------------------------------------------------------------------------- main entry
+def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 2.0,
+                   direction: Direction = "run-up", min_prominence: float = 0.05,
+                   min_height: float = 0.05, phase_confirm_deg: float = 60.0,
+                   bin_rpm: float | None = None, smooth_rpm: float | None = None,
+                   critically_damped_af: float = CRITICALLY_DAMPED_AF,
+                   quasi_steady_ratio: float = QUASI_STEADY_RATIO,
+                   fit: bool = True) -> tuple[Critical, ...]:
+    """Find and classify the critical speeds in one probe's 1X response.
+
+    Steps: (1) average the complex vectors into speed bins (``bin_rpm``) and smooth them
+    (Savitzky-Golay, quadratic, ``smooth_rpm`` wide) when the data are noisy; (2) take
+    amplitude peaks with :func:`scipy.signal.find_peaks` whose prominence is at least
+    ``min_prominence`` of their height (and well above the noise) and whose height is at
+    least ``min_height`` of the largest amplitude; (3) read the phase across each peak's
+    band (between the speeds where the amplitude falls to 25 % of the peak, or the
+    valleys, or the data ends): a change of at least ``phase_confirm_deg`` confirms the
+    peak, otherwise it is ``'amplitude-only'`` (a structural resonance or a runout
+    artefact is possible); (4) look for lag rises of 90 deg or more, away from any peak,
+    as ``'phase-only'`` (heavily damped) criticals; (5) estimate the AF by half-power,
+    phase and a one-mode fit, and choose the governing one; (6) check the polar loop and
+    the sweep rate.
+
+    The reported ``speed_rpm`` of a peak is the amplitude-peak speed, the basis of the
+    API 684 half-power AF; the 90-deg-phase speed is kept as ``quadrature_speed_rpm``.
+
+    Sweep-rate rule (our own choice, after the effect F. M. Lewis described): a reading is
+    quasi-steady when crossing the half-power band takes at least ``quasi_steady_ratio``
+    modal decay times ``1/(zeta*omega_n)``; this equals ``alpha <= 2 zeta^2 omega_n^2 /
+    ratio`` for an angular acceleration ``alpha``. Faster sweeps raise
+    :class:`rundash.errors.SweepRateWarning` and a note on the critical.
+
+    Parameters
+    ----------
+    speed_rpm : array_like, shape (n,)
+        Shaft speed in rpm, any order (per revolution or per block).
+    vector : array_like of complex, shape (n,)
+        Slow-roll-compensated 1X phasors (see :mod:`rundash.conventions`).
+    time_s : array_like, shape (n,), optional
+        Time of each point in seconds from the record's start, for the sweep rate.
+    amplitude_factor : float
+        Amplitude reported = ``amplitude_factor * |c|``: 2.0 for p-p (proximity probes),
+        1.0 for peak (velocity).
+    direction : {'run-up', 'coast-down'}
+        Run direction of this segment (a label; the data are analysed against speed).
+    min_prominence, min_height : float
+        Peak acceptance, fractions of the peak's own height and of the largest amplitude.
+    phase_confirm_deg : float
+        Lag change across the band that confirms a peak (with the lag at the peak 30 to
+        170 deg above the baseline). A lightly damped isolated mode shows about 180 deg;
+        a mode merged with a neighbour, whose band starts at the valley between them,
+        shows less (73 deg at disk1_X of the two-disk reference rotor), hence 60.
+    bin_rpm, smooth_rpm : float, optional
+        Bin width and smoothing window in rpm; default automatic (bins: the data spacing
+        or 1/4000 of the range; smoothing: 0.4 % of the top speed, only if the data are
+        noisy; 0 disables smoothing).
+    critically_damped_af : float
+        Modes with a governing AF below this are critically damped (no margin required).
+    quasi_steady_ratio : float
+        See the sweep-rate rule above.
+    fit : bool
+        Run the one-mode fit per critical.
+
+    Returns
+    -------
+    tuple of Critical
+        Sorted by speed; empty when the run shows no resonance.
+
+    Warns
+    -----
+    SweepRateWarning
+        When a band is crossed too fast for a quasi-steady reading.
+
+    References
+    ----------
+    API RP 684, 2nd ed., 2005 (half-power AF, phase behaviour through a critical; from
+    memory). F. M. Lewis, "Vibration during acceleration through a critical speed",
+    Trans. ASME 54 (1932) 253-261.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> n = np.linspace(300, 6000, 4000)
+    >>> r = n / 3000
+    >>> c = 5 * r**2 / (1 - r**2 + 0.1j * r)
+    >>> crit, = find_criticals(n, c)
+    >>> crit.classification, round(crit.peak_speed_rpm), round(crit.half_power.af, 1)
+    ('confirmed', 3008, 9.9)
+    """
+    s = np.asarray(speed_rpm, dtype=float)
+    v = np.asarray(vector, dtype=complex)
+    if s.ndim != 1 or s.size < 20:
+        raise AnalysisError(invalid_value("speed_rpm", f"shape {s.shape}", "a 1-D array of at least 20 speeds"))
+    if v.shape != s.shape:
+        raise AnalysisError(invalid_value("vector", f"shape {v.shape}", f"the shape of speed_rpm {s.shape}"))
+    t = None
+    if time_s is not None:
+        t = np.asarray(time_s, dtype=float)
+        if t.shape != s.shape:
+            raise AnalysisError(invalid_value("time_s", f"shape {t.shape}", f"the shape of speed_rpm {s.shape}"))
+    if direction not in ("run-up", "coast-down"):
+        raise AnalysisError(invalid_value("direction", direction, "'run-up' or 'coast-down'"))
+    if not amplitude_factor > 0:
+        raise AnalysisError(invalid_value("amplitude_factor", amplitude_factor, "a positive factor (2.0 p-p, 1.0 peak)"))
+    for name, val in (("min_prominence", min_prominence), ("min_height", min_height)):
+        if not 0 <= val < 1:
+            raise AnalysisError(invalid_value(name, val, "a fraction in [0, 1)"))
+    good = np.isfinite(s) & np.isfinite(v.real) & np.isfinite(v.imag) & (s > 0)
+    if t is not None:
+        good &= np.isfinite(t)
+        t = t[good]
+    s, v = s[good], v[good]
+    if s.size < 20 or np.ptp(s) <= 0:
+        raise AnalysisError(invalid_value("speed_rpm", f"{s.size} finite points", "at least 20 finite points over a speed range"))
+
+    curve = _prepare(s, v, float(amplitude_factor), bin_rpm, smooth_rpm)
+    amp = curve.amp
+    tol = 4.0 * curve.noise
+    prom_floor = 6.0 * curve.noise
+    idx, props = signal.find_peaks(amp, prominence=max(prom_floor, 1e-12))
+    keep = [(i, p) for i, p in zip(idx, props["prominences"])
+            if p >= min_prominence * amp[i] and amp[i] >= min_height * amp.max()]
+
+    found: list[Critical] = []
+    bands: list[tuple[float, float]] = []
+    for i, _ in keep:
+        found.append(_from_peak(curve, int(i), s, t, tol, phase_confirm_deg, critically_damped_af,
+                                quasi_steady_ratio, fit, direction, float(amplitude_factor)))
+        bands.append(found[-1].band_rpm)
+    found.extend(_phase_only(curve, bands, s, t, critically_damped_af, quasi_steady_ratio, fit,
+                             direction, float(amplitude_factor)))
+    for c in found:
+        if c.sweep_note:
+            warnings.warn(f"critical at {c.speed_rpm:.0f} rpm: {c.sweep_note}", SweepRateWarning,
+                          stacklevel=2)
+    return tuple(sorted(found, key=lambda c: c.speed_rpm))
+
+
+def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min, do_fit,
+               direction, afac) -> Critical:
+    sp, amp, lag = curve.speed, curve.amp, curve.lag
+    rel_tol = tol / amp[i] if amp[i] > 0 else 0.0
+    hp = half_power(sp, amp, peak_index=i, rise_tolerance=rel_tol)
+    lo, hi = _band_edges(amp, i, 0.25, tol)
+    band = (float(sp[lo]), float(sp[hi]))
+    evidence = [f"amplitude peak of {hp.peak_amplitude:.3g} at {hp.nc_rpm:.0f} rpm"]
+    change = float(lag[hi] - lag[lo])
+    mode = None
+    if do_fit:
+        z0 = 0.5 / hp.af if hp.af else 0.1
+        mode = _fit_band(curve, lo, hi, (hp.nc_rpm * math.sqrt(max(1 - 2 * z0 * z0, 0.5)), z0))
+    if mode is not None:
+        base = float(-np.degrees(np.angle(mode.residue)))
+        base_src = "the modal fit"
+    else:
+        base = float(lag[lo])
+        base_src = "the low edge of the band"
+    base = base + 360.0 * round((lag[lo] - base) / 360.0)
+    if mode is not None and lag[lo] - base > 120:  # fit residue and band edge disagree wildly
+        base = float(lag[lo])
+        base_src = "the low edge of the band"
+    lag_pk = float(np.interp(hp.nc_rpm, sp, lag))
+    rel_pk = lag_pk - base
+    quad = _quadrature(curve, lo, hi, base, hp.nc_rpm)
+    pa = phase_af(sp[lo:hi + 1], lag[lo:hi + 1], nc_rpm=quad or hp.nc_rpm, baseline_deg=base)
+    evidence.append(f"phase lag changes by {change:.0f} deg across the band "
+                    f"{band[0]:.0f}-{band[1]:.0f} rpm")
+    evidence.append(f"lag at the peak is {rel_pk:.0f} deg above the below-resonance baseline "
+                    f"(baseline from {base_src})")
+    if quad is not None:
+        evidence.append(f"lag is 90 deg above the baseline at {quad:.0f} rpm")
+    phase_ok = change >= phase_confirm_deg and 30.0 <= rel_pk <= 170.0
+    classification = "confirmed" if phase_ok else "amplitude-only"
+    if not phase_ok:
+        evidence.append("the phase does not confirm a rotor critical: a structural resonance "
+                        "or a runout artefact is possible")
+    loop, loop_txt = _polar_loop(curve.vector[lo:hi + 1])
+    if loop_txt:
+        evidence.append(loop_txt)
+    af, method, reason = _governing(hp, mode, pa)
+    evidence.append(f"AF {af:.2f} by {method}" if af is not None else "AF not determinable")
+    if not hp.determinable:
+        evidence.append(hp.reason)
+    zeta = mode.zeta if mode is not None else (0.5 / af if af else None)
+    hb = (hp.n1_rpm, hp.n2_rpm) if hp.determinable else band
+    rate, ratio, note = _sweep(s_raw, t_raw, hb, zeta, hp.nc_rpm, ratio_min)
+    if rate is not None:
+        evidence.append(f"sweep rate through the band {rate:+.1f} rpm/s")
+    if note:
+        evidence.append(note)
+    cd = af is not None and af < cd_af
+    if cd:
+        evidence.append(f"AF below {cd_af:g}: critically damped, no separation margin required")
+    confidence = _confidence(classification, loop, hp.determinable or mode is not None, note)
+    return Critical(hp.nc_rpm, "amplitude peak", hp.nc_rpm, quad, hp.peak_amplitude, change,
+                    float(lag_pk % 360.0), rel_pk, float(base % 360.0), band, hp, pa, mode,
+                    af, method, reason, cd, rate, ratio, note, loop, classification,
+                    confidence, tuple(evidence), direction, afac)
+
+
+def _confidence(classification, loop, af_known, sweep_note) -> str:
+    if classification != "confirmed":
+        return "low"
+    score = int(bool(loop)) + int(bool(af_known)) + int(not sweep_note)
+    return "high" if score == 3 else "medium"
+
+
+def _phase_only(curve, bands, s_raw, t_raw, cd_af, ratio_min, do_fit, direction, afac):
+    """Lag rises of >= 90 deg over a band with no prominent amplitude peak."""
+    sp, amp, lag = curve.speed, curve.amp, curve.lag
+    reliable = amp >= max(0.1 * amp.max(), 10 * curve.noise)
+    if np.count_nonzero(reliable) < 12:
+        return []
+    lnn = np.log(sp)
+    slope = np.gradient(lag, lnn)  # deg per unit ln(speed)
+    slope = np.where(reliable, slope, 0.0)
+    win = max(int(0.02 * sp.size) | 1, 5)
+    slope = np.convolve(slope, np.ones(win) / win, mode="same")
+    idx, _ = signal.find_peaks(slope, height=60.0)  # 60 deg per unit ln N ~ zeta < 1
+    out = []
+    for i in idx:
+        if any(b0 <= sp[i] <= b1 for b0, b1 in bands):
+            continue
+        half = 0.25 * slope[i]
+        lo = i
+        while lo > 0 and slope[lo - 1] > half and reliable[lo - 1]:
+            lo -= 1
+        hi = i
+        while hi < sp.size - 1 and slope[hi + 1] > half and reliable[hi + 1]:
+            hi += 1
+        change = float(lag[hi] - lag[lo])
+        if change < 90.0 or any(b0 <= sp[lo] <= b1 or b0 <= sp[hi] <= b1 for b0, b1 in bands):
+            continue
+        mode = _fit_band(curve, lo, hi, (float(sp[i]), 0.5)) if do_fit else None
+        base = float(-np.degrees(np.angle(mode.residue))) if mode is not None else float(lag[lo])
+        base = base + 360.0 * round((lag[lo] - base) / 360.0)
+        quad = _quadrature(curve, lo, hi, base, float(sp[i]))
+        nc = quad if quad is not None else float(sp[i])
+        band = (float(sp[lo]), float(sp[hi]))
+        pa = phase_af(sp[lo:hi + 1], lag[lo:hi + 1], nc_rpm=nc, baseline_deg=base)
+        af, method, reason = _governing(None, mode, pa)
+        zeta = mode.zeta if mode is not None else (0.5 / af if af else None)
+        rate, ratio, note = _sweep(s_raw, t_raw, band, zeta, nc, ratio_min)
+        ev = [f"phase lag rises by {change:.0f} deg over {band[0]:.0f}-{band[1]:.0f} rpm with no "
+              f"prominent amplitude peak: a heavily damped critical",
+              f"lag is 90 deg above the baseline at {nc:.0f} rpm" if quad is not None else
+              f"steepest lag rise at {nc:.0f} rpm",
+              f"AF {af:.2f} by {method}" if af is not None else "AF not determinable"]
+        if note:
+            ev.append(note)
+        cd = af is not None and af < cd_af
+        if cd:
+            ev.append(f"AF below {cd_af:g}: critically damped, no separation margin required")
+        out.append(Critical(nc, "90 deg phase", None, quad, None, change, None, None,
+                            float(base % 360.0), band, None, pa, mode, af, method, reason, cd,
+                            rate, ratio, note, None, "phase-only", "low", tuple(ev), direction,
+                            afac))
+        bands = [*bands, band]
+    return out
+
+
+# --------------------------------------------------------------------------- comparisons
+@dataclass(frozen=True)
+class CriticalPair:
+    """Two criticals matched by speed (either may be missing).
+
+    ``speed_difference_pct = 100 (b - a) / a`` and ``af_difference = af_b - af_a`` when
+    both exist; ``agreement`` is ``'agree'``, ``'differ'`` or ``'one side only'``.
+    """
+
+    a: Critical | None
+    b: Critical | None
+    speed_difference_pct: float | None
+    af_difference: float | None
+    agreement: str
+    note: str
+
+
+def _pair(first, second, tol_pct, af_tol, names):
+    left, right = list(first), list(second)
+    pairs = []
+    used = set()
+    for ca in left:
+        best, best_d = None, None
+        for j, cb in enumerate(right):
+            if j in used:
+                continue
+            d = 100.0 * (cb.speed_rpm - ca.speed_rpm) / ca.speed_rpm
+            if abs(d) <= tol_pct and (best_d is None or abs(d) < abs(best_d)):
+                best, best_d = j, d
+        if best is None:
+            pairs.append((ca, None, None))
+        else:
+            used.add(best)
+            pairs.append((ca, right[best], best_d))
+    pairs += [(None, cb, None) for j, cb in enumerate(right) if j not in used]
+    out = []
+    for ca, cb, d in pairs:
+        if ca is None or cb is None:
+            only = names[0] if cb is None else names[1]
+            c = ca or cb
+            out.append(CriticalPair(ca, cb, None, None, "one side only",
+                                    f"critical at {c.speed_rpm:.0f} rpm seen by {only} only"))
+            continue
+        daf = (cb.af_governing - ca.af_governing
+               if ca.af_governing is not None and cb.af_governing is not None else None)
+        ok = abs(d) <= tol_pct / 2 and (daf is None or abs(daf) <= af_tol * max(ca.af_governing, 1))
+        note = (f"{names[0]} {ca.speed_rpm:.0f} rpm, {names[1]} {cb.speed_rpm:.0f} rpm "
+                f"({d:+.1f} %)" + (f", AF difference {daf:+.2f}" if daf is not None else ""))
+        out.append(CriticalPair(ca, cb, d, daf, "agree" if ok else "differ", note))
+    return tuple(sorted(out, key=lambda p: (p.a or p.b).speed_rpm))
+
+
+def combine_bearing(criticals_x, criticals_y, *, match_tolerance_pct: float = 5.0,
+                    af_tolerance: float = 0.25, split_window_pct: float = 20.0
+                    ) -> tuple[CriticalPair, ...]:
+    """Combine the criticals of the X and Y probes of one bearing.
+
+    Criticals are matched by speed within ``match_tolerance_pct``; a pair agrees when the
+    speeds differ by at most half that and the AFs by at most ``af_tolerance`` of the X
+    AF. An X-only and a Y-only critical within ``split_window_pct`` of each other are
+    noted as a possible split critical (stiffer support in one direction; common
+    practice, no source).
+    """
+    if not match_tolerance_pct > 0:
+        raise AnalysisError(invalid_value("match_tolerance_pct", match_tolerance_pct, "a positive percentage"))
+    pairs = list(_pair(criticals_x, criticals_y, match_tolerance_pct, af_tolerance, ("X", "Y")))
+    xs = [p for p in pairs if p.b is None]
+    ys = [p for p in pairs if p.a is None]
+    for px in xs:
+        for py in ys:
+            d = 100.0 * (py.b.speed_rpm - px.a.speed_rpm) / px.a.speed_rpm
+            if abs(d) <= split_window_pct:
+                for p in (px, py):
+                    k = pairs.index(p)
+                    pairs[k] = CriticalPair(p.a, p.b, None, None, p.agreement,
+                                            p.note + f"; possible split critical with the other "
+                                            f"probe's {(py.b if p is px else px.a).speed_rpm:.0f} "
+                                            f"rpm ({d:+.1f} %), e.g. anisotropic supports")
+    return tuple(pairs)
+
+
+def compare_directions(run_up, coast_down, *, match_tolerance_pct: float = 5.0,
+                       af_tolerance: float = 0.25) -> tuple[CriticalPair, ...]:
+    """Match run-up and coast-down criticals of one probe and report their differences.
+
+    ``a`` is the run-up critical, ``b`` the coast-down one. A finite sweep rate shifts the
+    apparent peak in the sweep direction (F. M. Lewis, Trans. ASME, 1932), so a run-up
+    peak reading above the coast-down one is expected when sweeps are fast.
+    """
+    if not match_tolerance_pct > 0:
+        raise AnalysisError(invalid_value("match_tolerance_pct", match_tolerance_pct, "a positive percentage"))
+    return _pair(run_up, coast_down, match_tolerance_pct, af_tolerance, ("run-up", "coast-down"))
