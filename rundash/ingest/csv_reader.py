@@ -73,7 +73,7 @@ class CsvReader(Reader):
         pd = self._pd
         try:
             return pd.read_csv(self.path, chunksize=rows, dtype=np.float64, engine="c",
-                               encoding="utf-8", skipinitialspace=True, float_precision="high")
+                               encoding="utf-8", skipinitialspace=True)
         except UnicodeDecodeError as exc:
             raise self.fail(f"not UTF-8 text (byte {exc.start}); expected UTF-8 CSV") from None
 

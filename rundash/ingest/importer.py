@@ -147,7 +147,8 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
 
 
 def _flush(conn, ch_ids, chunk, start, chunk_index, fs, smin, smax, names, source):
-    chunk32 = chunk.astype(np.float32)
+    with np.errstate(over="ignore"):
+        chunk32 = chunk.astype(np.float32)
     bad = ~np.isfinite(chunk32)
     if bad.any():
         ch, idx = np.argwhere(bad)[0]

@@ -1,0 +1,63 @@
+import pytest
+
+from rundash.errors import ConfigError
+from rundash.ingest.machine_file import load_machine_description, parse_machine_description
+from tests.conftest import EXAMPLE_MACHINE
+
+
+def _edit(old: str, new: str) -> str:
+    assert old in EXAMPLE_MACHINE
+    return EXAMPLE_MACHINE.replace(old, new, 1)
+
+
+class TestParseMachineDescription:
+    def test_example_parses_fully(self):
+        d = parse_machine_description(EXAMPLE_MACHINE, "m.toml")
+        assert d.machine.name == "Test rig T-1"
+        assert d.machine.max_continuous_speed_rpm == 6300.0
+        assert d.tach.column == "tach" and d.tach.pulses_per_rev == 1
+        assert [p.name for p in d.probes] == ["NDE-X", "NDE-Y", "NDE-V"]
+        assert d.probe("NDE-X").pair == "NDE-Y"
+        assert d.probe("NDE-V").kind == "velocity"
+
+    @pytest.mark.parametrize("text, match", [
+        (_edit('rotation = "ccw"', 'rotation = "ccw"\nspeed = 3'),
+         r"\[machine\]\.speed: unknown key"),
+        (_edit('kind = "compressor"\n', ''), r"\[machine\]\.kind: missing required key"),
+        (_edit("min_operating_speed_rpm = 5000", "min_operating_speed_rpm = 7000"),
+         r"\[machine\]\.min_operating_speed_rpm: minimum operating speed 7000 rpm is above"),
+        (_edit("sensitivity_mv_per_unit = 7.874\nangle_deg = 45.0",
+               "sensitivity_mv_per_unit = -7.874\nangle_deg = 45.0"),
+         r"\[\[probes\]\] 'NDE-X'\.sensitivity_mv_per_unit: expected a positive value"),
+        (_edit('units = "mm/s"', 'units = "furlong"'),
+         r"\[\[probes\]\] 'NDE-V'\.units: Invalid value for 'units'"),
+        (_edit('units = "mm/s"', 'units = "um"'),
+         r"\[\[probes\]\] 'NDE-V'\.units: unit 'um' does not fit a velocity transducer"),
+        (_edit('kind = "compressor"', 'kind = "blender"'),
+         r"\[machine\]\.kind: Invalid value for 'kind'"),
+        (_edit('edge = "rising"', 'edge = "up"'), r"\[tach\]\.edge: Invalid value for 'edge'"),
+        (_edit("pulses_per_rev = 1", "pulses_per_rev = 0"), r"\[tach\]\.pulses_per_rev"),
+        (_edit('pair = "NDE-Y"', 'pair = "DE-Y"'), r"'NDE-X'\.pair: names no probe"),
+        (_edit('column = "y1"', 'column = "x1"'), r"'NDE-Y'\.column: column 'x1' is already used"),
+        (_edit("rated_speed_rpm = 6000", 'rated_speed_rpm = "fast"'),
+         r"\[machine\]\.rated_speed_rpm: expected a number"),
+        (_edit("trip_speed_rpm = 6900", "trip_speed_rpm = 6000"),
+         r"\[machine\]\.trip_speed_rpm: trip speed 6000 rpm is below"),
+        (EXAMPLE_MACHINE + "\n[extra]\nx = 1\n", r"extra: unknown table"),
+        (EXAMPLE_MACHINE.split("[tach]")[0], r"\[tach\]: missing required table"),
+        ("[machine\nname=", r"not valid TOML"),
+    ])
+    def test_bad_description_names_the_key(self, text, match):
+        with pytest.raises(ConfigError, match=match):
+            parse_machine_description(text, "m.toml")
+
+    def test_error_names_the_file(self, tmp_path):
+        p = tmp_path / "pump.toml"
+        p.write_text(_edit('kind = "compressor"\n', ''), encoding="utf-8")
+        with pytest.raises(ConfigError, match=r"^pump.toml: \[machine\]\.kind"):
+            load_machine_description(p)
+
+    def test_volts_need_sensitivity(self):
+        text = _edit("sensitivity_mv_per_unit = 4.0\n", "")
+        with pytest.raises(ConfigError, match="'NDE-V'.sensitivity_mv_per_unit: missing"):
+            parse_machine_description(text, "m.toml")

@@ -1,0 +1,66 @@
+"""The CLI called as main([...]): exit codes, one-line errors, the tables it prints."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from rundash.cli import main
+from tests.ingest.test_importer import write_csv
+
+
+@pytest.fixture
+def csv_file(tmp_path):
+    p = tmp_path / "r1.csv"
+    write_csv(p, n=3000)
+    return p
+
+
+class TestImportAndList:
+    def test_import_prints_run_id_and_runs_lists_it(self, db_path, machine_file, csv_file,
+                                                   capsys):
+        assert main(["import", str(csv_file), "--machine", str(machine_file), "--db",
+                     str(db_path), "--label", "first start", "--cycle", "2026 overhaul",
+                     "--started", "2026-05-01T06:00:00Z", "--kind", "run-up", "--quiet"]) == 0
+        assert capsys.readouterr().out.strip() == "1"
+        assert main(["runs", "--db", str(db_path), "--json"]) == 0
+        runs = json.loads(capsys.readouterr().out)
+        assert runs[0]["label"] == "first start" and runs[0]["cycle"] == "2026 overhaul"
+        assert runs[0]["started_at"] == "2026-05-01T06:00:00+00:00"
+        assert runs[0]["state"] == "complete" and runs[0]["duration_s"] == 3.0
+        assert main(["machines", "--db", str(db_path)]) == 0
+        out = capsys.readouterr().out
+        assert "Test rig T-1" in out and "5000-6300" in out and "api617" in out
+
+    def test_environment_variable_names_the_database(self, tmp_path, machine_file, csv_file,
+                                                     monkeypatch, capsys):
+        monkeypatch.setenv("RUNDASH_DB", str(tmp_path / "env.sqlite"))
+        assert main(["import", str(csv_file), "--machine", str(machine_file), "--quiet"]) == 0
+        assert (tmp_path / "env.sqlite").exists()
+
+    @pytest.mark.parametrize("args, match", [
+        (["--started", "yesterday"], "Invalid value for '--started'"),
+        (["--started", "2026-05-01T06:00:00"], "a time with its zone"),
+    ])
+    def test_bad_option_is_one_line_and_exit_1(self, db_path, machine_file, csv_file, capsys,
+                                               args, match):
+        rc = main(["import", str(csv_file), "--machine", str(machine_file), "--db",
+                   str(db_path), "--quiet", *args])
+        err = capsys.readouterr().err.strip()
+        assert rc == 1 and match in err and len(err.splitlines()) == 1
+
+    def test_bad_machine_file_is_one_line_and_exit_1(self, db_path, tmp_path, csv_file, capsys):
+        m = tmp_path / "bad.toml"
+        m.write_text("[machine]\nname='x'\n", encoding="utf-8")
+        rc = main(["import", str(csv_file), "--machine", str(m), "--db", str(db_path)])
+        err = capsys.readouterr().err.strip()
+        assert rc == 1 and len(err.splitlines()) == 1
+        assert err == "rundash import: error: bad.toml: [tach]: missing required table"
+
+    def test_duplicate_import_exit_1(self, db_path, machine_file, csv_file, capsys):
+        args = ["import", str(csv_file), "--machine", str(machine_file), "--db", str(db_path),
+                "--quiet"]
+        assert main(args) == 0
+        assert main(args) == 1
+        assert "imported before as run 1" in capsys.readouterr().err
