@@ -1,0 +1,51 @@
+"""Signal processing of rundash: pure numpy/scipy, no I/O (see :mod:`rundash.conventions`).
+
+Once-per-rev reference (:mod:`rundash.dsp.tach`)
+    detect_edges        -- event times of a tach channel's chosen edge, sub-sample
+    once_per_rev        -- once-per-rev events with missing/extra pulse repair
+    OncePerRev          -- its result
+
+Speed (:mod:`rundash.dsp.speed`)
+    speed_profile       -- smooth cubic angle model from the reference events
+    SpeedProfile        -- angle_rev(t), rpm(t), time_at_angle(a), t_start, t_end
+    segment             -- run-up / coast-down / steady segments
+    Segment             -- one segment
+    run_kind            -- 'run-up', 'coast-down', 'mixed' or 'steady'
+
+Order tracking (:mod:`rundash.dsp.orders`)
+    track_orders        -- nX vectors per block of whole revolutions (computed order tracking)
+    OrderTracker        -- the same, fed chunk by chunk
+    OrderTrack          -- its result (vectors, direct levels, speed, time)
+    concat_tracks       -- join tracks of consecutive chunks
+
+Vold–Kalman filter (:mod:`rundash.dsp.vold_kalman`)
+    vold_kalman         -- second-generation multi-order Vold–Kalman envelopes
+    VoldKalmanResult    -- its result
+
+Slow roll (:mod:`rundash.dsp.slowroll`)
+    auto_slow_roll_window -- a low, steady speed band chosen from the data
+    slow_roll_vector    -- mean vector in a speed band
+    compensate          -- subtract it from every block
+
+Spectra (:mod:`rundash.dsp.spectra`)
+    cascade             -- spectra per speed step of a channel in memory
+    cascade_plan        -- row times and speeds from the speed profile alone
+    cascade_rows        -- rows computable from one block of samples (chunked use)
+    Cascade             -- its result
+"""
+
+from rundash.dsp.orders import OrderTrack, OrderTracker, concat_tracks, track_orders
+from rundash.dsp.slowroll import auto_slow_roll_window, compensate, slow_roll_vector
+from rundash.dsp.spectra import Cascade, cascade, cascade_plan, cascade_rows
+from rundash.dsp.speed import Segment, SpeedProfile, run_kind, segment, speed_profile
+from rundash.dsp.tach import OncePerRev, detect_edges, once_per_rev
+from rundash.dsp.vold_kalman import VoldKalmanResult, vold_kalman
+
+__all__ = [
+    "detect_edges", "once_per_rev", "OncePerRev",
+    "speed_profile", "SpeedProfile", "segment", "Segment", "run_kind",
+    "track_orders", "OrderTracker", "OrderTrack", "concat_tracks",
+    "vold_kalman", "VoldKalmanResult",
+    "auto_slow_roll_window", "slow_roll_vector", "compensate",
+    "cascade", "cascade_plan", "cascade_rows", "Cascade",
+]
