@@ -40,16 +40,26 @@ def _same_length(a, s: np.ndarray, name: str, dtype=float) -> np.ndarray:
     return a
 
 
-def _refine_peak(s: np.ndarray, a: np.ndarray, i: int) -> tuple[float, float]:
-    """Speed and height of a parabola through the peak sample and its two neighbours."""
+def _refine_peak(s: np.ndarray, a: np.ndarray, i: int,
+                 top_fraction: float | None = None) -> tuple[float, float]:
+    """Speed and height of a parabola through the peak sample and its two neighbours, or
+    (``top_fraction``) fitted by least squares to the contiguous samples above that
+    fraction of the peak sample (which averages residual noise)."""
     if i <= 0 or i >= s.size - 1:
         return float(s[i]), float(a[i])
-    x = s[i - 1:i + 2] - s[i]
-    coef = np.polyfit(x, a[i - 1:i + 2], 2)
+    lo, hi = i - 1, i + 1
+    if top_fraction is not None:
+        floor = top_fraction * a[i]
+        while lo > 0 and a[lo - 1] >= floor:
+            lo -= 1
+        while hi < s.size - 1 and a[hi + 1] >= floor:
+            hi += 1
+    x = s[lo:hi + 1] - s[i]
+    coef = np.polyfit(x, a[lo:hi + 1], 2)
     if coef[0] >= 0:
         return float(s[i]), float(a[i])
     xv = -coef[1] / (2.0 * coef[0])
-    if not (x[0] <= xv <= x[2]):
+    if not (x[0] <= xv <= x[-1]):
         return float(s[i]), float(a[i])
     return float(s[i] + xv), float(np.polyval(coef, xv))
 
@@ -101,7 +111,8 @@ def _walk(a: np.ndarray, i: int, step: int, target: float, rise: float) -> tuple
 
 def half_power(speed_rpm, amplitude, *, peak_index: int | None = None,
                peak_speed: float | None = None, level: float = HALF_POWER_LEVEL,
-               rise_tolerance: float = 0.0) -> HalfPower:
+               rise_tolerance: float = 0.0, peak_fit_fraction: float | None = None
+               ) -> HalfPower:
     """Amplification factor of one peak by the half-power bandwidth method.
 
     ``AF = Nc / (N2 - N1)`` with ``N1 < Nc < N2`` the speeds where the amplitude equals
@@ -126,6 +137,10 @@ def half_power(speed_rpm, amplitude, *, peak_index: int | None = None,
     rise_tolerance : float
         A rise above the running minimum smaller than this fraction of the peak is not
         taken as a turn-up (for curves with residual noise). Default 0: any rise counts.
+    peak_fit_fraction : float, optional
+        Default None: the peak is refined by a parabola through the three highest
+        samples. A fraction (e.g. 0.95) fits the parabola by least squares to all
+        contiguous samples above that fraction of the peak, for noisy curves.
 
     Returns
     -------
@@ -167,7 +182,9 @@ def half_power(speed_rpm, amplitude, *, peak_index: int | None = None,
         i = int(peak_index)
         if not 0 <= i < s.size:
             raise AnalysisError(invalid_value("peak_index", peak_index, f"an index in 0..{s.size - 1}"))
-    nc, peak = _refine_peak(s, a, i)
+    if peak_fit_fraction is not None and not 0 < peak_fit_fraction < 1:
+        raise AnalysisError(invalid_value("peak_fit_fraction", peak_fit_fraction, "a fraction between 0 and 1 or None"))
+    nc, peak = _refine_peak(s, a, i, peak_fit_fraction)
     if peak <= 0:
         return HalfPower(None, None, None, nc, peak, False, "peak amplitude is not positive")
     target = level * peak

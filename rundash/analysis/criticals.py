@@ -117,10 +117,17 @@ class _Curve:
     vector: np.ndarray  # smoothed complex phasor (|c| units)
     amp: np.ndarray  # amplitude_factor * |vector|
     lag: np.ndarray  # unwrapped lag, deg
-    noise: float  # 1-sigma noise of the smoothed amplitude, amplitude_factor units
+    noise: np.ndarray  # 1-sigma noise of the smoothed amplitude per bin, amplitude_factor units
+    smoothed: bool
 
 
 def _bin(speed: np.ndarray, vector: np.ndarray, bin_rpm: float | None):
+    """Average complex vectors into speed bins; return centres, means, counts, point sigma.
+
+    The point sigma (per real component) is pooled from the scatter inside bins holding
+    two or more points (the upper 5 % of bins trimmed against steep signal slopes);
+    ``None`` when no bin holds two points.
+    """
     order = np.argsort(speed, kind="stable")
     s, v = speed[order], vector[order]
     if bin_rpm is None:
@@ -136,30 +143,44 @@ def _bin(speed: np.ndarray, vector: np.ndarray, bin_rpm: float | None):
     count = np.bincount(k, minlength=n_bins)
     re = np.bincount(k, v.real, minlength=n_bins)
     im = np.bincount(k, v.imag, minlength=n_bins)
+    pw = np.bincount(k, np.abs(v) ** 2, minlength=n_bins)
     filled = count > 0
     mean = (re[filled] + 1j * im[filled]) / count[filled]
+    sigma_point = None
+    multi = count >= 2
+    if np.count_nonzero(multi) >= 10:
+        n = count[multi]
+        m = (re[multi] + 1j * im[multi]) / n
+        var = np.clip(pw[multi] / n - np.abs(m) ** 2, 0.0, None) * n / (n - 1)  # E|v - m|^2
+        keep = var <= np.quantile(var, 0.95)
+        sigma_point = float(np.sqrt(np.sum((n[keep] - 1) * var[keep]) / np.sum(n[keep] - 1) / 2.0))
     x = centres[filled]
     out = np.interp(centres, x, mean.real) + 1j * np.interp(centres, x, mean.imag)
-    return centres, out, float(bin_rpm)
+    return centres, out, np.maximum(count, 1), sigma_point, float(bin_rpm)
 
 
 def _prepare(speed, vector, amplitude_factor, bin_rpm, smooth_rpm) -> _Curve:
-    grid, v, w = _bin(speed, vector, bin_rpm)
-    d2 = v[:-2] - 2 * v[1:-1] + v[2:]
-    sigma = 1.4826 * float(np.median(np.abs(np.concatenate([d2.real, d2.imag])))) / math.sqrt(6.0)
+    grid, v, count, sigma_point, w = _bin(speed, vector, bin_rpm)
+    if sigma_point is not None:
+        sig2 = sigma_point ** 2 / count
+    else:  # one point per bin: noise from second differences (white noise: var 6 sigma^2)
+        d2 = v[:-2] - 2 * v[1:-1] + v[2:]
+        sig = 1.4826 * float(np.median(np.abs(np.concatenate([d2.real, d2.imag])))) / math.sqrt(6.0)
+        sig2 = np.full(grid.size, sig * sig)
     vmax = float(np.max(np.abs(v))) or 1.0
-    gain = 1.0
     if smooth_rpm is None:
-        smooth_rpm = 0.004 * float(grid[-1]) if sigma > 1e-4 * vmax else 0.0
+        noisy = float(np.sqrt(np.median(sig2))) > 1e-4 * vmax
+        smooth_rpm = 0.004 * float(grid[-1]) if noisy else 0.0
     if smooth_rpm < 0:
         raise AnalysisError(invalid_value("smooth_rpm", smooth_rpm, "a window >= 0 rpm or None"))
     n_win = int(round(smooth_rpm / w)) | 1
-    if n_win >= 5 and n_win < grid.size:
+    smoothed = 5 <= n_win < grid.size
+    if smoothed:
         coeffs = signal.savgol_coeffs(n_win, 2)
-        gain = float(np.sqrt(np.sum(coeffs ** 2)))
+        sig2 = np.convolve(np.pad(sig2, n_win // 2, mode="edge"), coeffs ** 2, mode="valid")
         v = signal.savgol_filter(v.real, n_win, 2) + 1j * signal.savgol_filter(v.imag, n_win, 2)
     lag = np.degrees(np.unwrap(-np.angle(v)))
-    return _Curve(grid, v, amplitude_factor * np.abs(v), lag, amplitude_factor * sigma * gain)
+    return _Curve(grid, v, amplitude_factor * np.abs(v), lag, amplitude_factor * np.sqrt(sig2), smoothed)
 
 
 def _band_edges(amp: np.ndarray, i: int, frac: float, tol: float) -> tuple[int, int]:
@@ -390,16 +411,15 @@ def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
 
     curve = _prepare(s, v, float(amplitude_factor), bin_rpm, smooth_rpm)
     amp = curve.amp
-    tol = 4.0 * curve.noise
-    prom_floor = 6.0 * curve.noise
-    idx, props = signal.find_peaks(amp, prominence=max(prom_floor, 1e-12))
+    idx, props = signal.find_peaks(amp, prominence=1e-12 * amp.max())
     keep = [(i, p) for i, p in zip(idx, props["prominences"])
-            if p >= min_prominence * amp[i] and amp[i] >= min_height * amp.max()]
+            if p >= min_prominence * amp[i] and amp[i] >= min_height * amp.max()
+            and p >= 8.0 * curve.noise[i]]
 
     found: list[Critical] = []
     bands: list[tuple[float, float]] = []
     for i, _ in keep:
-        found.append(_from_peak(curve, int(i), s, t, tol, phase_confirm_deg, critically_damped_af,
+        found.append(_from_peak(curve, int(i), s, t, 8.0 * curve.noise[i], phase_confirm_deg, critically_damped_af,
                                 quasi_steady_ratio, fit, direction, float(amplitude_factor)))
         bands.append(found[-1].band_rpm)
     found.extend(_phase_only(curve, bands, s, t, critically_damped_af, quasi_steady_ratio, fit,
@@ -415,7 +435,8 @@ def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min,
                direction, afac) -> Critical:
     sp, amp, lag = curve.speed, curve.amp, curve.lag
     rel_tol = tol / amp[i] if amp[i] > 0 else 0.0
-    hp = half_power(sp, amp, peak_index=i, rise_tolerance=rel_tol)
+    hp = half_power(sp, amp, peak_index=i, rise_tolerance=rel_tol,
+                    peak_fit_fraction=0.95 if curve.smoothed else None)
     lo, hi = _band_edges(amp, i, 0.25, tol)
     band = (float(sp[lo]), float(sp[hi]))
     evidence = [f"amplitude peak of {hp.peak_amplitude:.3g} at {hp.nc_rpm:.0f} rpm"]
@@ -481,38 +502,58 @@ def _confidence(classification, loop, af_known, sweep_note) -> str:
 
 
 def _phase_only(curve, bands, s_raw, t_raw, cd_af, ratio_min, do_fit, direction, afac):
-    """Lag rises of >= 90 deg over a band with no prominent amplitude peak."""
-    sp, amp, lag = curve.speed, curve.amp, curve.lag
-    reliable = amp >= max(0.1 * amp.max(), 10 * curve.noise)
+    """Lag rises of >= 90 deg over a band with no prominent amplitude peak.
+
+    The smoothed vectors where the amplitude is well above the noise are averaged into
+    2 %-wide logarithmic speed bins; a contiguous rise of the bin lags (slope above a
+    quarter of its steepest value) totalling at least 90 deg, clear of every peak band,
+    is a phase-only critical.
+    """
+    sp, amp = curve.speed, curve.amp
+    reliable = amp >= np.maximum(0.1 * amp.max(), 10 * curve.noise)
     if np.count_nonzero(reliable) < 12:
         return []
-    lnn = np.log(sp)
-    slope = np.gradient(lag, lnn)  # deg per unit ln(speed)
-    slope = np.where(reliable, slope, 0.0)
-    win = max(int(0.02 * sp.size) | 1, 5)
-    slope = np.convolve(slope, np.ones(win) / win, mode="same")
-    idx, _ = signal.find_peaks(slope, height=60.0)  # 60 deg per unit ln N ~ zeta < 1
+    s_ok, v_ok = sp[reliable], curve.vector[reliable]
+    k = np.floor(np.log(s_ok / s_ok[0]) / math.log(1.02)).astype(int)
+    cnt = np.bincount(k)
+    filled = cnt > 0
+    if np.count_nonzero(filled) < 8:
+        return []
+    vc = (np.bincount(k, v_ok.real) + 1j * np.bincount(k, v_ok.imag))[filled] / cnt[filled]
+    nc_ = np.exp(np.bincount(k, np.log(s_ok))[filled] / cnt[filled])
+    lag_c = np.degrees(np.unwrap(-np.angle(vc)))
+    slope = np.gradient(lag_c, np.log(nc_))
+    slope = np.convolve(np.pad(slope, 2, mode="edge"), np.ones(5) / 5, mode="valid")
     out = []
-    for i in idx:
-        if any(b0 <= sp[i] <= b1 for b0, b1 in bands):
-            continue
-        half = 0.25 * slope[i]
-        lo = i
-        while lo > 0 and slope[lo - 1] > half and reliable[lo - 1]:
+    order = np.argsort(slope)[::-1]
+    taken = np.zeros(slope.size, bool)
+    for i in order:
+        if slope[i] < 60.0 or taken[i]:  # 60 deg per unit ln N: zeta up to about 1
+            break
+        lo = hi = i
+        while lo > 0 and slope[lo - 1] > 0.25 * slope[i] and not taken[lo - 1]:
             lo -= 1
-        hi = i
-        while hi < sp.size - 1 and slope[hi + 1] > half and reliable[hi + 1]:
+        while hi < slope.size - 1 and slope[hi + 1] > 0.25 * slope[i] and not taken[hi + 1]:
             hi += 1
-        change = float(lag[hi] - lag[lo])
-        if change < 90.0 or any(b0 <= sp[lo] <= b1 or b0 <= sp[hi] <= b1 for b0, b1 in bands):
+        taken[lo:hi + 1] = True
+        change = float(lag_c[hi] - lag_c[lo])
+        band = (float(nc_[lo]), float(nc_[hi]))
+        if change < 90.0 or any(band[0] <= b1 and band[1] >= b0 for b0, b1 in bands):
             continue
-        mode = _fit_band(curve, lo, hi, (float(sp[i]), 0.5)) if do_fit else None
-        base = float(-np.degrees(np.angle(mode.residue))) if mode is not None else float(lag[lo])
-        base = base + 360.0 * round((lag[lo] - base) / 360.0)
-        quad = _quadrature(curve, lo, hi, base, float(sp[i]))
-        nc = quad if quad is not None else float(sp[i])
-        band = (float(sp[lo]), float(sp[hi]))
-        pa = phase_af(sp[lo:hi + 1], lag[lo:hi + 1], nc_rpm=nc, baseline_deg=base)
+        j0, j1 = (int(np.searchsorted(sp, b)) for b in band)
+        j1 = min(j1, sp.size - 1)
+        mode = _fit_band(curve, j0, j1, (float(nc_[i]), 0.5)) if do_fit else None
+        base = float(-np.degrees(np.angle(mode.residue))) if mode is not None else float(lag_c[lo])
+        base = base + 360.0 * round((lag_c[lo] - base) / 360.0)
+        rel = lag_c[lo:hi + 1] - base
+        quad = None
+        up = np.nonzero((rel[:-1] < 90.0) & (rel[1:] >= 90.0))[0]
+        if up.size:
+            q = int(up[0])
+            quad = float(np.exp(np.interp(90.0, rel[q:q + 2], np.log(nc_[lo + q:lo + q + 2]))))
+        nc = quad if quad is not None else float(nc_[i])
+        pa = phase_af(nc_[lo:hi + 1], lag_c[lo:hi + 1], nc_rpm=nc, baseline_deg=base) \
+            if hi - lo >= 2 else PhaseAF(None, None, None, None, None, None, None, base, "band too short")
         af, method, reason = _governing(None, mode, pa)
         zeta = mode.zeta if mode is not None else (0.5 / af if af else None)
         rate, ratio, note = _sweep(s_raw, t_raw, band, zeta, nc, ratio_min)
@@ -521,6 +562,8 @@ def _phase_only(curve, bands, s_raw, t_raw, cd_af, ratio_min, do_fit, direction,
               f"lag is 90 deg above the baseline at {nc:.0f} rpm" if quad is not None else
               f"steepest lag rise at {nc:.0f} rpm",
               f"AF {af:.2f} by {method}" if af is not None else "AF not determinable"]
+        if rate is not None:
+            ev.append(f"sweep rate through the band {rate:+.1f} rpm/s")
         if note:
             ev.append(note)
         cd = af is not None and af < cd_af
