@@ -1,0 +1,251 @@
+"""Separation-margin verdicts per critical and a run summary with a stable JSON form.
+
+Margins are measured from the profile's reference speeds (by default the minimum
+operating speed N_min below, the maximum continuous speed N_mc above)::
+
+    below:  SM = 100 (N_ref_below - Nc) / N_ref_below
+    above:  SM = 100 (Nc - N_ref_above) / N_ref_above
+
+A critical between N_min and N_mc fails outright unless it is critically damped.
+Every verdict is advisory and carries :data:`rundash.CAUTION`.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+from rundash import CAUTION
+from rundash.analysis.criticals import Critical
+from rundash.analysis.limits import LevelCheck
+from rundash.analysis.profiles import Profile, load_profile, required_margin_pct
+from rundash.errors import ConfigError, invalid_value
+
+SCHEMA = "rundash.run-verdict/1"
+
+
+def _num(x):
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+@dataclass(frozen=True)
+class MarginVerdict:
+    """Separation-margin verdict of one critical.
+
+    ``side`` is ``'below'``, ``'above'`` or ``'inside'`` the operating range;
+    ``verdict`` ``'pass'`` | ``'fail'`` | ``'not judged'`` with ``reason``.
+    """
+
+    critical: Critical
+    probe: str
+    direction: str
+    amplitude_units: str
+    side: str
+    reference_speed_rpm: float | None
+    separation_margin_pct: float | None
+    required_margin_pct: float | None
+    verdict: str
+    reason: str
+    profile: str
+    mode_hint: str | None = None
+    caution: str = CAUTION
+
+    def to_json_dict(self) -> dict:
+        """Plain-JSON form (stable keys; ``None`` for missing numbers)."""
+        c = self.critical
+        hp, pa, fit = c.half_power, c.phase_af, c.fit
+        af_phase = pa.af_45_135 if pa.af_45_135 is not None else pa.af_slope
+        return {
+            "probe": self.probe,
+            "direction": self.direction,
+            "speed_rpm": _num(c.speed_rpm),
+            "speed_basis": c.speed_basis,
+            "peak_speed_rpm": _num(c.peak_speed_rpm),
+            "quadrature_speed_rpm": _num(c.quadrature_speed_rpm),
+            "peak_amplitude": _num(c.peak_amplitude),
+            "amplitude_units": self.amplitude_units,
+            "phase_change_deg": _num(c.phase_change_deg),
+            "lag_at_peak_deg": _num(c.lag_at_peak_deg),
+            "af_half_power": _num(hp.af) if hp is not None else None,
+            "af_half_power_note": (hp.reason if hp is not None else "no amplitude peak"),
+            "af_phase": _num(af_phase),
+            "af_phase_slope": _num(pa.af_slope),
+            "af_phase_45_135": _num(pa.af_45_135),
+            "af_fit": _num(fit.af) if fit is not None else None,
+            "af_fit_std": _num(fit.af_std) if fit is not None else None,
+            "damping_ratio_fit": _num(fit.zeta) if fit is not None else None,
+            "natural_frequency_fit_rpm": _num(fit.fn_rpm) if fit is not None else None,
+            "af_governing": _num(c.af_governing),
+            "af_method": c.af_method,
+            "critically_damped": c.critically_damped,
+            "classification": c.classification,
+            "confidence": c.confidence,
+            "evidence": list(c.evidence),
+            "polar_loop": c.polar_loop,
+            "sweep_rate_rpm_s": _num(c.sweep_rate_rpm_s),
+            "sweep_note": c.sweep_note,
+            "mode_hint": self.mode_hint,
+            "side": self.side,
+            "reference_speed_rpm": _num(self.reference_speed_rpm),
+            "separation_margin_pct": _num(self.separation_margin_pct),
+            "required_margin_pct": _num(self.required_margin_pct),
+            "margin_verdict": self.verdict,
+            "margin_reason": self.reason,
+            "profile": self.profile,
+        }
+
+
+@dataclass(frozen=True)
+class RunVerdict:
+    """Summary of one run's verdicts; ``overall`` is ``'fail'`` if any margin or applying
+    limit fails, else ``'not judged'`` if any critical was not judged, else ``'pass'``."""
+
+    profile: str
+    profile_title: str
+    profile_needs_confirmation: bool
+    profile_source: str
+    min_operating_speed_rpm: float
+    max_continuous_speed_rpm: float
+    overall: str
+    margins: tuple[MarginVerdict, ...]
+    level_checks: tuple[LevelCheck, ...] = ()
+    notes: tuple[str, ...] = field(default_factory=tuple)
+    caution: str = CAUTION
+
+    def to_json_dict(self) -> dict:
+        """Plain-JSON form with schema ``rundash.run-verdict/1``."""
+        return {
+            "schema": SCHEMA,
+            "profile": {"name": self.profile, "title": self.profile_title,
+                        "needs_confirmation": self.profile_needs_confirmation,
+                        "margin_source": self.profile_source},
+            "operating_range_rpm": [self.min_operating_speed_rpm, self.max_continuous_speed_rpm],
+            "overall": self.overall,
+            "criticals": [m.to_json_dict() for m in self.margins],
+            "limit_checks": [c.to_json_dict() for c in self.level_checks],
+            "notes": list(self.notes),
+            "caution": self.caution,
+        }
+
+
+def _reference(profile: Profile, which: str, speeds: dict) -> float:
+    v = speeds.get(which)
+    if v is None:
+        raise ConfigError(invalid_value(which + "_rpm", None, f"a speed in rpm (profile {profile.name!r} measures margins from it)"))
+    return float(v)
+
+
+def judge(criticals, *, min_operating_speed_rpm: float, max_continuous_speed_rpm: float,
+          profile, rated_speed_rpm: float | None = None, probe: str = "",
+          amplitude_units: str = "", mode_hints=None) -> tuple[MarginVerdict, ...]:
+    """Separation-margin verdict of each critical against a guidance profile.
+
+    Parameters
+    ----------
+    criticals : sequence of Critical
+        From :func:`rundash.analysis.find_criticals` (one probe, one direction).
+    min_operating_speed_rpm, max_continuous_speed_rpm : float
+        Operating range N_min..N_mc in rpm.
+    profile : str, path or Profile
+        Guidance profile (see :mod:`rundash.analysis.profiles`).
+    rated_speed_rpm : float, optional
+        Needed only when the profile measures a margin from the rated speed.
+    probe, amplitude_units : str
+        Labels carried into the output (given by the caller).
+    mode_hints : sequence of str or None, optional
+        A mode-shape hint per critical, carried into the output.
+
+    Returns
+    -------
+    tuple of MarginVerdict
+    """
+    prof = load_profile(profile)
+    n_min, n_mc = float(min_operating_speed_rpm), float(max_continuous_speed_rpm)
+    if not (n_min > 0 and n_mc >= n_min):
+        raise ConfigError(invalid_value("min_operating_speed_rpm/max_continuous_speed_rpm",
+                                        (min_operating_speed_rpm, max_continuous_speed_rpm),
+                                        "0 < N_min <= N_mc in rpm"))
+    crits = tuple(criticals)
+    if mode_hints is not None and len(mode_hints) != len(crits):
+        raise ConfigError(invalid_value("mode_hints", f"{len(mode_hints)} hints", f"one per critical ({len(crits)})"))
+    speeds = {"min_operating_speed": n_min, "max_continuous_speed": n_mc, "rated_speed": rated_speed_rpm}
+    ref_b = _reference(prof, prof.reference_below, speeds)
+    ref_a = _reference(prof, prof.reference_above, speeds)
+    m = prof.margin
+    out = []
+    for k, c in enumerate(crits):
+        nc = c.speed_rpm
+        af = c.af_governing
+        zeta = c.fit.zeta if c.fit is not None else None
+        if nc < n_min:
+            side, ref = "below", ref_b
+            sm = 100.0 * (ref - nc) / ref
+        elif nc > n_mc:
+            side, ref = "above", ref_a
+            sm = 100.0 * (nc - ref) / ref
+        else:
+            side, ref, sm = "inside", None, None
+        cd = af is not None and m.no_margin_below_af is not None and af < m.no_margin_below_af
+        exempt = (zeta is not None and m.damping_exempt_ratio is not None and zeta >= m.damping_exempt_ratio)
+        if side == "inside":
+            req = None
+        else:
+            req = required_margin_pct(prof, af, side, damping_ratio=zeta)
+        if cd:
+            verdict = "pass"
+            reason = (f"critically damped (AF {af:.2f} < {m.no_margin_below_af:g}): no separation "
+                      f"margin required ({m.source.cite()})")
+            req = 0.0
+        elif exempt:
+            verdict = "pass"
+            reason = (f"damping ratio {zeta:.2f} from the modal fit reaches {m.damping_exempt_ratio:g}: "
+                      f"no separation margin required ({m.source.cite()})")
+            req = 0.0
+        elif c.classification == "amplitude-only":
+            verdict = "not judged"
+            reason = ("the phase does not confirm a rotor critical (possible structural resonance "
+                      "or runout artefact): review the Bode and polar plots before judging")
+        elif side == "inside":
+            verdict = "fail"
+            reason = (f"critical at {nc:.0f} rpm lies inside the operating range "
+                      f"{n_min:.0f}-{n_mc:.0f} rpm")
+        else:
+            verdict = "pass" if sm >= req else "fail"
+            basis = (f"AF {af:.2f} by {c.af_method}" if af is not None
+                     else "AF not determinable: the most demanding margin of the rule applied")
+            reason = (f"margin {sm:.1f} % {side} the {'N_min' if side == 'below' else 'N_mc'} "
+                      f"reference, required {req:.1f} % ({basis}; {m.source.cite()})")
+            if m.damping_exempt_ratio is not None and zeta is None:
+                reason += "; no fitted damping ratio, so the damping exemption could not be used"
+        out.append(MarginVerdict(c, probe, c.direction, amplitude_units, side, ref, sm, req,
+                                 verdict, reason, prof.name,
+                                 None if mode_hints is None else mode_hints[k]))
+    return tuple(out)
+
+
+def summarize(margins, *, profile, min_operating_speed_rpm: float, max_continuous_speed_rpm: float,
+              level_checks=()) -> RunVerdict:
+    """Run summary of margin verdicts and level checks; carries :data:`rundash.CAUTION`."""
+    prof = load_profile(profile)
+    margins, checks = tuple(margins), tuple(level_checks)
+    notes = []
+    if prof.needs_confirmation:
+        notes.append(f"profile {prof.name!r} needs the user's confirmation: {prof.notes}")
+    verdicts = [m.verdict for m in margins]
+    if "fail" in verdicts or any(c.status == "exceeds" for c in checks):
+        overall = "fail"
+    elif "not judged" in verdicts:
+        overall = "not judged"
+    else:
+        overall = "pass"
+    if not margins:
+        notes.append("no critical speed found in the speed range of the run")
+    if any(c.status == "reference only" for c in checks):
+        notes.append("zone and limit values marked 'reference only' are shown for orientation; "
+                     "they are not verdicts during transients")
+    return RunVerdict(prof.name, prof.title, prof.needs_confirmation, prof.margin.source.cite(),
+                      float(min_operating_speed_rpm), float(max_continuous_speed_rpm), overall,
+                      margins, checks, tuple(notes))
