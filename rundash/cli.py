@@ -120,6 +120,53 @@ def _table(rows: list[tuple[str, ...]]) -> None:
             print("  ".join("-" * w for w in widths))
 
 
+def _parse_orders(text: str) -> tuple[float, ...]:
+    try:
+        orders = tuple(float(o) for o in text.split(",") if o.strip())
+    except ValueError:
+        orders = ()
+    if not orders or any(not (0 < o <= 40) for o in orders):
+        raise InputError(f"Invalid value for '--orders': allowed a comma-separated list of "
+                         f"orders between 0 and 40 such as 1,2,3,4 or 0.5,1,2, got {text!r}")
+    return orders
+
+
+def _parse_window(text: str | None) -> tuple[float, float] | None:
+    if text is None:
+        return None
+    try:
+        lo, hi = (float(v) for v in text.split(":"))
+    except ValueError:
+        lo = hi = float("nan")
+    if not (0 <= lo < hi):
+        raise InputError(f"Invalid value for '--slow-roll': allowed LOW:HIGH in rpm with "
+                         f"0 <= LOW < HIGH, such as 250:400, got {text!r}")
+    return lo, hi
+
+
+def cmd_process(*, db: str | None, run: int, orders: str, revs_per_block: int,
+                slow_roll: str | None, quiet: bool) -> int:
+    from rundash.pipeline import ProcessingParams, process_run
+
+    params = ProcessingParams(orders=_parse_orders(orders), revs_per_block=revs_per_block,
+                              slow_roll_rpm=_parse_window(slow_roll))
+    database = _open(db)
+    bar = _bar(quiet)
+    res = process_run(database, run, params=params, progress=bar)
+    if hasattr(bar, "close"):
+        bar.close()
+    for w in res.warnings:
+        print(f"warning: {w}", file=sys.stderr)
+    sr = (f"{res.slow_roll_rpm[0]:.0f}-{res.slow_roll_rpm[1]:.0f} rpm" if res.slow_roll_rpm
+          else "none")
+    print(f"run {run}: {res.run_kind}, {res.n_revs} revolutions, {res.n_blocks} vectors per "
+          f"probe and order, slow-roll window {sr}")
+    if res.findings is not None:
+        print(f"verdict: {res.findings.get('run_verdict')} "
+              f"({len(res.findings.get('criticals', []))} critical-speed findings)")
+    return 0
+
+
 def cmd_serve(*, db: str | None, host: str, port: int, debug: bool) -> int:
     from rundash.dashboard.app import serve
 
@@ -171,6 +218,15 @@ def build_parser() -> argparse.ArgumentParser:
 
     with_db(sub.add_parser("machines", help="list the stored machines"))
 
+    s = with_db(sub.add_parser("process", help="order-track a run and find its critical speeds"))
+    s.add_argument("run", type=int, help="run id (see 'rundash runs')")
+    s.add_argument("--orders", default="1,2,3,4", help="orders to track (default 1,2,3,4)")
+    s.add_argument("--revs-per-block", type=int, default=1,
+                   help="revolutions per vector (default 1; 2 or more for half orders)")
+    s.add_argument("--slow-roll", metavar="LOW:HIGH",
+                   help="slow-roll speed window in rpm (default: chosen automatically)")
+    s.add_argument("--quiet", action="store_true", help="no progress bar")
+
     s = with_db(sub.add_parser("serve", help="serve the dashboard"))
     s.add_argument("--host", default="127.0.0.1", help="address to bind (default 127.0.0.1)")
     s.add_argument("--port", type=int, default=8050)
@@ -187,7 +243,7 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
-COMMANDS = {"import": cmd_import, "runs": cmd_runs, "machines": cmd_machines,
+COMMANDS = {"import": cmd_import, "process": cmd_process, "runs": cmd_runs, "machines": cmd_machines,
             "serve": cmd_serve, "demo": cmd_demo}
 
 
