@@ -163,10 +163,12 @@ class TestGroundTruth:
         M, C, K = _mck(p, direction)
         modes = SCENARIO["runs"][rid]["modes"][direction]
         undamped = np.array([m["undamped_rpm"] for m in modes])
+        # reference library: scipy.linalg.eigh on the generalized problem K v = w^2 M v
         w2 = scipy.linalg.eigh(K, M, eigvals_only=True)
         assert_allclose(undamped, np.sqrt(w2) * 30 / np.pi, rtol=1e-9)
         # closed form: the eigenvalues of M^-1 K sum to its trace and multiply to
-        # det K / det M (linear algebra; any text, e.g. Strang, Linear Algebra, 4th ed.)
+        # det K / det M (linear algebra, e.g. G. Strang, Introduction to Linear Algebra;
+        # from memory)
         w2_json = (undamped * np.pi / 30) ** 2
         assert_allclose(w2_json.sum(), np.sum(np.diag(K) / np.diag(M)), rtol=1e-9)
         assert_allclose(np.prod(w2_json), np.linalg.det(K) / np.prod(np.diag(M)), rtol=1e-8)
@@ -182,7 +184,10 @@ class TestGroundTruth:
         assert [m["journal_phase_de_nde_deg"] for m in modes[:2]] == [0.0, 180.0]
 
     def test_steady_peak_agrees_with_independent_frequency_response(self):
-        """Peak, lag and AF of one probe from a frequency response solved here."""
+        """Peak, lag and AF of one probe from a frequency response solved here:
+        (K - w^2 M + i w C) q = u w^2 e^{i(beta - alpha)} [1, s, 0, 0] (steady-state
+        unbalance response, common practice, no source); AF by the half-power rule of
+        the design notes (API 684 style, from memory)."""
         rid = "2023_up"
         p = SCENARIO["cycles"][CYCLE_OF_RUN[rid]]
         M, C, K = _mck(p, "X")
