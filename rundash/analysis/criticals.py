@@ -35,7 +35,7 @@ Confidence = Literal["high", "medium", "low"]
 CRITICALLY_DAMPED_AF = 2.5
 #: Default quasi-steady rule: the half-power band must take at least this many modal
 #: decay times ``1/(zeta*omega_n)`` to cross (our own choice; see find_criticals).
-QUASI_STEADY_RATIO = 10.0
+QUASI_STEADY_RATIO = 20.0
 
 
 @dataclass(frozen=True)
@@ -49,7 +49,9 @@ class Critical:
     ----------
     speed_rpm : float
         The reported critical speed; ``speed_basis`` says which one it is
-        (``'amplitude peak'`` for peaks, ``'90 deg phase'`` for phase-only criticals).
+        (``'amplitude peak'`` for peaks; for phase-only criticals ``'90 deg phase (modal
+        fit)'``, the fitted natural frequency, or ``'90 deg phase'``, the measured
+        crossing when no fit was usable).
     peak_speed_rpm, quadrature_speed_rpm : float or None
         Amplitude-peak speed and the speed where the lag is 90 deg above the mode's
         below-resonance baseline. Both are kept: they differ with damping (the
@@ -323,7 +325,10 @@ def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
     Sweep-rate rule (our own choice, after the effect F. M. Lewis described): a reading is
     quasi-steady when crossing the half-power band takes at least ``quasi_steady_ratio``
     modal decay times ``1/(zeta*omega_n)``; this equals ``alpha <= 2 zeta^2 omega_n^2 /
-    ratio`` for an angular acceleration ``alpha``. Faster sweeps raise
+    ratio`` for an angular acceleration ``alpha``. In SDOF sweeps integrated with
+    :func:`scipy.integrate.solve_ivp` (zeta 0.02-0.1) the apparent peak moved by about
+    19 % of the half-power bandwidth at ratio 10, 10 % at 20 and 7 % at 30, with the peak
+    amplitude within 1-2 %; hence the default 20. Faster sweeps raise
     :class:`rundash.errors.SweepRateWarning` and a note on the critical.
 
     Parameters
@@ -552,6 +557,11 @@ def _phase_only(curve, bands, s_raw, t_raw, cd_af, ratio_min, do_fit, direction,
             q = int(up[0])
             quad = float(np.exp(np.interp(90.0, rel[q:q + 2], np.log(nc_[lo + q:lo + q + 2]))))
         nc = quad if quad is not None else float(nc_[i])
+        basis = "90 deg phase"
+        if mode is not None:
+            # the fitted mode's 90 deg point is fn, unaffected by the constant left by
+            # slow-roll compensation that shifts a slowly rising measured lag
+            nc, basis = mode.fn_rpm, "90 deg phase (modal fit)"
         pa = phase_af(nc_[lo:hi + 1], lag_c[lo:hi + 1], nc_rpm=nc, baseline_deg=base) \
             if hi - lo >= 2 else PhaseAF(None, None, None, None, None, None, None, base, "band too short")
         af, method, reason = _governing(None, mode, pa)
@@ -559,8 +569,10 @@ def _phase_only(curve, bands, s_raw, t_raw, cd_af, ratio_min, do_fit, direction,
         rate, ratio, note = _sweep(s_raw, t_raw, band, zeta, nc, ratio_min)
         ev = [f"phase lag rises by {change:.0f} deg over {band[0]:.0f}-{band[1]:.0f} rpm with no "
               f"prominent amplitude peak: a heavily damped critical",
-              f"lag is 90 deg above the baseline at {nc:.0f} rpm" if quad is not None else
-              f"steepest lag rise at {nc:.0f} rpm",
+              f"measured lag is 90 deg above the baseline at {quad:.0f} rpm" if quad is not None
+              else f"steepest lag rise at {float(nc_[i]):.0f} rpm",
+              f"modal fit: natural frequency {mode.fn_rpm:.0f} rpm, damping ratio {mode.zeta:.2f}"
+              if mode is not None else "no usable modal fit",
               f"AF {af:.2f} by {method}" if af is not None else "AF not determinable"]
         if rate is not None:
             ev.append(f"sweep rate through the band {rate:+.1f} rpm/s")
@@ -569,7 +581,7 @@ def _phase_only(curve, bands, s_raw, t_raw, cd_af, ratio_min, do_fit, direction,
         cd = af is not None and af < cd_af
         if cd:
             ev.append(f"AF below {cd_af:g}: critically damped, no separation margin required")
-        out.append(Critical(nc, "90 deg phase", None, quad, None, change, None, None,
+        out.append(Critical(nc, basis, None, quad, None, change, None, None,
                             float(base % 360.0), band, None, pa, mode, af, method, reason, cd,
                             rate, ratio, note, None, "phase-only", "low", tuple(ev), direction,
                             afac))

@@ -70,7 +70,7 @@ def two_mass(speed_rpm, *, m, k, c, unbalance):
     cc = np.diag(c)
     u = np.asarray(unbalance, dtype=complex)
     a = kk[None] + 1j * w[:, None, None] * cc[None] - (w * w)[:, None, None] * mm[None]
-    return np.linalg.solve(a, (w * w)[:, None] * u[None])
+    return np.linalg.solve(a, ((w * w)[:, None] * u[None])[..., None])[..., 0]
 
 
 def per_rev_run(response, *, start_rpm: float, end_rpm: float, rate_rpm_s: float,

@@ -1,0 +1,200 @@
+"""Tests of rundash/analysis/criticals.py on closed-form rotors, per revolution, noisy."""
+
+import warnings
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+from scipy import linalg
+
+from rundash.analysis.criticals import combine_bearing, compare_directions, find_criticals
+from rundash.errors import AnalysisError, SweepRateWarning
+from tests.analysis.closed_form import jeffcott, per_rev_run, sdof_half_power_af, sdof_unbalance, two_mass
+
+FN = 3000.0
+RUNOUT = 3.0 * np.exp(-0.5j)  # slow-roll runout vector, added then compensated
+
+
+def _sdof_run(zeta, seed=0, fn=FN, rate=20.0, start=300.0, end=6000.0, wobble=20.0):
+    return per_rev_run(lambda n: 10 * sdof_unbalance(n, fn, zeta), start_rpm=start, end_rpm=end,
+                       rate_rpm_s=rate, runout=RUNOUT, seed=seed, end_wobble_rpm=wobble)
+
+
+def _quiet(*args, **kw):
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", SweepRateWarning)
+        return find_criticals(*args, **kw)
+
+
+class TestSdof:
+    # SNR 20 dB per revolution, quasi-steady run-up 300-6000 rpm at 20 rpm/s
+    @pytest.mark.parametrize("zeta, seed", [(0.02, 1), (0.05, 2), (0.05, 3), (0.10, 4), (0.15, 5)])
+    def test_speed_and_af(self, zeta, seed):
+        t, s, v = _sdof_run(zeta, seed)
+        (c,) = _quiet(s, v, time_s=t)
+        assert c.classification == "confirmed" and c.confidence == "high"
+        # peak of the unbalance response at w_n/sqrt(1 - 2 zeta^2) (closed form,
+        # Thomson & Dahleh 5th ed. sec. 3.3); 0.5 % (brief)
+        assert_allclose(c.peak_speed_rpm, FN / np.sqrt(1 - 2 * zeta ** 2), rtol=5e-3)
+        # lag exactly 90 deg at w_n (closed form); 0.5 %
+        assert_allclose(c.quadrature_speed_rpm, FN, rtol=5e-3)
+        # AF: half-power AF of the closed form (quartic roots), 10 % for AF 2.5-20,
+        # 15 % for AF 20-50 (brief)
+        ref = sdof_half_power_af(zeta)
+        assert c.af_method == "half-power"
+        assert_allclose(c.af_governing, ref, rtol=0.15 if ref > 20 else 0.10)
+        # fitted AF = 1/(2 zeta) (definition of the model)
+        assert_allclose(c.fit.af, 1 / (2 * zeta), rtol=0.10)
+        # amplitude: 2 x 10 x peak of r^2/sqrt(...) (closed form), p-p; 5 % for noise
+        rp = 1 / np.sqrt(1 - 2 * zeta ** 2)
+        xp = rp ** 2 / np.sqrt((1 - rp ** 2) ** 2 + (2 * zeta * rp) ** 2)
+        assert_allclose(c.peak_amplitude, 20 * xp, rtol=0.05)
+        assert_allclose(c.sweep_rate_rpm_s, 20.0, rtol=0.01)
+        assert c.polar_loop
+
+    def test_phase_facts(self):
+        # in phase well below, about 90 deg at, about 180 deg well above a lightly damped
+        # critical (closed form: lag = atan2(2 zeta r, 1 - r^2))
+        t, s, v = _sdof_run(0.05, seed=7)
+        (c,) = _quiet(s, v, time_s=t)
+        assert abs(((c.baseline_lag_deg + 180) % 360) - 180) < 5.0  # runout compensated: ~0
+        # at the peak r = 1/sqrt(1 - 2 zeta^2): lag = 92.9 deg (closed form); noise: 3 deg
+        assert_allclose(c.lag_above_baseline_deg, 92.9, atol=3.0)
+        # across the band (25 % amplitude points, r = 0.85..1.29): 16 -> 171 deg (closed form)
+        assert 140 < c.phase_change_deg < 175
+
+    def test_no_resonance_in_range(self):
+        t, s, v = _sdof_run(0.05, seed=8, fn=12000.0)
+        assert _quiet(s, v, time_s=t) == ()
+        rng = np.random.default_rng(9)
+        flat = 2.0 + 0.1 * (rng.standard_normal(s.size) + 1j * rng.standard_normal(s.size))
+        assert find_criticals(s, flat) == ()
+
+    def test_critically_damped(self):
+        # zeta 0.3: half-power AF well below 2.5 (closed form 1/(2 zeta) = 1.67 bound)
+        t, s, v = _sdof_run(0.3, seed=10)
+        (c,) = _quiet(s, v, time_s=t)
+        assert c.af_governing < 2.5 and c.critically_damped
+        assert any("no separation margin required" in e for e in c.evidence)
+
+    def test_more_damping_lower_af(self):
+        # more damping -> lower AF (common practice, no source)
+        afs = [_quiet(*_sdof_run(z, seed=11)[1:])[0].af_governing for z in (0.03, 0.07, 0.15)]
+        assert afs[0] > afs[1] > afs[2]
+
+    def test_phase_only(self):
+        # zeta 0.8: no amplitude peak (zeta > 1/sqrt(2)), lag rises > 90 deg through fn
+        t, s, v = _sdof_run(0.8, seed=12, fn=2000.0)
+        (c,) = _quiet(s, v, time_s=t)
+        assert c.classification == "phase-only" and c.confidence == "low"
+        assert c.peak_speed_rpm is None and c.speed_basis == "90 deg phase (modal fit)"
+        # lag 90 deg at fn (closed form); the fit absorbs the constant that slow-roll
+        # compensation leaves; 1 % for noise
+        assert_allclose(c.speed_rpm, 2000.0, rtol=0.01)
+        assert_allclose(c.fit.zeta, 0.8, rtol=0.05)
+        assert c.critically_damped
+
+    def test_amplitude_only_bump(self):
+        # a resonance-like amplitude bump with no phase change of its own (runout or
+        # structure), in phase with the response there (lag 176 deg at r = 1.5)
+        t, s, v = _sdof_run(0.05, seed=13)
+        v = v + 8.0 * np.exp(-0.5 * ((s - 4500.0) / 60.0) ** 2) * np.exp(-1j * np.radians(176.0))
+        cs = _quiet(s, v, time_s=t)
+        assert [c.classification for c in cs] == ["confirmed", "amplitude-only"]
+        assert cs[1].confidence == "low"
+        assert_allclose(cs[1].peak_speed_rpm, 4500.0, rtol=5e-3)
+        assert any("runout" in e for e in cs[1].evidence)
+
+    def test_sweep_too_fast(self):
+        # zeta 0.02 at 150 rpm/s: band 120 rpm crossed in 0.8 s = 7.5 decay times (< 20)
+        t, s, v = _sdof_run(0.02, seed=14, rate=150.0, wobble=0.0)
+        with pytest.warns(SweepRateWarning, match="too fast for a quasi-steady reading"):
+            (c,) = find_criticals(s, v, time_s=t)
+        assert_allclose(c.sweep_rate_rpm_s, 150.0, rtol=0.01)
+        assert c.sweep_decay_ratio < 20 and "Lewis" in c.sweep_note
+        assert c.confidence == "medium"
+
+    def test_coast_down_and_compare(self):
+        tu, su, vu = _sdof_run(0.05, seed=15)
+        td, sd, vd = _sdof_run(0.05, seed=16, start=6000.0, end=300.0)
+        up = _quiet(su, vu, time_s=tu)
+        down = _quiet(sd, vd, time_s=td, direction="coast-down")
+        assert down[0].direction == "coast-down" and down[0].sweep_rate_rpm_s < 0
+        assert_allclose(down[0].peak_speed_rpm, FN / np.sqrt(1 - 2 * 0.05 ** 2), rtol=5e-3)
+        (pair,) = compare_directions(up, down)
+        assert pair.agreement == "agree" and abs(pair.speed_difference_pct) < 1.0
+
+    def test_validation(self):
+        s = np.linspace(300, 6000, 100)
+        with pytest.raises(AnalysisError, match="Invalid value for 'direction'"):
+            find_criticals(s, np.ones(100), direction="mixed")
+        with pytest.raises(AnalysisError, match="Invalid value for 'vector'"):
+            find_criticals(s, np.ones(99))
+        with pytest.raises(AnalysisError, match="Invalid value for 'amplitude_factor'"):
+            find_criticals(s, np.ones(100), amplitude_factor=0)
+
+
+class TestJeffcott:
+    # parameters of the Jeffcott reference rotor (tests/data/rotor-models/README.md,
+    # closed-form check): m_eff 31.119 kg, shaft 5.835e6 N/m with shear, bearings 3e6 N/m
+    # and 2e3 N s/m each, unbalance 100 g mm; README closed form: disk peak 2967.5 rpm,
+    # 64.54 um pp, AF 9.82; journal 2967.4 rpm, 31.64 um pp, AF 9.82
+    PARAMS = dict(m_kg=31.119, k_shaft=5.835e6, k_bearing=3e6, c_bearing=2e3, unbalance_kg_m=1e-4)
+
+    @pytest.mark.parametrize("station, peak, amp", [(0, 2967.5, 64.54), (1, 2967.4, 31.64)])
+    def test_disk_and_journal(self, station, peak, amp):
+        def resp(n):
+            return 1e6 * jeffcott(n, **self.PARAMS)[station]  # um, peak
+        t, s, v = per_rev_run(resp, start_rpm=300, end_rpm=6000, rate_rpm_s=20, runout=RUNOUT,
+                              seed=20 + station)
+        (c,) = _quiet(s, v, time_s=t)
+        assert c.classification == "confirmed"
+        assert_allclose(c.peak_speed_rpm, peak, rtol=5e-3)
+        assert_allclose(c.af_governing, 9.82, rtol=0.10)
+        assert_allclose(c.peak_amplitude, amp, rtol=0.05)
+
+
+class TestTwoMass:
+    M = (20.0, 30.0)
+    K = (4e6, 3e6, 6e6)
+    C = (1.2e3, 1.8e3)
+    U = (2e-4, 1e-4)
+
+    def test_two_modes(self):
+        # reference: undamped natural frequencies from scipy.linalg.eigh(K, M), and the
+        # peaks/half-power points of the noise-free closed-form curve on a 0.5 rpm grid
+        kk = np.array([[self.K[0] + self.K[1], -self.K[1]], [-self.K[1], self.K[1] + self.K[2]]])
+        wn = np.sqrt(linalg.eigh(kk, np.diag(self.M), eigvals_only=True))
+        fn_rpm = wn * 60 / (2 * np.pi)
+        grid = np.arange(300.0, 12000.0, 0.5)
+        clean = 2e6 * np.abs(two_mass(grid, m=self.M, k=self.K, c=self.C, unbalance=self.U)[:, 0])
+        t, s, v = per_rev_run(lambda n: 1e6 * two_mass(n, m=self.M, k=self.K, c=self.C, unbalance=self.U)[:, 0],
+                              start_rpm=300, end_rpm=12000, rate_rpm_s=40, runout=RUNOUT, seed=30)
+        cs = _quiet(s, v, time_s=t)
+        assert [c.classification for c in cs] == ["confirmed", "confirmed"]
+        for c, f in zip(cs, fn_rpm):
+            win = np.abs(grid - f) < 0.15 * f
+            i = np.flatnonzero(win)[np.argmax(clean[win])]
+            level = clean[i] / np.sqrt(2)
+            n1 = grid[:i][clean[:i] < level][-1]
+            n2 = grid[i:][clean[i:] < level][0]
+            assert_allclose(c.peak_speed_rpm, grid[i], rtol=5e-3)
+            assert_allclose(c.af_governing, grid[i] / (n2 - n1), rtol=0.10)
+            # light damping: the fitted natural frequency is near the undamped one
+            assert_allclose(c.fit.fn_rpm, f, rtol=0.02)
+
+
+class TestCombine:
+    def test_split_critical_note(self):
+        tx, sx, vx = _sdof_run(0.05, seed=40, fn=2950.0)
+        ty, sy, vy = _sdof_run(0.05, seed=41, fn=3300.0)
+        pairs = combine_bearing(_quiet(sx, vx, time_s=tx), _quiet(sy, vy, time_s=ty))
+        assert [p.agreement for p in pairs] == ["one side only", "one side only"]
+        assert all("possible split critical" in p.note for p in pairs)
+
+    def test_isotropic_agree(self):
+        tx, sx, vx = _sdof_run(0.05, seed=42)
+        ty, sy, vy = _sdof_run(0.05, seed=43)
+        (p,) = combine_bearing(_quiet(sx, vx, time_s=tx), _quiet(sy, vy, time_s=ty))
+        assert p.agreement == "agree" and abs(p.speed_difference_pct) < 1.0
+        assert abs(p.af_difference) < 1.0
