@@ -140,8 +140,9 @@ class TestProcessRun:
             ch = next(c for c in q.list_channels(conn, run_id) if c.probe_name == "A-X")
             x = q.read_channel(conn, ch.id)
             revs = q.load_tach(conn, run_id)
-        ref = track_orders(x[None].astype(np.float64), FS, speed_profile(revs), orders=(1, 2))
-        assert_allclose(tr2.amplitude, 2 * np.abs(ref.vectors[0, 1]), rtol=1e-9, atol=1e-9)
+        ref = track_orders(x[None], FS, speed_profile(revs), orders=(1, 2))
+        # float32 samples (eps 6e-8) of a signal whose 1X is ~70 x the 2X: 1e-5 relative
+        assert_allclose(tr2.amplitude, 2 * np.abs(ref.vectors[0, 1]), rtol=1e-5)
         assert np.median(tr2.amplitude) == pytest.approx(6.0, rel=0.03)  # 3 um pk = 6 um pp
         assert len(casc) == 2 and casc[0].amplitude.shape[0] == casc[0].speed_rpm.size > 10
 

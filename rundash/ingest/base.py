@@ -3,7 +3,8 @@ holds every reader to it.
 
 A reader opens a file, says which channels it has, their common sample rate and (when the
 format knows it) the number of samples, and then yields blocks of shape
-``(n_channels, n)`` float64 in the file's own values (volts or engineering units, before
+``(n_channels, n)`` float32 or float64 (float32 where that holds the file's samples
+exactly) in the file's own values (volts or engineering units, before
 any probe sensitivity is applied), in order, never the whole file at once.
 """
 
@@ -42,7 +43,10 @@ class Reader(ABC):
 
     @abstractmethod
     def blocks(self, block_size: int = DEFAULT_BLOCK) -> Iterator[tuple[np.ndarray, float]]:
-        """Yield ``(block, fraction_done)``; block is (n_channels, n) float64."""
+        """Yield ``(block, fraction_done)``; block is (n_channels, n) float32 or float64.
+
+        Non-finite samples are passed on: the importer refuses them, naming channel and
+        sample (the CSV reader refuses them itself, naming the row)."""
 
     def close(self) -> None:  # pragma: no cover - readers without resources
         pass

@@ -57,6 +57,9 @@ class Hdf5Reader(Reader):
                             "common length")
         self.channels = tuple(names)
         self._ds = [g[k] for k in names]
+        small = all(ds.dtype in (np.float32, np.int16, np.int8, np.uint8, np.uint16)
+                    for ds in self._ds)
+        self._dtype = np.dtype(np.float32 if small else np.float64)
         self.n_samples = lengths.pop()
         if self.n_samples == 0:
             self.close()
@@ -81,11 +84,12 @@ class Hdf5Reader(Reader):
         n = self.n_samples
         for start in range(0, n, block_size):
             stop = min(n, start + block_size)
-            block = np.empty((len(self._ds), stop - start), dtype=np.float64)
+            block = np.empty((len(self._ds), stop - start), dtype=self._dtype)
             for i, ds in enumerate(self._ds):
-                ds.read_direct(block[i], np.s_[start:stop]) if ds.dtype == np.float64 else \
-                    block.__setitem__(i, ds[start:stop])
-            self._check_finite(block, start)
+                if ds.dtype == self._dtype:
+                    ds.read_direct(block[i], np.s_[start:stop])
+                else:
+                    block[i] = ds[start:stop]
             yield block, stop / n
 
     def close(self) -> None:

@@ -43,6 +43,30 @@ def file_sha256(path: Path, progress: Progress = no_progress) -> str:
     return h.hexdigest()
 
 
+class _BackgroundHash:
+    """SHA-256 of a file computed in a thread while the import runs (hashlib releases
+    the GIL on large buffers, so on two cores it costs almost no wall time)."""
+
+    def __init__(self, path: Path):
+        import threading
+        self._digest: str | None = None
+        self._error: BaseException | None = None
+        self._thread = threading.Thread(target=self._run, args=(path,), daemon=True)
+        self._thread.start()
+
+    def _run(self, path: Path) -> None:
+        try:
+            self._digest = file_sha256(path)
+        except BaseException as exc:  # re-raised in the importing thread
+            self._error = exc
+
+    def result(self) -> str:
+        self._thread.join()
+        if self._error is not None:
+            raise InputError(f"cannot read the file to hash it: {self._error}")
+        return self._digest
+
+
 def _channel_plan(desc: MachineDescription, channels: tuple[str, ...], name: str):
     """(file column index, role, probe, unit, scale) for the tach and every probe."""
     index = {c: i for i, c in enumerate(channels)}
@@ -83,23 +107,18 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
     reader = open_reader(path, desc.data)
     try:
         plan = _channel_plan(desc, reader.channels, path.name)
-        sha = file_sha256(path, progress)
+        hasher = _BackgroundHash(path)
         warnings: list[str] = []
         unused = sorted(set(reader.channels) - {reader.channels[i] for i, *_ in plan})
         if unused:
             warnings.append(f"file channels not named in the machine description were not "
                             f"stored: {', '.join(unused)}")
         with db.write() as conn:
-            dup = q.find_run_by_hash(conn, sha)
-            if dup is not None and not force:
-                raise DuplicateRunError(
-                    f"{path.name}: this file was imported before as run {dup} (same content "
-                    "hash); use --force to import it again")
             mid, _ = q.upsert_machine(conn, desc)
             fs = reader.sample_rate_hz
             run_id = q.create_run(
                 conn, machine_id=mid, kind=kind, label=label or path.stem, cycle=cycle,
-                notes=notes, started_at=started_at, source_name=path.name, source_sha256=sha,
+                notes=notes, started_at=started_at, source_name=path.name, source_sha256="",
                 sample_rate_hz=fs, description_toml=description_text)
             ch_ids = []
             for pos, (col, role, probe, unit, scale) in enumerate(plan):
@@ -117,7 +136,9 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
             pending: list[np.ndarray] = []
             pending_n = 0
             for block, frac in reader.blocks(q.CHUNK_SAMPLES):
-                pending.append(block[cols] * scales)
+                sel = block[cols]
+                sel *= scales.astype(sel.dtype)
+                pending.append(sel)
                 pending_n += block.shape[1]
                 while pending_n >= q.CHUNK_SAMPLES:
                     data = np.concatenate(pending, axis=1) if len(pending) > 1 else pending[0]
@@ -137,8 +158,15 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
                     warnings.append(f"channel {reader.channels[col]!r}"
                                     f"{' (probe ' + probe.name + ')' if probe else ' (tach)'} is "
                                     f"flat: every sample equals {stats_min[i]:g} {unit}")
+            sha = hasher.result()
+            dup = q.find_run_by_hash(conn, sha)
+            if dup is not None and not force:
+                raise DuplicateRunError(
+                    f"{path.name}: this file was imported before as run {dup} (same content "
+                    "hash); use --force to import it again")
             q.set_channel_lengths(conn, {cid: start for cid in ch_ids})
-            q.update_run(conn, run_id, n_samples=start, state="complete", warnings=warnings)
+            q.update_run(conn, run_id, n_samples=start, state="complete", warnings=warnings,
+                         source_sha256=sha)
             progress(1.0, "importing")
     finally:
         reader.close()
@@ -149,11 +177,15 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
 def _flush(conn, ch_ids, chunk, start, chunk_index, fs, smin, smax, names, source):
     with np.errstate(over="ignore"):
         chunk32 = chunk.astype(np.float32)
-    bad = ~np.isfinite(chunk32)
-    if bad.any():
+    if not np.isfinite(chunk32).all():
+        bad = ~np.isfinite(chunk32)
         ch, idx = np.argwhere(bad)[0]
+        value = chunk[ch, idx]
+        if not np.isfinite(value):
+            raise InputError(f"{source}: channel {names[ch]!r}, sample {start + idx}: value "
+                             f"{value!r} is not a finite number")
         raise InputError(f"{source}: channel {names[ch]!r}, sample {start + idx}: value "
-                         f"{chunk[ch, idx]:.6g} after scaling does not fit a float32 sample "
+                         f"{value:.6g} after scaling does not fit a float32 sample "
                          "(expected |value| < 3.4e38 in the stored unit)")
     np.minimum(smin, chunk32.min(axis=1), out=smin)
     np.maximum(smax, chunk32.max(axis=1), out=smax)

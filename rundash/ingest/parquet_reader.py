@@ -72,7 +72,9 @@ class ParquetReader(Reader):
                 t = arrs.pop().astype(np.float64)
                 check_time_continues(t, self.sample_rate_hz, start, self._t0, self.path.name,
                                      self._tcol, start)
-            block = np.vstack([a.astype(np.float64, copy=False) for a in arrs])
-            self._check_finite(block, start)
+            dt = np.float32 if all(a.dtype == np.float32 for a in arrs) else np.float64
+            block = np.empty((len(arrs), n), dtype=dt)
+            for i, a in enumerate(arrs):
+                block[i] = a
             start += n
             yield block, start / self.n_samples
