@@ -1,0 +1,249 @@
+"""Findings of a run: analysis results gathered into the findings JSON and table rows.
+
+Pipeline-level glue (no I/O): for every probe and run direction it finds the critical
+speeds in the slow-roll-compensated 1X vectors, adds mode-shape hints from the two
+bearings, judges each critical's separation margin against the machine's guidance
+profile, checks levels against the limits, combines the X/Y probes of each bearing and
+compares run-up with coast-down. The JSON (schema ``rundash.findings/1``, documented in
+the README) is what ``rundash findings --json`` prints and the dashboard reads.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from typing import Any, Sequence
+
+import numpy as np
+
+from rundash import CAUTION
+from rundash.analysis import criticals as crit_mod
+from rundash.analysis.limits import check_levels
+from rundash.analysis.modes import mode_hint
+from rundash.analysis.profiles import load_profile
+from rundash.analysis.verdicts import judge, summarize
+from rundash.conventions import lag_deg_from_phasor
+from rundash.model import ChannelInfo, MachineDescription, RunInfo
+from rundash.units import VECTOR_AMPLITUDE_CONVENTION, amplitude_label
+
+SCHEMA = "rundash.findings/1"
+MIN_BLOCKS = 20  # fewer revolutions in a direction than this: nothing to judge there
+
+
+def _num(x):
+    if x is None:
+        return None
+    try:
+        x = float(x)
+    except (TypeError, ValueError):
+        return None
+    return x if math.isfinite(x) else None
+
+
+def _vector_at(speed, vec, nc, width_pct=0.5):
+    """Mean complex vector within +-width_pct of a speed (None when no block is there)."""
+    sel = np.abs(speed - nc) <= nc * width_pct / 100.0
+    if not sel.any():
+        i = int(np.argmin(np.abs(speed - nc)))
+        if abs(speed[i] - nc) > nc * 0.02:
+            return None
+        return vec[i]
+    return vec[sel].mean()
+
+
+def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[ChannelInfo],
+                   track, compensated: np.ndarray, segments, slow_roll_rpm) -> dict[str, Any]:
+    """Findings JSON of one processed run (see the module docstring)."""
+    m = desc.machine
+    profile = load_profile(m.profile)
+    notes: list[str] = []
+    k1 = int(np.flatnonzero(np.isclose(track.orders, 1.0))[0]) if np.any(
+        np.isclose(track.orders, 1.0)) else None
+    spec_by_name = {p.name: p for p in desc.probes}
+    directions = {}
+    for d in ("run-up", "coast-down"):
+        sel = np.zeros(track.n_blocks, dtype=bool)
+        for s in segments:
+            if s.kind == d:
+                sel |= (track.time_s >= s.t_start_s) & (track.time_s <= s.t_end_s)
+        if sel.sum() >= MIN_BLOCKS:
+            directions[d] = sel
+    if k1 is None:
+        notes.append("1X was not tracked: no critical speeds can be found")
+    if not directions:
+        notes.append("the run has no run-up or coast-down stretch long enough to judge")
+
+    per_probe: dict[tuple[str, str], tuple] = {}  # (probe, direction) -> (crits, speed, vec)
+    if k1 is not None:
+        for i, ch in enumerate(probes):
+            if ch.kind not in VECTOR_AMPLITUDE_CONVENTION:
+                continue
+            afac = 2.0 if VECTOR_AMPLITUDE_CONVENTION[ch.kind] == "pp" else 1.0
+            for d, sel in directions.items():
+                s, v, t = track.speed_rpm[sel], compensated[i, k1, sel], track.time_s[sel]
+                with warnings.catch_warnings(record=True) as caught:
+                    warnings.simplefilter("always")
+                    crits = crit_mod.find_criticals(s, v, time_s=t, amplitude_factor=afac,
+                                                    direction=d)
+                for w in caught:
+                    notes.append(f"{ch.probe_name} {d}: {w.message}")
+                per_probe[(ch.probe_name, d)] = (crits, s, v, t, afac, i)
+
+    # mode-shape hints: the same-axis probe at another bearing, at the same speed
+    hints: dict[tuple[str, str], list[str | None]] = {}
+    for (name, d), (crits, s, v, *_rest) in per_probe.items():
+        sp = spec_by_name.get(name)
+        partner = None
+        if sp is not None and sp.bearing:
+            partner = next((p for p in desc.probes if p.name != name and p.bearing
+                            and p.bearing != sp.bearing and p.axis == sp.axis
+                            and p.kind == sp.kind and (p.name, d) in per_probe), None)
+        out = []
+        for c in crits:
+            if partner is None:
+                out.append(None)
+                continue
+            _, s2, v2, *_ = per_probe[(partner.name, d)]
+            a, b = _vector_at(s, v, c.speed_rpm), _vector_at(s2, v2, c.speed_rpm)
+            if a is None or b is None:
+                out.append(None)
+                continue
+            h = mode_hint(float(lag_deg_from_phasor(a)), float(lag_deg_from_phasor(b)),
+                          angle_a_deg=sp.angle_deg, angle_b_deg=partner.angle_deg,
+                          amplitude_a=abs(a), amplitude_b=abs(b))
+            out.append(f"{h.shape} (vs {partner.name}, "
+                       + (f"{h.phase_difference_deg:.0f} deg apart" if h.phase_difference_deg
+                          is not None else "phase difference unclear") + "; a hint)")
+        hints[(name, d)] = out
+
+    margins = []
+    level_checks = []
+    crit_json: list[dict[str, Any]] = []
+    limits_json: list[dict[str, Any]] = []
+    steady_top = any(s.kind == "steady" and s.rpm_start >= 0.95 * max(
+        track.speed_rpm.max(), 1.0) for s in segments)
+    for (name, d), (crits, s, v, t, afac, i) in per_probe.items():
+        ch = probes[i]
+        sp = spec_by_name.get(name)
+        units = amplitude_label(ch.kind)
+        mv = judge(crits, min_operating_speed_rpm=m.min_operating_speed_rpm,
+                   max_continuous_speed_rpm=m.max_continuous_speed_rpm, profile=profile,
+                   rated_speed_rpm=m.rated_speed_rpm, probe=name, amplitude_units=units,
+                   mode_hints=hints[(name, d)])
+        margins.extend(mv)
+        for verdict in mv:
+            j = verdict.to_json_dict()
+            c = verdict.critical
+            hp = c.half_power
+            j.update(bearing=sp.bearing if sp else "", axis=sp.axis if sp else "none",
+                     band_rpm=[_num(c.band_rpm[0]), _num(c.band_rpm[1])],
+                     n1_rpm=_num(hp.n1_rpm) if hp is not None else None,
+                     n2_rpm=_num(hp.n2_rpm) if hp is not None else None)
+            crit_json.append(j)
+        if ch.kind in ("proximity", "velocity"):
+            direct = track.direct_pp[i] if ch.kind == "proximity" else track.direct_rms[i]
+            sel = directions[d]
+            checks = check_levels(s, vector=v, direct=direct[sel], criticals=crits,
+                                  kind=ch.kind, amplitude_factor=afac,
+                                  max_continuous_speed_rpm=m.max_continuous_speed_rpm,
+                                  profile=profile, top_speed_is_steady=steady_top)
+            level_checks.extend(checks)
+            for lc in checks:
+                lj = lc.to_json_dict()
+                limits_json.append(dict(
+                    probe=name, direction=d, measure=lj["quantity"], where=lj["where"],
+                    band_rpm=lj["band_rpm"], speed_rpm=_num(lj["speed_rpm"]),
+                    value=_num(lj["level"]), units=lj["units"], limit=_num(lj["limit_value"]),
+                    limit_id=lj["limit"], zone=lj["zone"], verdict=lj["status"],
+                    basis=lj["note"], source=lj["source"]))
+
+    bearings = []
+    by_bearing: dict[tuple[str, str], dict[str, Any]] = {}
+    for (name, d), (crits, *_r) in per_probe.items():
+        sp = spec_by_name.get(name)
+        if sp is None or not sp.bearing or sp.axis not in ("X", "Y"):
+            continue
+        by_bearing.setdefault((sp.bearing, d), {})[sp.axis] = (name, crits)
+    for (bearing, d), axes in sorted(by_bearing.items()):
+        if "X" not in axes or "Y" not in axes:
+            continue
+        for pair in crit_mod.combine_bearing(axes["X"][1], axes["Y"][1]):
+            ref = pair.a or pair.b
+            bearings.append(dict(
+                bearing=bearing, direction=d, probes=[axes["X"][0], axes["Y"][0]],
+                speed_rpm=_num(ref.speed_rpm) if ref else None,
+                x_speed_rpm=_num(pair.a.speed_rpm) if pair.a else None,
+                y_speed_rpm=_num(pair.b.speed_rpm) if pair.b else None,
+                speed_difference_pct=_num(pair.speed_difference_pct),
+                af_difference=_num(pair.af_difference), agreement=pair.agreement,
+                note=pair.note))
+
+    direction_cmp = []
+    names = sorted({n for n, _ in per_probe})
+    for name in names:
+        if (name, "run-up") in per_probe and (name, "coast-down") in per_probe:
+            for pair in crit_mod.compare_directions(per_probe[(name, "run-up")][0],
+                                                    per_probe[(name, "coast-down")][0]):
+                direction_cmp.append(dict(
+                    probe=name,
+                    run_up_speed_rpm=_num(pair.a.speed_rpm) if pair.a else None,
+                    coast_down_speed_rpm=_num(pair.b.speed_rpm) if pair.b else None,
+                    speed_difference_pct=_num(pair.speed_difference_pct),
+                    af_difference=_num(pair.af_difference), agreement=pair.agreement,
+                    note=pair.note))
+
+    summary = summarize(margins, profile=profile,
+                        min_operating_speed_rpm=m.min_operating_speed_rpm,
+                        max_continuous_speed_rpm=m.max_continuous_speed_rpm,
+                        level_checks=level_checks)
+    sj = summary.to_json_dict()
+    return {
+        "schema": SCHEMA,
+        "run": dict(id=run.id, machine=run.machine_name, label=run.label, cycle=run.cycle,
+                    kind=run.kind, started_at=run.started_at.isoformat() if run.started_at
+                    else None, source=run.source_name),
+        "machine": dict(rated_speed_rpm=m.rated_speed_rpm,
+                        min_operating_speed_rpm=m.min_operating_speed_rpm,
+                        max_continuous_speed_rpm=m.max_continuous_speed_rpm,
+                        trip_speed_rpm=m.trip_speed_rpm, kind=m.kind),
+        "profile": dict(sj["profile"], rules=_profile_rules(profile)),
+        "processing": dict(slow_roll_rpm=list(slow_roll_rpm) if slow_roll_rpm else None,
+                           speed_range_rpm=[_num(track.speed_rpm.min()),
+                                            _num(track.speed_rpm.max())]),
+        "criticals": sorted(crit_json, key=lambda c: (c["direction"], c["speed_rpm"] or 0,
+                                                      c["probe"])),
+        "bearings": bearings,
+        "directions": direction_cmp,
+        "limits": limits_json,
+        "warnings": notes + list(sj["notes"]),
+        "run_verdict": sj["overall"],
+        "caution": CAUTION,
+    }
+
+
+def _profile_rules(profile) -> list[dict[str, Any]]:
+    m = profile.margin
+    rules = [dict(rule="separation margin", document=m.source.document,
+                  edition=m.source.edition, clause=m.source.clause,
+                  confidence=m.source.confidence)]
+    for lim in profile.limits:
+        rules.append(dict(rule=lim.title, document=lim.source.document,
+                          edition=lim.source.edition, clause=lim.source.clause,
+                          confidence=lim.source.confidence))
+    return rules
+
+
+def finding_rows(findings: dict[str, Any]) -> list[dict[str, Any]]:
+    """Rows of the finding table from a findings JSON."""
+    rows = []
+    for c in findings.get("criticals", []):
+        rows.append(dict(
+            probe_name=c["probe"], direction=c["direction"], speed_rpm=c["speed_rpm"],
+            peak_amplitude=c.get("peak_amplitude"), amplitude_units=c.get("amplitude_units", ""),
+            af_half_power=c.get("af_half_power"), af_phase=c.get("af_phase"),
+            af_fit=c.get("af_fit"), damping_ratio_fit=c.get("damping_ratio_fit"),
+            classification=c.get("classification", ""), confidence=c.get("confidence", ""),
+            mode_hint=c.get("mode_hint"), separation_margin_pct=c.get("separation_margin_pct"),
+            required_margin_pct=c.get("required_margin_pct"),
+            margin_verdict=c.get("margin_verdict", ""), details=c))
+    return rows
