@@ -167,6 +167,59 @@ def cmd_process(*, db: str | None, run: int, orders: str, revs_per_block: int,
     return 0
 
 
+def cmd_findings(*, db: str | None, run: int, as_json: bool) -> int:
+    from rundash.errors import NotFoundError
+    from rundash.storage import queries as q
+
+    database = _open(db)
+    with database.read() as conn:
+        q.get_run(conn, run)
+        proc = q.load_processing(conn, run)
+    if proc is None or proc.findings is None:
+        raise NotFoundError(f"run {run} has no findings yet: run 'rundash process {run}' first")
+    f = proc.findings
+    if as_json:
+        print(json.dumps(f, indent=2))
+        return 0
+    r, mach = f["run"], f["machine"]
+    print(f"run {r['id']}: {r['machine']} — {r['label']} ({r['kind']}, {r['cycle'] or 'no cycle'}, "
+          f"{r['started_at'] or 'start time not given'})")
+    print(f"operating range {mach['min_operating_speed_rpm']:g}-"
+          f"{mach['max_continuous_speed_rpm']:g} rpm; profile {f['profile']['name']}: "
+          f"{f['profile']['title']}")
+    print(f"verdict: {f['run_verdict'].upper()}")
+    print()
+
+    def fmt(v, spec=".2f"):
+        return "-" if v is None else format(v, spec)
+
+    rows = [("probe", "dir", "speed rpm", "AF hp", "AF phase", "AF fit", "class", "conf",
+             "margin %", "required %", "verdict")]
+    for c in f["criticals"]:
+        rows.append((c["probe"], c["direction"], fmt(c["speed_rpm"], ".0f"),
+                     fmt(c["af_half_power"]), fmt(c["af_phase"]), fmt(c["af_fit"]),
+                     c["classification"], c["confidence"], fmt(c["separation_margin_pct"], ".1f"),
+                     fmt(c["required_margin_pct"], ".1f"), c["margin_verdict"]))
+    if len(rows) > 1:
+        _table(rows)
+    else:
+        print("no critical speed found in the speed range of the run")
+    judged = [x for x in f["limits"] if x["verdict"] != "reference only"]
+    if judged:
+        print()
+        rows = [("probe", "dir", "measure", "where", "at rpm", "level", "limit", "zone", "result")]
+        for x in judged:
+            rows.append((x["probe"], x["direction"], x["measure"], x["where"],
+                         fmt(x["speed_rpm"], ".0f"), f"{fmt(x['value'], '.1f')} {x['units']}",
+                         fmt(x["limit"], ".1f"), x["zone"] or "-", x["verdict"]))
+        _table(rows)
+    for w in f["warnings"]:
+        print(f"note: {w}")
+    print()
+    print(f["caution"])
+    return 0
+
+
 def cmd_serve(*, db: str | None, host: str, port: int, debug: bool) -> int:
     from rundash.dashboard.app import serve
 
@@ -227,6 +280,12 @@ def build_parser() -> argparse.ArgumentParser:
                    help="slow-roll speed window in rpm (default: chosen automatically)")
     s.add_argument("--quiet", action="store_true", help="no progress bar")
 
+    s = with_db(sub.add_parser("findings", help="critical speeds, AFs, margins and limit "
+                                                "checks of a processed run"))
+    s.add_argument("run", type=int, help="run id (see 'rundash runs')")
+    s.add_argument("--json", dest="as_json", action="store_true",
+                   help="the findings as JSON (schema rundash.findings/1, see the README)")
+
     s = with_db(sub.add_parser("serve", help="serve the dashboard"))
     s.add_argument("--host", default="127.0.0.1", help="address to bind (default 127.0.0.1)")
     s.add_argument("--port", type=int, default=8050)
@@ -243,7 +302,7 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
-COMMANDS = {"import": cmd_import, "process": cmd_process, "runs": cmd_runs, "machines": cmd_machines,
+COMMANDS = {"import": cmd_import, "process": cmd_process, "findings": cmd_findings, "runs": cmd_runs, "machines": cmd_machines,
             "serve": cmd_serve, "demo": cmd_demo}
 
 
