@@ -189,6 +189,8 @@ class OrderTracker:
         self._j_next = 0
         self._tail = np.empty((self.n_channels, 0))
         self._tail_start: int | None = None
+        # samples of the longest block, to size the joined head of each chunk
+        self._head_samples = max(4096, int(2 * self.revs_per_block * np.max(np.diff(rev_t)) * fs) + 8)
         o2 = np.round(self.orders * 2).astype(np.int64)
         if np.all(np.abs(self.orders * 2 - o2) < 1e-12) and o2.max() <= 64:
             if np.all(o2 % 2 == 0):
@@ -211,49 +213,99 @@ class OrderTracker:
         if isinstance(start_index, bool) or int(start_index) != start_index or start_index < 0:
             raise DspError(invalid_value("start_index", start_index, "a sample index >= 0"))
         start_index = int(start_index)
-        if self._tail_start is not None:
-            expected = self._tail_start + self._tail.shape[1]
-            if start_index != expected:
-                raise DspError(invalid_value("start_index", start_index,
-                                             f"the next sample index {expected} (chunks "
-                                             "must be consecutive)"))
-            base = self._tail_start
-            data = np.concatenate([self._tail, x], axis=1, dtype=np.float64)
-        else:
-            base = start_index
-            data = np.asarray(x, dtype=np.float64)
-        track, keep_from = self._process(data, base)
-        self._tail = data[:, keep_from - base:].copy()
-        self._tail_start = keep_from
-        return track
+        work = np.float32 if x.dtype == np.float32 else np.float64
+        if x.dtype != work:
+            x = x.astype(work)
+        if self._tail_start is None:
+            self._tail_start = start_index
+            self._tail = np.empty((self.n_channels, 0), work)
+        expected = self._tail_start + self._tail.shape[1]
+        if start_index != expected:
+            raise DspError(invalid_value("start_index", start_index,
+                                         f"the next sample index {expected} (chunks "
+                                         "must be consecutive)"))
+        if self._tail.dtype != work:
+            self._tail = self._tail.astype(work)
+        parts = []
+        pos = self._tail_start  # record index of the first sample still needed
+        if self._tail.shape[1]:
+            # blocks that straddle the previous chunk: a small joined head, grown until
+            # the next block starts inside the new chunk (no copy of the whole chunk)
+            head = self._head_samples
+            while True:
+                h = min(head, x.shape[1])
+                joined = np.concatenate([self._tail, x[:, :h]], axis=1)
+                tr, keep = self._process(joined, self._tail_start)
+                if tr.n_blocks:
+                    parts.append(tr)
+                if keep >= start_index or h == x.shape[1]:
+                    break
+                head *= 2
+            pos = keep
+            if keep < start_index:  # the whole chunk went into the head, still no block
+                self._tail = joined[:, keep - self._tail_start:].copy()
+                self._tail_start = keep
+                return self._joined(parts)
+        off = pos - start_index
+        tr, keep = self._process(x[:, off:], pos)
+        if tr.n_blocks:
+            parts.append(tr)
+        self._tail = x[:, keep - start_index:].copy()
+        self._tail_start = keep
+        return self._joined(parts)
 
     def finish(self) -> OrderTrack:
         """End of the record: release the tail (no block can complete without more data)."""
-        self._tail = np.empty((self.n_channels, 0))
+        self._tail = self._tail[:, :0].copy()
         return OrderTrack.empty(self.n_channels, self.orders)
 
     # -- internals ------------------------------------------------------------------
-    def _exponentials(self, theta: np.ndarray) -> np.ndarray:
-        """exp(-j 2 pi m theta) for every order, shape (n_orders, n)."""
-        out = np.empty((self.orders.size, theta.size), np.complex128)
+    def _joined(self, parts) -> OrderTrack:
+        if not parts:
+            return OrderTrack.empty(self.n_channels, self.orders)
+        return parts[0] if len(parts) == 1 else concat_tracks(parts)
+
+    def _exponentials(self, theta: np.ndarray, out: np.ndarray, w: np.ndarray | None) -> None:
+        """Write ``w exp(-j 2 pi m theta)`` for every order m into ``out[:, :n_orders]``
+        and ``w`` into ``out[:, n_orders]`` (with ``w`` None: the bare exponentials,
+        the last column left as it is).
+
+        The angle's fraction of a cycle is taken in float64 before the cosine and sine,
+        so the precision does not depend on how many revolutions have passed; the
+        cosine and sine are then evaluated in the working precision of ``out``.
+        """
+        real = np.float32 if out.dtype == np.complex64 else np.float64
+
+        def cis(cycles):
+            a = cycles - np.floor(cycles)
+            a = (2.0 * np.pi * a).astype(real, copy=False)
+            e = np.empty(a.shape, out.dtype)
+            e.real = np.cos(a)
+            e.imag = -np.sin(a)
+            return e
+
+        n_o = self.orders.size
+        if w is not None:
+            out[:, n_o] = w
         if self._powers is None:
             for i, m in enumerate(self.orders):
-                out[i] = np.exp(-2j * np.pi * m * theta)
-            return out
-        e1 = np.exp((-2j * np.pi * self._base) * theta)
+                out[:, i] = cis(m * theta) if w is None else cis(m * theta) * w
+            return
+        e1 = cis(self._base * theta)
         need = int(self._powers.max())
+        slots = {int(q): i for i, q in enumerate(self._powers)}
         cur = e1
         p = 1
-        slots = {int(q): i for i, q in enumerate(self._powers)}
         while True:
-            for q, i in slots.items():
-                if q == p:
-                    out[i] = cur
+            if p in slots:
+                if w is None:
+                    out[:, slots[p]] = cur
+                else:
+                    np.multiply(cur, w, out=out[:, slots[p]])
             if p >= need:
                 break
             cur = cur * e1
             p += 1
-        return out
 
     def _process(self, data: np.ndarray, base: int) -> tuple[OrderTrack, int]:
         n_ch, n = data.shape
@@ -274,7 +326,7 @@ class OrderTracker:
             # nothing evaluable: before the profile keep the last sample, after it nothing
             return empty, (base + n - 1 if i_lo >= n else base + n)
         t = (base + np.arange(i_lo, i_hi)) / fs
-        theta = prof._angle(t, extrapolate=True)
+        theta = prof._angle(t, extrapolate=True, sorted_t=True)
         finite = np.isfinite(theta)
         if not finite.all():
             idx = np.flatnonzero(finite)
@@ -307,19 +359,20 @@ class OrderTracker:
         w[1:-1] = 0.5 * (d[:-1] + d[1:])
         w[0] = 0.5 * d[0]
         w[-1] = 0.5 * d[-1]
-        E = self._exponentials(th)  # (n_orders, L)
         n_o = self.orders.size
-        V = np.empty((th.size, 2 * n_o))
-        Ew = E * w
-        V[:, :n_o] = Ew.real.T
-        V[:, n_o:] = Ew.imag.T
+        work = data.dtype  # float32 data is tracked in float32, float64 in float64
+        cwork = np.complex64 if work == np.float32 else np.complex128
+        # Ew[:, :n_o] = w exp(-j 2 pi m theta) per sample, Ew[:, n_o] = w (order 0)
+        Ew = np.empty((th.size, n_o + 1), cwork)
+        self._exponentials(th, Ew, w.astype(work))
+        V = Ew.view(work)  # (L, 2 (n_o + 1)): re, im of each order side by side
         na_l, nb_l = na - s0, nb - s0  # indices into th / xs
         nblk = na.size
-        core = np.empty((nblk, n_ch, 2 * n_o))
+        core = np.empty((nblk, n_ch, 2 * (n_o + 1)), work)
         for i in range(nblk):  # one small matrix product per block
             a, b = na_l[i], nb_l[i] + 1
             np.matmul(xs[:, a:b], V[a:b], out=core[i])
-        core_c = core[:, :, :n_o] + 1j * core[:, :, n_o:]  # (nblk, n_ch, n_o)
+        Q = core.view(cwork).astype(np.complex128)  # (nblk, n_ch, n_o + 1)
         # end corrections (exact block limits between samples)
         k_lo = bounds[:-1].astype(np.float64)
         k_hi = bounds[1:].astype(np.float64)
@@ -332,17 +385,26 @@ class OrderTracker:
         idx4 = np.stack([na_l - 1, na_l, nb_l, nb_l + 1], axis=1)  # (nblk, 4)
         coef = np.stack([0.5 * hL * (1 - lam), 0.5 * hL * (1 + lam) - 0.5 * dl,
                          0.5 * hR * (2 - mu) - 0.5 * dr, 0.5 * hR * mu], axis=1)
-        Ec = E[:, idx4] * coef[None]  # (n_o, nblk, 4)
-        Xc = xs[:, idx4]  # (n_ch, nblk, 4)
-        corr = np.einsum("cbi,obi->boc", Xc, Ec)  # (nblk, n_o, n_ch)
-        vec = (core_c.transpose(0, 2, 1) + corr) * (2.0 / R)  # (nblk, n_o, n_ch)
-        vectors = np.ascontiguousarray(vec.transpose(2, 1, 0))
+        E4 = np.ones(idx4.shape + (n_o + 1,), np.complex128)  # exponentials at the ends
+        self._exponentials(th[idx4].ravel(), E4.reshape(-1, n_o + 1), None)
+        Ec = E4 * coef[:, :, None]  # (nblk, 4, n_o + 1)
+        Q += np.einsum("cbi,bio->bco", xs[:, idx4].astype(np.float64), Ec)
+        # The rule's own error on a constant: L = quadrature of exp(-j 2 pi m theta) alone
+        # (zero exactly); removing D * L, D the block mean, cancels the leakage of a large
+        # DC offset (a probe's gap) into the orders.
+        # (accumulated in the working precision, like the products above)
+        sums = np.add.reduceat(V[na_l[0]:nb_l[-1] + 1], na_l - na_l[0], axis=0)
+        L = sums.view(cwork)[:, :n_o] + Ec[:, :, :n_o].sum(axis=1)  # (nblk, n_o)
+        D = Q[:, :, n_o].real / R  # (nblk, n_ch)
+        vec = (Q[:, :, :n_o] - D[:, :, None] * L[:, None, :]) * (2.0 / R)  # (nblk, n_ch, n_o)
+        vectors = np.ascontiguousarray(vec.transpose(1, 2, 0))
         # direct levels over the block's own samples
         seg = xs[:, na_l[0]:nb_l[-1] + 1]
         offs = na_l - na_l[0]
         cnt = (nb_l - na_l + 1).astype(np.float64)
-        pp = np.maximum.reduceat(seg, offs, axis=1) - np.minimum.reduceat(seg, offs, axis=1)
-        rms = np.sqrt(np.add.reduceat(seg * seg, offs, axis=1) / cnt)
+        pp = (np.maximum.reduceat(seg, offs, axis=1)
+              - np.minimum.reduceat(seg, offs, axis=1)).astype(np.float64)
+        rms = np.sqrt(np.add.reduceat(seg * seg, offs, axis=1).astype(np.float64) / cnt)
         ks = bounds[:-1]
         t_a, t_b = rev_t[ks], rev_t[ks + R]
         track = OrderTrack(time_s=0.5 * (t_a + t_b), speed_rpm=60.0 * R / (t_b - t_a),
