@@ -121,6 +121,7 @@ class _Curve:
     lag: np.ndarray  # unwrapped lag, deg
     noise: np.ndarray  # 1-sigma noise of the smoothed amplitude per bin, amplitude_factor units
     smoothed: bool
+    window_bins: int  # smoothing window in bins (1 when not smoothed)
 
 
 def _bin(speed: np.ndarray, vector: np.ndarray, bin_rpm: float | None):
@@ -182,7 +183,8 @@ def _prepare(speed, vector, amplitude_factor, bin_rpm, smooth_rpm) -> _Curve:
         sig2 = np.convolve(np.pad(sig2, n_win // 2, mode="edge"), coeffs ** 2, mode="valid")
         v = signal.savgol_filter(v.real, n_win, 2) + 1j * signal.savgol_filter(v.imag, n_win, 2)
     lag = np.degrees(np.unwrap(-np.angle(v)))
-    return _Curve(grid, v, amplitude_factor * np.abs(v), lag, amplitude_factor * np.sqrt(sig2), smoothed)
+    return _Curve(grid, v, amplitude_factor * np.abs(v), lag, amplitude_factor * np.sqrt(sig2), smoothed,
+                  n_win if smoothed else 1)
 
 
 def _band_edges(amp: np.ndarray, i: int, frac: float, tol: float) -> tuple[int, int]:
@@ -205,6 +207,43 @@ def _band_edges(amp: np.ndarray, i: int, frac: float, tol: float) -> tuple[int, 
             jmin = j
         out.append(jmin)
     return out[0], out[1]
+
+
+def _stall(curve: _Curve, i: int, hp: HalfPower, width_frac: float = 0.02,
+           k_sigma: float = 3.0) -> str:
+    """Side on which a noisy descent from the peak stalls before the half-power level.
+
+    Walking from 95 % of the peak to N1 (N2) in chunks 2 % of Nc wide, the chunk means of a
+    single mode keep falling; a pair that does not fall by ``k_sigma`` noise sigmas of the
+    difference is a plateau held up by a neighbouring mode, which residual noise may hide
+    as a bump. Returns ``'low'``, ``'high'`` or ``''``.
+    """
+    sp, amp = curve.speed, curve.amp
+    width = max(width_frac * hp.nc_rpm, (hp.n2_rpm - hp.n1_rpm) / 8.0)
+    for side, edge in (("low", hp.n1_rpm), ("high", hp.n2_rpm)):
+        if side == "low":
+            idx = np.arange(i, -1, -1)
+            idx = idx[sp[idx] >= edge]
+        else:
+            idx = np.arange(i, sp.size)
+            idx = idx[sp[idx] <= edge]
+        idx = idx[amp[idx] <= 0.95 * hp.peak_amplitude]
+        if idx.size == 0:
+            continue
+        d = np.abs(sp[idx] - sp[idx[0]])
+        n_chunks = int(d[-1] // width)
+        if n_chunks < 2:
+            continue
+        means, sig = [], []
+        for k in range(n_chunks):
+            m = (d >= k * width) & (d < (k + 1) * width)
+            n_ind = max(np.count_nonzero(m) / curve.window_bins, 1.0)
+            means.append(float(np.mean(amp[idx[m]])))
+            sig.append(float(np.mean(curve.noise[idx[m]])) / math.sqrt(n_ind))
+        for k in range(n_chunks - 1):
+            if means[k] - means[k + 1] < k_sigma * math.hypot(sig[k], sig[k + 1]):
+                return side
+    return ""
 
 
 def _polar_loop(v: np.ndarray) -> tuple[bool | None, str]:
@@ -442,6 +481,14 @@ def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min,
     rel_tol = tol / amp[i] if amp[i] > 0 else 0.0
     hp = half_power(sp, amp, peak_index=i, rise_tolerance=rel_tol,
                     peak_fit_fraction=0.95 if curve.smoothed else None)
+    if curve.smoothed and hp.determinable:
+        side = _stall(curve, i, hp)
+        if side:
+            hp = HalfPower(None, hp.n1_rpm if side == "high" else None,
+                           hp.n2_rpm if side == "low" else None, hp.nc_rpm, hp.peak_amplitude,
+                           False, f"not determinable by half-power: {side} side merges with a "
+                           f"neighbouring peak (the amplitude stalls on a plateau before "
+                           f"falling to the half-power level)")
     lo, hi = _band_edges(amp, i, 0.25, tol)
     band = (float(sp[lo]), float(sp[hi]))
     evidence = [f"amplitude peak of {hp.peak_amplitude:.3g} at {hp.nc_rpm:.0f} rpm"]
