@@ -174,6 +174,13 @@ class _Table:
             return None
         return _Table(self.data[k], self.key(k), self.where)
 
+    def only(self, *keys):
+        """Refuse unknown keys before reading any (so a misspelt key is named first)."""
+        extra = sorted(set(self.data) - set(keys))
+        if extra:
+            raise ConfigError(f"{self.where}: unknown key {self.key(extra[0])!r}")
+        return self
+
     def done(self):
         extra = sorted(set(self.data) - self.used)
         if extra:
@@ -185,7 +192,11 @@ def _source(t: _Table) -> Source:
                   t.get("confidence", str, allowed=CONFIDENCES))
 
 
+_SOURCE_KEYS = ("document", "edition", "clause", "confidence")
+
+
 def _side(t: _Table, rule: str) -> SideRule:
+    t.only(*(("pct",) if rule == "fixed" else ("base_pct", "coefficient_pct", "af_offset", "cap_pct")))
     if rule == "fixed":
         pct = t.number("pct", 0.0, 100.0)
         out = SideRule(pct, 0.0, 0.0, pct)
@@ -197,7 +208,8 @@ def _side(t: _Table, rule: str) -> SideRule:
 
 
 def _parse(data: dict, where: str) -> Profile:
-    top = _Table(data, "", where)
+    top = _Table(data, "", where).only("name", "title", "machine_kinds", "needs_confirmation",
+                                       "notes", "reference_speeds", "margin", "limits")
     name = top.get("name", str)
     if not name.strip():
         raise ConfigError(f"{where}: " + invalid_value("name", name, "a non-empty name"))
@@ -208,10 +220,12 @@ def _parse(data: dict, where: str) -> Profile:
     rs = top.table("reference_speeds", default=None)
     below_ref, above_ref = "min_operating_speed", "max_continuous_speed"
     if rs is not None:
+        rs.only("below", "above")
         below_ref = rs.get("below", str, below_ref, allowed=REFERENCE_SPEEDS)
         above_ref = rs.get("above", str, above_ref, allowed=REFERENCE_SPEEDS)
         rs.done()
-    m = top.table("margin")
+    m = top.table("margin").only("rule", "no_margin_below_af", "damping_exempt_ratio",
+                                 "inside_range", "below", "above", *_SOURCE_KEYS)
     rule = m.get("rule", str, allowed=("af-curve", "fixed"))
     no_margin = m.number("no_margin_below_af", 1.0, 100.0, default=None)
     exempt = m.number("damping_exempt_ratio", 0.0, 1.0, default=None, open_lo=True)
@@ -227,7 +241,9 @@ def _parse(data: dict, where: str) -> Profile:
     if not isinstance(raw, list):
         raise ConfigError(f"{where}: " + invalid_value("limits", raw, "an array of tables [[limits]]"))
     for n, item in enumerate(raw):
-        lt = _Table(item, f"limits[{n}]", where)
+        lt = _Table(item, f"limits[{n}]", where).only(
+            "id", "title", "quantity", "transducer", "formula", "cap", "reference_speed_rpm",
+            "applies", *_SOURCE_KEYS)
         formula = lt.get("formula", str, allowed=("cap-sqrt-speed", "constant"))
         lim = LimitRule(
             lt.get("id", str), lt.get("title", str, ""),
