@@ -1,4 +1,9 @@
-"""The Dash application: ``create_app(db)`` builds it, ``serve(db, host, port)`` runs it."""
+"""The Dash application: ``create_app(db)`` builds it, ``serve(db, host, port)`` runs it.
+
+The app is a thin shell: a header with the page links, the page, and the caution bar
+(always visible). Each page module in :mod:`rundash.dashboard.pages` holds its route,
+layout and callbacks; the database handle is passed in here and nowhere else.
+"""
 
 from __future__ import annotations
 
@@ -13,9 +18,11 @@ def create_app(db: Database):
     import dash
 
     from rundash.dashboard import pages
+    from rundash.dashboard.theme import INDEX
 
     app = dash.Dash(__name__, title="rundash", suppress_callback_exceptions=True,
-                    use_pages=False)
+                    use_pages=False, update_title=None)
+    app.index_string = INDEX
     pages.register(app, db)
     return app
 

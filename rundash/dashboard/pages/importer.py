@@ -1,0 +1,360 @@
+"""Import a run: upload a data file and a machine description, import it, process it.
+
+The upload is saved under a sanitised name in a temporary folder, imported with
+:func:`rundash.ingest.importer.import_run` and processed with
+:func:`rundash.pipeline.process_run` in a worker thread; a status line polls its progress.
+The jobs live in an :class:`ImportJobs` owned by the app (made in ``register_callbacks``),
+never in module state.
+"""
+
+from __future__ import annotations
+
+import base64
+import binascii
+import re
+import tempfile
+import threading
+import time
+import uuid
+from dataclasses import dataclass, field, replace
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+from rundash.dashboard import ids
+from rundash.errors import DuplicateRunError, RundashError
+
+PATH = "/import"
+TITLE = "Import a run"
+MAX_UPLOAD_MB = 64
+MAX_UPLOAD_BYTES = MAX_UPLOAD_MB * 1024 * 1024
+MAX_DESCRIPTION_BYTES = 256 * 1024
+DATA_SUFFIXES = (".wav", ".csv", ".txt", ".h5", ".hdf5", ".parquet", ".pq")
+KINDS = ("mixed", "run-up", "coast-down", "steady")
+
+
+def match(pathname: str):
+    return {} if pathname in ("/import", "/import/") else None
+
+
+# ----------------------------------------------------------------------------- logic
+def sanitise_filename(name: str | None, *, default: str = "upload.dat") -> str:
+    """A safe base name: no folders, only letters, digits, '.', '-' and '_', <= 100 chars.
+
+    >>> sanitise_filename("../../etc/passwd")
+    'passwd'
+    >>> sanitise_filename("run 1 (copy).wav")
+    'run_1_copy_.wav'
+    """
+    base = re.split(r"[\\/]", name or "")[-1]
+    base = re.sub(r"[^A-Za-z0-9._-]+", "_", base).lstrip(".")
+    base = re.sub(r"_+", "_", base)
+    if not base or base in (".", ".."):
+        return default
+    if len(base) > 100:
+        stem, dot, suffix = base.rpartition(".")
+        base = (stem[:90] + "." + suffix[:9]) if dot else base[:100]
+    return base
+
+
+def decode_upload(contents: str | None, *, what: str, max_bytes: int) -> bytes:
+    """Bytes of a ``dcc.Upload`` data URL; :class:`~rundash.errors.InputError` if unusable."""
+    from rundash.errors import InputError
+
+    if not contents:
+        raise InputError(f"no {what} uploaded")
+    head, sep, b64 = contents.partition(",")
+    if not sep or ";base64" not in head:
+        raise InputError(f"the {what} did not arrive as a base64 data URL")
+    if len(b64) * 3 // 4 > max_bytes + 3:
+        raise InputError(f"the {what} is larger than the limit of {max_bytes / 2**20:.0f} MB")
+    try:
+        data = base64.b64decode(b64, validate=True)
+    except (binascii.Error, ValueError):
+        raise InputError(f"the {what} is not valid base64") from None
+    if len(data) > max_bytes:
+        raise InputError(f"the {what} is larger than the limit of {max_bytes / 2**20:.0f} MB")
+    if not data:
+        raise InputError(f"the {what} is empty")
+    return data
+
+
+def parse_started(text: str | None) -> datetime | None:
+    """Start time from 'YYYY-MM-DD HH:MM' (UTC) or ISO text; None when left blank."""
+    from rundash.errors import InputError
+
+    if not text or not text.strip():
+        return None
+    try:
+        dt = datetime.fromisoformat(text.strip().replace("Z", "+00:00"))
+    except ValueError:
+        raise InputError(f"Invalid value for 'started': allowed a date and time like "
+                         f"2025-06-03 06:15 (UTC), got {text!r}") from None
+    return dt.replace(tzinfo=timezone.utc) if dt.tzinfo is None else dt.astimezone(timezone.utc)
+
+
+def machine_description_text(db, source: str | None, upload: str | None) -> tuple[str, str]:
+    """The machine description's text and where it came from.
+
+    ``source`` is ``'upload'`` or ``'machine:<id>'`` (reuse the description stored with
+    that machine's newest run).
+    """
+    from rundash.errors import InputError
+    from rundash.storage import queries as q
+
+    if source and source.startswith("machine:"):
+        mid = int(source.split(":", 1)[1])
+        with db.read() as conn:
+            runs = q.list_runs(conn, mid)
+            text = q.run_description_toml(conn, runs[0].id) if runs else ""
+        if not text:
+            raise InputError("that machine has no stored machine description; upload one")
+        return text, f"machine {mid}, description of run {runs[0].id}"
+    raw = decode_upload(upload, what="machine description", max_bytes=MAX_DESCRIPTION_BYTES)
+    try:
+        return raw.decode("utf-8"), "uploaded machine description"
+    except UnicodeDecodeError:
+        raise InputError("the machine description is not UTF-8 text (a TOML file)") from None
+
+
+@dataclass(frozen=True)
+class JobState:
+    """What a status line shows: stage, fraction done, outcome."""
+
+    job_id: str
+    stage: str = "waiting"
+    fraction: float = 0.0
+    done: bool = False
+    error: str | None = None
+    run_id: int | None = None
+    messages: tuple[str, ...] = ()
+    started: float = field(default_factory=time.monotonic)
+
+
+class ImportJobs:
+    """Import-and-process jobs of one app, each in a worker thread."""
+
+    def __init__(self, db):
+        self._db = db
+        self._lock = threading.Lock()
+        self._jobs: dict[str, JobState] = {}
+
+    def get(self, job_id: str | None) -> JobState | None:
+        with self._lock:
+            return self._jobs.get(job_id or "")
+
+    def _set(self, job_id: str, **changes) -> None:
+        with self._lock:
+            self._jobs[job_id] = replace(self._jobs[job_id], **changes)
+
+    def start(self, *, filename: str, data: bytes, description_text: str, label: str,
+              cycle: str, kind: str, started_at: datetime | None, process: bool = True) -> str:
+        """Start one job; returns its id. Errors are reported through :meth:`get`."""
+        job_id = uuid.uuid4().hex
+        with self._lock:
+            self._jobs[job_id] = JobState(job_id=job_id, stage="saving upload")
+        t = threading.Thread(target=self._run, name=f"rundash-import-{job_id[:8]}", daemon=True,
+                             kwargs=dict(job_id=job_id, filename=filename, data=data,
+                                         description_text=description_text, label=label,
+                                         cycle=cycle, kind=kind, started_at=started_at,
+                                         process=process))
+        t.start()
+        return job_id
+
+    def run_sync(self, **kwargs) -> JobState:
+        """Run a job in the calling thread (tests, scripts); returns its final state."""
+        job_id = uuid.uuid4().hex
+        with self._lock:
+            self._jobs[job_id] = JobState(job_id=job_id, stage="saving upload")
+        self._run(job_id=job_id, **kwargs)
+        return self.get(job_id)
+
+    def _run(self, *, job_id, filename, data, description_text, label, cycle, kind,
+             started_at, process=True) -> None:
+        from rundash.ingest.importer import import_run
+        from rundash.ingest.machine_file import parse_machine_description
+
+        def progress(fraction: float, stage: str) -> None:
+            self._set(job_id, stage=stage, fraction=float(min(max(fraction, 0.0), 1.0)))
+
+        try:
+            desc = parse_machine_description(description_text, "machine description")
+            with tempfile.TemporaryDirectory(prefix="rundash-upload-") as tmp:
+                path = Path(tmp) / sanitise_filename(filename)
+                path.write_bytes(data)
+                res = import_run(self._db, path, desc, description_text=description_text,
+                                 label=label or path.stem, cycle=cycle, kind=kind,
+                                 started_at=started_at, progress=progress)
+            msgs = [f"imported as run {res.run_id}: {res.n_channels} channels, "
+                    f"{res.n_samples / res.sample_rate_hz:.1f} s at {res.sample_rate_hz:g} Hz",
+                    *res.warnings]
+            self._set(job_id, run_id=res.run_id, messages=tuple(msgs))
+            if process:
+                from rundash.pipeline import process_run
+
+                pr = process_run(self._db, res.run_id, progress=progress)
+                msgs.append(f"processed: {pr.run_kind}, {pr.n_revs} revolutions")
+                msgs += list(pr.warnings)
+            self._set(job_id, done=True, stage="done", fraction=1.0, messages=tuple(msgs))
+        except DuplicateRunError as exc:
+            self._set(job_id, done=True, stage="refused", error=f"{exc}")
+        except RundashError as exc:
+            self._set(job_id, done=True, stage="failed", error=str(exc))
+        except (OSError, ValueError) as exc:  # a file the readers could not make sense of
+            self._set(job_id, done=True, stage="failed",
+                      error=f"{type(exc).__name__}: {exc}")
+
+
+def status_view(state: JobState | None):
+    """(status line, progress bar width, result block, keep polling?) for a job."""
+    from dash import dcc, html
+
+    if state is None:
+        return "", "0%", "", False
+    pct = f"{100 * state.fraction:.0f}%"
+    elapsed = time.monotonic() - state.started
+    if state.error:
+        return (f"Stopped at '{state.stage}' after {elapsed:.1f} s.", pct,
+                html.Div(state.error, className="error"), False)
+    if state.done:
+        link = dcc.Link(f"Review run {state.run_id}", href=f"/run/{state.run_id}")
+        return (f"Done in {elapsed:.1f} s.", "100%",
+                html.Div([html.Div(link), html.Ul([html.Li(m) for m in state.messages])],
+                         className="ok"), False)
+    return f"{state.stage}: {pct} ({elapsed:.1f} s)", pct, "", True
+
+
+def start_import(jobs: ImportJobs, db, *, data_contents, data_name, machine_source,
+                 machine_contents, label, cycle, kind, started) -> tuple[str | None, str | None]:
+    """Check the form and start a job: (job id, None) or (None, error message)."""
+    from rundash.errors import InputError
+
+    try:
+        if not data_name:
+            raise InputError("choose a data file first")
+        safe = sanitise_filename(data_name)
+        if Path(safe).suffix.lower() not in DATA_SUFFIXES:
+            raise InputError(f"Invalid value for 'data file': allowed {', '.join(DATA_SUFFIXES)}"
+                             f", got {data_name!r}")
+        data = decode_upload(data_contents, what="data file", max_bytes=MAX_UPLOAD_BYTES)
+        text, _ = machine_description_text(db, machine_source, machine_contents)
+        from rundash.ingest.machine_file import parse_machine_description
+        parse_machine_description(text, "machine description")  # fail now, not in the job
+        if kind not in KINDS:
+            raise InputError(f"Invalid value for 'kind': allowed {', '.join(KINDS)}, got {kind!r}")
+        started_at = parse_started(started)
+    except RundashError as exc:
+        return None, str(exc)
+    job = jobs.start(filename=safe, data=data, description_text=text, label=label or "",
+                     cycle=cycle or "", kind=kind, started_at=started_at)
+    return job, None
+
+
+# ----------------------------------------------------------------------------- layout
+def layout(db):
+    from dash import dcc, html
+
+    from rundash.storage import queries as q
+
+    with db.read() as conn:
+        machines = q.list_machines(conn)
+    sources = [{"label": "the machine description I upload", "value": "upload"}] + [
+        {"label": f"as stored for {m.spec.name}", "value": f"machine:{m.id}"}
+        for m in machines if m.n_runs]
+
+    def drop(id_, text, accept, max_size):
+        return dcc.Upload(id=id_, className="drop", accept=accept, max_size=max_size,
+                          multiple=False, children=html.Div(text),
+                          style_reject={"borderColor": "#D55E00", "background": "#fdecea"})
+
+    field_style = {"width": "260px"}
+    return html.Div([
+        html.H1(TITLE, style={"fontSize": "22px"}),
+        html.Div(className="card", children=[
+            html.H3("1 · Data file"),
+            html.P(f"A recorder file: WAV, CSV, HDF5 or Parquet, at most {MAX_UPLOAD_MB} MB. "
+                   "Larger files: use the command line (rundash import).", className="note"),
+            drop(ids.UPLOAD_DATA, "Drop the data file here, or click to choose it",
+                 ",".join(DATA_SUFFIXES), MAX_UPLOAD_BYTES),
+            html.Div(id=ids.UPLOAD_DATA_NAME, className="note"),
+            html.H3("2 · Machine description", style={"marginTop": "14px"}),
+            dcc.RadioItems(id=ids.MACHINE_SOURCE, options=sources,
+                           value=sources[1]["value"] if len(sources) > 1 else "upload",
+                           inputStyle={"marginRight": "4px"},
+                           labelStyle={"display": "block"}),
+            drop(ids.UPLOAD_MACHINE, "Drop the machine description (TOML) here, or click",
+                 ".toml,.txt", MAX_DESCRIPTION_BYTES),
+            html.Div(id=ids.UPLOAD_MACHINE_NAME, className="note"),
+            html.H3("3 · About this run", style={"marginTop": "14px"}),
+            html.Div(className="controls", children=[
+                html.Div([html.Label("Label", className="head"),
+                          dcc.Input(id=ids.LABEL, type="text", style=field_style,
+                                    placeholder="e.g. first start after overhaul")]),
+                html.Div([html.Label("Overhaul cycle", className="head"),
+                          dcc.Input(id=ids.CYCLE, type="text", style=field_style,
+                                    placeholder="e.g. 2025 overhaul")]),
+                html.Div([html.Label("Kind (processing corrects it)", className="head"),
+                          dcc.Dropdown(id=ids.KIND, options=list(KINDS), value="mixed",
+                                       clearable=False, style={"width": "160px"})]),
+                html.Div([html.Label("Started (UTC)", className="head"),
+                          dcc.Input(id=ids.STARTED, type="text", style={"width": "180px"},
+                                    placeholder="2025-06-03 06:15")]),
+                html.Button("Import and process", id=ids.START, n_clicks=0,
+                            style={"padding": "7px 16px", "fontWeight": "600"}),
+            ]),
+        ]),
+        html.Div(className="card", children=[
+            html.H3("Status"),
+            html.Div(id=ids.STATUS, children="Waiting for a file.", className="muted"),
+            html.Div(className="progress", style={"marginTop": "6px"},
+                     children=html.Div(id=ids.PROGRESS, style={"width": "0%"})),
+            html.Div(id=ids.RESULT, style={"marginTop": "10px"}),
+        ]),
+        dcc.Store(id=ids.JOB),
+        dcc.Interval(id=ids.POLL, interval=400, disabled=True),
+    ])
+
+
+def register_callbacks(app, db) -> None:
+    from dash import Input, Output, State, html, no_update
+
+    jobs = ImportJobs(db)
+
+    @app.callback(Output(ids.UPLOAD_DATA_NAME, "children"), Input(ids.UPLOAD_DATA, "filename"),
+                  Input(ids.UPLOAD_DATA, "contents"), prevent_initial_call=True)
+    def _data_name(name, contents):
+        if not name:
+            return ""
+        size = len(contents or "") * 3 / 4 / 2**20
+        return f"Chosen: {name} ({size:.1f} MB), saved as {sanitise_filename(name)}"
+
+    @app.callback(Output(ids.UPLOAD_MACHINE_NAME, "children"),
+                  Output(ids.MACHINE_SOURCE, "value"),
+                  Input(ids.UPLOAD_MACHINE, "filename"), prevent_initial_call=True)
+    def _machine_name(name):
+        return (f"Chosen: {name}", "upload") if name else ("", no_update)
+
+    @app.callback(Output(ids.JOB, "data"), Output(ids.POLL, "disabled"),
+                  Output(ids.RESULT, "children"), Output(ids.STATUS, "children"),
+                  Input(ids.START, "n_clicks"),
+                  State(ids.UPLOAD_DATA, "contents"), State(ids.UPLOAD_DATA, "filename"),
+                  State(ids.MACHINE_SOURCE, "value"), State(ids.UPLOAD_MACHINE, "contents"),
+                  State(ids.LABEL, "value"), State(ids.CYCLE, "value"), State(ids.KIND, "value"),
+                  State(ids.STARTED, "value"), prevent_initial_call=True)
+    def _start(n, data, name, source, machine, label, cycle, kind, started):
+        job, error = start_import(jobs, db, data_contents=data, data_name=name,
+                                  machine_source=source, machine_contents=machine, label=label,
+                                  cycle=cycle, kind=kind, started=started)
+        if error:
+            return None, True, html.Div(error, className="error"), "Not started."
+        return job, False, "", "Starting…"
+
+    @app.callback(Output(ids.STATUS, "children", allow_duplicate=True),
+                  Output(ids.PROGRESS, "style"), Output(ids.RESULT, "children",
+                                                        allow_duplicate=True),
+                  Output(ids.POLL, "disabled", allow_duplicate=True),
+                  Input(ids.POLL, "n_intervals"), State(ids.JOB, "data"),
+                  prevent_initial_call=True)
+    def _poll(_, job_id):
+        line, pct, result, more = status_view(jobs.get(job_id))
+        return line, {"width": pct}, result, not more

@@ -1,0 +1,724 @@
+"""Run review: opens on the verdict (criticals, margins found versus required, limit
+checks, confidence, the caution), then the plots behind it.
+
+Callbacks are thin: they decode the controls, call one of the ``*_figures`` /
+``*_figure`` functions of this module (which read stored results, never recompute order
+tracking) and return figures. Tests call those functions directly.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from typing import Any
+
+import numpy as np
+
+from rundash import CAUTION, figures
+from rundash.dashboard import ids
+from rundash.errors import NotFoundError, RundashError
+
+PATH = "/run/"
+TITLE = "Run review"
+_ROUTE = re.compile(r"^/run/(\d+)/?$")
+UNIT_SYSTEMS = ("metric", "imperial")
+
+
+def match(pathname: str):
+    m = _ROUTE.match(pathname or "")
+    return {"run_id": int(m.group(1))} if m else None
+
+
+# ----------------------------------------------------------------------------- reading
+def load_context(db, run_id: int) -> dict[str, Any]:
+    """Everything the page header and verdict need, read in one connection."""
+    from rundash.storage import queries as q
+
+    with db.read() as conn:
+        run = q.get_run(conn, run_id)
+        machine = q.get_machine(conn, q.run_machine_id(conn, run_id))
+        processing = q.load_processing(conn, run_id)
+        channels = q.list_channels(conn, run_id)
+    probe_by_name = {p.name: p for p in machine.probes}
+    probes = [probe_by_name[c.probe_name] for c in channels
+              if c.role == "probe" and c.probe_name in probe_by_name]
+    return {"run": run, "machine": machine, "processing": processing, "channels": channels,
+            "probes": probes,
+            "findings": processing.findings if processing is not None else None}
+
+
+def operating_of(machine) -> dict[str, float | None]:
+    s = machine.spec
+    return {"min_operating_speed_rpm": s.min_operating_speed_rpm,
+            "max_continuous_speed_rpm": s.max_continuous_speed_rpm,
+            "trip_speed_rpm": s.trip_speed_rpm}
+
+
+def _criticals(findings, probe: str | None = None) -> list[dict[str, Any]]:
+    cs = list((findings or {}).get("criticals") or [])
+    return [c for c in cs if probe is None or c.get("probe") == probe]
+
+
+def vector_traces(db, run_id: int, probe: str, orders, compensated: bool
+                  ) -> tuple[list[dict[str, Any]], str]:
+    """Stored tracks of one probe, cut into run-direction pieces; and the probe's kind."""
+    from rundash.storage import queries as q
+
+    with db.read() as conn:
+        proc = q.load_processing(conn, run_id)
+        tracks = q.load_tracks(conn, run_id, probe_name=probe)
+    if not tracks:
+        return [], "proximity"
+    kind = tracks[0].kind
+    has_comp = any(t.compensated for t in tracks)
+    use_comp = bool(compensated) and has_comp
+    segments = proc.segments if proc is not None else []
+    out = []
+    for order in sorted({float(o) for o in orders} | {1.0}):
+        t = next((t for t in tracks if t.order == order and t.compensated == use_comp), None)
+        if t is None:
+            continue
+        for direction, idx in figures.split_by_direction(t.time_s, segments):
+            if direction == "steady" and idx.size < 3:
+                continue
+            out.append({"probe": probe, "order": order, "direction": direction,
+                        "time_s": t.time_s[idx], "speed_rpm": t.speed_rpm[idx],
+                        "amplitude": t.amplitude[idx], "phase_lag_deg": t.phase_lag_deg[idx],
+                        "direct": t.direct[idx]})
+    return out, kind
+
+
+def _uirev(run_id, system, extra=""):
+    return f"run-{run_id}-{system}{extra}"
+
+
+def vector_figures(db, run_id: int, probe: str, orders, compensation: str, system: str):
+    """Bode, polar and direct-versus-1X figures for one probe."""
+    ctx = load_context(db, run_id)
+    compensated = compensation == "compensated"
+    traces, kind = vector_traces(db, run_id, probe, orders, compensated)
+    has_comp = kind == "proximity" and compensated
+    crit = _criticals(ctx["findings"], probe)
+    op = operating_of(ctx["machine"])
+    spec = ctx["machine"].spec
+    rpm_max = max([float(np.max(t["speed_rpm"])) for t in traces] or [spec.max_continuous_speed_rpm])
+    try:
+        limits = figures.guidance_lines(spec.profile, kind=kind,
+                                        max_continuous_speed_rpm=spec.max_continuous_speed_rpm,
+                                        speed_range_rpm=(0.0, rpm_max))
+    except RundashError:
+        limits = []
+    uirev = _uirev(run_id, system)
+    comp_word = "slow-roll compensated" if has_comp else "uncompensated"
+    bode = figures.bode(traces, kind=kind, system=system, criticals=crit, operating=op,
+                        limit_lines=limits, compensated=has_comp, uirevision=uirev,
+                        title=f"Bode plot, {probe} ({comp_word})")
+    one_x = [t for t in traces if t["order"] == 1.0]
+    polar = figures.polar(one_x, kind=kind, system=system, rotation=spec.rotation,
+                          criticals=crit, uirevision=uirev,
+                          title=f"Polar plot, {probe} 1X ({comp_word})")
+    direct = figures.direct_vs_filtered(
+        one_x, kind=kind, system=system, limit_lines=limits, operating=op, uirevision=uirev,
+        title=f"Direct (unfiltered) level beside 1X, {probe}")
+    return bode, polar, direct
+
+
+def speed_figure(db, run_id: int, probe: str | None = None):
+    """Speed versus time with the critical bands of ``probe`` (all probes when None)."""
+    from rundash.storage import queries as q
+
+    ctx = load_context(db, run_id)
+    with db.read() as conn:
+        prof = q.load_speed_profile(conn, run_id)
+    t, n = prof if prof is not None else (np.zeros(0), np.zeros(0))
+    crit = _criticals(ctx["findings"], probe)
+    return figures.speed_time(t, n, criticals=crit, operating=operating_of(ctx["machine"]),
+                              uirevision=f"run-{run_id}")
+
+
+def cascade_figure(db, run_id: int, probe: str, system: str):
+    from rundash.storage import queries as q
+
+    with db.read() as conn:
+        cas = [c for c in q.load_cascades(conn, run_id) if c.probe_name == probe]
+        proc = q.load_processing(conn, run_id)
+        kind = next((c.kind for c in q.list_channels(conn, run_id) if c.probe_name == probe),
+                    "proximity")
+    if not cas:
+        return _empty(f"No cascade stored for {probe}")
+    orders = tuple((proc.params or {}).get("orders") or (1, 2, 3, 4)) if proc else (1, 2, 3, 4)
+    c = cas[0]
+    return figures.cascade(c.speed_rpm, c.freq_hz, c.amplitude, kind=kind, system=system,
+                           orders=orders, probe=probe, uirevision=_uirev(run_id, system, probe),
+                           title=f"Cascade of spectra versus speed, {probe}")
+
+
+def parse_frequencies(text: str | None) -> tuple[list[float], str]:
+    """Natural frequencies in Hz from free text ('41.5, 96'); and a note on what was dropped."""
+    if not text or not text.strip():
+        return [], ""
+    out, bad = [], []
+    for part in re.split(r"[,;\s]+", text.strip()):
+        if not part:
+            continue
+        try:
+            v = float(part)
+        except ValueError:
+            bad.append(part)
+            continue
+        if math.isfinite(v) and v > 0:
+            out.append(v)
+        else:
+            bad.append(part)
+    note = (f"Ignored {', '.join(repr(b) for b in bad)}: enter positive numbers in Hz, "
+            "separated by commas." if bad else "")
+    return out, note
+
+
+def campbell_figure(db, run_id: int, natural_text: str | None):
+    from rundash.storage import queries as q
+
+    ctx = load_context(db, run_id)
+    with db.read() as conn:
+        prof = q.load_speed_profile(conn, run_id)
+    top = float(np.max(prof[1])) if prof is not None and prof[1].size else \
+        ctx["machine"].spec.max_continuous_speed_rpm
+    proc = ctx["processing"]
+    orders = tuple((proc.params or {}).get("orders") or (1, 2, 3, 4)) if proc else (1, 2, 3, 4)
+    freqs, note = parse_frequencies(natural_text)
+    fig = figures.campbell(max(top, ctx["machine"].spec.trip_speed_rpm or 0.0), orders=orders,
+                           criticals=_criticals(ctx["findings"]), natural_frequencies_hz=freqs,
+                           operating=operating_of(ctx["machine"]), uirevision=f"run-{run_id}")
+    return fig, note
+
+
+def orbit_pairs(probes) -> list[tuple[str, str]]:
+    """(X probe, Y probe) pairs named by the machine description, X first."""
+    names = {p.name: p for p in probes}
+    pairs = []
+    for p in probes:
+        if p.pair and p.pair in names and p.axis == "X":
+            pairs.append((p.name, p.pair))
+    for p in probes:  # pairs whose axes are not marked X/Y
+        if p.pair and p.pair in names and p.axis not in ("X", "Y") and \
+                (p.pair, p.name) not in pairs and (p.name, p.pair) not in pairs:
+            pairs.append((p.name, p.pair))
+    return pairs
+
+
+def orbit_figure(db, run_id: int, pair: str | None, speed_rpm, direction: str | None,
+                 system: str):
+    """Orbit of an X/Y pair at the revolution nearest the chosen speed (and direction).
+
+    The filtered orbit uses the uncompensated 1X vectors of that revolution, the unfiltered
+    one the raw samples between its two once-per-rev events (mean removed); probe
+    mounting angles are applied by :func:`rundash.figures.orbit`.
+    """
+    from rundash.storage import queries as q
+
+    ctx = load_context(db, run_id)
+    pairs = orbit_pairs(ctx["probes"])
+    if not pairs:
+        return _empty("No X/Y probe pair in this machine's description"), \
+            "The machine description names no probe pairs."
+    xname, yname = next((p for p in pairs if "|".join(p) == pair), pairs[0])
+    probes = {p.name: p for p in ctx["probes"]}
+    chans = {c.probe_name: c for c in ctx["channels"] if c.role == "probe"}
+    with db.read() as conn:
+        opr = q.load_tach(conn, run_id, "once_per_rev")
+        tx = q.load_tracks(conn, run_id, order=1.0, compensated=False, probe_name=xname)
+        ty = q.load_tracks(conn, run_id, order=1.0, compensated=False, probe_name=yname)
+        if opr is None or not tx or not ty:
+            return _empty("Run not processed: no orbit"), "Process the run first."
+        tx, ty = tx[0], ty[0]
+        proc = ctx["processing"]
+        segs = proc.segments if proc else []
+        candidates = np.arange(tx.time_s.size)
+        if direction and direction != "any":
+            pieces = [idx for d, idx in figures.split_by_direction(tx.time_s, segs)
+                      if d == direction]
+            if pieces:
+                candidates = np.concatenate(pieces)
+        target = float(speed_rpm) if speed_rpm not in (None, "") else \
+            float(ctx["machine"].spec.max_continuous_speed_rpm)
+        i = int(candidates[np.argmin(np.abs(tx.speed_rpm[candidates] - target))])
+        t_mid = float(tx.time_s[i])
+        k = int(np.clip(np.searchsorted(opr, t_mid) - 1, 0, opr.size - 2))
+        cx, cy = chans[xname], chans[yname]
+        fs = cx.sample_rate_hz
+        i0, i1 = int(round(opr[k] * fs)), int(round(opr[k + 1] * fs))
+        raw_x = q.read_channel(conn, cx.id, i0, i1 + 1)
+        raw_y = q.read_channel(conn, cy.id, i0, i1 + 1)
+    px, py = probes[xname], probes[yname]
+    fig = figures.orbit(
+        {"name": xname, "angle_deg": px.angle_deg, "amplitude": tx.amplitude[i],
+         "phase_lag_deg": tx.phase_lag_deg[i]},
+        {"name": yname, "angle_deg": py.angle_deg, "amplitude": ty.amplitude[i],
+         "phase_lag_deg": ty.phase_lag_deg[i]},
+        kind=cx.kind or "proximity", system=system, rotation=ctx["machine"].spec.rotation,
+        speed_rpm=float(tx.speed_rpm[i]), raw_x=raw_x, raw_y=raw_y)
+    note = (f"Revolution {k + 1} at t = {opr[k]:.2f}–{opr[k + 1]:.2f} s, "
+            f"{tx.speed_rpm[i]:.0f} rpm (nearest to {target:.0f} rpm); mounting angles "
+            f"{xname} {px.angle_deg:g}°, {yname} {py.angle_deg:g}° applied; filtered 1X "
+            "uncompensated.")
+    return fig, note
+
+
+def _empty(message: str):
+    import plotly.graph_objects as go
+
+    fig = go.Figure()
+    fig.update_layout(template="simple_white", height=300,
+                      annotations=[{"text": message, "showarrow": False, "xref": "paper",
+                                    "yref": "paper", "x": 0.5, "y": 0.5, "font": {"size": 14}}],
+                      xaxis={"visible": False}, yaxis={"visible": False})
+    return fig
+
+
+# ----------------------------------------------------------------------------- verdict
+def _num(x, digits=0, unit=""):
+    if x is None or (isinstance(x, float) and not math.isfinite(x)):
+        return "–"
+    if isinstance(x, (int, float)):
+        return f"{x:,.{digits}f}{(' ' + unit) if unit else ''}"
+    return str(x)
+
+
+def _amp(value, units: str | None, system: str) -> str:
+    """An amplitude stated by the findings, in the chosen unit system."""
+    from rundash.units import display_unit, to_display
+
+    if value is None:
+        return "–"
+    kinds = {"um": "proximity", "mm/s": "velocity", "m/s2": "acceleration"}
+    base = (units or "").split(" ")[0]
+    tail = " ".join((units or "").split(" ")[1:])
+    kind = kinds.get(base)
+    if kind is None:
+        return _num(value, 2, units or "")
+    v = float(to_display(float(value), kind, system))
+    return f"{v:.3g} {display_unit(kind, system).replace('um', 'µm')} {tail}".strip()
+
+
+def critical_rows(findings, system: str = "metric") -> list[dict[str, str]]:
+    """Rows of the criticals table (strings, display units)."""
+    rows = []
+    for i, c in enumerate(_criticals(findings)):
+        af = c.get("af_governing")
+        rows.append({
+            "i": i, "probe": c.get("probe") or "–", "direction": c.get("direction") or "–",
+            "speed": _num(c.get("speed_rpm")), "basis": c.get("speed_basis") or "–",
+            "peak": _amp(c.get("peak_amplitude"), c.get("amplitude_units"), system),
+            "af": f"{af:.1f} ({c.get('af_method') or '?'})" if af is not None else "–",
+            "margin": _num(c.get("separation_margin_pct"), 1, "%"),
+            "required": _num(c.get("required_margin_pct"), 1, "%"),
+            "side": c.get("margin_side") or "–",
+            "verdict": c.get("margin_verdict") or "–",
+            "confidence": c.get("confidence") or "–"})
+    return rows
+
+
+CRITICAL_COLUMNS = [("probe", "Probe"), ("direction", "Direction"), ("speed", "Speed (rpm)"),
+                    ("basis", "Speed from"), ("peak", "Peak 1X"), ("af", "AF (method)"),
+                    ("margin", "Margin found"), ("required", "Required"), ("side", "Side"),
+                    ("verdict", "Margin verdict"), ("confidence", "Confidence")]
+LIMIT_COLUMNS = [("probe", "Probe"), ("measure", "Measure"), ("where", "Where"),
+                 ("speed", "Speed (rpm)"), ("value", "Level"), ("limit", "Limit"),
+                 ("zone", "Zone"), ("verdict", "Verdict"), ("basis", "Basis")]
+
+
+def limit_rows(findings, system: str = "metric") -> list[dict[str, str]]:
+    rows = []
+    for lim in (findings or {}).get("limits") or []:
+        limit = lim.get("limit")
+        limit_txt = _amp(limit, lim.get("units"), system) if isinstance(limit, (int, float)) \
+            else (limit or "–")
+        rows.append({"probe": lim.get("probe") or "–", "measure": lim.get("measure") or "–",
+                     "where": lim.get("where") or "–", "speed": _num(lim.get("speed_rpm")),
+                     "value": _amp(lim.get("value"), lim.get("units"), system),
+                     "limit": limit_txt, "zone": lim.get("zone") or "–",
+                     "verdict": lim.get("verdict") or "–", "basis": lim.get("basis") or "–",
+                     "source": lim.get("source") or ""})
+    return rows
+
+
+def _table(columns, rows, table_id=None):
+    from dash import dash_table
+
+    return dash_table.DataTable(
+        id=table_id, columns=[{"id": k, "name": n} for k, n in columns], data=rows,
+        style_as_list_view=True, cell_selectable=table_id is not None,
+        style_cell={"fontFamily": "inherit", "fontSize": "13px", "padding": "5px 8px",
+                    "textAlign": "left", "whiteSpace": "normal", "height": "auto"},
+        style_header={"fontWeight": "600", "backgroundColor": "#fafafa"},
+        style_data_conditional=[
+            {"if": {"filter_query": '{verdict} = "fail"'}, "backgroundColor": "#fdecea"},
+            {"if": {"filter_query": '{verdict} = "pass"'}, "backgroundColor": "#eef8f4"},
+            {"if": {"state": "active"}, "backgroundColor": "#e6f0f8",
+             "border": "1px solid #0072B2"}],
+        tooltip_data=[{"basis": r.get("source", "")} for r in rows] if rows and "source" in
+        rows[0] else None)
+
+
+def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
+    """The verdict section: what was found, against what, how sure, and the caution."""
+    from dash import html
+
+    from rundash.dashboard.pages.runs import verdict_badge
+
+    f = ctx["findings"]
+    proc = ctx["processing"]
+    run = ctx["run"]
+    children = []
+    if proc is None:
+        children += [html.H2(["Verdict ", verdict_badge(None, False, big=True)]),
+                     html.P("This run is not processed: no critical speeds or checks yet. "
+                            "Process it (rundash process, or re-import it on the import page).")]
+    elif f is None:
+        children += [html.H2(["Verdict ", verdict_badge(None, True, big=True)]),
+                     html.P("Processed (speed profile, vectors and cascades are stored), but "
+                            "no findings yet: critical speeds, margins and limit checks "
+                            "appear here once the run is processed by a rundash version that "
+                            "judges them. The plots below show the stored vectors."),
+                     html.Div(_table(CRITICAL_COLUMNS, [], ids.CRITICALS_TABLE),
+                              style={"display": "none"}),
+                     html.Div(id=ids.EVIDENCE)]
+    else:
+        prof = f.get("profile") or {}
+        children.append(html.H2(["Verdict ", verdict_badge(f.get("run_verdict"), True, big=True)]))
+        children.append(html.P([f"Guidance profile: {prof.get('title') or prof.get('name') or '–'}",
+                                html.Span(" · needs your confirmation: the profile's values "
+                                          "are of low confidence", className="warn")
+                                if prof.get("needs_confirmation") else ""], className="muted"))
+        crit = critical_rows(f, system)
+        children.append(html.H3(f"Critical speeds found ({len(crit)})"))
+        if crit:
+            children.append(_table(CRITICAL_COLUMNS, crit, ids.CRITICALS_TABLE))
+            children.append(html.P("Click a row (or a critical marker on the Bode plot) for "
+                                   "the evidence behind it.", className="note"))
+        else:
+            children.append(html.P("No critical speed was found in the speed range of this "
+                                   "run.", className="muted"))
+            children.append(html.Div(_table(CRITICAL_COLUMNS, [], ids.CRITICALS_TABLE),
+                                     style={"display": "none"}))
+        children.append(html.Div(id=ids.EVIDENCE))
+        bearings = f.get("bearings") or []
+        if bearings:
+            children.append(html.H3("Agreement between probes of a bearing"))
+            children.append(html.Ul([html.Li(
+                f"{b.get('bearing', '?')} {b.get('direction', '')}: "
+                f"{_num(b.get('speed_rpm'))} rpm, {b.get('agreement', '–')}"
+                + (f" ({b['note']})" if b.get("note") else "")) for b in bearings]))
+        lims = limit_rows(f, system)
+        children.append(html.H3(f"Vibration limit checks ({len(lims)})"))
+        children.append(_table(LIMIT_COLUMNS, lims, ids.LIMITS_TABLE) if lims else
+                        html.P("No limit applies to this run's probes.", className="muted"))
+    warn = list((f or {}).get("warnings") or []) + list(proc.warnings if proc else [])
+    if warn:
+        children.append(html.H3("Warnings"))
+        children += [html.Div(str(w), className="warn") for w in warn]
+    children.append(html.P((f or {}).get("caution") or CAUTION, className="note",
+                           style={"fontStyle": "italic", "marginTop": "10px"}))
+    return html.Div(children)
+
+
+EVIDENCE_FIELDS = [
+    ("speed_rpm", "critical speed", "rpm", 0), ("speed_basis", "speed taken from", "", None),
+    ("peak_speed_rpm", "amplitude peak at", "rpm", 0),
+    ("quadrature_speed_rpm", "90° phase shift at", "rpm", 0),
+    ("band_rpm", "band searched", "rpm", None), ("phase_change_deg", "phase change", "°", 0),
+    ("lag_at_peak_deg", "lag at peak", "°", 0), ("af_half_power", "AF half-power", "", 2),
+    ("n1_rpm", "N1 (0.707 × peak)", "rpm", 0), ("n2_rpm", "N2 (0.707 × peak)", "rpm", 0),
+    ("af_phase", "AF phase slope", "", 2), ("af_fit", "AF modal fit", "", 2),
+    ("damping_ratio_fit", "damping ratio (fit)", "", 3),
+    ("af_governing", "AF governing", "", 2), ("af_method", "AF method", "", None),
+    ("classification", "classification", "", None), ("mode_hint", "mode hint", "", None),
+    ("sweep_rate_rpm_s", "sweep rate", "rpm/s", 0), ("sweep_note", "sweep", "", None),
+    ("separation_margin_pct", "margin found", "%", 1),
+    ("required_margin_pct", "margin required", "%", 1), ("margin_side", "side", "", None),
+    ("margin_verdict", "margin verdict", "", None), ("margin_reason", "why", "", None),
+    ("confidence", "confidence", "", None), ("profile", "profile", "", None)]
+
+
+def evidence_panel(findings, index: int | None, system: str = "metric"):
+    """The numbers behind one critical: speeds, AF estimates, margin, evidence lines."""
+    from dash import html
+
+    crit = _criticals(findings)
+    if index is None or not (0 <= index < len(crit)):
+        return ""
+    c = crit[index]
+    rows = []
+    for key, label, unit, digits in EVIDENCE_FIELDS:
+        v = c.get(key)
+        if v is None:
+            continue
+        if isinstance(v, (list, tuple)):
+            txt = "–".join(_num(x) for x in v) + (f" {unit}" if unit else "")
+        elif digits is not None and isinstance(v, (int, float)):
+            txt = _num(v, digits, unit)
+        else:
+            txt = str(v)
+        rows.append(html.Tr([html.Th(label), html.Td(txt)]))
+    rows.insert(3, html.Tr([html.Th("peak amplitude"),
+                            html.Td(_amp(c.get("peak_amplitude"), c.get("amplitude_units"),
+                                         system))]))
+    ev = c.get("evidence") or []
+    return html.Div(className="card", style={"borderColor": "#0072B2"}, children=[
+        html.H3(f"Evidence: {c.get('probe', '?')} {c.get('direction', '')} critical at "
+                f"{_num(c.get('speed_rpm'))} rpm"),
+        html.Div(className="grid2eq", children=[
+            html.Table(rows, className="plain"),
+            html.Div([html.H4("Why rundash says so", style={"margin": "0 0 6px 0"}),
+                      html.Ul([html.Li(str(e)) for e in ev]) if ev else
+                      html.P("No evidence lines recorded.", className="muted")])])])
+
+
+# ----------------------------------------------------------------------------- layout
+def _radio(id_, options, value):
+    from dash import dcc
+
+    return dcc.RadioItems(id=id_, options=options, value=value, inline=True,
+                          inputStyle={"marginRight": "4px"},
+                          labelStyle={"marginRight": "12px"})
+
+
+def _graph(id_, height):
+    from dash import dcc
+
+    return dcc.Graph(id=id_, style={"height": f"{height}px"},
+                     config={"displaylogo": False, "toImageButtonOptions": {"format": "png"}})
+
+
+def layout(db, run_id: int):
+    from dash import dcc, html
+
+    try:
+        ctx = load_context(db, run_id)
+    except NotFoundError:
+        return html.Div(className="card", children=[
+            html.H2("Run not found"), html.P([f"There is no run {run_id}. ",
+                                              dcc.Link("Back to the runs", href="/")])])
+    run, m = ctx["run"], ctx["machine"]
+    probes = ctx["probes"]
+    proc = ctx["processing"]
+    orders = [o for o in ((proc.params or {}).get("orders") if proc else [1.0]) or [1.0]]
+    head = html.Div(className="card", children=[
+        html.Div(dcc.Link("← machines and runs", href="/"), className="note"),
+        html.H1(run.label or run.source_name, style={"fontSize": "22px", "margin": "4px 0"}),
+        html.P(f"{m.spec.name} · {run.kind} · started "
+               f"{run.started_at.strftime('%Y-%m-%d %H:%M UTC') if run.started_at else '–'} · "
+               f"cycle {run.cycle or '–'} · {run.duration_s:.0f} s, {run.n_channels} channels "
+               f"· file {run.source_name} · run {run.id}", className="muted"),
+        html.P(f"Operating range {m.spec.min_operating_speed_rpm:,.0f}–"
+               f"{m.spec.max_continuous_speed_rpm:,.0f} rpm"
+               + (f", trip {m.spec.trip_speed_rpm:,.0f} rpm" if m.spec.trip_speed_rpm else "")
+               + (f" · slow-roll window {proc.slow_roll_rpm[0]:.0f}–{proc.slow_roll_rpm[1]:.0f}"
+                  " rpm" if proc and proc.slow_roll_rpm else ""), className="muted")])
+    verdict = html.Div(id=ids.VERDICT_PANEL, className="card",
+                       children=verdict_panel(ctx, "metric"))
+    if proc is None:
+        return html.Div([dcc.Store(id=ids.RUN_ID, data=run_id), head, verdict])
+    probe_opts = [{"label": f"{p.name} ({p.kind}, {p.bearing or '–'} {p.axis})",
+                   "value": p.name} for p in probes]
+    crit = _criticals(ctx["findings"])
+    first = crit[0]["probe"] if crit and any(p.name == crit[0]["probe"] for p in probes) \
+        else probes[0].name
+    pairs = orbit_pairs(probes)
+    controls = html.Div(className="card controls", children=[
+        html.Div([html.Label("Probe", className="head"),
+                  dcc.Dropdown(id=ids.PROBE, options=probe_opts, value=first, clearable=False,
+                               style={"width": "330px"})]),
+        html.Div([html.Label("Orders (1X always shown)", className="head"),
+                  dcc.Checklist(id=ids.ORDERS, inline=True, value=[1.0],
+                                options=[{"label": f"{o:g}X", "value": float(o),
+                                          "disabled": float(o) == 1.0} for o in orders],
+                                inputStyle={"marginRight": "4px"},
+                                labelStyle={"marginRight": "12px"})]),
+        html.Div([html.Label("Vectors", className="head"),
+                  _radio(ids.COMPENSATION, [
+                      {"label": "slow-roll compensated", "value": "compensated"},
+                      {"label": "uncompensated", "value": "uncompensated"}], "compensated")]),
+        html.Div([html.Label("Units", className="head"),
+                  _radio(ids.UNITS, [{"label": "metric (µm pp, mm/s)", "value": "metric"},
+                                     {"label": "imperial (mil pp, in/s)", "value": "imperial"}],
+                         "metric")]),
+    ])
+    plots = [
+        html.Div(className="grid2", children=[
+            html.Div(className="card", children=[_graph(ids.BODE, 560)]),
+            html.Div(className="card", children=[
+                _graph(ids.POLAR, 560),
+                html.P("Hover a speed on either plot to mark it on the other.",
+                       className="note")])]),
+        html.Div(className="grid2eq", children=[
+            html.Div(className="card", children=[_graph(ids.DIRECT, 420)]),
+            html.Div(className="card", children=[
+                _graph(ids.SPEED, 360),
+                html.P("Shaded: the band of each critical (half-power band where known) and "
+                       "the seconds the machine spent in it.", className="note")])]),
+        html.Div(className="grid2eq", children=[
+            html.Div(className="card", children=[_graph(ids.CASCADE, 460)]),
+            html.Div(className="card", children=[
+                _graph(ids.CAMPBELL, 460),
+                html.Label("Natural frequencies to draw (Hz, comma separated)",
+                           className="note"),
+                dcc.Input(id=ids.NATURAL_FREQS, type="text", debounce=True,
+                          placeholder="e.g. 41.5, 96", style={"width": "240px",
+                                                              "marginLeft": "8px"}),
+                html.Div(id=ids.NATURAL_FREQS_NOTE, className="note")])]),
+        html.Div(className="card", children=[
+            html.Div(className="controls", children=[
+                html.Div([html.Label("Probe pair", className="head"),
+                          dcc.Dropdown(id=ids.ORBIT_PAIR, clearable=False,
+                                       options=[{"label": f"{x} / {y}", "value": f"{x}|{y}"}
+                                                for x, y in pairs],
+                                       value=f"{pairs[0][0]}|{pairs[0][1]}" if pairs else None,
+                                       style={"width": "300px"})]),
+                html.Div([html.Label("Speed (rpm)", className="head"),
+                          dcc.Input(id=ids.ORBIT_SPEED, type="number", debounce=True, min=0,
+                                    value=round(m.spec.max_continuous_speed_rpm),
+                                    style={"width": "120px"})]),
+                html.Div([html.Label("Direction", className="head"),
+                          _radio(ids.ORBIT_DIRECTION, [
+                              {"label": "any", "value": "any"},
+                              {"label": "run-up", "value": "run-up"},
+                              {"label": "coast-down", "value": "coast-down"}], "any")])]),
+            html.Div(className="grid2eq", children=[
+                _graph(ids.ORBIT, 480),
+                html.Div([html.P(id=ids.ORBIT_NOTE, className="note"),
+                          html.P("Filtered: the 1X ellipse from the two 1X vectors. "
+                                 "Unfiltered: the raw samples of that one revolution. The "
+                                 "large dot is the once-per-rev event; whirl is forward when "
+                                 "the orbit turns with the shaft.", className="note")])])]),
+    ]
+    return html.Div([dcc.Store(id=ids.RUN_ID, data=run_id), head, verdict, controls, *plots])
+
+
+# ----------------------------------------------------------------------------- callbacks
+# Linked cursor, drawn in the browser: a hover on one plot moves the cursor marker of the
+# other to the nearest point of its first data trace (speeds travel in customdata).
+_CURSOR_JS = """
+function(hover, fig, target) {
+    var nu = window.dash_clientside.no_update;
+    if (!hover || !hover.points || !hover.points.length || !fig || !fig.data) { return nu; }
+    var p = hover.points[0];
+    var s = p.customdata;
+    if (Array.isArray(s)) { s = s[s.length - 1]; }
+    if (s === undefined || s === null) { s = p.x; }
+    if (typeof s !== 'number') { return nu; }
+    var data = fig.data.slice();
+    var src = [];
+    for (var i = 0; i < data.length; i++) { if (data[i].meta === 'data') { src.push(i); } }
+    var cur = [];
+    for (var j = 0; j < data.length; j++) { if (data[j].meta === 'cursor') { cur.push(j); } }
+    if (!src.length || !cur.length) { return nu; }
+    var d0 = data[src[0]], sp = d0.customdata, best = 0, err = Infinity;
+    for (var k = 0; k < sp.length; k++) {
+        var e = Math.abs(sp[k] - s); if (e < err) { err = e; best = k; }
+    }
+    if (target === 'polar') {
+        data[cur[0]] = Object.assign({}, data[cur[0]], {r: [d0.r[best]], theta: [d0.theta[best]]});
+    } else {
+        var d1 = data[src[1]] || d0;
+        data[cur[0]] = Object.assign({}, data[cur[0]], {x: [d0.x[best]], y: [d0.y[best]]});
+        if (cur.length > 1) {
+            data[cur[1]] = Object.assign({}, data[cur[1]], {x: [d1.x[best]], y: [d1.y[best]]});
+        }
+    }
+    return Object.assign({}, fig, {data: data});
+}
+"""
+
+
+def register_callbacks(app, db) -> None:
+    from dash import Input, Output, State, ctx, no_update
+
+    @app.callback(Output(ids.BODE, "figure"), Output(ids.POLAR, "figure"),
+                  Output(ids.DIRECT, "figure"),
+                  Input(ids.PROBE, "value"), Input(ids.ORDERS, "value"),
+                  Input(ids.COMPENSATION, "value"), Input(ids.UNITS, "value"),
+                  State(ids.RUN_ID, "data"))
+    def _vectors(probe, orders, compensation, units, run_id):
+        if not probe or run_id is None:
+            return no_update, no_update, no_update
+        return vector_figures(db, run_id, probe, orders or [1.0], compensation,
+                              units if units in UNIT_SYSTEMS else "metric")
+
+    @app.callback(Output(ids.CASCADE, "figure"), Input(ids.PROBE, "value"),
+                  Input(ids.UNITS, "value"), State(ids.RUN_ID, "data"))
+    def _cascade(probe, units, run_id):
+        if not probe or run_id is None:
+            return no_update
+        return cascade_figure(db, run_id, probe, units if units in UNIT_SYSTEMS else "metric")
+
+    @app.callback(Output(ids.SPEED, "figure"), Input(ids.PROBE, "value"),
+                  State(ids.RUN_ID, "data"))
+    def _speed(probe, run_id):
+        if run_id is None:
+            return no_update
+        return speed_figure(db, run_id, probe)
+
+    @app.callback(Output(ids.CAMPBELL, "figure"), Output(ids.NATURAL_FREQS_NOTE, "children"),
+                  Input(ids.NATURAL_FREQS, "value"), State(ids.RUN_ID, "data"))
+    def _campbell(text, run_id):
+        if run_id is None:
+            return no_update, no_update
+        return campbell_figure(db, run_id, text)
+
+    @app.callback(Output(ids.ORBIT, "figure"), Output(ids.ORBIT_NOTE, "children"),
+                  Input(ids.ORBIT_PAIR, "value"), Input(ids.ORBIT_SPEED, "value"),
+                  Input(ids.ORBIT_DIRECTION, "value"), Input(ids.UNITS, "value"),
+                  State(ids.RUN_ID, "data"))
+    def _orbit(pair, speed, direction, units, run_id):
+        if run_id is None:
+            return no_update, no_update
+        return orbit_figure(db, run_id, pair, speed, direction,
+                            units if units in UNIT_SYSTEMS else "metric")
+
+    @app.callback(Output(ids.VERDICT_PANEL, "children"), Input(ids.UNITS, "value"),
+                  State(ids.RUN_ID, "data"), prevent_initial_call=True)
+    def _verdict(units, run_id):
+        return verdict_panel(load_context(db, run_id), units if units in UNIT_SYSTEMS
+                             else "metric")
+
+    @app.callback(Output(ids.EVIDENCE, "children"),
+                  Input(ids.CRITICALS_TABLE, "active_cell"), Input(ids.BODE, "clickData"),
+                  State(ids.UNITS, "value"), State(ids.RUN_ID, "data"),
+                  prevent_initial_call=True)
+    def _evidence(cell, click, units, run_id):
+        index = None
+        if ctx.triggered_id == ids.CRITICALS_TABLE and cell:
+            index = cell.get("row")
+        elif ctx.triggered_id == ids.BODE and click:
+            index = critical_index_from_click(load_context(db, run_id)["findings"], click)
+            if index is None:
+                return no_update
+        return evidence_panel(load_context(db, run_id)["findings"], index,
+                              units if units in UNIT_SYSTEMS else "metric")
+
+    app.clientside_callback(
+        _CURSOR_JS.replace("function(hover, fig, target)", "function(hover, fig)")
+        .replace("target === 'polar'", "true"),
+        Output(ids.POLAR, "figure", allow_duplicate=True), Input(ids.BODE, "hoverData"),
+        State(ids.POLAR, "figure"), prevent_initial_call=True)
+    app.clientside_callback(
+        _CURSOR_JS.replace("function(hover, fig, target)", "function(hover, fig)")
+        .replace("target === 'polar'", "false"),
+        Output(ids.BODE, "figure", allow_duplicate=True), Input(ids.POLAR, "hoverData"),
+        State(ids.BODE, "figure"), prevent_initial_call=True)
+
+
+def critical_index_from_click(findings, click) -> int | None:
+    """Index (in the findings' criticals) of the critical marker a Bode click hit."""
+    pts = (click or {}).get("points") or []
+    if not pts:
+        return None
+    cd = pts[0].get("customdata")
+    if not (isinstance(cd, (list, tuple)) and len(cd) == 2):
+        return None
+    speed = float(cd[1])
+    crit = _criticals(findings)
+    probe_hits = [i for i, c in enumerate(crit) if c.get("speed_rpm") is not None
+                  and abs(float(c["speed_rpm"]) - speed) < 1e-6]
+    return probe_hits[0] if probe_hits else None
