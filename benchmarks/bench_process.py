@@ -1,0 +1,115 @@
+"""`rundash process` of a 10-minute, 16-channel, 25.6 kHz run (about 246 M samples).
+
+Targets (issue 3): < 60 s wall and peak RSS < 1.5 GB, processed chunk by chunk. The run
+is synthesised (a 300 -> 12 000 rpm sweep, a tach channel and 15 probe channels with a
+1X resonance, 2X and noise), written as a 16-bit WAV in blocks, imported with
+`rundash import`, then processed with `rundash process` in a child process whose wall
+time and peak RSS are measured.
+
+Usage: python benchmarks/bench_process.py [--minutes 10] [--keep DIR]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import struct
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+FS = 25600
+N_CH = 16
+FULL_SCALE_V = 10.0
+
+
+def write_wav(path: Path, minutes: float) -> int:
+    n = int(minutes * 60 * FS)
+    rpm0, rpm1 = 300.0, 12000.0
+    dur = n / FS
+    rate = (rpm1 - rpm0) / dur
+    rng = np.random.default_rng(0)
+    data_bytes = n * N_CH * 2
+    with open(path, "wb") as fh:
+        fh.write(b"RIFF" + struct.pack("<I", 36 + data_bytes) + b"WAVE")
+        fh.write(b"fmt " + struct.pack("<IHHIIHH", 16, 1, N_CH, FS, FS * N_CH * 2, N_CH * 2, 16))
+        fh.write(b"data" + struct.pack("<I", data_bytes))
+        block = 1 << 18
+        for s in range(0, n, block):
+            t = (s + np.arange(min(block, n - s))) / FS
+            rpm = rpm0 + rate * t
+            theta = (rpm0 * t + 0.5 * rate * t * t) / 60.0
+            r = rpm / 3000.0
+            h = r * r / ((1 - r * r) + 2j * 0.05 * r)
+            x = np.empty((t.size, N_CH), np.float32)
+            ph = np.mod(theta, 1.0)
+            x[:, 0] = np.where(ph < 0.1, 0.5, 4.5)  # tach: a notch, 10 % of a turn
+            for c in range(1, N_CH):
+                x[:, c] = (0.2 * np.real(h * np.exp(1j * (2 * np.pi * theta + 0.3 * c)))
+                           + 0.02 * np.cos(4 * np.pi * theta)
+                           + 0.005 * rng.standard_normal(t.size))
+            fh.write(np.round(x / FULL_SCALE_V * 32767).astype("<i2").tobytes())
+    return n
+
+
+def machine(path: Path) -> Path:
+    probes = "\n".join(f'[[probes]]\nname = "P{c}"\ncolumn = "ch{c + 1}"\nkind = "proximity"\n'
+                       f'units = "um"\nsensitivity_mv_per_unit = 7.874\n' for c in range(1, N_CH))
+    path.write_text(f"""
+[machine]
+name = "Bench train"
+kind = "compressor"
+rated_speed_rpm = 11000
+min_operating_speed_rpm = 9000
+max_continuous_speed_rpm = 11500
+
+[tach]
+column = "ch1"
+edge = "falling"
+
+{probes}
+[data]
+full_scale_v = {FULL_SCALE_V}
+""")
+    return path
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--minutes", type=float, default=10.0)
+    ap.add_argument("--keep", help="folder to keep the files in (default: a temp folder)")
+    a = ap.parse_args()
+    td = Path(a.keep) if a.keep else Path(tempfile.mkdtemp())
+    td.mkdir(parents=True, exist_ok=True)
+    wav, db = td / "long.wav", td / "bench.sqlite"
+    t0 = time.perf_counter()
+    n = write_wav(wav, a.minutes)
+    print(f"synthesised {N_CH} x {n} samples ({N_CH * n / 1e6:.0f} M) in "
+          f"{time.perf_counter() - t0:.0f} s")
+    m = machine(td / "m.toml")
+    t0 = time.perf_counter()
+    run_id = subprocess.run([sys.executable, "-m", "rundash.cli", "import", str(wav), "--machine",
+                             str(m), "--db", str(db), "--quiet", "--force"], check=True,
+                            capture_output=True, text=True).stdout.strip()
+    print(f"import: {time.perf_counter() - t0:.1f} s")
+    t0 = time.perf_counter()
+    proc = subprocess.Popen([sys.executable, "-m", "rundash.cli", "process", run_id, "--db",
+                             str(db), "--quiet"], stdout=subprocess.PIPE, text=True)
+    _, status, usage = os.wait4(proc.pid, 0)  # this child's own peak RSS
+    wall = time.perf_counter() - t0
+    print(proc.stdout.read().strip())
+    if status != 0:
+        print("rundash process failed")
+        return 1
+    print(f"rundash process: {wall:.1f} s wall (target < 60 s), {N_CH * n / wall / 1e6:.1f} M "
+          f"channel-samples/s")
+    print(f"peak RSS of the processing child: {usage.ru_maxrss / 1024:.0f} MB (target < 1536 MB)")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
