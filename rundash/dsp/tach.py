@@ -47,6 +47,15 @@ def _block_levels(x: np.ndarray, block: int, q_lo: float, q_hi: float):
     if not np.all(good) and np.any(good):
         lo = np.interp(centres, centres[good], lo[good])
         hi = np.interp(centres, centres[good], hi[good])
+    if n_blocks >= 2:
+        # carry the drift on to the record's ends (linear, from the two end windows)
+        def ends(v):
+            first = v[0] - (v[1] - v[0]) * (centres[0] - 0.0) / (centres[1] - centres[0])
+            last = v[-1] + (v[-1] - v[-2]) * (n - 1 - centres[-1]) / (centres[-1] - centres[-2])
+            return np.concatenate([[first], v, [last]])
+
+        lo, hi = ends(lo), ends(hi)
+        centres = np.concatenate([[0.0], centres, [n - 1.0]])
     return centres, lo, hi
 
 

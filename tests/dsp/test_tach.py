@@ -1,0 +1,184 @@
+"""Tests of rundash.dsp.tach (edge detection and once-per-rev repair).
+
+Reference: the true event times of the synthetic tach are the closed-form inverse of the
+known angle (tests/synth.py). Its edges are linear ramps spanning several samples, so
+linear interpolation of the threshold crossing is exact up to the curvature of theta(t)
+within one sample (negligible here) and the error of the estimated threshold level
+divided by the edge slope.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+
+from rundash.dsp import detect_edges, once_per_rev
+from rundash.errors import TachError, TachQualityWarning
+from tests import synth
+
+FS = 20000.0
+
+
+def _tach(sweep, pulses_per_rev=1, **kw):
+    t = np.arange(int(sweep.duration_s * FS)) / FS
+    return t, synth.tach_waveform(sweep.theta(t), pulses_per_rev, **kw)
+
+
+def _true_events(sweep, pulses_per_rev=1, offset=0.0):
+    """True event times within the sampled span [0, last sample]."""
+    n = int(np.floor(sweep.theta(np.array(sweep.duration_s)) * pulses_per_rev))
+    ev = sweep.time_at((np.arange(n + 1) + offset) / pulses_per_rev)
+    return ev[ev <= (int(sweep.duration_s * FS) - 1) / FS]
+
+
+class TestDetectEdges:
+    def test_exact_on_linear_ramps(self):
+        sweep = synth.linear_sweep(600.0, 500.0, 4.0)  # up to 2600 rpm
+        _, v = _tach(sweep, ramp_rev=0.02)
+        ev = detect_edges(v, FS, threshold=2.5, hysteresis=1.0)
+        ref = _true_events(sweep)[1:]  # the event at t = 0 has no sample before it
+        assert ev.size == ref.size
+        assert_allclose(ev, ref, rtol=0, atol=1e-9)
+
+    def test_dc_drift_of_a_proximity_tach(self):
+        # 1.5 V slow drift (ramp + 0.1 Hz swing) under 5 V pulses: the level estimate per
+        # 1 s window follows it. Linear interpolation between window centres misses a
+        # sine of amplitude a by at most a (w h)^2 / 8 = 0.025 V here; over an edge
+        # slope of 5 V per 0.04 rev that is 2e-4 rev: tolerance 1e-3 rev.
+        sweep = synth.linear_sweep(300.0, 200.0, 12.0)
+        t, v = _tach(sweep, ramp_rev=0.02)
+        v = v + 1.0 * t / t[-1] + 0.5 * np.sin(2 * np.pi * 0.1 * t)
+        ev = detect_edges(v.astype(np.float32), FS, level_window_s=1.0)
+        ref = _true_events(sweep)[1:]
+        assert ev.size == ref.size
+        err_rev = (ev - ref) * sweep.rpm(ref) / 60.0
+        assert np.max(np.abs(err_rev)) < 1e-3
+
+    def test_fixed_threshold_fails_under_the_same_drift(self):
+        # The reason for the running level estimate: a fixed mid threshold moves the
+        # events by far more than the running estimate does.
+        sweep = synth.linear_sweep(300.0, 200.0, 12.0)
+        t, v = _tach(sweep, ramp_rev=0.02)
+        v = v + 2.0 * t / t[-1]
+        ref = _true_events(sweep)[1:]
+        ev_fixed = detect_edges(v, FS, threshold=2.5)
+        ev_auto = detect_edges(v, FS)
+        err_auto = np.max(np.abs(ev_auto - ref) * sweep.rpm(ref) / 60.0)
+        n = min(ev_fixed.size, ref.size)
+        err_fixed = np.max(np.abs(ev_fixed[:n] - ref[:n]) * sweep.rpm(ref[:n]) / 60.0)
+        assert err_auto < 1e-3 < err_fixed
+
+    def test_falling_edge_and_inverted_polarity(self):
+        sweep = synth.linear_sweep(1200.0, 300.0, 3.0)
+        _, v = _tach(sweep, ramp_rev=0.02, duty=0.3)
+        ref_fall = _true_events(sweep, offset=0.3)
+        ev = detect_edges(v, FS, edge="falling")
+        assert_allclose(ev, ref_fall[:ev.size], atol=1e-9)
+        assert ev.size == ref_fall.size
+        # a notch (low-going pulse): its rising edge is the pulse's falling edge
+        ev_inv = detect_edges(5.0 - v, FS, edge="rising")
+        assert_allclose(ev_inv, ev, atol=1e-9)
+
+    def test_hysteresis_rejects_chatter(self):
+        sweep = synth.linear_sweep(600.0, 0.0, 3.0)
+        _, v = _tach(sweep, ramp_rev=0.05)
+        rng = np.random.default_rng(2)
+        v = v + 0.15 * rng.standard_normal(v.size)
+        ref = _true_events(sweep)[1:]
+        assert detect_edges(v, FS).size == ref.size
+        assert detect_edges(v, FS, threshold=2.5, hysteresis=0.0).size > ref.size
+
+    def test_pulses_per_rev(self):
+        sweep = synth.linear_sweep(600.0, 400.0, 3.0)
+        _, v = _tach(sweep, pulses_per_rev=8, ramp_rev=0.05)
+        ev = detect_edges(v, FS)
+        ref = _true_events(sweep, pulses_per_rev=8)[1:]
+        assert_allclose(ev, ref, atol=1e-8)
+
+    @pytest.mark.parametrize("kw, match", [
+        ({"edge": "up"}, "Invalid value for 'edge': allowed 'rising' or 'falling', got 'up'"),
+        ({"hysteresis": -1.0}, "Invalid value for 'hysteresis'"),
+        ({"level_window_s": 0.0}, "Invalid value for 'level_window_s'"),
+    ])
+    def test_invalid_options(self, kw, match):
+        with pytest.raises(TachError, match=match):
+            detect_edges(np.zeros(100), 1000.0, **kw)
+
+    def test_flat_channel_has_no_events(self):
+        assert detect_edges(np.full(5000, 3.3), 1000.0).size == 0
+
+
+class TestOncePerRev:
+    def test_clean_events_pass_unchanged_without_warning(self):
+        ref = _true_events(synth.linear_sweep(300.0, 500.0, 5.0))
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            opr = once_per_rev(ref)
+        assert_allclose(opr.times_s, ref, rtol=0, atol=0)
+        assert opr.n_missing_filled == opr.n_extra_removed == 0 and opr.notes == ()
+
+    @pytest.mark.parametrize("sweep", [synth.linear_sweep(60.0, 2000.0, 6.0),
+                                       synth.exp_coast_down(12000.0, 1.5, 6.0)],
+                             ids=["hard-start-60rpm-2000rpm_s", "hard-coast-down"])
+    def test_repair_missing_and_extra_under_hard_acceleration(self, sweep):
+        # The repair predicts each interval from its neighbours (constant angular
+        # acceleration), so it holds from 60 rpm at 2000 rpm/s where the interval halves
+        # from one revolution to the next; a global median would fail at once.
+        ref = _true_events(sweep)
+        rng = np.random.default_rng(4)
+        ev = synth.corrupt_events(ref, rng, missing=0.01, extra=0.005)
+        n_miss = ref.size - np.isin(ref, ev).sum()
+        n_extra = ev.size - (ref.size - n_miss)
+        with pytest.warns(TachQualityWarning, match="missing tach pulse"):
+            opr = once_per_rev(ev)
+        assert opr.n_missing_filled == n_miss and opr.n_extra_removed == n_extra
+        assert opr.times_s.size == ref.size
+        # filled pulses sit where the model puts them: exact for a constant acceleration,
+        # second order otherwise (0.14 % of an interval measured on the tau = 1.5 s
+        # exponential coast-down): tolerance 0.2 % of an interval
+        d = np.diff(ref)
+        assert np.max(np.abs(opr.times_s - ref)[1:] / d) < 2e-3
+        assert opr.repair_times_s.size == n_miss + n_extra
+
+    def test_repair_at_the_very_start(self):
+        # Faults among the first pulses: the walk starts from the first four consistent
+        # intervals and repairs backwards to the start.
+        ref = _true_events(synth.linear_sweep(60.0, 2000.0, 3.0))
+        ev = np.sort(np.r_[np.delete(ref, [2, 5]), 0.5 * (ref[3] + ref[4])])
+        with pytest.warns(TachQualityWarning):
+            opr = once_per_rev(ev)
+        assert (opr.n_missing_filled, opr.n_extra_removed) == (2, 1)
+        assert opr.times_s.size == ref.size
+        assert np.max(np.abs(opr.times_s - ref)[1:] / np.diff(ref)) < 5e-3
+
+    def test_pulses_per_rev_keeps_every_nth(self):
+        sweep = synth.linear_sweep(300.0, 300.0, 5.0)
+        ref4 = _true_events(sweep, pulses_per_rev=4)
+        rng = np.random.default_rng(8)
+        ev = synth.corrupt_events(ref4, rng, missing=0.01, extra=0.005)
+        with pytest.warns(TachQualityWarning):
+            opr = once_per_rev(ev, pulses_per_rev=4)
+        ref1 = ref4[::4]
+        assert opr.times_s.size == ref1.size
+        assert np.max(np.abs(opr.times_s - ref1)[1:] / np.diff(ref1)) < 1e-3
+
+    def test_too_few_pulses(self):
+        with pytest.raises(TachError, match=r"Too few tach pulses: 4 events .* fewer than 4 "
+                                            r"revolutions \(need at least 5 events\)"):
+            once_per_rev([0.0, 0.1, 0.2, 0.3])
+        with pytest.raises(TachError, match="need at least 9 events"):
+            once_per_rev(np.arange(8) * 0.1, pulses_per_rev=2)
+
+    def test_bad_input(self):
+        with pytest.raises(TachError, match="Invalid value for 'pulses_per_rev'"):
+            once_per_rev(np.arange(10.0), pulses_per_rev=0)
+        with pytest.raises(TachError, match="Invalid value for 'event_times_s'"):
+            once_per_rev([0.0, 0.2, 0.1, 0.3, 0.4, 0.5])
+
+    def test_no_repair_passes_through(self):
+        ev = np.array([0.0, 0.1, 0.2, 0.25, 0.3, 0.4, 0.5])
+        opr = once_per_rev(ev, repair=False)
+        assert_allclose(opr.times_s, ev)
