@@ -219,9 +219,9 @@ class PhaseAF:
     af_45_135 : float or None
         ``nc_geo / (n135 - n45)``.
     n45, n90, n135 : float or None
-        Speeds in rpm where the lag, relative to ``baseline_deg``, first crosses 45, 90
-        and 135 degrees walking up from the slowest speed at or above ``nc_rpm``'s
-        crossing region.
+        Speeds in rpm where the lag, relative to ``baseline_deg``, rises through 90 deg
+        (the crossing nearest ``nc_rpm``) and through 45 and 135 deg (the crossings
+        nearest ``n90``), by linear interpolation.
     nc_geo : float or None
         ``sqrt(n45 * n135)``; equals the natural frequency for a viscous SDOF mode.
     slope_deg_per_rpm : float or None

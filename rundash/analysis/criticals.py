@@ -291,7 +291,6 @@ def _sweep(speed, time_s, band, zeta, nc, ratio_min):
 
 def _quadrature(curve: _Curve, lo: int, hi: int, base: float, near: float) -> float | None:
     s, rel = curve.speed[lo:hi + 1], curve.lag[lo:hi + 1] - base
-    rel = rel - 360.0 * np.round((rel[0] - 0.0) / 360.0 - 0.25)  # branch: start near 0..360
     d = rel - 90.0
     idx = np.nonzero((d[:-1] < 0) & (d[1:] >= 0))[0]
     if idx.size == 0:

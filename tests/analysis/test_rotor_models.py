@@ -136,3 +136,19 @@ def test_noisy_heavily_damped(probe, seed):
     assert c.classification == "confirmed" and c.critically_damped
     assert_allclose(c.peak_speed_rpm, e["speed_rpm"], rtol=0.02)
     assert_allclose(c.af_governing, e["AF"], rtol=0.10)
+
+
+def test_two_disk_split_first_critical_between_probes():
+    # README: the X probes peak at the horizontal critical (2941-2974 rpm), the Y probes
+    # at the vertical one (3278-3303 rpm): 11 % apart, reported as a possible split
+    from rundash.analysis import combine_bearing
+
+    _, curves = _load("two-disk-anisotropic")
+    s = curves["speed_rpm"]
+    cx = find_criticals(s, _vector(curves, "bearing1_X"))
+    cy = find_criticals(s, _vector(curves, "bearing1_Y"))
+    pairs = combine_bearing(cx, cy)
+    first = [p for p in pairs if (p.a or p.b).speed_rpm < 4000]
+    assert [p.agreement for p in first] == ["one side only", "one side only"]
+    assert all("possible split critical" in p.note for p in first)
+    assert 2941 <= first[0].a.speed_rpm <= 2974 + 1 and 3278 - 1 <= first[1].b.speed_rpm <= 3303
