@@ -237,6 +237,8 @@ def _stall(curve: _Curve, i: int, hp: HalfPower, width_frac: float = 0.02,
         means, sig = [], []
         for k in range(n_chunks):
             m = (d >= k * width) & (d < (k + 1) * width)
+            if not np.any(m):
+                return ""  # a gap in the grid: no verdict on a plateau
             n_ind = max(np.count_nonzero(m) / curve.window_bins, 1.0)
             means.append(float(np.mean(amp[idx[m]])))
             sig.append(float(np.mean(curve.noise[idx[m]])) / math.sqrt(n_ind))
@@ -509,7 +511,10 @@ def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min,
     lag_pk = float(np.interp(hp.nc_rpm, sp, lag))
     rel_pk = lag_pk - base
     quad = _quadrature(curve, lo, hi, base, hp.nc_rpm)
-    pa = phase_af(sp[lo:hi + 1], lag[lo:hi + 1], nc_rpm=quad or hp.nc_rpm, baseline_deg=base)
+    if hi - lo >= 2:
+        pa = phase_af(sp[lo:hi + 1], lag[lo:hi + 1], nc_rpm=quad or hp.nc_rpm, baseline_deg=base)
+    else:
+        pa = PhaseAF(None, None, None, None, None, None, None, base, "band too short")
     evidence.append(f"phase lag changes by {change:.0f} deg across the band "
                     f"{band[0]:.0f}-{band[1]:.0f} rpm")
     evidence.append(f"lag at the peak is {rel_pk:.0f} deg above the below-resonance baseline "
