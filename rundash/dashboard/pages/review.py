@@ -601,6 +601,16 @@ def layout(db, run_id: int):
 _CURSOR_JS = """
 function(hover, fig, target) {
     var nu = window.dash_clientside.no_update;
+    var T = {f8: Float64Array, f4: Float32Array, i4: Int32Array, u4: Uint32Array,
+             i2: Int16Array, u2: Uint16Array, i1: Int8Array, u1: Uint8Array};
+    function arr(a) {  // figure arrays may arrive base64-encoded ({dtype, bdata})
+        if (a && a.bdata !== undefined && T[a.dtype]) {
+            var bin = atob(a.bdata), u8 = new Uint8Array(bin.length);
+            for (var q = 0; q < bin.length; q++) { u8[q] = bin.charCodeAt(q); }
+            return new T[a.dtype](u8.buffer);
+        }
+        return a || [];
+    }
     if (!hover || !hover.points || !hover.points.length || !fig || !fig.data) { return nu; }
     var p = hover.points[0];
     var s = p.customdata;
@@ -613,17 +623,20 @@ function(hover, fig, target) {
     var cur = [];
     for (var j = 0; j < data.length; j++) { if (data[j].meta === 'cursor') { cur.push(j); } }
     if (!src.length || !cur.length) { return nu; }
-    var d0 = data[src[0]], sp = d0.customdata, best = 0, err = Infinity;
+    var d0 = data[src[0]], sp = arr(d0.customdata), best = 0, err = Infinity;
     for (var k = 0; k < sp.length; k++) {
         var e = Math.abs(sp[k] - s); if (e < err) { err = e; best = k; }
     }
     if (target === 'polar') {
-        data[cur[0]] = Object.assign({}, data[cur[0]], {r: [d0.r[best]], theta: [d0.theta[best]]});
+        data[cur[0]] = Object.assign({}, data[cur[0]],
+                                     {r: [arr(d0.r)[best]], theta: [arr(d0.theta)[best]]});
     } else {
         var d1 = data[src[1]] || d0;
-        data[cur[0]] = Object.assign({}, data[cur[0]], {x: [d0.x[best]], y: [d0.y[best]]});
+        data[cur[0]] = Object.assign({}, data[cur[0]],
+                                     {x: [arr(d0.x)[best]], y: [arr(d0.y)[best]]});
         if (cur.length > 1) {
-            data[cur[1]] = Object.assign({}, data[cur[1]], {x: [d1.x[best]], y: [d1.y[best]]});
+            data[cur[1]] = Object.assign({}, data[cur[1]],
+                                         {x: [arr(d1.x)[best]], y: [arr(d1.y)[best]]});
         }
     }
     return Object.assign({}, fig, {data: data});
