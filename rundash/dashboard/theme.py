@@ -29,6 +29,8 @@ table.plain { border-collapse:collapse; width:100%; }
 table.plain th, table.plain td { text-align:left; padding:5px 8px; border-bottom:1px solid var(--line);
                                  vertical-align:top; }
 table.plain th { font-weight:600; background:#fafafa; }
+tr.clickable { cursor:pointer; } tr.clickable:hover { background:#e6f0f8; }
+td.v-pass { color:#00704f; font-weight:600; } td.v-fail { color:#b34700; font-weight:600; }
 .badge { display:inline-block; padding:2px 9px; border-radius:10px; font-weight:600;
          font-size:12px; color:white; background:var(--unjudged); }
 .badge.pass { background:var(--pass); } .badge.fail { background:var(--fail); }

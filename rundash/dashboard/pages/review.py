@@ -342,22 +342,24 @@ def limit_rows(findings, system: str = "metric") -> list[dict[str, str]]:
     return rows
 
 
-def _table(columns, rows, table_id=None):
-    from dash import dash_table
+CRITICAL_ROW = "review-critical-row"  # pattern-matching id type of the criticals rows
 
-    return dash_table.DataTable(
-        id=table_id, columns=[{"id": k, "name": n} for k, n in columns], data=rows,
-        style_as_list_view=True, cell_selectable=table_id is not None,
-        style_cell={"fontFamily": "inherit", "fontSize": "13px", "padding": "5px 8px",
-                    "textAlign": "left", "whiteSpace": "normal", "height": "auto"},
-        style_header={"fontWeight": "600", "backgroundColor": "#fafafa"},
-        style_data_conditional=[
-            {"if": {"filter_query": '{verdict} = "fail"'}, "backgroundColor": "#fdecea"},
-            {"if": {"filter_query": '{verdict} = "pass"'}, "backgroundColor": "#eef8f4"},
-            {"if": {"state": "active"}, "backgroundColor": "#e6f0f8",
-             "border": "1px solid #0072B2"}],
-        tooltip_data=[{"basis": r.get("source", "")} for r in rows] if rows and "source" in
-        rows[0] else None)
+
+def _table(columns, rows, table_id=None, *, clickable: bool = False):
+    """A plain table; verdict cells carry their word and a class; rows of the criticals
+    table are clickable (pattern-matching ids ``{'type': CRITICAL_ROW, 'index': i}``)."""
+    from dash import html
+
+    head = html.Thead(html.Tr([html.Th(n) for _, n in columns]))
+    body = []
+    for i, r in enumerate(rows):
+        cells = [html.Td(r.get(k, "–"), title=r.get("source") if k == "basis" else None,
+                         className=f"v-{r.get(k)}" if k == "verdict" else None)
+                 for k, _ in columns]
+        kw = {"id": {"type": CRITICAL_ROW, "index": i}, "n_clicks": 0,
+              "className": "clickable"} if clickable else {}
+        body.append(html.Tr(cells, **kw))
+    return html.Table([head, html.Tbody(body)], id=table_id, className="plain")
 
 
 def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
@@ -380,8 +382,6 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
                             "no findings yet: critical speeds, margins and limit checks "
                             "appear here once the run is processed by a rundash version that "
                             "judges them. The plots below show the stored vectors."),
-                     html.Div(_table(CRITICAL_COLUMNS, [], ids.CRITICALS_TABLE),
-                              style={"display": "none"}),
                      html.Div(id=ids.EVIDENCE)]
     else:
         prof = f.get("profile") or {}
@@ -393,14 +393,12 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
         crit = critical_rows(f, system)
         children.append(html.H3(f"Critical speeds found ({len(crit)})"))
         if crit:
-            children.append(_table(CRITICAL_COLUMNS, crit, ids.CRITICALS_TABLE))
+            children.append(_table(CRITICAL_COLUMNS, crit, ids.CRITICALS_TABLE, clickable=True))
             children.append(html.P("Click a row (or a critical marker on the Bode plot) for "
                                    "the evidence behind it.", className="note"))
         else:
             children.append(html.P("No critical speed was found in the speed range of this "
                                    "run.", className="muted"))
-            children.append(html.Div(_table(CRITICAL_COLUMNS, [], ids.CRITICALS_TABLE),
-                                     style={"display": "none"}))
         children.append(html.Div(id=ids.EVIDENCE))
         bearings = f.get("bearings") or []
         if bearings:
@@ -645,7 +643,7 @@ function(hover, fig, target) {
 
 
 def register_callbacks(app, db) -> None:
-    from dash import Input, Output, State, ctx, no_update
+    from dash import ALL, Input, Output, State, ctx, no_update
 
     @app.callback(Output(ids.BODE, "figure"), Output(ids.POLAR, "figure"),
                   Output(ids.DIRECT, "figure"),
@@ -696,14 +694,18 @@ def register_callbacks(app, db) -> None:
                              else "metric")
 
     @app.callback(Output(ids.EVIDENCE, "children"),
-                  Input(ids.CRITICALS_TABLE, "active_cell"), Input(ids.BODE, "clickData"),
+                  Input({"type": CRITICAL_ROW, "index": ALL}, "n_clicks"),
+                  Input(ids.BODE, "clickData"),
                   State(ids.UNITS, "value"), State(ids.RUN_ID, "data"),
                   prevent_initial_call=True)
-    def _evidence(cell, click, units, run_id):
+    def _evidence(row_clicks, click, units, run_id):
         index = None
-        if ctx.triggered_id == ids.CRITICALS_TABLE and cell:
-            index = cell.get("row")
-        elif ctx.triggered_id == ids.BODE and click:
+        trig = ctx.triggered_id
+        if isinstance(trig, dict) and trig.get("type") == CRITICAL_ROW:
+            if not any(row_clicks or []):
+                return no_update  # rows drawn anew, nothing clicked
+            index = int(trig["index"])
+        elif trig == ids.BODE and click:
             index = critical_index_from_click(load_context(db, run_id)["findings"], click)
             if index is None:
                 return no_update

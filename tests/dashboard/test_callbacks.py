@@ -1,0 +1,194 @@
+"""Page logic called directly with plain values, as the callbacks call it (no browser)."""
+
+from __future__ import annotations
+
+import base64
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+
+from rundash import CAUTION
+from rundash.dashboard.pages import importer, review, runs
+from rundash.errors import InputError
+from rundash.units import UM_PER_MIL
+
+
+def _arr(v):
+    if isinstance(v, dict) and "bdata" in v:
+        return np.frombuffer(base64.b64decode(v["bdata"]), dtype=np.dtype(v["dtype"]))
+    return np.asarray(v)
+
+
+def _text(component) -> str:
+    """All text of a Dash component tree."""
+    if component is None:
+        return ""
+    if isinstance(component, (str, int, float)):
+        return str(component)
+    if isinstance(component, (list, tuple)):
+        return " ".join(_text(c) for c in component)
+    out = [_text(getattr(component, "children", None))]
+    data = getattr(component, "data", None)
+    if isinstance(data, list):
+        out += [" ".join(str(v) for v in row.values()) for row in data]
+    return " ".join(out)
+
+
+class TestRoutes:
+    def test_match(self):
+        assert runs.match("/") == {}
+        assert review.match("/run/12") == {"run_id": 12}
+        assert review.match("/run/x") is None
+        assert importer.match("/import") == {}
+
+
+class TestRunsPage:
+    def test_lists_the_run_with_its_verdict(self, demo_db):
+        text = _text(runs.layout(demo_db.db))
+        assert "First start (test)" in text and "2023 overhaul" in text
+        assert "pass" in text and "processed" in text
+
+    def test_badge_words(self):
+        assert _text(runs.verdict_badge(None, False)) == "not processed"
+        assert _text(runs.verdict_badge(None, True)) == "no findings yet"
+        assert "fail" in runs.verdict_badge("fail", True).className
+
+
+class TestReview:
+    def test_verdict_panel_opens_on_findings_and_caution(self, demo_db):
+        ctx = review.load_context(demo_db.db, demo_db.run_id)
+        text = _text(review.verdict_panel(ctx))
+        assert "Critical speeds found (3)" in text
+        assert "12.1 %" in text and "3,500" in text
+        assert "test warning" in text
+        assert CAUTION in text
+
+    def test_verdict_panel_without_findings(self, demo_db):
+        ctx = dict(review.load_context(demo_db.db, demo_db.run_id), findings=None)
+        text = _text(review.verdict_panel(ctx))
+        assert "no findings yet" in text and CAUTION in text
+
+    def test_amplitudes_in_imperial(self):
+        # 1 mil = 25.4 um exactly
+        assert review._amp(50.8, "um pp", "imperial") == "2 mil pp"
+        assert review._amp(25.4, "mm/s pk", "imperial") == "1 in/s pk"
+
+    def test_vector_figures_mark_criticals_of_the_probe(self, demo_db):
+        bode, polar, direct = review.vector_figures(demo_db.db, demo_db.run_id, "K410-DE-X",
+                                                    [1.0, 2.0], "compensated", "metric")
+        d = bode.to_dict()
+        (m,) = [t for t in d["data"] if t.get("name") == "critical speeds"]
+        assert_allclose(_arr(m["x"]), [3500.0])
+        names = {t["name"] for t in d["data"] if t.get("meta") == "data"}
+        assert {"K410-DE-X 1X run-up", "K410-DE-X 2X run-up"} <= names
+        assert "slow-roll compensated" in d["layout"]["title"]["text"]
+        assert [t for t in polar.to_dict()["data"] if t.get("name") == "critical speeds"]
+        lim = [t for t in direct.to_dict()["data"] if t.get("meta") == "limit"]
+        assert lim  # API 617-style limit and ISO reference zones
+
+    def test_units_switch_and_uncompensated(self, demo_db):
+        a = review.vector_figures(demo_db.db, demo_db.run_id, "K410-DE-X", [1.0],
+                                  "uncompensated", "metric")[0].to_dict()
+        b = review.vector_figures(demo_db.db, demo_db.run_id, "K410-DE-X", [1.0],
+                                  "uncompensated", "imperial")[0].to_dict()
+        assert b["layout"]["yaxis"]["title"]["text"] == "amplitude (mil pp)"
+        assert_allclose(_arr(b["data"][0]["y"]) * UM_PER_MIL, _arr(a["data"][0]["y"]))
+        assert "uncompensated" in a["layout"]["title"]["text"]
+        assert a["layout"]["uirevision"] != b["layout"]["uirevision"]
+
+    def test_velocity_probe_has_no_compensation(self, demo_db):
+        bode = review.vector_figures(demo_db.db, demo_db.run_id, "K410-DE-VEL", [1.0],
+                                     "compensated", "metric")[0].to_dict()
+        assert "uncompensated" in bode["layout"]["title"]["text"]
+        assert bode["layout"]["yaxis"]["title"]["text"] == "amplitude (mm/s pk)"
+
+    def test_speed_cascade_campbell(self, demo_db):
+        s = review.speed_figure(demo_db.db, demo_db.run_id, "K410-DE-X").to_dict()
+        assert "time inside critical bands" in " ".join(a["text"] for a in s["layout"]["annotations"])
+        c = review.cascade_figure(demo_db.db, demo_db.run_id, "K410-DE-X", "metric").to_dict()
+        assert c["data"][0]["type"] == "heatmap"
+        fig, note = review.campbell_figure(demo_db.db, demo_db.run_id, "41.5, x, -3")
+        assert "'x'" in note and "'-3'" in note
+        pts = [t for t in fig.to_dict()["data"] if t.get("name") == "interference points"][0]
+        assert_allclose(np.sort(_arr(pts["x"])), np.sort([60 * 41.5 / n for n in (1, 2, 3, 4)]))
+
+    def test_orbit_applies_mounting_angles(self, demo_db):
+        fig, note = review.orbit_figure(demo_db.db, demo_db.run_id, "K410-DE-X|K410-DE-Y", 3000,
+                                        "run-up", "metric")
+        d = fig.to_dict()
+        assert "315°" in note and "45°" in note and "applied" in note
+        assert d["layout"]["meta"]["sense"] in ("forward", "reverse")
+        assert [t for t in d["data"] if t.get("meta") == "raw"]
+        assert abs(float(note.split(" rpm (nearest")[0].split()[-1]) - 3000) < 50
+
+    def test_evidence_panel_and_click(self, demo_db):
+        f = review.load_context(demo_db.db, demo_db.run_id)["findings"]
+        text = _text(review.evidence_panel(f, 0))
+        assert "AF half-power" in text and "5.00" in text and "phase lag rises" in text
+        assert review.evidence_panel(f, 99) == ""
+        click = {"points": [{"customdata": [0, 3520.0]}]}
+        assert review.critical_index_from_click(f, click) == 1
+        assert review.critical_index_from_click(f, {"points": [{"customdata": 3.0}]}) is None
+
+    def test_orbit_pairs(self, demo_db):
+        ctx = review.load_context(demo_db.db, demo_db.run_id)
+        assert review.orbit_pairs(ctx["probes"]) == [("K410-DE-X", "K410-DE-Y"),
+                                                     ("K410-NDE-X", "K410-NDE-Y")]
+
+
+class TestImport:
+    def test_sanitise(self):
+        assert importer.sanitise_filename("../../etc/passwd") == "passwd"
+        assert importer.sanitise_filename("C:\\data\\run 1 (copy).wav") == "run_1_copy_.wav"
+        assert importer.sanitise_filename("..") == "upload.dat"
+        assert len(importer.sanitise_filename("a" * 300 + ".wav")) <= 100
+
+    def test_decode_upload_cap_and_errors(self):
+        url = "data:application/octet-stream;base64," + base64.b64encode(b"x" * 100).decode()
+        assert importer.decode_upload(url, what="file", max_bytes=100) == b"x" * 100
+        with pytest.raises(InputError, match="larger than the limit"):
+            importer.decode_upload(url, what="file", max_bytes=50)
+        with pytest.raises(InputError, match="no file uploaded"):
+            importer.decode_upload(None, what="file", max_bytes=50)
+        with pytest.raises(InputError, match="not valid base64"):
+            importer.decode_upload("data:x;base64,@@@", what="file", max_bytes=50)
+
+    def test_parse_started(self):
+        assert importer.parse_started("2025-06-03 06:15").isoformat() == "2025-06-03T06:15:00+00:00"
+        assert importer.parse_started("") is None
+        with pytest.raises(InputError, match="Invalid value for 'started'"):
+            importer.parse_started("yesterday")
+
+    def test_start_refuses_bad_form(self, demo_db):
+        jobs = importer.ImportJobs(demo_db.db)
+        job, err = importer.start_import(jobs, demo_db.db, data_contents=None, data_name="a.exe",
+                                         machine_source="upload", machine_contents=None,
+                                         label="", cycle="", kind="mixed", started="")
+        assert job is None and "Invalid value for 'data file'" in err
+
+    def test_import_job_lands_a_run_and_refuses_a_duplicate(self, demo_db, tmp_path):
+        from rundash.storage import queries as q
+        from rundash.storage.engine import open_database
+
+        db = open_database(str(tmp_path / "imp.sqlite"))
+        try:
+            jobs = importer.ImportJobs(db)
+            data = (demo_db.folder / "k410_2025_trip.wav").read_bytes()
+            kw = dict(filename="trip test.wav", data=data, description_text=demo_db.desc_text,
+                      label="trip", cycle="2025", kind="mixed", started_at=None, process=True)
+            st = jobs.run_sync(**kw)
+            assert st.error is None and st.done and st.run_id is not None
+            with db.read() as conn:
+                assert [r.label for r in q.list_runs(conn)] == ["trip"]
+                assert q.load_processing(conn, st.run_id) is not None
+            line, pct, result, more = importer.status_view(st)
+            assert pct == "100%" and not more and "Review run" in _text(result)
+            st2 = jobs.run_sync(**kw)
+            assert st2.stage == "refused" and st2.error
+        finally:
+            db.dispose()
+
+    def test_machine_description_from_stored_machine(self, demo_db):
+        text, where = importer.machine_description_text(demo_db.db, "machine:1", None)
+        assert "Tarnwick" in text and "run" in where
