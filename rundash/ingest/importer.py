@@ -129,6 +129,7 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
             cols = np.array([col for col, *_ in plan])
             names = [reader.channels[c] for c in cols]
             scales = np.array([s for *_, s in plan])[:, None]
+            unit_scale = bool(np.all(scales == 1.0))
             stats_min = np.full(len(plan), np.inf)
             stats_max = np.full(len(plan), -np.inf)
             start = 0
@@ -137,7 +138,8 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
             pending_n = 0
             for block, frac in reader.blocks(q.CHUNK_SAMPLES):
                 sel = block[cols]
-                sel *= scales.astype(sel.dtype)
+                if not unit_scale:
+                    sel *= scales.astype(sel.dtype)
                 pending.append(sel)
                 pending_n += block.shape[1]
                 while pending_n >= q.CHUNK_SAMPLES:
@@ -176,8 +178,9 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
 
 def _flush(conn, ch_ids, chunk, start, chunk_index, fs, smin, smax, names, source):
     with np.errstate(over="ignore"):
-        chunk32 = chunk.astype(np.float32)
-    if not np.isfinite(chunk32).all():
+        chunk32 = chunk.astype(np.float32, copy=False)
+    lo, hi = chunk32.min(axis=1), chunk32.max(axis=1)  # NaN propagates, inf shows
+    if not (np.isfinite(lo).all() and np.isfinite(hi).all()):
         bad = ~np.isfinite(chunk32)
         ch, idx = np.argwhere(bad)[0]
         value = chunk[ch, idx]
@@ -187,8 +190,8 @@ def _flush(conn, ch_ids, chunk, start, chunk_index, fs, smin, smax, names, sourc
         raise InputError(f"{source}: channel {names[ch]!r}, sample {start + idx}: value "
                          f"{value:.6g} after scaling does not fit a float32 sample "
                          "(expected |value| < 3.4e38 in the stored unit)")
-    np.minimum(smin, chunk32.min(axis=1), out=smin)
-    np.maximum(smax, chunk32.max(axis=1), out=smax)
+    np.minimum(smin, lo, out=smin)
+    np.maximum(smax, hi, out=smax)
     q.write_chunks(conn, [(cid, chunk_index, start, chunk32[i]) for i, cid in enumerate(ch_ids)],
                    fs)
     return start + chunk.shape[1], chunk_index + 1
