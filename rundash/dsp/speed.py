@@ -98,25 +98,32 @@ class SpeedProfile:
         t = np.asarray(t, dtype=np.float64)
         return self._angle(t.ravel(), extrapolate=False).reshape(t.shape)
 
-    def _piece(self, t: np.ndarray, sorted_t: bool = False) -> tuple[np.ndarray, np.ndarray]:
-        if sorted_t:
-            # increasing times: count the samples per revolution (K log n, not n log K)
-            cuts = np.searchsorted(t, self._t[1:-1], side="right")
-            counts = np.diff(np.concatenate([[0], cuts, [t.size]]))
-            k = np.repeat(np.arange(self.n_revs), counts)
-        else:
-            k = np.searchsorted(self._t, t, side="right") - 1
-            np.clip(k, 0, self.n_revs - 1, out=k)
+    def _piece(self, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        k = np.searchsorted(self._t, t, side="right") - 1
+        np.clip(k, 0, self.n_revs - 1, out=k)
         return k, t - self._t[k]
 
     def _angle(self, t: np.ndarray, *, extrapolate: bool, sorted_t: bool = False) -> np.ndarray:
         """Angle at 1-D times; with ``extrapolate`` the end cubics are extended by up to
         half a revolution beyond the first and last events (order tracking uses this for
         the interpolation weights at the record's ends). ``sorted_t``: t is increasing."""
-        k, s = self._piece(t, sorted_t)
         c = self._c
-        u = ((c[0, k] * s + c[1, k]) * s + c[2, k]) * s
-        u += c[3, k]
+        if sorted_t:
+            # increasing times: repeat each revolution's coefficients over its samples
+            cuts = np.searchsorted(t, self._t[1:-1], side="right")
+            counts = np.diff(np.concatenate([[0], cuts, [t.size]]))
+            s = t - np.repeat(self._t[:-1], counts)
+            u = np.repeat(c[0], counts)
+            u *= s
+            u += np.repeat(c[1], counts)
+            u *= s
+            u += np.repeat(c[2], counts)
+            u *= s
+            u += np.repeat(c[3], counts)
+        else:
+            k, s = self._piece(t)
+            u = ((c[0, k] * s + c[1, k]) * s + c[2, k]) * s
+            u += c[3, k]
         if extrapolate:
             u[(u < -0.5) | (u > self.n_revs + 0.5)] = np.nan
         else:

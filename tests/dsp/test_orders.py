@@ -83,6 +83,9 @@ class TestTrackOrdersConstantSpeed:
         tr = track_orders(x, fs, prof, orders=(1, 2))
         assert_allclose(np.abs(tr.vectors[0, 0]), 0.01, rtol=5e-4)
         assert np.max(np.abs(tr.vectors[0, 1])) < 1e-5
+        # a pure DC level: the quadrature's leakage is removed to rounding (module doc)
+        dc = track_orders(np.full(t.size, -10.0), fs, prof, orders=(1, 2))
+        assert np.max(np.abs(dc.vectors)) < 1e-12 * 10.0
 
 
 @pytest.mark.parametrize(
@@ -235,6 +238,22 @@ class TestChunking:
         joined = tr.concat(tr)
         assert joined.n_blocks == 2 * tr.n_blocks
         assert track_orders(x[:, :10], fs, prof, orders=(1,)).n_blocks == 0
+
+
+def test_float32_data_tracked_in_float32_precision():
+    # float32 data are tracked in float32 (module doc): results agree with the float64
+    # path to float32 rounding, ~1e-7 of the largest sample per block, times the
+    # sqrt(N) growth of the sum (N ~ 300 samples here): tolerance 1e-5 of amplitude 1.
+    fs = 6000.0
+    sweep = synth.linear_sweep(1000.0, 300.0, 5.0)
+    prof = speed_profile(sweep.rev_times())
+    t = np.arange(int(5.0 * fs)) / fs
+    x = synth.probe_signal(sweep.theta(t), 1.0, 60.0, harmonics=[(2, 0.5, 5.0)], offset=2.0)
+    t64 = track_orders(x, fs, prof, orders=(1, 2, 3))
+    t32 = track_orders(x.astype(np.float32), fs, prof, orders=(1, 2, 3))
+    assert t32.vectors.dtype == np.complex128
+    assert_allclose(t32.vectors, t64.vectors, rtol=0, atol=1e-5)
+    assert_allclose(t32.direct_rms, t64.direct_rms, rtol=1e-5)
 
 
 def test_half_orders_need_even_blocks():
