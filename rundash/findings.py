@@ -178,6 +178,15 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                 af_difference=_num(pair.af_difference), agreement=pair.agreement,
                 note=pair.note))
 
+    open_top = []
+    for (name, d), (crits, s, v, t, afac, i) in per_probe.items():
+        r = crit_mod.rising_at_top(s, v, amplitude_factor=afac)
+        if r is not None:
+            open_top.append(dict(probe=name, direction=d, from_rpm=_num(r.from_rpm),
+                                 to_rpm=_num(r.to_rpm), rise_pct=_num(r.rise_pct),
+                                 lag_change_deg=_num(r.lag_change_deg), note=r.note))
+            notes.append(f"{name} {d}: {r.note}")
+
     direction_cmp = []
     names = sorted({n for n, _ in per_probe})
     for name in names:
@@ -214,6 +223,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                                                       c["probe"])),
         "bearings": bearings,
         "directions": direction_cmp,
+        "rising_at_top": open_top,
         "limits": limits_json,
         "warnings": notes + list(sj["notes"]),
         "run_verdict": sj["overall"],

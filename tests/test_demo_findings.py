@@ -121,3 +121,14 @@ class TestDemoFindings:
         assert main(["findings", str(rid), "--db", str(path)]) == 0
         out = capsys.readouterr().out
         assert "verdict:" in out and "Advisory only" in out
+
+
+def test_trip_run_notes_a_response_still_rising_toward_the_second_critical(demo):
+    # scenario.json: the second (conical) critical lies above the trip speed the run
+    # reaches (6000 rpm), so its lower flank shows at the top of the run
+    _, _, _, findings = demo
+    run = SCENARIO["runs"]["2025_trip"]
+    second = min(m["damped_rpm"] for m in run["modes"]["X"] if m["damped_rpm"] > 6000)
+    notes = findings[run["file"]]["rising_at_top"]
+    assert any(n["probe"] == "K410-DE-X" for n in notes)
+    assert all(n["to_rpm"] < second for n in notes)
