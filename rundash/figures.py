@@ -321,6 +321,7 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
     _add_bode_cursor(fig, traces, kind, system, cursor_rpm)
     comp = "slow-roll compensated" if compensated else "uncompensated"
     _layout(fig, title=title or f"Bode plot ({comp})", uirevision=uirevision, height=560)
+    fig.update_layout(hovermode="x")  # a hover anywhere at a speed reads every trace there
     fig.update_yaxes(title_text=f"amplitude ({amplitude_label(kind, system)})", row=1, col=1,
                      rangemode="tozero")
     fig.update_yaxes(title_text="phase lag (deg)", row=2, col=1, range=[0, 360],

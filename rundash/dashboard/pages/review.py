@@ -517,16 +517,15 @@ def layout(db, run_id: int):
                        children=verdict_panel(ctx, "metric"))
     if proc is None:
         return html.Div([dcc.Store(id=ids.RUN_ID, data=run_id), head, verdict])
-    probe_opts = [{"label": f"{p.name} ({p.kind}, {p.bearing or '–'} {p.axis})",
-                   "value": p.name} for p in probes]
+    probe_opts = [{"label": p.name, "title": f"{p.kind}, bearing {p.bearing or '–'}, axis "
+                   f"{p.axis}, mounted at {p.angle_deg:g}°", "value": p.name} for p in probes]
     crit = _criticals(ctx["findings"])
     first = crit[0]["probe"] if crit and any(p.name == crit[0]["probe"] for p in probes) \
         else probes[0].name
     pairs = orbit_pairs(probes)
     controls = html.Div(className="card controls", children=[
         html.Div([html.Label("Probe", className="head"),
-                  dcc.Dropdown(id=ids.PROBE, options=probe_opts, value=first, clearable=False,
-                               style={"width": "330px"})]),
+                  _radio(ids.PROBE, probe_opts, first)]),
         html.Div([html.Label("Orders (1X always shown)", className="head"),
                   dcc.Checklist(id=ids.ORDERS, inline=True, value=[1.0],
                                 options=[{"label": f"{o:g}X", "value": float(o),
@@ -621,15 +620,21 @@ function(hover, fig, target) {
     var cur = [];
     for (var j = 0; j < data.length; j++) { if (data[j].meta === 'cursor') { cur.push(j); } }
     if (!src.length || !cur.length) { return nu; }
-    var d0 = data[src[0]], sp = arr(d0.customdata), best = 0, err = Infinity;
-    for (var k = 0; k < sp.length; k++) {
-        var e = Math.abs(sp[k] - s); if (e < err) { err = e; best = k; }
+    // nearest speed over every data trace (Bode: amplitude/phase pairs; polar: each curve)
+    var step = (target === 'polar') ? 1 : 2, bi = -1, best = 0, err = Infinity;
+    for (var m = 0; m + step - 1 < src.length; m += step) {
+        var sp = arr(data[src[m]].customdata);
+        for (var k = 0; k < sp.length; k++) {
+            var e = Math.abs(sp[k] - s); if (e < err) { err = e; best = k; bi = m; }
+        }
     }
+    if (bi < 0) { return nu; }
+    var d0 = data[src[bi]];
     if (target === 'polar') {
         data[cur[0]] = Object.assign({}, data[cur[0]],
                                      {r: [arr(d0.r)[best]], theta: [arr(d0.theta)[best]]});
     } else {
-        var d1 = data[src[1]] || d0;
+        var d1 = data[src[bi + 1]] || d0;
         data[cur[0]] = Object.assign({}, data[cur[0]],
                                      {x: [arr(d0.x)[best]], y: [arr(d0.y)[best]]});
         if (cur.length > 1) {
