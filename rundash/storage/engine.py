@@ -3,10 +3,14 @@
 ``open_database(url_or_path)`` returns a :class:`Database`: an engine whose SQLite
 connections run in WAL mode with foreign keys on and a busy timeout, upgraded to the
 newest Alembic revision on opening. Any SQLAlchemy URL works; a plain path means SQLite.
+PostgreSQL (``postgresql+psycopg://user@host/db``; a bare ``postgresql://`` URL is taken
+to mean the psycopg driver) runs the same models and revisions; there, read-then-write
+races are closed with transaction-scoped advisory locks (:func:`lock_key`).
 """
 
 from __future__ import annotations
 
+import hashlib
 import os
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -30,8 +34,11 @@ def resolve_db(db: str | None) -> str:
 
 
 def to_url(db: str) -> str:
-    """A SQLAlchemy URL for a URL or a file path."""
+    """A SQLAlchemy URL for a URL or a file path (``postgresql://`` means psycopg 3)."""
     if "://" in db:
+        for bare in ("postgresql://", "postgres://"):
+            if db.startswith(bare):
+                return "postgresql+psycopg://" + db[len(bare):]
         return db
     return "sqlite:///" + str(Path(db).expanduser().absolute())
 
@@ -56,6 +63,20 @@ def _sqlite_setup(engine: Engine) -> None:
             conn.exec_driver_sql("BEGIN IMMEDIATE")
         else:
             conn.exec_driver_sql("BEGIN")
+
+
+def lock_key(conn: Connection, key: str) -> None:
+    """Serialise concurrent writers on ``key`` until the current transaction ends.
+
+    SQLite write transactions are already serial (``BEGIN IMMEDIATE``), so this does
+    nothing there. On PostgreSQL (READ COMMITTED) two writers could both check "is this
+    hash stored yet?" before either commits; a transaction-scoped advisory lock on the key
+    makes the second wait for the first to commit, after which its check sees the row.
+    """
+    if conn.dialect.name != "postgresql":
+        return
+    h = int.from_bytes(hashlib.sha256(key.encode("utf-8")).digest()[:8], "big", signed=True)
+    conn.execute(text("SELECT pg_advisory_xact_lock(:k)"), {"k": h})
 
 
 def migrations_dir() -> Path:
@@ -109,6 +130,16 @@ def upgrade(engine: Engine) -> None:
         return
     with engine.connect() as conn:
         sqlite = engine.dialect.name == "sqlite"
+        if engine.dialect.name == "postgresql":
+            # several processes (Dask workers) may open a new database at once: one
+            # upgrades, the others wait and then find it at head
+            conn.exec_driver_sql("SELECT pg_advisory_lock(7234001)")
+            conn.commit()
+            if MigrationContext.configure(conn).get_current_revision() == head:
+                conn.rollback()
+                conn.exec_driver_sql("SELECT pg_advisory_unlock(7234001)")
+                conn.commit()
+                return
         if sqlite:
             # A batch migration that recreates a parent table would cascade-delete child
             # rows with foreign keys on: switch them off (outside a transaction) first.
@@ -121,6 +152,9 @@ def upgrade(engine: Engine) -> None:
             conn.exec_driver_sql("PRAGMA foreign_keys = ON")
             if bad:
                 raise StorageError(f"foreign key check failed after upgrade: {bad[:5]}")
+        if engine.dialect.name == "postgresql":
+            conn.exec_driver_sql("SELECT pg_advisory_unlock(7234001)")
+            conn.commit()
 
 
 def open_database(db: str | None = None, *, upgrade_schema: bool = True) -> Database:
@@ -132,7 +166,13 @@ def open_database(db: str | None = None, *, upgrade_schema: bool = True) -> Data
             parent = Path(u.database).parent
             if not parent.exists():
                 raise StorageError(f"database folder does not exist: {parent}")
-        engine = create_engine(url)
+        try:
+            engine = create_engine(url, **({"pool_pre_ping": True}
+                                           if u.get_backend_name() == "postgresql" else {}))
+        except ModuleNotFoundError as exc:
+            raise StorageError(f"cannot open database {u.render_as_string(hide_password=True)}"
+                               f": its driver is not installed ({exc.name}); for PostgreSQL "
+                               "install rundash[postgres] (psycopg 3)") from None
         if engine.dialect.name == "sqlite":
             _sqlite_setup(engine)
         if upgrade_schema:
@@ -140,5 +180,7 @@ def open_database(db: str | None = None, *, upgrade_schema: bool = True) -> Data
         with engine.connect() as conn:
             conn.execute(text("SELECT 1"))
     except SQLAlchemyError as exc:
-        raise StorageError(f"cannot open database {url}: {exc.__class__.__name__}: {exc}") from exc
+        shown = make_url(url).render_as_string(hide_password=True)
+        raise StorageError(f"cannot open database {shown}: {exc.__class__.__name__}: "
+                           f"{str(exc).splitlines()[0] if str(exc) else ''}") from exc
     return Database(engine=engine, url=url)

@@ -18,6 +18,7 @@ from rundash.model import (
 )
 from rundash.storage import orm
 from rundash.storage.codec import decode_f32, decode_f64, encode_f32, encode_f64
+from rundash.storage.engine import lock_key
 
 CHUNK_SAMPLES = 1 << 16
 
@@ -36,6 +37,7 @@ def upsert_machine(conn: Connection, desc: MachineDescription) -> tuple[int, dic
     named stay (older runs refer to them). Returns the machine id and probe ids by name.
     """
     m = desc.machine
+    lock_key(conn, "machine:" + m.name)  # two first imports of one machine at once
     values = dict(
         kind=m.kind, rated_speed_rpm=m.rated_speed_rpm,
         min_operating_speed_rpm=m.min_operating_speed_rpm,
@@ -99,6 +101,14 @@ def get_machine(conn: Connection, machine_id: int) -> MachineInfo:
 
 # ----------------------------------------------------------------------------- runs
 def find_run_by_hash(conn: Connection, sha256: str) -> int | None:
+    """The first run imported from a file with this content hash, or None.
+
+    In a write transaction the check holds a lock on the hash until commit (see
+    :func:`~rundash.storage.engine.lock_key`), so two imports of one file at once cannot
+    both find nothing and both store it.
+    """
+    if conn.get_execution_options().get("rundash_write"):
+        lock_key(conn, "source:" + sha256)
     return conn.execute(select(R.c.id).where(R.c.source_sha256 == sha256)
                         .order_by(R.c.id)).scalar()
 
