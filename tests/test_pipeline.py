@@ -14,6 +14,7 @@ from rundash.ingest.importer import import_run
 from rundash.ingest.machine_file import parse_machine_description
 from rundash.pipeline import ProcessingParams, process_run
 from rundash.storage import queries as q
+from tests.conftest import DB_KINDS, fresh_database_url
 from tests.synth import linear_sweep, probe_signal, tach_waveform
 
 FS = 5120.0
@@ -60,9 +61,14 @@ def lag_deg(rpm):
     return np.degrees(np.arctan2(2 * 0.1 * r, 1 - r**2))
 
 
-@pytest.fixture(scope="module")
-def processed(tmp_path_factory):
+@pytest.fixture(scope="module", params=DB_KINDS)
+def processed(request, tmp_path_factory):
     tmp = tmp_path_factory.mktemp("pipe")
+    with fresh_database_url(request.param, tmp) as url:
+        yield from _processed(tmp, url)
+
+
+def _processed(tmp, url):
     sweep = linear_sweep(300.0, 200.0, 14.0)  # 300 -> 3100 rpm at 200 rpm/s
     t = np.arange(int(sweep.duration_s * FS)) / FS
     theta = sweep.theta(t)
@@ -75,7 +81,7 @@ def processed(tmp_path_factory):
     path = tmp / "synthetic.wav"
     wavfile.write(path, int(FS), (volts.T / 10.0).astype(np.float32))
     from rundash.storage.engine import open_database
-    db = open_database(str(tmp / "p.sqlite"))
+    db = open_database(url)
     desc = parse_machine_description(MACHINE, "m.toml")
     res = import_run(db, path, desc, description_text=MACHINE, kind="mixed")
     out = process_run(db, res.run_id, params=ProcessingParams(slow_roll_rpm=(300.0, 360.0)))

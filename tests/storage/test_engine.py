@@ -6,6 +6,7 @@ from rundash.storage.engine import BUSY_TIMEOUT_MS, open_database, resolve_db
 
 
 class TestOpenDatabase:
+    @pytest.mark.sqlite_only  # SQLite's own pragmas
     def test_every_connection_has_wal_foreign_keys_and_busy_timeout(self, db):
         for _ in range(2):
             with db.engine.connect() as conn:
