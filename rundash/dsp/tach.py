@@ -230,12 +230,20 @@ def _predict(d1: float, d2: float) -> float:
     return 1.0 / math.sqrt(q)
 
 
-def _repair_forward(t: np.ndarray, a: int, filled: list, removed: list) -> list:
+_MAX_FILL = 8  # most pulses inserted in one gap; a longer gap is a dropout, left as is
+
+
+def _repair_forward(t: np.ndarray, a: int, filled: list, removed: list, notes: list,
+                    sign: float = 1.0) -> list:
     """Walk forward from 3 trusted intervals ending at t[a + 3].
 
-    Each next event is judged against the predicted interval under three hypotheses:
-    it is the next pulse (ratio near 1), it is spurious (the event after it fits), or
-    k - 1 pulses are missing before it (ratio near k >= 2); the best fit wins.
+    Each next event is judged against the predicted pulse times under three hypotheses:
+    it is the next pulse, k - 1 pulses are missing before it (it fits the k-th
+    predicted pulse), or it is spurious (without it, the event after it fits a
+    predicted pulse); an event that fits a pulse within 5 % is kept, another is removed
+    when dropping it fits at least twice as well. When none fits, the walk starts again from the next
+    four consistent intervals and the events in between are kept as they are.
+    ``sign`` = -1 marks a backward walk on negated, reversed times (for the notes).
     """
     out = [float(v) for v in t[a:a + 4]]
     i = a + 4
@@ -248,30 +256,51 @@ def _repair_forward(t: np.ndarray, a: int, filled: list, removed: list) -> list:
             out.append(float(t[i]))
             i += 1
             continue
-        dev_spurious = abs((t[i + 1] - out[-1]) / d_pred - 1.0) if i + 1 < n else np.inf
-        k = int(round(r))
-        dev_missing = abs(r / k - 1.0) if k >= 2 else np.inf
-        best = min(dev_next, dev_spurious, dev_missing)
-        if best == dev_spurious and (dev_spurious < 0.33 or r < 0.5):
+        # cumulative predicted times of the next 1 .. _MAX_FILL + 1 pulses
+        steps = []
+        da, db = out[-2] - out[-3], out[-1] - out[-2]
+        for _ in range(_MAX_FILL + 1):
+            dn = _predict(da, db)
+            steps.append(dn)
+            da, db = db, dn
+        cum = np.cumsum(steps)
+        dev_spurious = np.inf
+        if i + 1 < n:  # without t[i], the event after it is the next or a later pulse
+            dev_spurious = float(np.min(np.abs((t[i + 1] - out[-1]) / cum - 1.0)))
+        gap = t[i] - out[-1]
+        k = int(np.argmin(np.abs(gap / cum - 1.0))) + 1  # t[i] is the k-th next pulse
+        dev_missing = abs(gap / cum[k - 1] - 1.0) if k >= 2 else np.inf
+        keep = min(dev_next, dev_missing)
+        # an event that fits as a pulse (within 5 %) is kept; otherwise it is dropped
+        # when dropping it fits clearly better
+        if keep > 0.05 and dev_spurious < 0.5 * keep and (dev_spurious < 0.2 or r < 0.5):
             removed.append(float(t[i]))
             i += 1
             continue
-        if best == dev_missing and dev_missing < 0.2:
+        if dev_missing <= dev_next and dev_missing < 0.2:
             # k - 1 pulses missing: place them by the same model, scaled to fit.
-            steps = []
-            da, db = out[-2] - out[-3], out[-1] - out[-2]
-            for _ in range(k):
-                dn = _predict(da, db)
-                steps.append(dn)
-                da, db = db, dn
-            steps = np.cumsum(steps)
-            steps *= (t[i] - out[-1]) / steps[-1]
-            base = out[-1]
-            new = [base + float(s) for s in steps[:-1]]
+            new = [out[-1] + float(c) * gap / float(cum[k - 1]) for c in cum[:k - 1]]
             filled.extend(new)
             out.extend(new)
-        out.append(float(t[i]))
-        i += 1
+            out.append(float(t[i]))
+            i += 1
+            continue
+        if dev_next < 0.33:
+            out.append(float(t[i]))  # a real, if abrupt, change of speed
+            i += 1
+            continue
+        # nothing fits (a dropout or a burst of noise): restart from a fresh anchor
+        try:
+            a2 = i + _find_anchor(t[i:])
+        except TachError:
+            out.extend(float(v) for v in t[i:])
+            notes.append(f"tach irregular from t = {sign * t[i]:.4f} s to the "
+                         f"{'end' if sign > 0 else 'start'}, kept unrepaired")
+            break
+        lo, hi = sorted((sign * t[i], sign * t[a2]))
+        notes.append(f"tach irregular between t = {lo:.4f} s and {hi:.4f} s, kept unrepaired")
+        out.extend(float(v) for v in t[i:a2 + 4])
+        i = a2 + 4
     return out
 
 
@@ -314,7 +343,9 @@ def once_per_rev(event_times_s, pulses_per_rev: int = 1, *, repair: bool = True)
     Warns
     -----
     TachQualityWarning
-        When pulses were inserted or removed.
+        When pulses were inserted or removed, or a stretch fitted no hypothesis (it is
+        then kept unrepaired and named in ``notes``). At most 8 pulses are inserted in
+        one gap; a longer gap is taken as a dropout.
 
     Raises
     ------
@@ -339,10 +370,11 @@ def once_per_rev(event_times_s, pulses_per_rev: int = 1, *, repair: bool = True)
     removed: list[float] = []
     if repair:
         a = _find_anchor(t)
-        fwd = _repair_forward(t, a, filled, removed)  # from a trusted anchor on
+        fwd = _repair_forward(t, a, filled, removed, notes)  # from a trusted anchor on
         if a > 0:
             back = _repair_forward(-t[: a + 4][::-1], 0,  # and back to the start
-                                    filled_b := [], removed_b := [])
+                                   filled_b := [], removed_b := [], notes_b := [], -1.0)
+            notes.extend(notes_b)
             filled.extend(-v for v in filled_b)
             removed.extend(-v for v in removed_b)
             pulses = np.concatenate([-np.asarray(back[::-1])[:-4], np.asarray(fwd)])
@@ -360,8 +392,8 @@ def once_per_rev(event_times_s, pulses_per_rev: int = 1, *, repair: bool = True)
             f"Too few tach pulses after repair: {times.size} once-per-rev events make fewer "
             f"than {MIN_REVOLUTIONS} revolutions")
     rep = np.sort(np.asarray(filled + removed, dtype=np.float64))
-    if rep.size:
-        warnings.warn("; ".join(notes) + f" (first at t = {rep[0]:.4f} s)",
-                      TachQualityWarning, stacklevel=2)
+    if rep.size or notes:
+        where = f" (first repair at t = {rep[0]:.4f} s)" if rep.size else ""
+        warnings.warn("; ".join(notes) + where, TachQualityWarning, stacklevel=2)
     return OncePerRev(times_s=times, pulses_per_rev=ppr, n_missing_filled=len(filled),
                       n_extra_removed=len(removed), repair_times_s=rep, notes=tuple(notes))
