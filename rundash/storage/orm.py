@@ -259,3 +259,57 @@ class Finding(Base):
     details: Mapped[dict[str, Any]] = mapped_column(JSON)
 
 
+
+
+# ----------------------------------------------------------------------------- live monitor
+class LiveStatus(Base):
+    """The recorder's latest state of a run being recorded (one row per run)."""
+
+    __tablename__ = "live_status"
+
+    id: Mapped[intpk]
+    run_id: Mapped[int] = mapped_column(ForeignKey("run.id", ondelete="CASCADE"), unique=True)
+    state: Mapped[str] = mapped_column(String(20), comment="recording, ended or failed")
+    updated_at: Mapped[datetime] = mapped_column(UTCDateTime, comment="UTC, the heartbeat")
+    time_s: Mapped[float] = mapped_column(Float, comment="record time of the last sample")
+    n_samples: Mapped[int] = mapped_column(Integer, comment="samples received per channel")
+    speed_rpm: Mapped[float | None] = mapped_column(Float, comment="NULL: no speed yet")
+    accel_rpm_s: Mapped[float | None] = mapped_column(Float, comment="rpm/s; NULL: unknown")
+    tach_ok: Mapped[bool] = mapped_column(Boolean)
+    n_revs: Mapped[int] = mapped_column(Integer)
+    message: Mapped[str] = mapped_column(Text, default="")
+
+
+class LiveVector(Base):
+    """Vectors of a run found while it was recorded, appended batch by batch."""
+
+    __tablename__ = "live_vector"
+    __table_args__ = (UniqueConstraint("run_id", "seq", "channel_id", "order"),)
+
+    id: Mapped[intpk]
+    run_id: Mapped[int] = mapped_column(ForeignKey("run.id", ondelete="CASCADE"), index=True)
+    channel_id: Mapped[int] = mapped_column(ForeignKey("channel.id", ondelete="CASCADE"))
+    order: Mapped[float] = mapped_column(Float, comment="1.0 = 1X")
+    seq: Mapped[int] = mapped_column(Integer, comment="batch number, from 0")
+    n: Mapped[int] = mapped_column(Integer)
+    time_s: Mapped[blob] = mapped_column(comment="float64, block centre times")
+    speed_rpm: Mapped[blob] = mapped_column(comment="float64")
+    amplitude: Mapped[blob] = mapped_column(comment="float64, pp (proximity) or pk (seismic)")
+    phase_lag_deg: Mapped[blob] = mapped_column(comment="float64, 0 <= lag < 360")
+    direct: Mapped[blob] = mapped_column(comment="float64, p-p (displacement) or rms (seismic)")
+
+
+class LiveEvent(Base):
+    """The event log of a recorded run: warnings raised and cleared while it ran."""
+
+    __tablename__ = "live_event"
+
+    id: Mapped[intpk]
+    run_id: Mapped[int] = mapped_column(ForeignKey("run.id", ondelete="CASCADE"), index=True)
+    time_s: Mapped[float] = mapped_column(Float, comment="record time of the event")
+    speed_rpm: Mapped[float | None] = mapped_column(Float)
+    kind: Mapped[str] = mapped_column(String(40))
+    severity: Mapped[str] = mapped_column(String(20), comment="info, warning or alarm")
+    message: Mapped[str] = mapped_column(Text)
+    details: Mapped[dict[str, Any]] = mapped_column(JSON)
+    created_at: Mapped[created]

@@ -1,0 +1,466 @@
+"""Live monitor, pipeline level: process a run while the recorder writes it.
+
+Incremental processing, built from the same dsp functions as :func:`rundash.pipeline.
+process_run` so the live vectors equal the offline ones (to the order-tracking
+tolerances; measured in tests/test_live.py):
+
+tach (:class:`IncrementalTach`)
+    Edges are re-detected with :func:`rundash.dsp.tach.detect_edges` on a sliding window
+    (the last ``2 x level_window_s`` of the tach plus what arrived since), so the
+    threshold follows the same block levels as offline; only edges older than a short
+    guard are kept, each once. Every ``pulses_per_rev``-th edge is a once-per-rev event.
+    Pulse repair is left to the offline processing (a missing pulse shows as a gap).
+speed profile and vectors (:class:`IncrementalOrders`)
+    When revolutions ``k .. m`` are followed by ``guard_revs`` more, a speed profile is
+    built from the events ``k - context_revs`` onward and the samples of those
+    revolutions are order-tracked with :func:`rundash.dsp.orders.track_orders`. A cubic
+    spline's dependence on far knots decays by about 0.27 per knot, so with 4 guard and
+    16 context revolutions the profile inside the block equals the whole-record profile
+    to rounding.
+
+:func:`record_live` ties the recorder (:mod:`rundash.ingest.recorder`), this processing
+and the warning logic (:mod:`rundash.analysis.live_warnings`) together: every
+``update_interval_s`` it appends the new vectors, the status (speed, acceleration, tach
+state) and the new events in one short write transaction (the live page polls them).
+When the source ends, the run is marked complete and processed whole by
+:func:`rundash.pipeline.process_run` (findings included).
+"""
+
+from __future__ import annotations
+
+import math
+import time
+import warnings
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+import numpy as np
+
+from rundash.analysis import live_warnings as lw
+from rundash.conventions import lag_deg_from_phasor
+from rundash.dsp import orders as dsp_orders
+from rundash.dsp import speed as dsp_speed
+from rundash.dsp import tach as dsp_tach
+from rundash.errors import DspError, RundashError
+from rundash.ingest.recorder import RecordedChannel, RecordResult, record
+from rundash.ingest.sources import Source
+from rundash.model import MachineDescription
+from rundash.storage import live_queries as lq
+from rundash.storage import queries as q
+from rundash.storage.engine import Database
+from rundash.units import VECTOR_AMPLITUDE_CONVENTION
+
+
+# ----------------------------------------------------------------------------- tach
+class IncrementalTach:
+    """Once-per-rev events of a tach channel that arrives in pieces (see module doc).
+
+    Parameters follow :func:`rundash.dsp.tach.detect_edges`; ``fs`` in Hz.
+    """
+
+    def __init__(self, fs: float, *, edge: str = "rising", threshold: float | None = None,
+                 hysteresis: float | None = None, pulses_per_rev: int = 1,
+                 level_window_s: float = 2.0, guard_s: float = 0.02,
+                 min_step_s: float = 0.05, lost_after_revs: float = 4.0,
+                 lost_after_min_s: float = 0.5):
+        self.fs = float(fs)
+        self.edge, self.threshold, self.hysteresis = edge, threshold, hysteresis
+        self.ppr = int(pulses_per_rev)
+        self.level_window_s = float(level_window_s)
+        self.guard_s = max(float(guard_s), 4.0 / self.fs)
+        self.min_step = int(min_step_s * self.fs)
+        self.lost_after_revs = lost_after_revs
+        self.lost_after_min_s = lost_after_min_s
+        self._buf = np.empty(0, np.float32)
+        self._buf_start = 0
+        self._end = 0  # record index one past the last sample received
+        self._detected_to = 0
+        self._edges: list[float] = []
+        self.notes: list[str] = []
+
+    @property
+    def rev_times(self) -> np.ndarray:
+        """Once-per-rev event times in s found so far."""
+        return np.asarray(self._edges[::self.ppr], dtype=np.float64)
+
+    @property
+    def time_s(self) -> float:
+        """Record time in s of the end of the samples received."""
+        return self._end / self.fs
+
+    def feed(self, x, start_index: int) -> None:
+        x = np.asarray(x, dtype=np.float32)
+        if start_index != self._end:
+            raise DspError(f"tach samples must be consecutive: got index {start_index}, "
+                           f"expected {self._end}")
+        self._buf = np.concatenate([self._buf, x]) if self._buf.size else x.copy()
+        self._end += x.size
+
+    def step(self, final: bool = False) -> int:
+        """Detect edges in the window; return how many once-per-rev events are known."""
+        n = self._buf.size
+        if n < 3 or (not final and (self._end - self._detected_to < self.min_step
+                                    or self._end < self.level_window_s * self.fs)):
+            return len(self._edges) // self.ppr if self.ppr else 0
+        with warnings.catch_warnings(record=True):
+            warnings.simplefilter("always")
+            e = dsp_tach.detect_edges(self._buf, self.fs, edge=self.edge,
+                                      threshold=self.threshold, hysteresis=self.hysteresis,
+                                      t0=self._buf_start / self.fs,
+                                      level_window_s=self.level_window_s)
+        if not final:
+            e = e[e < self.time_s - self.guard_s]
+        if self._edges:
+            last = self._edges[-1]
+            sep = 0.5 * (last - self._edges[-2]) if len(self._edges) > 1 else 2.0 / self.fs
+            e = e[e > last + sep]
+        self._edges.extend(float(v) for v in e)
+        self._detected_to = self._end
+        keep = int(2 * self.level_window_s * self.fs)
+        if n > keep:
+            self._buf = self._buf[n - keep:].copy()
+            self._buf_start = self._end - keep
+        return len(self._edges)
+
+    def tach_ok(self) -> bool:
+        """False when no edge came for longer than ``lost_after_revs`` pulse intervals
+        (at least ``lost_after_min_s``), or none at all after the first level window."""
+        now = self.time_s
+        if not self._edges:
+            return now <= 2.0 * self.level_window_s
+        if len(self._edges) < 2:
+            return now - self._edges[-1] <= max(self.lost_after_min_s, self.level_window_s)
+        d = self._edges[-1] - self._edges[-2]
+        return now - self._edges[-1] <= max(self.lost_after_min_s, self.lost_after_revs * d)
+
+
+# ----------------------------------------------------------------------------- orders
+class IncrementalOrders:
+    """Order tracking of revolutions as they complete (see module doc)."""
+
+    def __init__(self, fs: float, n_channels: int, *, orders=(1, 2, 3, 4),
+                 revs_per_block: int = 1, guard_revs: int = 4, context_revs: int = 16):
+        self.fs = float(fs)
+        self.n_channels = int(n_channels)
+        self.orders = tuple(float(o) for o in orders)
+        self.R = int(revs_per_block)
+        self.guard_revs = int(guard_revs)
+        self.context_revs = int(context_revs)
+        self._buf = np.empty((self.n_channels, 0), np.float32)
+        self._buf_start = 0
+        self._end = 0
+        self.k_next = 0  # next block's first revolution
+
+    def feed(self, x, start_index: int) -> None:
+        x = np.asarray(x)
+        if start_index != self._end:
+            raise DspError(f"probe samples must be consecutive: got index {start_index}, "
+                           f"expected {self._end}")
+        self._buf = np.concatenate([self._buf, x], axis=1) if self._buf.shape[1] else x.copy()
+        self._end += x.shape[1]
+
+    def step(self, rev_times: np.ndarray, final: bool = False) -> dsp_orders.OrderTrack:
+        """Blocks completed (and guarded) since the last call."""
+        R, fs = self.R, self.fs
+        empty = dsp_orders.OrderTrack.empty(self.n_channels, self.orders)
+        K = rev_times.size - 1
+        k_max = K if final else K - self.guard_revs
+        # the last block needs samples past its end revolution
+        while k_max > self.k_next and math.ceil(rev_times[k_max] * fs) + 2 > self._end:
+            k_max -= 1
+        nb = (k_max - self.k_next) // R
+        if nb <= 0 or K < dsp_tach.MIN_REVOLUTIONS:
+            return empty
+        k_stop = self.k_next + nb * R
+        k0 = max(0, self.k_next - self.context_revs) // R * R
+        prof = dsp_speed.speed_profile(rev_times[k0:])
+        lo = max(self._buf_start, int(math.floor(rev_times[self.k_next] * fs)) - 1)
+        hi = min(self._end, int(math.ceil(rev_times[k_stop] * fs)) + 2)
+        x = self._buf[:, lo - self._buf_start:hi - self._buf_start]
+        tr = dsp_orders.track_orders(x, fs, prof, orders=self.orders, revs_per_block=R,
+                                     start_index=lo)
+        ri = tr.rev_index + k0
+        keep = (ri >= self.k_next) & (ri < k_stop)
+        tr = dsp_orders.OrderTrack(
+            time_s=tr.time_s[keep], speed_rpm=tr.speed_rpm[keep], orders=tr.orders,
+            vectors=tr.vectors[:, :, keep], direct_pp=tr.direct_pp[:, keep],
+            direct_rms=tr.direct_rms[:, keep], rev_index=ri[keep])
+        self.k_next = k_stop
+        cut = max(self._buf_start, int(math.floor(rev_times[self.k_next] * fs)) - 4)
+        self._buf = self._buf[:, cut - self._buf_start:].copy()
+        self._buf_start = cut
+        return tr
+
+
+# ----------------------------------------------------------------------------- processor
+@dataclass(frozen=True)
+class LiveParams:
+    """Settings of the live processing and its warnings."""
+
+    orders: tuple[float, ...] = (1.0, 2.0)
+    revs_per_block: int = 1
+    update_interval_s: float = 0.25  # wall-clock time between updates, at most ...
+    max_step_record_s: float = 0.5  # ... and record time between updates, at most
+    guard_revs: int = 4
+    context_revs: int = 16
+    speed_window_s: float = 1.0
+    warnings: lw.WarningSettings = field(default_factory=lw.WarningSettings)
+    alarms: dict[str, tuple[float, str, str]] | None = None  # None: from the profile
+    process_at_end: bool = True
+
+
+@dataclass
+class LiveUpdate:
+    """What one step found: new blocks, the current state and new events."""
+
+    track: dsp_orders.OrderTrack
+    time_s: float
+    speed_rpm: float | None
+    accel_rpm_s: float | None
+    tach_ok: bool
+    n_revs: int
+    events: list[lw.LiveEvent]
+
+
+class LiveProcessor:
+    """Tach, vectors and warnings of a run arriving in blocks of stored values.
+
+    ``channels`` are the recorder's channels in the order of the value rows.
+    """
+
+    def __init__(self, desc: MachineDescription, fs: float,
+                 channels: list[RecordedChannel], *, params: LiveParams | None = None,
+                 monitor: lw.LiveWarnings | None = None):
+        self.params = params or LiveParams()
+        self.fs = float(fs)
+        self.channels = channels
+        self.tach_row = next(i for i, c in enumerate(channels) if c.role == "tach")
+        self.probe_rows = [i for i, c in enumerate(channels) if c.role == "probe"]
+        self.probes = [channels[i] for i in self.probe_rows]
+        self.tach = IncrementalTach(fs, edge=desc.tach.edge, threshold=desc.tach.threshold,
+                                    hysteresis=desc.tach.hysteresis,
+                                    pulses_per_rev=desc.tach.pulses_per_rev)
+        self.orders = IncrementalOrders(fs, len(self.probe_rows), orders=self.params.orders,
+                                        revs_per_block=self.params.revs_per_block,
+                                        guard_revs=self.params.guard_revs,
+                                        context_revs=self.params.context_revs)
+        self.monitor = monitor or lw.LiveWarnings()
+        self.parts: list[dsp_orders.OrderTrack] = []
+
+    def feed(self, values: np.ndarray, start_index: int) -> None:
+        self.tach.feed(values[self.tach_row], start_index)
+        self.orders.feed(values[self.probe_rows], start_index)
+
+    def step(self, final: bool = False) -> LiveUpdate:
+        self.tach.step(final)
+        revs = self.tach.rev_times
+        tr = self.orders.step(revs, final) if revs.size > dsp_tach.MIN_REVOLUTIONS else \
+            dsp_orders.OrderTrack.empty(len(self.probes), self.params.orders)
+        if tr.n_blocks:
+            self.parts.append(tr)
+        ok = self.tach.tach_ok()
+        rpm, acc = lw.speed_and_acceleration(revs, window_s=self.params.speed_window_s)
+        levels = {}
+        if tr.n_blocks:
+            for i, ch in enumerate(self.probes):
+                d = tr.direct_pp[i] if ch.kind == "proximity" else tr.direct_rms[i]
+                levels[ch.probe_name] = float(np.max(d))
+        events = self.monitor.update(time_s=self.tach.time_s, speed_rpm=rpm if ok else None,
+                                     accel_rpm_s=acc, levels=levels, tach_ok=ok)
+        return LiveUpdate(track=tr, time_s=self.tach.time_s, speed_rpm=rpm, accel_rpm_s=acc,
+                          tach_ok=ok, n_revs=max(revs.size - 1, 0), events=events)
+
+    def track(self) -> dsp_orders.OrderTrack:
+        """Every block found so far."""
+        if not self.parts:
+            return dsp_orders.OrderTrack.empty(len(self.probes), self.params.orders)
+        return dsp_orders.concat_tracks(self.parts)
+
+    def vector_rows(self, tr: dsp_orders.OrderTrack):
+        """Rows for :func:`rundash.storage.live_queries.save_vectors`, in stored units."""
+        rows = []
+        for i, ch in enumerate(self.probes):
+            afac = 2.0 if VECTOR_AMPLITUDE_CONVENTION[ch.kind] == "pp" else 1.0
+            direct = tr.direct_pp[i] if ch.kind == "proximity" else tr.direct_rms[i]
+            for k, order in enumerate(tr.orders):
+                v = tr.vectors[i, k]
+                rows.append((ch.id, float(order), tr.time_s, tr.speed_rpm, afac * np.abs(v),
+                             lag_deg_from_phasor(v), direct))
+        return rows
+
+
+# ----------------------------------------------------------------------------- context
+def earlier_bands(db: Database, machine_name: str, *, exclude_run: int | None = None
+                  ) -> tuple[lw.ExpectedBand, ...]:
+    """Expected critical bands from the processed runs of a machine (confirmed criticals;
+    all criticals when none is confirmed). A band runs from the half-power speeds when
+    both are known, else over the finding's band."""
+    rows, fallback = [], []
+    with db.read() as conn:
+        runs = [r for r in q.list_runs(conn) if r.machine_name == machine_name
+                and r.id != exclude_run and r.processed]
+        for r in runs:
+            proc = q.load_processing(conn, r.id)
+            if proc is None or not proc.findings:
+                continue
+            for c in proc.findings.get("criticals", []):
+                sp = c.get("speed_rpm")
+                if sp is None:
+                    continue
+                if c.get("n1_rpm") is not None and c.get("n2_rpm") is not None:
+                    lo, hi = c["n1_rpm"], c["n2_rpm"]
+                else:
+                    lo, hi = (c.get("band_rpm") or [math.nan, math.nan])[:2]
+                item = (float(sp), float(lo if lo is not None else math.nan),
+                        float(hi if hi is not None else math.nan), f"run {r.id}")
+                (rows if c.get("classification") == "confirmed" else fallback).append(item)
+    return lw.expected_bands(rows or fallback)
+
+
+def profile_alarms(desc: MachineDescription) -> tuple[dict[str, tuple[float, str, str]], list[str]]:
+    """Alarm values per probe from the machine's guidance profile: its direct-level limits
+    for the probe's transducer kind (used live by analogy: the profile states them for
+    the test stand or top speed)."""
+    from rundash.analysis.profiles import load_profile
+
+    notes: list[str] = []
+    try:
+        prof = load_profile(desc.machine.profile)
+    except RundashError as exc:
+        return {}, [f"no alarm values: the guidance profile could not be loaded ({exc})"]
+    out: dict[str, tuple[float, str, str]] = {}
+    for p in desc.probes:
+        for rule in prof.limits:
+            if rule.quantity == "direct" and rule.transducer == p.kind:
+                units = "um pp" if p.kind == "proximity" else \
+                    ("mm/s rms" if p.kind == "velocity" else "m/s2 rms")
+                out[p.name] = (rule.value(desc.machine.max_continuous_speed_rpm), units,
+                               f"profile {prof.name} limit {rule.id}, {rule.source.document}, "
+                               "used live by analogy")
+                break
+    if not out:
+        notes.append(f"the profile {desc.machine.profile!r} gives no direct-level limit: "
+                     "no level alarms")
+    return out, notes
+
+
+# ----------------------------------------------------------------------------- session
+@dataclass
+class LiveResult:
+    run_id: int
+    n_samples: int
+    state: str
+    error: str | None
+    n_blocks: int
+    n_events: int
+    processed: bool
+    verdict: str | None
+    notes: list[str]
+
+
+def record_live(db: Database, desc: MachineDescription, source: Source, *,
+                description_text: str = "", label: str = "", cycle: str = "",
+                notes: str = "", started_at=None, params: LiveParams | None = None,
+                log: Callable[[str], None] | None = None,
+                on_update: Callable[[int, LiveUpdate], None] | None = None) -> LiveResult:
+    """Record ``source`` as a new run and process it while it arrives (module doc)."""
+    params = params or LiveParams()
+    if params.alarms is None:
+        alarms, alarm_notes = profile_alarms(desc)
+    else:
+        alarms, alarm_notes = dict(params.alarms), []
+    bands = earlier_bands(db, desc.machine.name)
+    monitor = lw.LiveWarnings(bands, alarms, params.warnings)
+    st: dict[str, Any] = dict(proc=None, run_id=None, seq=0, last=time.monotonic(),
+                              last_index=0, n_events=0, n_blocks=0)
+    say = log or (lambda s: None)
+
+    def write(upd: LiveUpdate, state: str, message: str = "") -> None:
+        proc, run_id = st["proc"], st["run_id"]
+        rows = proc.vector_rows(upd.track) if upd.track.n_blocks else []
+        with db.write() as conn:
+            if rows:
+                lq.save_vectors(conn, run_id, st["seq"], rows)
+            lq.save_status(conn, run_id, state=state, time_s=upd.time_s,
+                           n_samples=proc.tach._end, speed_rpm=upd.speed_rpm,
+                           accel_rpm_s=upd.accel_rpm_s, tach_ok=upd.tach_ok,
+                           n_revs=upd.n_revs, message=message)
+            lq.save_events(conn, run_id, [e.to_row() for e in upd.events])
+        if rows:
+            st["seq"] += 1
+        st["n_blocks"] += upd.track.n_blocks
+        st["n_events"] += len(upd.events)
+        for e in upd.events:
+            say(f"[{e.time_s:8.2f} s] {e.severity}: {e.message}")
+        if on_update is not None:
+            on_update(run_id, upd)
+
+    def on_start(run_id: int, channels: list[RecordedChannel], fs: float) -> None:
+        st["run_id"] = run_id
+        st["proc"] = LiveProcessor(desc, fs, channels, params=params, monitor=monitor)
+        start_events = [lw.LiveEvent(0.0, None, "recording", "info",
+                                     f"recording started; expected critical bands: "
+                                     f"{', '.join(b.label for b in bands) or 'none known'}",
+                                     {"bands": [[b.lo_rpm, b.speed_rpm, b.hi_rpm] for b in bands],
+                                      "alarms": {k: v[0] for k, v in alarms.items()}})]
+        start_events += [lw.LiveEvent(0.0, None, "note", "info", n) for n in alarm_notes]
+        with db.write() as conn:
+            lq.save_status(conn, run_id, state="recording", time_s=0.0, n_samples=0,
+                           speed_rpm=None, accel_rpm_s=None, tach_ok=True, n_revs=0)
+            lq.save_events(conn, run_id, [e.to_row() for e in start_events])
+        say(f"recording run {run_id}")
+
+    def on_block(values: np.ndarray, start: int) -> None:
+        proc = st["proc"]
+        proc.feed(values, start)
+        now = time.monotonic()
+        end = start + values.shape[1]
+        if (now - st["last"] >= params.update_interval_s
+                or end - st["last_index"] >= params.max_step_record_s * proc.fs):
+            st["last"], st["last_index"] = now, end
+            write(proc.step(), "recording")
+
+    def on_end(state: str, error: str | None) -> None:
+        proc = st["proc"]
+        if proc is None:
+            return
+        try:
+            upd = proc.step(final=True)
+        except RundashError as exc:  # the end of a broken record may not be trackable
+            upd = LiveUpdate(dsp_orders.OrderTrack.empty(len(proc.probes), params.orders),
+                             proc.tach.time_s, None, None, proc.tach.tach_ok(), 0, [])
+            error = f"{error or ''} (last vectors: {exc})".strip()
+        end = lw.LiveEvent(upd.time_s, upd.speed_rpm, "recording-ended",
+                           "info" if error is None else "warning",
+                           "recording ended" if error is None else
+                           f"recording ended early: {error}")
+        upd.events.append(end)
+        write(upd, "ended" if error is None else "failed", error or "")
+
+    res: RecordResult = record(db, desc, source, description_text=description_text,
+                               label=label, cycle=cycle, notes=notes, started_at=started_at,
+                               on_start=on_start, on_block=on_block, on_end=on_end)
+    processed, verdict, out_notes = False, None, list(res.warnings)
+    if params.process_at_end and res.n_samples > 0:
+        from rundash.pipeline import process_run
+        try:
+            pr = process_run(db, res.run_id)
+            processed = True
+            verdict = (pr.findings or {}).get("run_verdict")
+            msg = (f"run processed: {pr.n_revs} revolutions, "
+                   f"{len((pr.findings or {}).get('criticals', []))} critical-speed findings, "
+                   f"verdict {verdict}")
+            sev = "info"
+        except RundashError as exc:
+            msg, sev = f"processing of the recorded run failed: {exc}", "warning"
+            out_notes.append(msg)
+        with db.write() as conn:
+            lq.save_events(conn, res.run_id, [dict(time_s=float(res.n_samples) / float(
+                st["proc"].fs), speed_rpm=None, kind="processed", severity=sev, message=msg,
+                details={})])
+        st["n_events"] += 1
+        say(msg)
+    return LiveResult(run_id=res.run_id, n_samples=res.n_samples, state=res.state,
+                      error=res.error, n_blocks=st["n_blocks"], n_events=st["n_events"],
+                      processed=processed, verdict=verdict, notes=out_notes)
+
