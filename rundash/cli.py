@@ -239,6 +239,34 @@ def cmd_demo(*, db: str | None, host: str, port: int, serve: bool, quiet: bool) 
     return serve_app(database, host=host, port=port, debug=False)
 
 
+def cmd_sync(*, source: str, to: str, machine: str | None, as_json: bool, quiet: bool) -> int:
+    from rundash.storage.sync import sync
+
+    src, dst = _open(source), _open(to)
+    bar = _bar(quiet or as_json)
+
+    def log(line: str) -> None:
+        if hasattr(bar, "close"):
+            bar.close()
+        if not as_json:
+            print(line, flush=True)
+
+    report = sync(src, dst, machine=machine, progress=bar, log=log)
+    if hasattr(bar, "close"):
+        bar.close()
+    if as_json:
+        print(json.dumps(report.to_dict(), indent=2, default=str))
+        return 0
+    for name in report.machines_created:
+        print(f"machine created: {name}")
+    for name in report.machines_differing:
+        print(f"machine kept as the destination describes it (the source differs): {name}")
+    for name in report.probes_added:
+        print(f"probe added: {name}")
+    print(f"sync {report.source} -> {report.destination}: {report.summary()}")
+    return 0
+
+
 # ----------------------------------------------------------------------------- parser
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
@@ -299,11 +327,20 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--no-serve", dest="serve", action="store_false",
                    help="build and process only; do not start the dashboard")
     s.add_argument("--quiet", action="store_true", help="no progress bar")
+    s = sub.add_parser("sync", help="copy machines, runs, waveforms and results into another "
+                                    "database; runs already there are skipped")
+    s.add_argument("--from", dest="source", required=True,
+                   help="database to copy from (file or SQLAlchemy URL)")
+    s.add_argument("--to", required=True,
+                   help="database to copy into (file or URL, e.g. postgresql://host/db)")
+    s.add_argument("--machine", help="only this machine's runs (by name)")
+    s.add_argument("--json", dest="as_json", action="store_true", help="the report as JSON")
+    s.add_argument("--quiet", action="store_true", help="no progress bar")
     return p
 
 
 COMMANDS = {"import": cmd_import, "process": cmd_process, "findings": cmd_findings, "runs": cmd_runs, "machines": cmd_machines,
-            "serve": cmd_serve, "demo": cmd_demo}
+            "serve": cmd_serve, "demo": cmd_demo, "sync": cmd_sync}
 
 
 def main(argv: Sequence[str] | None = None) -> int:
