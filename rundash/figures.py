@@ -135,6 +135,7 @@ def split_by_direction(time_s, segments: Sequence[Mapping[str, Any]] | None
     t = np.asarray(time_s, dtype=float)
     if not segments:
         return [("mixed", np.arange(t.size))]
+    segments = _merge_segments(segments)
     out = []
     for i, s in enumerate(segments):
         last = i == len(segments) - 1
@@ -143,6 +144,22 @@ def split_by_direction(time_s, segments: Sequence[Mapping[str, Any]] | None
         if idx.size:
             out.append((str(s.get("kind", "mixed")), idx))
     return out
+
+
+def _merge_segments(segments):
+    """Join pieces of one sweep: a hold between two segments of the same direction takes
+    that direction, and neighbours of the same kind become one segment (drawing only)."""
+    kinds = [str(s.get("kind", "mixed")) for s in segments]
+    for i in range(1, len(kinds) - 1):
+        if kinds[i] == "steady" and kinds[i - 1] == kinds[i + 1] != "steady":
+            kinds[i] = kinds[i - 1]
+    merged: list[dict] = []
+    for s, k in zip(segments, kinds):
+        if merged and merged[-1]["kind"] == k:
+            merged[-1]["t_end_s"] = s["t_end_s"]
+        else:
+            merged.append({"kind": k, "t_start_s": s["t_start_s"], "t_end_s": s["t_end_s"]})
+    return merged
 
 
 def time_in_band(time_s, speed_rpm, lo_rpm: float, hi_rpm: float) -> float:

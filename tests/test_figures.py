@@ -288,6 +288,12 @@ class TestHelpers:
         assert [k for k, _ in parts] == ["steady", "run-up"]
         assert_allclose(np.concatenate([i for _, i in parts]), np.arange(10))
         assert figures.split_by_direction(t, [])[0][0] == "mixed"
+        # a short hold inside a run-up is drawn as part of it
+        segs = [{"kind": "run-up", "t_start_s": 0.0, "t_end_s": 3.0},
+                {"kind": "steady", "t_start_s": 3.0, "t_end_s": 4.0},
+                {"kind": "run-up", "t_start_s": 4.0, "t_end_s": 7.0},
+                {"kind": "coast-down", "t_start_s": 7.0, "t_end_s": 9.0}]
+        assert [k for k, _ in figures.split_by_direction(t, segs)] == ["run-up", "coast-down"]
 
     def test_whirl_direction_of_a_circle(self):
         a = np.linspace(0, 2 * np.pi, 50, endpoint=False)

@@ -1,0 +1,196 @@
+"""Dashboard speed: each review callback's server time and the run review page drawn in
+headless Chromium, on a synthesised 10-minute, 16-channel processed run.
+
+Plain script (not a test): ``python benchmarks/bench_dashboard.py [--minutes 10]
+[--channels 16] [--fs 2048]``. Targets (not asserted): page < 2 s, callback < 200 ms.
+The data are invented: a smooth run-up through one lightly damped mode.
+"""
+
+from __future__ import annotations
+
+import argparse
+import shutil
+import socket
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
+
+import numpy as np
+from scipy.io import wavfile
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from rundash.dashboard import ids  # noqa: E402
+from rundash.dashboard.pages import review  # noqa: E402
+from rundash.storage.engine import open_database  # noqa: E402
+from tests import synth  # noqa: E402
+
+
+def machine_toml(n_probes: int) -> str:
+    head = """[machine]
+name = "Bench rig B-16"
+kind = "compressor"
+rated_speed_rpm = 5000
+min_operating_speed_rpm = 4200
+max_continuous_speed_rpm = 5250
+trip_speed_rpm = 5800
+profile = "api617"
+rotation = "ccw"
+
+[tach]
+column = "ch1"
+pulses_per_rev = 1
+edge = "rising"
+
+[data]
+format = "wav"
+full_scale_v = 1.0
+signal_units = "engineering"
+"""
+    probes = []
+    for i in range(n_probes):
+        b, axis = f"B{i // 2 + 1}", "X" if i % 2 == 0 else "Y"
+        other = f"B{i // 2 + 1}-{'Y' if axis == 'X' else 'X'}"
+        probes.append(f"""
+[[probes]]
+name = "{b}-{axis}"
+column = "ch{i + 2}"
+kind = "proximity"
+units = "um"
+angle_deg = {45.0 if axis == 'X' else 135.0}
+bearing = "{b}"
+axis = "{axis}"
+pair = "{other}"
+""")
+    return head + "".join(probes)
+
+
+def build(folder: Path, minutes: float, n_probes: int, fs: float):
+    from rundash.ingest.importer import import_run
+    from rundash.ingest.machine_file import parse_machine_description
+    from rundash.pipeline import process_run
+
+    dur = 60.0 * minutes
+    sweep = synth.smooth_sweep(300.0, 5300.0, dur)
+    t = np.arange(int(dur * fs)) / fs
+    theta = sweep.theta(t)
+    rpm = sweep.rpm(t)
+    r = rpm / 3200.0
+    zeta = 0.06
+    amp = 20.0 * r**2 / np.sqrt((1 - r**2) ** 2 + (2 * zeta * r) ** 2)  # um peak
+    lag = np.degrees(np.arctan2(2 * zeta * r, 1 - r**2))
+    cols = [synth.tach_waveform(theta)]
+    rng = np.random.default_rng(7)
+    for i in range(n_probes):
+        cols.append(synth.probe_signal(theta, amp, lag + (90.0 if i % 2 else 0.0), rng=rng,
+                                       snr_db=40.0))
+    data = np.vstack(cols).T.astype(np.float32)
+    path = folder / "bench.wav"
+    wavfile.write(path, int(fs), data)
+    del data, cols
+    text = machine_toml(n_probes)
+    desc = parse_machine_description(text, "bench machine")
+    db = open_database(str(folder / "bench.sqlite"))
+    t0 = time.perf_counter()
+    res = import_run(db, path, desc, description_text=text, label="bench", kind="run-up")
+    t1 = time.perf_counter()
+    process_run(db, res.run_id)
+    t2 = time.perf_counter()
+    print(f"built: import {t1 - t0:.1f} s, process {t2 - t1:.1f} s")
+    return db, res.run_id
+
+
+def timed(fn, *args, repeat=5):
+    fn(*args)  # warm
+    runs = []
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        fn(*args)
+        runs.append(time.perf_counter() - t0)
+    return float(np.median(runs))
+
+
+def page_time(db, run_id) -> float | None:
+    if shutil.which("chromedriver") is None:
+        print("chromedriver not found: page time not measured")
+        return None
+    from selenium import webdriver
+    from selenium.webdriver.chrome.options import Options
+
+    from rundash.dashboard.app import create_app
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    app = create_app(db)
+    threading.Thread(target=lambda: app.run(host="127.0.0.1", port=port, debug=False),
+                     daemon=True).start()
+    time.sleep(1.5)
+    o = Options()
+    for a in ("--headless", "--no-sandbox", "--disable-gpu", "--disable-dev-shm-usage",
+              "--disable-background-networking", "--disable-component-update",
+              "--disable-sync", "--no-first-run", "--disable-quic", "--window-size=1400,1000"):
+        o.add_argument(a)
+    if shutil.which("chromium"):
+        o.binary_location = shutil.which("chromium")
+    d = webdriver.Chrome(options=o)
+    graphs = [ids.BODE, ids.POLAR, ids.DIRECT, ids.SPEED, ids.CASCADE, ids.CAMPBELL, ids.ORBIT]
+    check = " && ".join(f"(document.querySelector('#{g} .js-plotly-plot .main-svg') !== null)"
+                        for g in graphs)
+    times = []
+    try:
+        d.get(f"http://127.0.0.1:{port}/")  # load the scripts once
+        time.sleep(1.0)
+        for _ in range(3):
+            t0 = time.perf_counter()
+            d.get(f"http://127.0.0.1:{port}/run/{run_id}")
+            while not d.execute_script(f"return {check} && !document.querySelector("
+                                       "'[data-dash-is-loading=\"true\"]');"):
+                if time.perf_counter() - t0 > 30:
+                    raise TimeoutError("page not drawn in 30 s")
+                time.sleep(0.02)
+            times.append(time.perf_counter() - t0)
+    finally:
+        d.quit()
+    return float(np.median(times))
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--minutes", type=float, default=10.0)
+    ap.add_argument("--channels", type=int, default=16)
+    ap.add_argument("--fs", type=float, default=2048.0)
+    a = ap.parse_args()
+    with tempfile.TemporaryDirectory(prefix="rundash-bench-") as tmp:
+        db, run_id = build(Path(tmp), a.minutes, a.channels, a.fs)
+        probe = "B1-X"
+        rows = [
+            ("vectors (Bode, polar, direct)", review.vector_figures,
+             (db, run_id, probe, [1.0, 2.0], "compensated", "metric")),
+            ("vectors, imperial", review.vector_figures,
+             (db, run_id, probe, [1.0], "compensated", "imperial")),
+            ("speed versus time", review.speed_figure, (db, run_id, probe)),
+            ("cascade", review.cascade_figure, (db, run_id, probe, "metric")),
+            ("Campbell", review.campbell_figure, (db, run_id, "41.5, 96")),
+            ("orbit", review.orbit_figure, (db, run_id, "B1-X|B1-Y", 4000, "run-up", "metric")),
+            ("verdict panel", lambda *x: review.verdict_panel(review.load_context(*x)),
+             (db, run_id)),
+        ]
+        print(f"run: {a.minutes:g} min, {a.channels} probe channels at {a.fs:g} Hz")
+        for name, fn, args in rows:
+            s = timed(fn, *args)
+            print(f"callback {name:<32} {1000 * s:7.1f} ms   ({s / 0.2:.2f} x the 200 ms target)")
+        b = review.vector_figures(db, run_id, probe, [1.0], "compensated", "metric")[0]
+        print(f"Bode figure JSON: {len(b.to_json()) / 1e3:.0f} kB")
+        p = page_time(db, run_id)
+        if p is not None:
+            print(f"run review page drawn in Chromium: {p:.2f} s   ({p / 2.0:.2f} x the 2 s target)")
+        db.dispose()
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
