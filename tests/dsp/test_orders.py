@@ -215,6 +215,26 @@ class TestChunking:
         assert_allclose(chunked.direct_rms, whole.direct_rms, rtol=1e-12)
         assert_allclose(chunked.time_s, whole.time_s, rtol=1e-15)
 
+    def test_profile_inside_the_record(self):
+        # The tach covers only part of the record (starts late, ends early): chunks
+        # wholly before or after it return nothing, the first block starts at the first
+        # reference event, and chunked equals one-shot.
+        fs = 5000.0
+        sweep = synth.linear_sweep(400.0, 300.0, 10.0)
+        t = np.arange(int(10.0 * fs)) / fs
+        x = synth.probe_signal(sweep.theta(t), 1.0, 10.0)[None, :]
+        rt = sweep.rev_times()
+        prof = speed_profile(rt[(rt > 2.0) & (rt < 8.0)])
+        whole = track_orders(x, fs, prof, orders=(1, 2))
+        assert whole.rev_index[0] == 0 and whole.rev_index[-1] == prof.n_revs - 1
+        tracker = OrderTracker(prof, fs, 1, orders=(1, 2))
+        parts = [tracker.feed(x[:, a:a + 3000], a) for a in range(0, x.shape[1], 3000)]
+        assert parts[0].n_blocks == 0 and parts[-1].n_blocks == 0
+        chunked = concat_tracks(parts)
+        assert_allclose(chunked.vectors, whole.vectors, rtol=1e-12, atol=1e-14)
+        # the reference events are whole revolutions of the true angle: same lag
+        assert_allclose(lag_deg_from_phasor(whole.vectors[0, 0]), 10.0, atol=0.05)
+
     def test_start_index_slice_matches_whole(self):
         fs, prof, x = self._record()
         whole = track_orders(x, fs, prof, orders=(1,))
