@@ -61,7 +61,12 @@ def cmd_import(*, db: str | None, data: str, machine: str, label: str, cycle: st
         print(f"warning: {w}", file=sys.stderr)
     if process:
         from rundash.pipeline import process_run
-        process_run(database, res.run_id, progress=bar)
+        try:
+            process_run(database, res.run_id, progress=bar)
+        except RundashError as exc:  # the import stands: say which run is left unprocessed
+            raise type(exc)(f"{Path(data).name}: imported as run {res.run_id} but not "
+                            f"processed ({exc}); fix and run 'rundash process {res.run_id}'"
+                            ) from exc
         if hasattr(bar, "close"):
             bar.close()
     print(res.run_id)
@@ -350,8 +355,13 @@ def main(argv: Sequence[str] | None = None) -> int:
     func = getattr(args, "func", None) or COMMANDS[args.command]
     try:
         return func(**kwargs)
-    except RundashError as exc:
-        print(f"rundash {args.command}: error: {exc}", file=sys.stderr)
+    except (RundashError, OSError) as exc:
+        msg = str(exc)
+        if isinstance(exc, OSError) and exc.strerror:  # the system refused: disk, rights, port
+            msg = f"{exc.strerror}" + (f": {exc.filename}" if exc.filename else "")
+        # one line whatever the message holds (a file name may carry a line break)
+        msg = msg.replace("\r", "\\r").replace("\n", "\\n")
+        print(f"rundash {args.command}: error: {msg}", file=sys.stderr)
         return 1
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)

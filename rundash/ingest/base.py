@@ -11,6 +11,7 @@ any probe sensitivity is applied), in order, never the whole file at once.
 from __future__ import annotations
 
 import math
+import stat
 from abc import ABC, abstractmethod
 from pathlib import Path
 from typing import Iterator
@@ -35,9 +36,16 @@ class Reader(ABC):
         self.sample_rate_hz: float = float("nan")
         self.n_samples: int | None = None
         try:
-            self.size_bytes = self.path.stat().st_size
+            st = self.path.stat()
         except FileNotFoundError:
             raise InputError(f"{self.path.name}: data file not found") from None
+        except OSError as exc:
+            raise InputError(f"{self.path.name}: cannot read the data file: {exc.strerror}"
+                             ) from None
+        if not stat.S_ISREG(st.st_mode):
+            raise InputError(f"{self.path.name}: not a file (a folder or a device); expected a "
+                             "data file")
+        self.size_bytes = st.st_size
         if self.size_bytes == 0:
             raise InputError(f"{self.path.name}: the file is empty")
 
@@ -67,13 +75,23 @@ class Reader(ABC):
                             "samples per second: give a time column or [data].sample_rate_hz")
         return float(fs)
 
+    def _agree_rate(self, fs: float, where: str) -> float:
+        """The file's own rate ``fs``; refused when ``[data].sample_rate_hz`` says otherwise
+        (by more than 0.1 %): a wrong declaration would shift every speed silently."""
+        declared = self.data.sample_rate_hz
+        if declared is not None and abs(declared - fs) > 1e-3 * fs:
+            raise self.fail(f"sample rate {fs:.6g} Hz from the {where} disagrees with "
+                            f"[data].sample_rate_hz = {declared:.6g} Hz; expected one sample "
+                            "rate: correct the machine description or drop its sample_rate_hz")
+        return fs
+
     def _check_finite(self, block: np.ndarray, first_row: int, row_offset: int = 0) -> None:
         """Refuse NaN or infinite samples, naming the channel and row."""
         bad = ~np.isfinite(block)
         if bad.any():
             ch, idx = np.argwhere(bad)[0]
             raise self.fail(f"channel {self.channels[ch]!r}, row {first_row + idx + row_offset}: "
-                            f"value {block[ch, idx]!r} is not a finite number")
+                            f"value {float(block[ch, idx])!r} is not a finite number")
 
 
 def rate_from_times(times: np.ndarray, name: str, column: str, first_row: int) -> float:
@@ -88,8 +106,9 @@ def rate_from_times(times: np.ndarray, name: str, column: str, first_row: int) -
     if bad.size:
         i = int(bad[0])
         raise InputError(
-            f"{name}: time column {column!r}, row {first_row + i + 1}: time {times[i + 1]!r} s "
-            f"does not follow {times[i]!r} s by the sample interval {dt:.6g} s "
+            f"{name}: time column {column!r}, row {first_row + i + 1}: time "
+            f"{float(times[i + 1])!r} s does not follow {float(times[i])!r} s by the sample "
+            f"interval {dt:.6g} s "
             "(expected evenly spaced, increasing time)")
     return 1.0 / dt
 
@@ -102,5 +121,6 @@ def check_time_continues(times: np.ndarray, fs: float, start_index: int, t0: flo
     if bad.size:
         i = int(bad[0])
         raise InputError(
-            f"{name}: time column {column!r}, row {first_row + i}: time {times[i]!r} s is off the "
+            f"{name}: time column {column!r}, row {first_row + i}: time {float(times[i])!r} s is "
+            "off the "
             f"sampling grid (expected {expect[i]:.9g} s: evenly spaced, increasing time)")

@@ -41,6 +41,11 @@ class CsvReader(Reader):
             raise self.fail(f"header row is not UTF-8 text (byte {exc.start}); expected a "
                             "header row of column names") from None
         names = [c.strip() for c in header.split(",")]
+        if len(names) == 1:
+            sep = next((c for c in (";", "\t", "|") if c in header), None)
+            if sep is not None:
+                raise self.fail(f"the header row holds one column separated by {sep!r}; expected "
+                                "comma-separated columns")
         if not names or any(not n for n in names):
             raise self.fail("header row has an empty column name; expected names separated by commas")
         if len(set(names)) != len(names):
@@ -48,7 +53,8 @@ class CsvReader(Reader):
             raise self.fail(f"header names column {dup!r} twice")
         self._names = names
         tcol = self.data.time_column
-        if tcol is None and self.data.sample_rate_hz is None:
+        if tcol is None:
+            # a time column is used (and checked against any declared rate) when present
             tcol = next((n for n in _TIME_NAMES if n in names), None)
         if tcol is not None and tcol not in names:
             raise self.fail(f"time column {tcol!r} not found; columns are {', '.join(names)}")
@@ -64,9 +70,18 @@ class CsvReader(Reader):
                 df = next(first)
             except StopIteration:
                 raise self.fail("header only: no data rows") from None
+            except UnicodeDecodeError as exc:  # a ValueError: caught first
+                raise self.fail(f"in the first 2048 rows: not UTF-8 text (byte {exc.start})"
+                                ) from None
+            except (ValueError, self._pd.errors.ParserError) as exc:
+                raise self.fail(f"in the first 2048 rows: {self._short(exc)}; expected numbers "
+                                f"only, {len(names)} columns per row") from None
+            if df.empty:
+                raise self.fail("header only: no data rows")
             t = df[tcol].to_numpy(np.float64)
             self._check_finite_col(t, tcol, 2)
-            self.sample_rate_hz = rate_from_times(t, self.path.name, tcol, 2)
+            self.sample_rate_hz = self._agree_rate(
+                rate_from_times(t, self.path.name, tcol, 2), f"time column {tcol!r}")
             self._t0 = float(t[0])
 
     def _read_chunks(self, rows: int):
@@ -106,11 +121,11 @@ class CsvReader(Reader):
                                     "not a finite number (empty, NaN, infinite or missing)")
                 start += block.shape[1]
                 yield block, self._progress(reader)
+        except UnicodeDecodeError as exc:  # a ValueError: caught first
+            raise self.fail(f"near row {start + 2}: not UTF-8 text (byte {exc.start})") from None
         except (ValueError, self._pd.errors.ParserError) as exc:
             raise self.fail(f"near row {start + 2}: {self._short(exc)}; expected numbers only, "
                             f"{len(self._names)} columns per row") from None
-        except UnicodeDecodeError as exc:
-            raise self.fail(f"near row {start + 2}: not UTF-8 text (byte {exc.start})") from None
         if not any_rows:
             raise self.fail("header only: no data rows")
         self.n_samples = start

@@ -47,9 +47,10 @@ class Hdf5Reader(Reader):
         for k in names:
             ds = g[k]
             if ds.ndim != 1 or ds.dtype.kind not in "iuf":
-                self.close()
-                raise self.fail(f"channel {k!r}: expected a 1-D numeric dataset, got shape "
+                err = self.fail(f"channel {k!r}: expected a 1-D numeric dataset, got shape "
                                 f"{ds.shape} of {ds.dtype}")
+                self.close()  # after the message: a closed file's datasets have no shape
+                raise err
             lengths.add(ds.shape[0])
         if len(lengths) != 1:
             self.close()
@@ -71,11 +72,18 @@ class Hdf5Reader(Reader):
                 raise self.fail(f"time dataset {tcol!r} not found")
             t = np.asarray(g[tcol][: min(self.n_samples, 4096)], dtype=np.float64)
             fs = rate_from_times(t, self.path.name, tcol, 0)
+        from_file = fs is not None
         if fs is None:
             fs = self.data.sample_rate_hz
         try:
-            self.sample_rate_hz = self._check_rate(float(fs) if fs is not None else None,
-                                                   "attribute sample_rate_hz")
+            try:
+                fs = float(fs) if fs is not None else None
+            except (TypeError, ValueError):
+                raise self.fail(f"attribute sample_rate_hz is {fs!r}; expected a positive "
+                                "number of samples per second") from None
+            self.sample_rate_hz = self._check_rate(fs, "attribute sample_rate_hz")
+            if from_file:
+                self._agree_rate(self.sample_rate_hz, "file")
         except InputError:
             self.close()
             raise

@@ -17,6 +17,13 @@ from rundash.storage import queries as q
 from rundash.storage.engine import Database
 from rundash.units import STORAGE_UNIT, storage_factor
 
+#: A probe channel is reported as clipped when at least this fraction of its samples (and
+#: at least CLIP_MIN_SAMPLES) sit exactly at its minimum or at its maximum value: a
+#: saturated input or transducer holds its limit, while a live signal touches its exact
+#: extreme only a few times (common practice, no source; the thresholds are our choice).
+CLIP_FRACTION = 0.002
+CLIP_MIN_SAMPLES = 20
+
 
 @dataclass(frozen=True)
 class ImportResult:
@@ -132,6 +139,7 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
             unit_scale = bool(np.all(scales == 1.0))
             stats_min = np.full(len(plan), np.inf)
             stats_max = np.full(len(plan), -np.inf)
+            at_ext = np.zeros((2, len(plan)), dtype=np.int64)  # samples at min, at max
             start = 0
             chunk_index = 0
             pending: list[np.ndarray] = []
@@ -146,13 +154,13 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
                     data = np.concatenate(pending, axis=1) if len(pending) > 1 else pending[0]
                     chunk, rest = data[:, :q.CHUNK_SAMPLES], data[:, q.CHUNK_SAMPLES:]
                     start, chunk_index = _flush(conn, ch_ids, chunk, start, chunk_index, fs,
-                                                stats_min, stats_max, names, path.name)
+                                                stats_min, stats_max, names, path.name, at_ext)
                     pending, pending_n = ([rest], rest.shape[1]) if rest.shape[1] else ([], 0)
                 progress(frac, "importing")
             if pending_n:
                 data = np.concatenate(pending, axis=1)
                 start, chunk_index = _flush(conn, ch_ids, data, start, chunk_index, fs,
-                                            stats_min, stats_max, names, path.name)
+                                            stats_min, stats_max, names, path.name, at_ext)
             if start == 0:
                 raise InputError(f"{path.name}: no samples")
             for i, (col, role, probe, unit, _) in enumerate(plan):
@@ -160,6 +168,17 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
                     warnings.append(f"channel {reader.channels[col]!r}"
                                     f"{' (probe ' + probe.name + ')' if probe else ' (tach)'} is "
                                     f"flat: every sample equals {stats_min[i]:g} {unit}")
+                elif role == "probe":
+                    n_lo, n_hi = at_ext[:, i]
+                    need = max(CLIP_MIN_SAMPLES, CLIP_FRACTION * start)
+                    at = [f"{n} at its {side} {v:g} {unit}" for n, side, v in (
+                        (n_lo, "minimum", stats_min[i]), (n_hi, "maximum", stats_max[i]))
+                        if n >= need]
+                    if at:
+                        warnings.append(
+                            f"channel {reader.channels[col]!r} (probe {probe.name}) looks "
+                            f"clipped: {' and '.join(at)} of {start} samples (a saturated "
+                            "input or transducer); amplitudes near the limit are too low")
             sha = hasher.result()
             dup = q.find_run_by_hash(conn, sha)
             if dup is not None and not force:
@@ -176,7 +195,7 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
                         sample_rate_hz=fs, warnings=tuple(warnings))
 
 
-def _flush(conn, ch_ids, chunk, start, chunk_index, fs, smin, smax, names, source):
+def _flush(conn, ch_ids, chunk, start, chunk_index, fs, smin, smax, names, source, at_ext):
     with np.errstate(over="ignore"):
         chunk32 = chunk.astype(np.float32, copy=False)
     lo, hi = chunk32.min(axis=1), chunk32.max(axis=1)  # NaN propagates, inf shows
@@ -190,6 +209,11 @@ def _flush(conn, ch_ids, chunk, start, chunk_index, fs, smin, smax, names, sourc
         raise InputError(f"{source}: channel {names[ch]!r}, sample {start + idx}: value "
                          f"{value:.6g} after scaling does not fit a float32 sample "
                          "(expected |value| < 3.4e38 in the stored unit)")
+    # samples exactly at the extremes so far (clipping check): restart a count where the
+    # chunk sets a new extreme, add to it where the chunk meets the old one
+    for k, (ext, new, better) in enumerate(((smin, lo, lo < smin), (smax, hi, hi > smax))):
+        n_at = np.count_nonzero(chunk32 == new[:, None], axis=1)
+        at_ext[k] = np.where(better, n_at, at_ext[k] + np.where(new == ext, n_at, 0))
     np.minimum(smin, lo, out=smin)
     np.maximum(smax, hi, out=smax)
     q.write_chunks(conn, [(cid, chunk_index, start, chunk32[i]) for i, cid in enumerate(ch_ids)],

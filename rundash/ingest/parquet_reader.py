@@ -61,6 +61,8 @@ class ParquetReader(Reader):
         else:
             fs = self.data.sample_rate_hz
         self.sample_rate_hz = self._check_rate(fs, "time column, metadata or [data].sample_rate_hz")
+        if tcol is not None or b"sample_rate_hz" in meta:
+            self._agree_rate(self.sample_rate_hz, "time column" if tcol else "file metadata")
 
     def blocks(self, block_size: int = DEFAULT_BLOCK) -> Iterator[tuple[np.ndarray, float]]:
         start = 0

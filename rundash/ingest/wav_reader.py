@@ -64,7 +64,8 @@ class WavReader(Reader):
                             f"{bits} bits")
         self._bits = bits
         self._align = align
-        self.sample_rate_hz = self._check_rate(float(fs), "WAV header")
+        self.sample_rate_hz = self._agree_rate(self._check_rate(float(fs), "WAV header"),
+                                               "WAV header")
         available = self.size_bytes - self._data_offset
         if self._data_size > available:
             raise self.fail(f"truncated: the header declares {self._data_size} data bytes but "
@@ -80,7 +81,8 @@ class WavReader(Reader):
         # float32 wherever it holds the file's samples exactly (PCM 16/24-bit, float32)
         if self._kind == "float":
             x = np.frombuffer(raw, dtype="<f4" if self._bits == 32 else "<f8")
-            x = x * x.dtype.type(self._scale)
+            with np.errstate(over="ignore", invalid="ignore"):  # the importer names inf/NaN
+                x = x * x.dtype.type(self._scale)
         elif self._bits == 16:
             x = np.frombuffer(raw, dtype="<i2").astype(np.float32) * np.float32(
                 self._scale / 32768.0)
