@@ -21,7 +21,7 @@ the peak amplitude and the phasor follows :mod:`rundash.conventions`
 The angle and the weighted complex exponentials ``w_n exp(-j 2 pi m theta_n)`` are
 computed once per sample time and shared by every channel; the per-block work is one
 small matrix product ``X[:, block] @ V[block]`` (channels x samples times samples x
-2 orders) plus a four-sample correction at the block ends, vectorised over all blocks.
+2 (orders + 1): real and imaginary parts, and the order-0 weights) plus a four-sample correction at the block ends, vectorised over all blocks.
 
 Why this method (measured with benchmarks/bench_orders.py on the 2-core development
 machine, 16 channels x 4 orders, float32 at 25.6 kHz, 20 s run-up 1200-9000 rpm): it
@@ -37,7 +37,12 @@ carry float32 rounding, about 1e-7 of the largest sample per block.
 
 The rule's own error on a constant (the quadrature of ``exp(-j 2 pi m theta)`` alone,
 zero exactly) is removed with the block's mean, so a large DC gap voltage does not leak
-into the orders (measured: < 1e-7 of the DC level for float64 data).
+into the orders (measured: 4e-17 of the DC level for float64 data).
+
+Limitation shared by every per-revolution transform: when the amplitude changes fast
+within a block, by dA/A per revolution, the block picks up about (dA/A) / (4 pi) rad
+of the conjugate component (the DFT of a linearly modulated cosine), e.g. 1 deg at
+20 % per revolution. It matters only at the first revolutions of a hard start.
 
 Half orders: an order ``m`` needs ``m * revs_per_block`` to be an integer, so 0.5X,
 1.5X ... need an even number of revolutions per block.
