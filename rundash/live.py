@@ -50,6 +50,10 @@ from rundash.storage import queries as q
 from rundash.storage.engine import Database
 from rundash.units import VECTOR_AMPLITUDE_CONVENTION
 
+#: Re-exported for the faces (they do not import analysis modules themselves).
+WarningSettings = lw.WarningSettings
+ExpectedBand = lw.ExpectedBand
+
 
 # ----------------------------------------------------------------------------- tach
 class IncrementalTach:

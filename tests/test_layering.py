@@ -21,9 +21,10 @@ ALLOWED = {
     "migrations": {"storage"},
     "ingest": {"storage", "model"},
     "pipeline": {"storage", "ingest", "dsp", "analysis", "model", "findings"},
+    "live": {"pipeline", "storage", "ingest", "dsp", "analysis", "model"},
     "findings": {"analysis", "dsp", "model"},
     "figures": {"analysis", "dsp", "model"},
-    "face": {"pipeline", "figures", "model", "storage", "ingest", "demo", "face",
+    "face": {"pipeline", "live", "figures", "model", "storage", "ingest", "demo", "face",
              "analysis.profiles"},
     "demo": {"pipeline", "ingest", "storage", "model"},
 }
@@ -38,6 +39,8 @@ def layer_of(module: str) -> str:
     second = parts[1] if len(parts) > 1 else ""
     if second in ("dashboard", "report", "cli"):
         return "face"
+    if second == "comparison":  # pipeline-level glue: storage reads + analysis
+        return "pipeline"
     return second
 
 
