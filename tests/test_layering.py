@@ -21,10 +21,9 @@ ALLOWED = {
     "migrations": {"storage"},
     "ingest": {"storage", "model"},
     "pipeline": {"storage", "ingest", "dsp", "analysis", "model", "findings"},
-    "live": {"pipeline", "storage", "ingest", "dsp", "analysis", "model"},
     "findings": {"analysis", "dsp", "model"},
     "figures": {"analysis", "dsp", "model"},
-    "face": {"pipeline", "live", "figures", "model", "storage", "ingest", "demo", "face",
+    "face": {"pipeline", "figures", "model", "storage", "ingest", "demo", "face",
              "analysis.profiles"},
     "demo": {"pipeline", "ingest", "storage", "model"},
 }

@@ -219,6 +219,7 @@ class VectorChange:
     significant: bool
     k: float
     hint: str
+    material: bool = False
 
 
 # ----------------------------------------------------------------------------- helpers
@@ -301,7 +302,8 @@ def vector_mean(vectors) -> VectorMean:
 
 
 def compare_vectors(a: VectorMean, b: VectorMean, *, k: float = K_SIGMA,
-                    what: str = "slow-roll vector") -> VectorChange:
+                    min_fraction: float = 0.1, what: str = "slow-roll vector"
+                    ) -> VectorChange:
     """Whether a mean vector changed between two runs.
 
     The difference ``b - a`` has per-component standard error ``s = sqrt(se_a^2 +
@@ -309,7 +311,9 @@ def compare_vectors(a: VectorMean, b: VectorMean, *, k: float = K_SIGMA,
     exceeds it with probability exp(-2) = 13.5 % under isotropic Gaussian errors — the
     length of a 2-D Gaussian is Rayleigh-distributed; use ``k = 3`` for 1.1 %). A change
     of the slow-roll vector is a hint of a runout change (probe track, a scratch) or a
-    bow (common practice, no source).
+    bow (common practice, no source). Very quiet data make tiny changes significant;
+    the hint is given only when the change is also *material*: at least
+    ``min_fraction`` of the larger of the two vectors (our own choice, default 10 %).
 
     Examples
     --------
@@ -323,11 +327,12 @@ def compare_vectors(a: VectorMean, b: VectorMean, *, k: float = K_SIGMA,
     d = abs(b.mean - a.mean)
     sig = math.hypot(a.std_error, b.std_error)
     significant = bool(d > k * sig)
+    material = significant and d >= min_fraction * max(abs(a.mean), abs(b.mean))
     hint = ""
-    if significant:
+    if material:
         hint = (f"hint: the {what} changed by {d:.3g} (more than {k:g} sigma, sigma "
                 f"{sig:.2g}): a changed runout (probe track) or a rotor bow is possible")
-    return VectorChange(a, b, float(d), float(sig), significant, float(k), hint)
+    return VectorChange(a, b, float(d), float(sig), significant, float(k), hint, material)
 
 
 def _residual_model(t: np.ndarray, v: np.ndarray, smooth_revs: int):
