@@ -384,6 +384,38 @@ def cmd_report(*, db: str | None, run: int, compare: list[int] | None, output: s
     return 0
 
 
+def cmd_record(*, db: str | None, machine: str, source: str, label: str, cycle: str,
+               notes: str, lead_time: float, dwell_limit: float, no_process: bool) -> int:
+    import signal
+
+    from rundash.ingest.machine_file import load_machine_description
+    from rundash.ingest.sources import parse_source
+    from rundash.live import LiveParams, WarningSettings, record_live
+
+    desc, text = load_machine_description(machine)
+    database = _open(db)
+    src = parse_source(source, desc.data)
+    # a polite stop (kill, service manager) ends the run like Ctrl-C: kept, incomplete
+    def _stop(*_):
+        raise KeyboardInterrupt
+
+    signal.signal(signal.SIGTERM, _stop)
+    params = LiveParams(warnings=WarningSettings(lead_time_s=lead_time, dwell_limit_s=dwell_limit),
+                        process_at_end=not no_process)
+    res = record_live(database, desc, src, description_text=text, label=label, cycle=cycle,
+                      notes=notes, started_at=datetime.now(timezone.utc), params=params,
+                      log=lambda line: print(line, file=sys.stderr, flush=True))
+    for w in res.notes:
+        print(f"warning: {w}", file=sys.stderr)
+    if res.processed:
+        print(CAUTION, file=sys.stderr)
+    if res.error is not None:
+        raise InputError(f"run {res.run_id} kept as incomplete ({res.n_samples} samples per "
+                         f"channel): {res.error}")
+    print(res.run_id)
+    return 0
+
+
 # ----------------------------------------------------------------------------- parser
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
@@ -478,10 +510,25 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--remarks", default="", help="remarks printed in the sign-off block")
     s.add_argument("--boot", type=int, default=100,
                    help="bootstrap replicates for the comparison (default 100)")
+    s = with_db(sub.add_parser("record", help="record a run as its data arrives, with live "
+                                              "vectors and warnings"))
+    s.add_argument("--machine", required=True, help="machine description file (TOML)")
+    s.add_argument("--source", required=True,
+                   help="replay:FILE[@SPEED] (x real time, 0 = unpaced), folder:DIR, "
+                        "tcp:127.0.0.1:PORT or python:MODULE:FACTORY[=ARG] (see the README)")
+    s.add_argument("--label", default="", help="a short name for the run")
+    s.add_argument("--cycle", default="", help="overhaul-cycle tag")
+    s.add_argument("--notes", default="", help="free text kept with the run")
+    s.add_argument("--lead-time", type=float, default=30.0,
+                   help="warn this many seconds before an expected critical band (default 30)")
+    s.add_argument("--dwell-limit", type=float, default=10.0,
+                   help="warn after this many seconds inside a critical band (default 10)")
+    s.add_argument("--no-process", action="store_true",
+                   help="do not process the run when the recording ends")
     return p
 
 
-COMMANDS = {"import": cmd_import, "process": cmd_process, "findings": cmd_findings, "compare": cmd_compare, "report": cmd_report, "runs": cmd_runs, "machines": cmd_machines,
+COMMANDS = {"import": cmd_import, "record": cmd_record, "process": cmd_process, "findings": cmd_findings, "compare": cmd_compare, "report": cmd_report, "runs": cmd_runs, "machines": cmd_machines,
             "serve": cmd_serve, "demo": cmd_demo, "sync": cmd_sync}
 
 
