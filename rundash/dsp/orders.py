@@ -206,6 +206,7 @@ class OrderTracker:
         self._tail = np.empty((self.n_channels, 0))
         self._tail_start: int | None = None
         # samples of the longest block, to size the joined head of each chunk
+        self._sq = np.empty((self.n_channels, 0))  # work buffer for squares
         self._head_samples = max(4096, int(2 * self.revs_per_block * np.max(np.diff(rev_t)) * fs) + 8)
         o2 = np.round(self.orders * 2).astype(np.int64)
         if np.all(np.abs(self.orders * 2 - o2) < 1e-12) and o2.max() <= 64:
@@ -297,18 +298,19 @@ class OrderTracker:
         cyc -= np.floor(cyc)
         return np.exp(-2j * np.pi * cyc)
 
-    def _weighted_exponentials(self, theta: np.ndarray, w: np.ndarray, V: np.ndarray) -> None:
-        """Fill ``V`` (n, 2 (n_orders + 1)) with ``w cos``, ``-w sin`` of ``2 pi m theta``
-        for each order m, then ``w`` and 0 for order 0 (the real and imaginary parts of
-        ``w exp(-j 2 pi m theta)``, side by side so that ``V`` views as complex).
+    def _weighted_exponentials(self, theta: np.ndarray, w: np.ndarray, VT: np.ndarray) -> None:
+        """Fill the rows of ``VT`` (2 (n_orders + 1), n) with ``w cos`` and ``-w sin`` of
+        ``2 pi m theta`` for each order m, then ``w`` and 0 for order 0: the real and
+        imaginary parts of ``w exp(-j 2 pi m theta)``, interleaved so that a product with
+        ``VT.T`` views as complex.
 
         The angle's fraction of a cycle is taken in float64 before the cosine and sine,
         so the precision does not depend on how many revolutions have passed; the
-        cosine and sine are evaluated in the working precision (``V.dtype``). Orders up
+        cosine and sine are evaluated in the working precision (``VT.dtype``). Orders up
         to 8 x the base (1X, or 0.5X with half orders) scale the base angle in that
         precision (argument error <= 8 ulp of 2 pi: 4e-6 rad in float32).
         """
-        real = V.dtype
+        real = VT.dtype
         n_o = self.orders.size
         w = w.astype(real, copy=False)
         nw = -w
@@ -324,10 +326,10 @@ class OrderTracker:
                 cyc = m * theta
                 cyc -= np.floor(cyc)
                 a = (2.0 * np.pi * cyc).astype(real, copy=False)
-            np.multiply(np.cos(a), w, out=V[:, 2 * i])
-            np.multiply(np.sin(a), nw, out=V[:, 2 * i + 1])
-        V[:, 2 * n_o] = w
-        V[:, 2 * n_o + 1] = 0.0
+            np.multiply(np.cos(a), w, out=VT[2 * i])
+            np.multiply(np.sin(a), nw, out=VT[2 * i + 1])
+        VT[2 * n_o] = w
+        VT[2 * n_o + 1] = 0.0
 
     def _process(self, data: np.ndarray, base: int) -> tuple[OrderTrack, int]:
         n_ch, n = data.shape
@@ -385,8 +387,9 @@ class OrderTracker:
         work = data.dtype  # float32 data is tracked in float32, float64 in float64
         cwork = np.complex64 if work == np.float32 else np.complex128
         # V: re and im of w exp(-j 2 pi m theta) per sample and order, then w (order 0)
-        V = np.empty((th.size, 2 * (n_o + 1)), work)
-        self._weighted_exponentials(th, w, V)
+        VT = np.empty((2 * (n_o + 1), th.size), work)  # rows written contiguously
+        self._weighted_exponentials(th, w, VT)
+        V = VT.T  # (L, 2 (n_o + 1)), a transposed view BLAS takes as it is
         na_l, nb_l = na - s0, nb - s0  # indices into th / xs
         nblk = na.size
         core = np.empty((nblk, n_ch, 2 * (n_o + 1)), work)
@@ -414,7 +417,8 @@ class OrderTracker:
         # (zero exactly); removing D * L, D the block mean, cancels the leakage of a large
         # DC offset (a probe's gap) into the orders.
         # (accumulated in the working precision, like the products above)
-        sums = np.add.reduceat(V[na_l[0]:nb_l[-1] + 1], na_l - na_l[0], axis=0)
+        sums = np.add.reduceat(VT[:, na_l[0]:nb_l[-1] + 1], na_l - na_l[0], axis=1)
+        sums = np.ascontiguousarray(sums.T)  # (nblk, 2 (n_o + 1))
         L = sums.view(cwork)[:, :n_o] + Ec[:, :, :n_o].sum(axis=1)  # (nblk, n_o)
         D = Q[:, :, n_o].real / R  # (nblk, n_ch)
         vec = (Q[:, :, :n_o] - D[:, :, None] * L[:, None, :]) * (2.0 / R)  # (nblk, n_ch, n_o)
@@ -425,7 +429,10 @@ class OrderTracker:
         cnt = (nb_l - na_l + 1).astype(np.float64)
         pp = (np.maximum.reduceat(seg, offs, axis=1)
               - np.minimum.reduceat(seg, offs, axis=1)).astype(np.float64)
-        rms = np.sqrt(np.add.reduceat(seg * seg, offs, axis=1).astype(np.float64) / cnt)
+        if self._sq.shape[1] < seg.shape[1] or self._sq.dtype != work:
+            self._sq = np.empty((n_ch, max(seg.shape[1], SUB_SAMPLES + self._head_samples)), work)
+        sq = np.square(seg, out=self._sq[:, :seg.shape[1]])  # reused buffer
+        rms = np.sqrt(np.add.reduceat(sq, offs, axis=1).astype(np.float64) / cnt)
         ks = bounds[:-1]
         t_a, t_b = rev_t[ks], rev_t[ks + R]
         track = OrderTrack(time_s=0.5 * (t_a + t_b), speed_rpm=60.0 * R / (t_b - t_a),
