@@ -21,9 +21,10 @@ ALLOWED = {
     "migrations": {"storage"},
     "ingest": {"storage", "model"},
     "pipeline": {"storage", "ingest", "dsp", "analysis", "model", "findings"},
+    "batch": {"pipeline", "storage", "model"},  # pipeline level: process_run on Dask
     "findings": {"analysis", "dsp", "model"},
     "figures": {"analysis", "dsp", "model"},
-    "face": {"pipeline", "figures", "model", "storage", "ingest", "demo", "face",
+    "face": {"pipeline", "batch", "figures", "model", "storage", "ingest", "demo", "face",
              "analysis.profiles"},
     "demo": {"pipeline", "ingest", "storage", "model"},
 }
