@@ -273,6 +273,150 @@ def cmd_sync(*, source: str, to: str, machine: str | None, as_json: bool, quiet:
     return 0
 
 
+def _pm(value, sigma, spec=".1f", unit=""):
+    if value is None:
+        return "-"
+    txt = format(value, spec)
+    if sigma is not None:
+        txt += " ± " + format(sigma, spec)
+    return txt + unit
+
+
+def cmd_compare(*, db: str | None, runs: list[int], as_json: bool, boot: int,
+                speeds: str | None) -> int:
+    from rundash.comparison import compare_runs
+
+    phase_speeds = None
+    if speeds:
+        try:
+            phase_speeds = [float(x) for x in speeds.split(",") if x.strip()]
+        except ValueError:
+            phase_speeds = []
+        if not phase_speeds or any(not v > 0 for v in phase_speeds):
+            raise InputError(f"Invalid value for '--speeds': allowed a comma-separated list of "
+                             f"speeds in rpm such as 4400,5460, got {speeds!r}")
+    if boot < 0:
+        raise InputError(f"Invalid value for '--boot': allowed an integer >= 0, got {boot!r}")
+    c = compare_runs(_open(db), runs, phase_speeds_rpm=phase_speeds, n_boot=boot)
+    if as_json:
+        print(json.dumps(c, indent=2))
+        return 0
+    by_id = {r["id"]: r for r in c["runs"]}
+
+    def name(rid):
+        r = by_id[rid]
+        return f"run {rid} ({r['label'] or r['source']}; {r['kind']}, {r['cycle'] or 'no cycle'}" \
+               f", {(r['started_at'] or 'start not given')[:10]})"
+    print(f"{c['machine']['name']}: comparison with {name(c['reference'])}")
+    for p in c["pairs"]:
+        print()
+        print(f"{name(p['a'])} -> {name(p['b'])}: {p['verdict'].upper()}")
+        rows = [("probe", "dir", "critical rpm", "shift rpm", "shift %", "AF", "AF change",
+                 "peak 1X", "peak change", "changed")]
+        for pr in p["probes"]:
+            d = pr["direction_a"] if pr["direction_a"] == pr["direction_b"] else \
+                f"{pr['direction_a']}/{pr['direction_b']}"
+            for m in pr["criticals"]:
+                a, b = m["a"], m["b"]
+                sp, af, pk = m["speed"], m["af"], m["peak_amplitude"]
+
+                def star(s):
+                    return "*" if s and s["significant"] else ""
+                rows.append((
+                    pr["probe"], d,
+                    f"{a['speed_rpm']:.0f} -> {b['speed_rpm']:.0f}" if a and b else
+                    (f"{a['speed_rpm']:.0f} -> none" if a else f"none -> {b['speed_rpm']:.0f}"),
+                    _pm(sp["delta"], sp["sigma"], ".1f") + star(sp) if sp else "-",
+                    f"{sp['delta_pct']:+.2f}" if sp and sp["delta_pct"] is not None else "-",
+                    f"{a['af']:.2f} -> {b['af']:.2f}" if a and b and a["af"] is not None
+                    and b["af"] is not None else "-",
+                    _pm(af["delta"], af["sigma"], ".2f") + star(af) if af else "-",
+                    f"{a['peak_amplitude']:.3g} -> {b['peak_amplitude']:.3g} {pr['units']}"
+                    if a and b and a["peak_amplitude"] is not None
+                    and b["peak_amplitude"] is not None else "-",
+                    _pm(pk["delta"], pk["sigma"], ".2f") + star(pk) if pk else "-",
+                    "yes" if m["changed"] else "no"))
+        _table(rows)
+        ph = [(pr["probe"], s) for pr in p["probes"] for s in pr["phase"]
+              if s and s["delta"] is not None]
+        if ph:
+            print()
+            rows = [("probe", "quantity", "a", "b", "change", "changed")]
+            for probe, s in ph:
+                unit = " deg" if s["units"] == "deg" else ""
+                rows.append((probe, s["quantity"], f"{s['a']:.2f}{unit}", f"{s['b']:.2f}{unit}",
+                             _pm(s["delta"], s["sigma"], ".2f", unit),
+                             "yes" if s["significant"] else "no"))
+            _table(rows)
+        if p["slow_roll"]:
+            print()
+            rows = [("probe", "slow roll a", "slow roll b", "change", "hint")]
+            for s in p["slow_roll"]:
+                rows.append((s["probe"], f"{s['a_amplitude']:.2f} {s['units']} ∠{s['a_lag_deg']:.0f}",
+                             f"{s['b_amplitude']:.2f} {s['units']} ∠{s['b_lag_deg']:.0f}",
+                             _pm(s["change"], s["sigma"], ".2f"),
+                             "yes" if s["material"] else "no"))
+            _table(rows)
+        for pr in p["probes"]:
+            for n in pr["notes"]:
+                print(f"note: {pr['probe']}: {n}")
+            for m in pr["criticals"]:
+                for n in m["notes"]:
+                    print(f"note: {pr['probe']}: {n}")
+    if c["hints"]:
+        print()
+        for h in c["hints"]:
+            print(h)
+    print()
+    print(f"* significant: {c['rule']}")
+    print(f"uncertainties (±, one sigma): {c['method']}")
+    print()
+    print(c["caution"])
+    return 0
+
+
+def cmd_report(*, db: str | None, run: int, compare: list[int] | None, output: str,
+               reviewer: str, decision: str, remarks: str, boot: int) -> int:
+    from rundash.report import write_report
+
+    path = write_report(_open(db), run, output, compare=compare or (), reviewer=reviewer,
+                        decision=decision, remarks=remarks, n_boot=boot)
+    print(path)
+    return 0
+
+
+def cmd_record(*, db: str | None, machine: str, source: str, label: str, cycle: str,
+               notes: str, lead_time: float, dwell_limit: float, no_process: bool) -> int:
+    import signal
+
+    from rundash.ingest.machine_file import load_machine_description
+    from rundash.ingest.sources import parse_source
+    from rundash.live import LiveParams, WarningSettings, record_live
+
+    desc, text = load_machine_description(machine)
+    database = _open(db)
+    src = parse_source(source, desc.data)
+    # a polite stop (kill, service manager) ends the run like Ctrl-C: kept, incomplete
+    def _stop(*_):
+        raise KeyboardInterrupt
+
+    signal.signal(signal.SIGTERM, _stop)
+    params = LiveParams(warnings=WarningSettings(lead_time_s=lead_time, dwell_limit_s=dwell_limit),
+                        process_at_end=not no_process)
+    res = record_live(database, desc, src, description_text=text, label=label, cycle=cycle,
+                      notes=notes, started_at=datetime.now(timezone.utc), params=params,
+                      log=lambda line: print(line, file=sys.stderr, flush=True))
+    for w in res.notes:
+        print(f"warning: {w}", file=sys.stderr)
+    if res.processed:
+        print(CAUTION, file=sys.stderr)
+    if res.error is not None:
+        raise InputError(f"run {res.run_id} kept as incomplete ({res.n_samples} samples per "
+                         f"channel): {res.error}")
+    print(res.run_id)
+    return 0
+
+
 def cmd_reprocess(*, db: str | None, machine: str | None, all_runs: bool, workers: int,
                   scheduler: str | None, orders: str, quiet: bool) -> int:
     from rundash.batch import reprocess
@@ -388,10 +532,50 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--machine", help="only this machine's runs (by name)")
     s.add_argument("--json", dest="as_json", action="store_true", help="the report as JSON")
     s.add_argument("--quiet", action="store_true", help="no progress bar")
+    s = with_db(sub.add_parser("compare", help="what changed between runs of one machine, "
+                                               "with uncertainties (first run = reference)"))
+    s.add_argument("runs", type=int, nargs="+", metavar="RUN",
+                   help="two or more processed run ids; later runs are compared with the first")
+    s.add_argument("--json", dest="as_json", action="store_true",
+                   help="the comparison as JSON (schema rundash.comparison/1, see the README)")
+    s.add_argument("--boot", type=int, default=100,
+                   help="bootstrap replicates for the uncertainties (default 100)")
+    s.add_argument("--speeds", help="speeds (rpm) at which lag and 1X are compared, e.g. "
+                                    "4400,5460 (default: minimum operating and maximum "
+                                    "continuous speed)")
+
+    s = with_db(sub.add_parser("report", help="write the sign-off report of a run (HTML or "
+                                              "PDF)"))
+    s.add_argument("run", type=int, help="run id (see 'rundash runs')")
+    s.add_argument("--compare", type=int, nargs="+", metavar="RUN",
+                   help="earlier or later runs to compare with this one")
+    s.add_argument("-o", "--output", required=True,
+                   help="report file: .html (self-contained, opens offline) or .pdf")
+    s.add_argument("--reviewer", default="", help="name printed in the sign-off block")
+    s.add_argument("--decision", default="", help="decision printed in the sign-off block "
+                                                  "(left blank to fill in by hand)")
+    s.add_argument("--remarks", default="", help="remarks printed in the sign-off block")
+    s.add_argument("--boot", type=int, default=100,
+                   help="bootstrap replicates for the comparison (default 100)")
+    s = with_db(sub.add_parser("record", help="record a run as its data arrives, with live "
+                                              "vectors and warnings"))
+    s.add_argument("--machine", required=True, help="machine description file (TOML)")
+    s.add_argument("--source", required=True,
+                   help="replay:FILE[@SPEED] (x real time, 0 = unpaced), folder:DIR, "
+                        "tcp:127.0.0.1:PORT or python:MODULE:FACTORY[=ARG] (see the README)")
+    s.add_argument("--label", default="", help="a short name for the run")
+    s.add_argument("--cycle", default="", help="overhaul-cycle tag")
+    s.add_argument("--notes", default="", help="free text kept with the run")
+    s.add_argument("--lead-time", type=float, default=30.0,
+                   help="warn this many seconds before an expected critical band (default 30)")
+    s.add_argument("--dwell-limit", type=float, default=10.0,
+                   help="warn after this many seconds inside a critical band (default 10)")
+    s.add_argument("--no-process", action="store_true",
+                   help="do not process the run when the recording ends")
     return p
 
 
-COMMANDS = {"import": cmd_import, "process": cmd_process, "findings": cmd_findings, "runs": cmd_runs, "machines": cmd_machines,
+COMMANDS = {"import": cmd_import, "record": cmd_record, "process": cmd_process, "findings": cmd_findings, "compare": cmd_compare, "report": cmd_report, "runs": cmd_runs, "machines": cmd_machines,
             "serve": cmd_serve, "demo": cmd_demo, "sync": cmd_sync,
             "reprocess": cmd_reprocess}
 
