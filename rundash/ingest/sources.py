@@ -14,7 +14,8 @@ Built-in sources, by the text ``rundash record --source`` takes (:func:`parse_so
     real time, ``@0`` as fast as it can be read (rehearsal, training, tests).
 ``folder:DIR``
     A folder a data recorder drops files into: new files are taken in name order, each
-    once, when their size has stopped changing; the run ends when a file named
+    once, when their size has stopped changing (only files whose ending belongs to the
+    format read, so partial or side files are left alone); the run ends when a file named
     ``end-of-run`` appears or no new file came for ``idle_timeout_s`` (default 30 s).
     Every file must carry the same channels at the same rate.
 ``tcp:127.0.0.1:PORT``
@@ -192,8 +193,9 @@ class FolderSource(Source):
         for p in sorted(self.folder.iterdir()):
             if p.name in self._taken or not p.is_file():
                 continue
-            if self.data.format == "auto" and p.suffix.lower() not in _BY_SUFFIX:
-                continue
+            fmt = _BY_SUFFIX.get(p.suffix.lower())
+            if fmt is None or (self.data.format != "auto" and fmt != self.data.format):
+                continue  # not a data file of the format read (partial, notes, ...)
             out.append(p)
         return out
 
