@@ -12,7 +12,9 @@ Once-per-rev reference
 
 Shaft angle
     ``theta(t)``, in revolutions, is 0 at the first once-per-rev event and k at the k-th.
-    Between events it follows a smooth (monotone cubic) model of time versus angle.
+    Between events it follows a smooth cubic model of angle against time (a not-a-knot
+    cubic spline through theta(t_k) = k, monotone-checked, else PCHIP; see
+    :mod:`rundash.dsp.speed` for why angle against time and not the inverse).
 
 nX vector (complex phasor)
     A channel's n-per-rev component is ``x_n(t) = Re(c * exp(1j * 2*pi * n * theta(t)))``

@@ -214,19 +214,74 @@ class Segment:
     rpm_end: float
 
 
+def _windowed_slope(rev_times_s: np.ndarray, tg: np.ndarray, window_s: float) -> np.ndarray:
+    """Least-squares slope (rpm/s) of per-revolution mean speed within +-window/2 of tg."""
+    rt = np.asarray(rev_times_s, dtype=np.float64)
+    tm = 0.5 * (rt[1:] + rt[:-1])
+    r = 60.0 / np.diff(rt)
+    # centred on the record for conditioning; cumulative sums give every window at once
+    tc = tm - tm.mean()
+    cs = [np.concatenate([[0.0], np.cumsum(v)]) for v in (np.ones_like(tc), tc, r, tc * tc,
+                                                           tc * r)]
+    lo = np.searchsorted(tm, tg - window_s / 2, side="left")
+    hi = np.searchsorted(tm, tg + window_s / 2, side="right")
+    # at least 3 revolutions per window (slow speeds): widen to the nearest ones
+    short = hi - lo < 3
+    if np.any(short):
+        mid = np.clip(np.searchsorted(tm, tg[short]), 1, tm.size - 2)
+        lo[short] = np.maximum(mid - 1, 0)
+        hi[short] = np.minimum(mid + 2, tm.size)
+    n, st, sr, stt, str_ = (c[hi] - c[lo] for c in cs)
+    den = n * stt - st * st
+    with np.errstate(invalid="ignore", divide="ignore"):
+        slope = np.where(den > 0, (n * str_ - st * sr) / den, 0.0)
+    return slope
+
+
+def _refine_boundaries(runs: list, acc: np.ndarray, tg: np.ndarray, window_s: float) -> None:
+    """Move each moving/steady boundary to where |acceleration| crosses half the moving
+    run's median: a windowed slope ramps across a corner symmetrically, so its half-way
+    point is the corner itself (the threshold crossing lags it by up to half a window)."""
+    step = tg[1] - tg[0]
+    reach = int(np.ceil(window_s / step))
+    for k in range(len(runs) - 1):
+        a, b = runs[k], runs[k + 1]
+        if (a[0] == 0) == (b[0] == 0):
+            continue  # steady-steady cannot happen; moving-moving: the sign change is right
+        moving = a if a[0] != 0 else b
+        level = 0.5 * float(np.median(np.abs(acc[moving[1]:moving[2]])))
+        j0 = b[1]
+        lo, hi = max(a[1] + 1, j0 - reach), min(b[2] - 1, j0 + reach)
+        if hi <= lo:
+            continue
+        seg = np.abs(acc[lo:hi + 1]) > level
+        # moving before steady: last point above the level; steady before moving: first
+        idx = np.flatnonzero(seg)
+        if idx.size == 0:
+            continue
+        j = lo + (int(idx[-1]) + 1 if a[0] != 0 else int(idx[0]))
+        if a[1] < j < b[2]:
+            a[2] = j
+            b[1] = j
+
+
 def segment(
     profile: SpeedProfile,
     *,
     steady_tol_rpm_s: float = 10.0,
     min_duration_s: float = 2.0,
-    smooth_s: float = 1.0,
+    smooth_s: float = 2.0,
 ) -> tuple[Segment, ...]:
     """Split a record into run-up, coast-down and steady segments.
 
-    The speed is sampled every ``smooth_s / 4`` s, smoothed by a moving average over
-    ``smooth_s``; points whose acceleration magnitude is at most ``steady_tol_rpm_s``
-    are steady, others run-up or coast-down by sign. Runs shorter than
-    ``min_duration_s`` are merged into the longer neighbour (common practice, no source).
+    The acceleration at each point of a grid (every ``smooth_s / 4`` s) is the slope of a
+    least-squares line through the per-revolution mean speeds (60 / revolution time)
+    within ``smooth_s`` around it: it averages over every revolution in the window, so a
+    tach quantised to whole samples (a square TTL pulse, no edge to interpolate) gives a
+    steady slope even at high speed. Points whose acceleration magnitude is at most
+    ``steady_tol_rpm_s`` are steady, others run-up or coast-down by sign. Runs shorter
+    than ``min_duration_s`` are merged into the longer neighbour (common practice, no
+    source).
 
     Parameters
     ----------
@@ -236,7 +291,7 @@ def segment(
     min_duration_s : float
         Shortest segment kept, in s.
     smooth_s : float
-        Smoothing window of the acceleration, in s.
+        Window of the acceleration estimate, in s.
 
     Returns
     -------
@@ -251,14 +306,7 @@ def segment(
     n = max(3, int(np.floor((t1 - t0) / dt)) + 1)
     tg = np.linspace(t0, t1, n)
     rpm = profile.rpm(tg)
-    w = max(1, int(round(smooth_s / (tg[1] - tg[0]))))
-    if w > 1 and n > w:
-        kern = np.ones(w) / w
-        pad = np.pad(rpm, (w // 2, w - 1 - w // 2), mode="edge")
-        rpm_s = np.convolve(pad, kern, mode="valid")
-    else:
-        rpm_s = rpm
-    acc = np.gradient(rpm_s, tg)
+    acc = _windowed_slope(profile.rev_times_s, tg, max(smooth_s, 2 * dt))
     code = np.where(acc > steady_tol_rpm_s, 1, np.where(acc < -steady_tol_rpm_s, -1, 0))
     # runs of equal code
     starts = np.concatenate([[0], np.flatnonzero(np.diff(code)) + 1])
@@ -287,6 +335,7 @@ def segment(
                 del runs[k + 1]
             else:
                 k += 1
+    _refine_boundaries(runs, acc, tg, max(smooth_s, 2 * dt))
     names = {1: "run-up", -1: "coast-down", 0: "steady"}
     out = []
     for c, s, e in runs:
