@@ -123,3 +123,17 @@ class TestSegment:
         prof = self._profile([(5.0, 3000.0)])
         with pytest.raises(DspError, match="Invalid value for 'steady_tol_rpm_s'"):
             segment(prof, steady_tol_rpm_s=-1.0)
+
+
+class TestSegmentQuantisedTach:
+    def test_slow_sweep_with_a_sample_quantised_tach_is_one_run_up(self):
+        # A square TTL tach gives edges only to the nearest sample (no slope to
+        # interpolate): at 12 000 rpm and 25.6 kHz that is +-0.4 % of a revolution. A
+        # 19.5 rpm/s sweep must still read as one run-up (closed form: linear sweep).
+        from tests.synth import linear_sweep
+        sw = linear_sweep(300.0, 19.5, 600.0)
+        fs = 25600.0
+        rt = np.round(sw.rev_times() * fs) / fs
+        segs = segment(speed_profile(rt))
+        assert [s.kind for s in segs] == ["run-up"]
+        assert segs[0].rpm_end == pytest.approx(300 + 19.5 * 600, rel=5e-3)
