@@ -11,7 +11,7 @@ from datetime import datetime, timezone
 from typing import Annotated, Any
 
 from sqlalchemy import (
-    JSON, Boolean, DateTime, Float, ForeignKey, Integer, LargeBinary, MetaData,
+    JSON, BigInteger, Boolean, DateTime, Float, ForeignKey, Integer, LargeBinary, MetaData,
     String, Text, TypeDecorator, UniqueConstraint,
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
@@ -49,6 +49,9 @@ def utcnow() -> datetime:
 
 
 intpk = Annotated[int, mapped_column(Integer, primary_key=True)]
+#: Sample counts and indexes: 64-bit everywhere (SQLite's INTEGER already is; PostgreSQL's
+#: INTEGER would overflow after 2**31 samples, about 23 h of one channel at 25.6 kHz).
+SampleCount = BigInteger().with_variant(Integer(), "sqlite")
 name_str = Annotated[str, mapped_column(String(200))]
 speed_rpm = Annotated[float, mapped_column(Float)]
 blob = Annotated[bytes, mapped_column(LargeBinary)]
@@ -120,7 +123,7 @@ class Run(Base):
     source_sha256: Mapped[str] = mapped_column(String(64), index=True)
     state: Mapped[str] = mapped_column(String(20), comment="importing, complete, incomplete")
     sample_rate_hz: Mapped[float] = mapped_column(Float)
-    n_samples: Mapped[int] = mapped_column(Integer, default=0)
+    n_samples: Mapped[int] = mapped_column(SampleCount, default=0)
     description_toml: Mapped[str] = mapped_column(Text, default="",
                                                   comment="machine file text used at import")
     warnings: Mapped[list[Any]] = mapped_column(JSON, default=list)
@@ -146,7 +149,7 @@ class Channel(Base):
     unit: Mapped[str] = mapped_column(String(10), comment="unit of the stored samples")
     scale: Mapped[float] = mapped_column(Float, comment="factor applied to file values")
     sample_rate_hz: Mapped[float] = mapped_column(Float)
-    n_samples: Mapped[int] = mapped_column(Integer, default=0)
+    n_samples: Mapped[int] = mapped_column(SampleCount, default=0)
 
     run: Mapped[Run] = relationship(back_populates="channels")
 
@@ -160,8 +163,9 @@ class WaveformChunk(Base):
     id: Mapped[intpk]
     channel_id: Mapped[int] = mapped_column(ForeignKey("channel.id", ondelete="CASCADE"))
     chunk_index: Mapped[int] = mapped_column(Integer)
-    start_index: Mapped[int] = mapped_column(Integer, comment="sample index of the first sample")
-    n_samples: Mapped[int] = mapped_column(Integer)
+    start_index: Mapped[int] = mapped_column(SampleCount,
+                                             comment="sample index of the first sample")
+    n_samples: Mapped[int] = mapped_column(SampleCount)
     sample_rate_hz: Mapped[float] = mapped_column(Float)
     data: Mapped[blob] = mapped_column(comment="float32 little-endian samples")
 
@@ -272,7 +276,7 @@ class LiveStatus(Base):
     state: Mapped[str] = mapped_column(String(20), comment="recording, ended or failed")
     updated_at: Mapped[datetime] = mapped_column(UTCDateTime, comment="UTC, the heartbeat")
     time_s: Mapped[float] = mapped_column(Float, comment="record time of the last sample")
-    n_samples: Mapped[int] = mapped_column(Integer, comment="samples received per channel")
+    n_samples: Mapped[int] = mapped_column(SampleCount, comment="samples received per channel")
     speed_rpm: Mapped[float | None] = mapped_column(Float, comment="NULL: no speed yet")
     accel_rpm_s: Mapped[float | None] = mapped_column(Float, comment="rpm/s; NULL: unknown")
     tach_ok: Mapped[bool] = mapped_column(Boolean)
