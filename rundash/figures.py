@@ -14,6 +14,9 @@ campbell          interference diagram: order lines, criticals, natural frequenc
 orbit             filtered 1X and unfiltered orbit of an X/Y pair, whirl direction
 guidance_lines    limit lines and reference zones of a guidance profile for one probe kind
 split_by_direction  cut a track into run-up / coast-down / hold pieces by segments
+drawing_segments  the run's segments as drawn: blips folded in, one sweep one segment
+decimate_minmax   display indices keeping each speed bin's first, last, minimum and maximum
+unwrap_phase_deg  phase lag made continuous along a track, for display only
 time_in_band      seconds a speed history spends inside a speed band
 whirl_direction   forward or reverse whirl of an orbit
 
@@ -31,16 +34,18 @@ by the legend, never by colour alone.
 
 from __future__ import annotations
 
+import base64
+import functools
 import math
 from typing import Any, Iterable, Literal, Mapping, Sequence
 
 import numpy as np
 import plotly.graph_objects as go
-from plotly.subplots import make_subplots
 
 from rundash.units import amplitude_label, display_unit, to_display
 
 UnitSystem = Literal["metric", "imperial"]
+PhaseDisplay = Literal["unwrapped", "wrapped"]
 
 #: Okabe-Ito palette without black and yellow (too weak on white), in drawing order.
 PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000")
@@ -58,6 +63,194 @@ MARGIN_FILL = "rgba(213, 94, 0, 0.10)"       # vermillion, light
 HALF_POWER_FILL = "rgba(0, 114, 178, 0.12)"  # blue, light
 CURSOR_COLOR = "#000000"
 MAX_POINTS = 2000
+#: A segment shorter than this (s) is drawn as part of the one before it.
+MIN_PIECE_S = 10.0
+#: A 'steady' segment whose speed changes by more than this fraction of its mean speed
+#: is drawn as the sweep it is (display choice of ours, no source).
+HOLD_SPEED_TOLERANCE = 0.02
+
+
+# ----------------------------------------------------------------------------- dict figures
+# Figures are assembled as plain dicts (the form plotly.js reads) and wrapped in a
+# go.Figure without plotly.py's per-property validation, which costs ~50 ms per figure of
+# a few traces; tests/test_figures.py validates every builder's output with go.Figure.
+@functools.lru_cache(maxsize=1)
+def _template() -> dict:
+    import plotly.io as pio
+
+    return pio.templates["simple_white"].to_plotly_json()
+
+
+def _figure(data: list[dict], layout: dict) -> go.Figure:
+    layout = dict(layout, template=_template())
+    try:
+        return go.Figure(data=data, layout=layout, _validate=False)
+    except TypeError:  # a plotly without the private switch: validate (slower)
+        return go.Figure(data=data, layout=layout)
+
+
+def _b64(a) -> dict[str, str]:
+    """A 1-D float array in plotly's typed-array form (base64 float64; NaN breaks a line)."""
+    a = np.ascontiguousarray(a, dtype="<f8")
+    return {"dtype": "f8", "bdata": base64.b64encode(a.tobytes()).decode("ascii")}
+
+
+def _base_layout(title: str, uirevision: Any, height: int) -> dict[str, Any]:
+    axis = {"showgrid": True, "gridcolor": GRID, "zeroline": False, "ticks": "outside"}
+    return {
+        "title": {"text": title, "x": 0.01, "xanchor": "left", "font": {"size": 15}},
+        "font": {"family": "Inter, 'Segoe UI', Arial, sans-serif", "size": 12, "color": INK},
+        "height": height, "margin": {"l": 64, "r": 24, "t": 56, "b": 48},
+        "legend": {"orientation": "h", "yanchor": "bottom", "y": 1.0, "xanchor": "right",
+                   "x": 1.0, "font": {"size": 11}},
+        "hovermode": "closest", "uirevision": uirevision, "paper_bgcolor": "white",
+        "plot_bgcolor": "white", "xaxis": dict(axis), "yaxis": dict(axis),
+        "shapes": [], "annotations": []}
+
+
+def _axis_ref(row: int | None) -> tuple[str, str]:
+    return ("x", "y") if not row or row == 1 else (f"x{row}", f"y{row}")
+
+
+def _vrect(layout, x0, x1, fill, *, row=None, text=None, position="top left") -> None:
+    xr, yr = _axis_ref(row)
+    layout["shapes"].append({"type": "rect", "xref": xr, "yref": f"{yr} domain", "x0": x0,
+                             "x1": x1, "y0": 0, "y1": 1, "fillcolor": fill,
+                             "line": {"width": 0}, "layer": "below"})
+    if text:
+        vert, side = position.split(" ")
+        layout["annotations"].append({
+            "text": text, "xref": xr, "yref": f"{yr} domain", "showarrow": False,
+            "x": x0 if side == "left" else x1, "xanchor": side,
+            "y": 1 if vert == "top" else 0, "yanchor": vert, "font": {"size": 10}})
+
+
+def _vline(layout, x, line, *, row=None, text=None, position="top right") -> None:
+    xr, yr = _axis_ref(row)
+    layout["shapes"].append({"type": "line", "xref": xr, "yref": f"{yr} domain", "x0": x,
+                             "x1": x, "y0": 0, "y1": 1, "line": line})
+    if text:
+        layout["annotations"].append({
+            "text": text, "xref": xr, "yref": f"{yr} domain", "x": x, "y": 1,
+            "xanchor": "left" if position.endswith("right") else "right", "yanchor": "top",
+            "showarrow": False, "font": {"size": 10}})
+
+
+def _hline(layout, y, line, *, row=None, text=None) -> None:
+    xr, yr = _axis_ref(row)
+    layout["shapes"].append({"type": "line", "xref": f"{xr} domain", "yref": yr, "x0": 0,
+                             "x1": 1, "y0": y, "y1": y, "line": line})
+    if text:
+        layout["annotations"].append({
+            "text": text, "xref": f"{xr} domain", "yref": yr, "x": 0, "y": y,
+            "xanchor": "left", "yanchor": "bottom", "showarrow": False, "font": {"size": 10}})
+
+
+# ----------------------------------------------------------------------------- decimation
+def decimate_minmax(speed_rpm, *values, max_points: int = MAX_POINTS,
+                    keep: Iterable[int] = ()) -> np.ndarray:
+    """Indices to draw of a long track: per speed bin its first, last, min and max points.
+
+    The speed range is cut into equal bins; each stretch of consecutive points inside one
+    bin keeps its first and last point and, for every array in ``values``, the point of
+    its minimum and of its maximum. Every local extreme wider than a bin, the global peak
+    above all, is therefore drawn at its exact value and speed. Where the speed dithers
+    across bin edges (more stretches than bins), equal index blocks are used instead.
+
+    Parameters
+    ----------
+    speed_rpm : array_like, shape (n,)
+        Speed of each point, in time order.
+    *values : array_like, shape (n,)
+        Arrays whose extremes must survive (e.g. amplitude and phase lag). NaN is ignored.
+    max_points : int
+        About the largest number of indices returned (at most ``max_points`` plus
+        ``len(keep)``).
+    keep : iterable of int
+        Indices always kept (e.g. the points nearest the critical speeds).
+
+    Returns
+    -------
+    numpy.ndarray of int
+        Sorted unique indices into the track.
+    """
+    x = np.asarray(speed_rpm, dtype=float)
+    n = x.size
+    if n <= max_points:
+        return np.arange(n)
+    per_bin = 2 + 2 * len(values)
+    n_bins = max(1, max_points // per_bin)
+    finite = np.isfinite(x)
+    lo, hi = (float(np.min(x[finite])), float(np.max(x[finite]))) if finite.any() else (0, 1)
+    b = np.full(n, -1, dtype=np.int64)
+    b[finite] = np.clip(((x[finite] - lo) / ((hi - lo) or 1.0) * n_bins).astype(np.int64),
+                        0, n_bins - 1)
+    starts = np.concatenate([[0], np.flatnonzero(b[1:] != b[:-1]) + 1])
+    if starts.size > n_bins:
+        starts = np.unique(np.linspace(0, n, n_bins, endpoint=False).astype(np.int64))
+    lengths = np.diff(np.append(starts, n))
+    seg = np.repeat(np.arange(starts.size), lengths)
+    sel = [starts, starts + lengths - 1, np.asarray(list(keep), dtype=np.int64)]
+    for v in values:
+        v = np.asarray(v, dtype=float)
+        for fill, red in ((-np.inf, np.maximum), (np.inf, np.minimum)):
+            w = np.where(np.isnan(v), fill, v)
+            ext = red.reduceat(w, starts)
+            hit = np.flatnonzero(w == ext[seg])
+            _, first = np.unique(seg[hit], return_index=True)
+            sel.append(hit[first])
+    idx = np.unique(np.concatenate(sel))
+    return idx[(idx >= 0) & (idx < n)]
+
+
+def unwrap_phase_deg(phase_lag_deg, speed_rpm, amplitude=None, *,
+                     min_fraction: float = 0.05) -> np.ndarray:
+    """Phase lag made continuous along a track, for display (stored values stay 0..360).
+
+    Consecutive points are put on the branch (``lag + k 360``) nearest their neighbour, so
+    a critical's ~180 deg rise is drawn as one climb. Points whose amplitude is below
+    ``min_fraction`` of the track's peak (slow roll after compensation: phase is noise)
+    follow the branch of the nearest stronger point instead of steering the unwrapping.
+    The whole track is then shifted by a multiple of 360 so that it starts in [0, 360) at
+    its lowest speed.
+
+    Parameters
+    ----------
+    phase_lag_deg : array_like, shape (n,)
+        Phase lag in degrees, in time order.
+    speed_rpm : array_like, shape (n,)
+    amplitude : array_like, shape (n,), optional
+        Amplitude of each point (any unit); all points count when None.
+    min_fraction : float
+        Threshold relative to the peak amplitude, see above (our display choice).
+
+    Returns
+    -------
+    numpy.ndarray, shape (n,)
+        ``lag + 360 k`` with integer ``k`` per point; NaN where the lag is NaN.
+    """
+    lag = np.asarray(phase_lag_deg, dtype=float)
+    rpm = np.asarray(speed_rpm, dtype=float)
+    n = lag.size
+    ok = np.isfinite(lag)
+    if amplitude is not None:
+        a = np.asarray(amplitude, dtype=float)
+        peak = np.nanmax(a) if np.isfinite(a).any() else 0.0
+        strong = ok & np.isfinite(a) & (a >= min_fraction * peak)
+        if strong.sum() < 2:
+            strong = ok
+    else:
+        strong = ok
+    if strong.sum() == 0:
+        return lag.copy()
+    pos = np.flatnonzero(strong)
+    ref_strong = np.unwrap(lag[pos], period=360.0)
+    ref = np.interp(np.arange(n), pos, ref_strong)
+    out = lag + 360.0 * np.round((ref - lag) / 360.0)
+    out[~ok] = np.nan
+    cand = pos if np.isfinite(rpm[pos]).any() else np.flatnonzero(ok)
+    start = cand[np.nanargmin(np.where(np.isfinite(rpm[cand]), rpm[cand], np.inf))]
+    return out - 360.0 * math.floor(out[start] / 360.0)
 
 
 # ----------------------------------------------------------------------------- helpers
@@ -115,27 +308,74 @@ def _critical_hover(c: Mapping[str, Any]) -> str:
     return "<br>".join(parts)
 
 
-def split_by_direction(time_s, segments: Sequence[Mapping[str, Any]] | None
-                       ) -> list[tuple[str, np.ndarray]]:
-    """Cut a track into pieces by the run's segments.
+def drawing_segments(segments: Sequence[Mapping[str, Any]] | None, *,
+                     min_piece_s: float = MIN_PIECE_S,
+                     hold_tolerance: float = HOLD_SPEED_TOLERANCE) -> list[dict[str, Any]]:
+    """The run's segments as they are drawn (display only; stored segments untouched).
+
+    1. A ``'steady'`` segment whose speed changes by more than ``hold_tolerance`` of its
+       mean speed (``rpm_start``/``rpm_end``, when stored) is drawn as the run-up or
+       coast-down it is; a hold between two segments of one direction takes it.
+    2. A segment shorter than ``min_piece_s`` (a blip: a short hold inside a sweep, a few
+       seconds of speed hunting) takes the kind of the segment before it (of the first
+       long one, at the start of the record). When no segment is long, nothing changes.
+    3. Neighbours of the same kind become one segment.
+
+    Returns
+    -------
+    list of dict
+        ``{'kind', 't_start_s', 't_end_s'}`` in time order.
+    """
+    segs = [dict(s) for s in segments or []]
+    kinds = [str(s.get("kind", "mixed")) for s in segs]
+    for i, s in enumerate(segs):
+        r0, r1 = s.get("rpm_start"), s.get("rpm_end")
+        if kinds[i] == "steady" and r0 is not None and r1 is not None:
+            mean = 0.5 * (abs(float(r0)) + abs(float(r1)))
+            if abs(float(r1) - float(r0)) > hold_tolerance * max(mean, 1e-9):
+                kinds[i] = "run-up" if r1 > r0 else "coast-down"
+    for i in range(1, len(kinds) - 1):  # a hold inside one sweep belongs to it
+        if kinds[i] == "steady" and kinds[i - 1] == kinds[i + 1] != "steady":
+            kinds[i] = kinds[i - 1]
+    long = [i for i, s in enumerate(segs)
+            if float(s["t_end_s"]) - float(s["t_start_s"]) >= min_piece_s]
+    if long:
+        for i in range(len(segs)):
+            if i not in long:
+                kinds[i] = kinds[i - 1] if i > 0 else kinds[long[0]]
+    merged: list[dict[str, Any]] = []
+    for s, k in zip(segs, kinds):
+        if merged and merged[-1]["kind"] == k:
+            merged[-1]["t_end_s"] = s["t_end_s"]
+        else:
+            merged.append({"kind": k, "t_start_s": s["t_start_s"], "t_end_s": s["t_end_s"]})
+    return merged
+
+
+def split_by_direction(time_s, segments: Sequence[Mapping[str, Any]] | None, *,
+                       min_piece_s: float = MIN_PIECE_S) -> list[tuple[str, np.ndarray]]:
+    """Cut a track into pieces by the run's segments, as drawn (:func:`drawing_segments`).
 
     Parameters
     ----------
     time_s : array_like, shape (n,)
         Track times in s.
     segments : sequence of dict
-        Each with ``kind`` and ``t_start_s``/``t_end_s`` (as stored by processing).
+        Each with ``kind`` and ``t_start_s``/``t_end_s`` (as stored by processing), and
+        ``rpm_start``/``rpm_end`` when known.
+    min_piece_s : float
+        Shortest segment drawn on its own, in s (:func:`drawing_segments`).
 
     Returns
     -------
     list of (kind, index array)
-        One entry per segment that holds points, in time order; points outside every
-        segment are returned as ``'mixed'`` when there are no segments at all.
+        One entry per drawn segment that holds points, in time order; all points as
+        ``'mixed'`` when there are no segments at all.
     """
     t = np.asarray(time_s, dtype=float)
     if not segments:
         return [("mixed", np.arange(t.size))]
-    segments = _merge_segments(segments)
+    segments = drawing_segments(segments, min_piece_s=min_piece_s)
     out = []
     for i, s in enumerate(segments):
         last = i == len(segments) - 1
@@ -146,20 +386,14 @@ def split_by_direction(time_s, segments: Sequence[Mapping[str, Any]] | None
     return out
 
 
-def _merge_segments(segments):
-    """Join pieces of one sweep: a hold between two segments of the same direction takes
-    that direction, and neighbours of the same kind become one segment (drawing only)."""
-    kinds = [str(s.get("kind", "mixed")) for s in segments]
-    for i in range(1, len(kinds) - 1):
-        if kinds[i] == "steady" and kinds[i - 1] == kinds[i + 1] != "steady":
-            kinds[i] = kinds[i - 1]
-    merged: list[dict] = []
-    for s, k in zip(segments, kinds):
-        if merged and merged[-1]["kind"] == k:
-            merged[-1]["t_end_s"] = s["t_end_s"]
-        else:
-            merged.append({"kind": k, "t_start_s": s["t_start_s"], "t_end_s": s["t_end_s"]})
-    return merged
+def group_by_direction(time_s, segments: Sequence[Mapping[str, Any]] | None, *,
+                       min_piece_s: float = MIN_PIECE_S) -> list[tuple[str, list[np.ndarray]]]:
+    """:func:`split_by_direction` gathered per kind: one entry per direction (first
+    appearance order), with its pieces in time order (drawn as one trace with gaps)."""
+    out: dict[str, list[np.ndarray]] = {}
+    for kind, idx in split_by_direction(time_s, segments, min_piece_s=min_piece_s):
+        out.setdefault(kind, []).append(idx)
+    return list(out.items())
 
 
 def time_in_band(time_s, speed_rpm, lo_rpm: float, hi_rpm: float) -> float:
@@ -185,20 +419,23 @@ def whirl_direction(u, v) -> Literal["ccw", "cw"]:
     return "ccw" if area > 0 else "cw"
 
 
-def _operating_shapes(fig, op: Mapping[str, float] | None, *, row=None, label=True) -> None:
+def _operating_shapes(layout: dict, op: Mapping[str, float] | None, *, row=None,
+                      label=True) -> None:
     if not op or op.get("min_operating_speed_rpm") is None:
         return
     lo, hi = op["min_operating_speed_rpm"], op["max_continuous_speed_rpm"]
-    kw: dict[str, Any] = {"row": row, "col": 1} if row else {}
-    ann = {"annotation_text": "operating range", "annotation_position": "top left",
-           "annotation_font_size": 10} if label else {}
-    fig.add_vrect(x0=lo, x1=hi, fillcolor=OPERATING_FILL, line_width=0, layer="below",
-                  **ann, **kw)
+    _vrect(layout, lo, hi, OPERATING_FILL, row=row,
+           text="operating range" if label else None, position="top left")
     trip = op.get("trip_speed_rpm")
     if trip:
-        ann = {"annotation_text": "trip", "annotation_position": "top right",
-               "annotation_font_size": 10} if label else {}
-        fig.add_vline(x=trip, line={"color": "#777777", "dash": "dot", "width": 1}, **ann, **kw)
+        _vline(layout, trip, {"color": "#777777", "dash": "dot", "width": 1}, row=row,
+               text="trip" if label else None)
+
+
+def _side(c: Mapping[str, Any]) -> str | None:
+    """A critical's side of the operating range (findings key ``side``; older dicts used
+    ``margin_side``)."""
+    return c.get("side") or c.get("margin_side")
 
 
 def margin_zones(criticals: Sequence[Mapping[str, Any]], op: Mapping[str, float] | None
@@ -212,7 +449,7 @@ def margin_zones(criticals: Sequence[Mapping[str, Any]], op: Mapping[str, float]
         return []
     req = {"below": 0.0, "above": 0.0}
     for c in criticals:
-        side, pct = c.get("margin_side"), c.get("required_margin_pct")
+        side, pct = _side(c), c.get("required_margin_pct")
         if side in req and pct:
             req[side] = max(req[side], float(pct))
     zones = []
@@ -227,12 +464,76 @@ def margin_zones(criticals: Sequence[Mapping[str, Any]], op: Mapping[str, float]
     return zones
 
 
+def _order_name(order: float) -> str:
+    return f"{order:g}X"
+
+
+def _style(direction: str | None) -> dict[str, str]:
+    return DIRECTION_STYLE.get(direction or "mixed", DIRECTION_STYLE["mixed"])
+
+
+def _groups(traces: Sequence[Mapping[str, Any]], key_fields: tuple[str, ...]
+            ) -> list[tuple[tuple, list[Mapping[str, Any]]]]:
+    """Traces gathered per key (e.g. probe, order, direction), first-appearance order."""
+    out: dict[tuple, list[Mapping[str, Any]]] = {}
+    for tr in traces:
+        if len(tr["speed_rpm"]) == 0:
+            continue
+        out.setdefault(tuple(tr.get(k) for k in key_fields), []).append(tr)
+    return list(out.items())
+
+
+def _joined(pieces: Sequence[dict[str, np.ndarray]]) -> dict[str, np.ndarray]:
+    """Arrays of several pieces joined, a NaN point between pieces (a gap in the line)."""
+    if len(pieces) == 1:
+        return pieces[0]
+    out = {}
+    for k in pieces[0]:
+        parts = []
+        for j, p in enumerate(pieces):
+            if j:
+                parts.append(np.array([np.nan]))
+            parts.append(p[k])
+        out[k] = np.concatenate(parts)
+    return out
+
+
+def _display_pieces(group: Sequence[Mapping[str, Any]], kind: str, system: UnitSystem, *,
+                    phase: PhaseDisplay | None, max_points: int, fields=("amplitude",),
+                    keep_speeds: Sequence[float] = ()) -> dict[str, np.ndarray]:
+    """One trace group in display form: units converted, phase unwrapped (on the full
+    data), decimated per piece (:func:`decimate_minmax`), pieces joined with gaps."""
+    share = max(200, max_points // max(1, len(group)))
+    pieces = []
+    for tr in group:
+        rpm = np.asarray(tr["speed_rpm"], dtype=float)
+        arrays = {"rpm": rpm}
+        for f in fields:
+            arrays[f] = np.asarray(to_display(np.asarray(tr[f], dtype=float), kind, system))
+        if phase is not None:
+            lag = np.asarray(tr["phase_lag_deg"], dtype=float)
+            arrays["phase"] = unwrap_phase_deg(lag, rpm, arrays["amplitude"]) \
+                if phase == "unwrapped" else lag
+        keep = [_nearest(rpm, s) for s in keep_speeds
+                if np.nanmin(rpm) <= s <= np.nanmax(rpm)]
+        idx = decimate_minmax(rpm, *[arrays[k] for k in arrays if k != "rpm"],
+                              max_points=share, keep=keep)
+        pieces.append({k: v[idx] for k, v in arrays.items()})
+    return _joined(pieces)
+
+
+def _crit_speeds(criticals, probe, direction) -> list[float]:
+    return [float(c["speed_rpm"]) for c in criticals if c.get("probe") == probe
+            and c.get("speed_rpm") and c.get("direction") in (direction, None)]
+
+
 # ----------------------------------------------------------------------------- bode
 def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
          system: UnitSystem = "metric", criticals: Sequence[Mapping[str, Any]] = (),
          operating: Mapping[str, float] | None = None,
          limit_lines: Sequence[Mapping[str, Any]] = (), cursor_rpm: float | None = None,
-         compensated: bool = True, title: str | None = None, uirevision: Any = None,
+         compensated: bool = True, phase: PhaseDisplay = "unwrapped",
+         title: str | None = None, uirevision: Any = None,
          max_points: int = MAX_POINTS) -> go.Figure:
     """Bode plot: nX amplitude (top) and phase lag (bottom) versus speed.
 
@@ -240,8 +541,9 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
     ----------
     traces : sequence of dict
         Each with ``speed_rpm``, ``amplitude`` (storage units), ``phase_lag_deg`` (arrays
-        of one shape), ``probe``, ``order`` and ``direction`` (``'run-up'``,
-        ``'coast-down'``, ``'steady'`` or ``'mixed'``); optional ``color``.
+        of one shape, in time order), ``probe``, ``order`` and ``direction``
+        (``'run-up'``, ``'coast-down'``, ``'steady'`` or ``'mixed'``); optional ``color``.
+        Pieces of one probe, order and direction are drawn as one trace (gaps between).
     kind : {'proximity', 'velocity', 'acceleration'}
         Transducer kind of the amplitudes (sets units and pp/pk).
     system : {'metric', 'imperial'}
@@ -258,6 +560,12 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
         A speed to mark (the linked cursor).
     compensated : bool
         Only labels the axis (the caller picks the stored tracks).
+    phase : {'unwrapped', 'wrapped'}
+        ``'unwrapped'``: lag made continuous along each trace (:func:`unwrap_phase_deg`),
+        starting in [0, 360) at its lowest speed; ``'wrapped'``: the stored 0..360 values.
+        Display only.
+    max_points : int
+        About the most points drawn per trace (:func:`decimate_minmax`; peaks exact).
 
     Returns
     -------
@@ -266,104 +574,102 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
         markers are the trace named ``'critical speeds'``; the last two traces are the
         cursor (``meta='cursor'``).
     """
-    fig = make_subplots(rows=2, cols=1, shared_xaxes=True, vertical_spacing=0.06,
-                        row_heights=[0.58, 0.42])
+    data: list[dict] = []
     colors: dict[tuple, str] = {}
-    shown_probes = []
-    seen_legend: set[tuple] = set()
-    for tr in traces:
-        key = (tr["probe"], tr["order"])
+    shown_probes: list[str] = []
+    unit = amplitude_label(kind, system)
+    first: dict[str, np.ndarray] | None = None
+    for (probe, order, direction), group in _groups(traces, ("probe", "order", "direction")):
+        key = (probe, order)
         if key not in colors:
-            colors[key] = tr.get("color") or PALETTE[len(colors) % len(PALETTE)]
-        if tr["probe"] not in shown_probes:
-            shown_probes.append(tr["probe"])
-        rpm = np.asarray(tr["speed_rpm"], dtype=float)
-        amp = np.asarray(to_display(np.asarray(tr["amplitude"], dtype=float), kind, system))
-        lag = np.asarray(tr["phase_lag_deg"], dtype=float)
-        if rpm.size == 0:
-            continue
-        idx = _decimate_index(rpm.size, max_points, keep=[int(np.nanargmax(amp))])
-        style = DIRECTION_STYLE.get(tr.get("direction", "mixed"), DIRECTION_STYLE["mixed"])
-        name = f"{tr['probe']} {_order_name(tr['order'])} {tr.get('direction', '')}".strip()
-        line = {"color": colors[key], "dash": style["dash"],
-                "width": 2.0 if tr["order"] == 1 else 1.4}
-        lg = (key, tr.get("direction"))
-        common = dict(mode="lines", line=line, name=name, legendgroup=name, meta="data",
-                      customdata=rpm[idx])
-        fig.add_trace(go.Scatter(x=rpm[idx], y=amp[idx], showlegend=lg not in seen_legend,
-                                   hovertemplate="%{x:.0f} rpm<br>%{y:.3g} " +
-                                   amplitude_label(kind, system) + f"<extra>{name}</extra>",
-                                   **common), row=1, col=1)
-        fig.add_trace(go.Scatter(x=rpm[idx], y=lag[idx], showlegend=False,
-                                   hovertemplate="%{x:.0f} rpm<br>%{y:.0f}° lag"
-                                   f"<extra>{name}</extra>", **common), row=2, col=1)
-        seen_legend.add(lg)
+            colors[key] = group[0].get("color") or PALETTE[len(colors) % len(PALETTE)]
+        if probe not in shown_probes:
+            shown_probes.append(probe)
+        arr = _display_pieces(group, kind, system, phase=phase, max_points=max_points,
+                              keep_speeds=_crit_speeds(criticals, probe, direction)
+                              if order == 1 else ())
+        first = first or arr
+        name = f"{probe} {_order_name(order)} {direction or ''}".strip()
+        line = {"color": colors[key], "dash": _style(direction)["dash"],
+                "width": 2.0 if order == 1 else 1.4}
+        x = _b64(arr["rpm"])
+        common = {"type": "scatter", "mode": "lines", "line": line, "name": name,
+                  "legendgroup": name, "meta": "data", "customdata": x, "x": x}
+        data.append(dict(common, y=_b64(arr["amplitude"]), xaxis="x", yaxis="y",
+                         showlegend=True, hovertemplate="%{x:.0f} rpm<br>%{y:.3g} " + unit
+                         + f"<extra>{name}</extra>"))
+        data.append(dict(common, y=_b64(arr["phase"]), xaxis="x2", yaxis="y2",
+                         showlegend=False, hovertemplate="%{x:.0f} rpm<br>%{y:.0f}° lag"
+                         + (" (unwrapped)" if phase == "unwrapped" else "")
+                         + f"<extra>{name}</extra>"))
 
-    _operating_shapes(fig, operating, row=1)
-    _operating_shapes(fig, operating, row=2, label=False)
+    comp = "slow-roll compensated" if compensated else "uncompensated"
+    layout = _base_layout(title or f"Bode plot ({comp})", uirevision, 580)
+    axis = layout.pop("xaxis")
+    layout.pop("yaxis")
+    layout.update(
+        xaxis=dict(axis, anchor="y", domain=[0.0, 1.0], matches="x2", showticklabels=False),
+        xaxis2=dict(axis, anchor="y2", domain=[0.0, 1.0], title={"text": "speed (rpm)"}),
+        yaxis=dict(axis, anchor="x", domain=[0.4548, 1.0], rangemode="tozero",
+                   title={"text": f"amplitude ({unit})"}),
+        yaxis2=dict(axis, anchor="x2", domain=[0.0, 0.3948], title={"text": "phase lag (deg)"}),
+        hovermode="x",  # a hover anywhere at a speed reads every trace there
+        legend={"orientation": "h", "yanchor": "top", "y": -0.11, "xanchor": "left", "x": 0,
+                "font": {"size": 11}},
+        margin={"l": 64, "r": 24, "t": 56, "b": 96})
+    if phase == "wrapped":
+        layout["yaxis2"].update(range=[0, 360], tickvals=[0, 90, 180, 270, 360])
+    else:
+        layout["yaxis2"].update(dtick=90)
+        layout["annotations"].append({
+            "text": "phase unwrapped along speed (stored values 0–360°)", "xref": "x2 domain",
+            "yref": "y2 domain", "x": 0.0, "y": 1.0, "xanchor": "left", "yanchor": "bottom",
+            "showarrow": False, "font": {"size": 10, "color": "#666666"}})
+
+    _operating_shapes(layout, operating, row=1)
+    _operating_shapes(layout, operating, row=2, label=False)
     for z in margin_zones(criticals, operating):
         for row in (1, 2):
-            ann = {"annotation_text": f"required margin {z['pct']:.1f} %",
-                   "annotation_position": "bottom left" if z["side"] == "below"
-                   else "bottom right", "annotation_font_size": 10} if row == 1 else {}
-            fig.add_vrect(x0=z["lo_rpm"], x1=z["hi_rpm"], fillcolor=MARGIN_FILL, line_width=0,
-                          layer="below", row=row, col=1, **ann)
+            _vrect(layout, z["lo_rpm"], z["hi_rpm"], MARGIN_FILL, row=row,
+                   text=f"required margin {z['pct']:.1f} %" if row == 1 else None,
+                   position="bottom left" if z["side"] == "below" else "bottom right")
     shown = [c for c in criticals if c.get("probe") in shown_probes and c.get("speed_rpm")]
     for c in shown:
         if c.get("n1_rpm") and c.get("n2_rpm"):
-            fig.add_vrect(x0=c["n1_rpm"], x1=c["n2_rpm"], fillcolor=HALF_POWER_FILL,
-                          line_width=0, layer="below", row=1, col=1)
+            _vrect(layout, c["n1_rpm"], c["n2_rpm"], HALF_POWER_FILL, row=1)
         for row in (1, 2):
-            fig.add_vline(x=c["speed_rpm"], line={"color": INK, "dash": "dot", "width": 1},
-                          row=row, col=1)
+            _vline(layout, c["speed_rpm"], {"color": INK, "dash": "dot", "width": 1}, row=row)
     if shown:
         amps = [to_display(float(c["peak_amplitude"]), kind, system)
                 if c.get("peak_amplitude") is not None else None for c in shown]
         ymax = max([a for a in amps if a is not None] or [1.0])
-        fig.add_trace(go.Scatter(
-            x=[c["speed_rpm"] for c in shown], y=[a if a is not None else ymax for a in amps],
-            mode="markers+text", name="critical speeds", meta="critical",
-            text=[_critical_label(c) for c in shown], textposition="top center",
-            textfont={"size": 11},
-            marker={"symbol": [DIRECTION_STYLE.get(c.get("direction"), DIRECTION_STYLE["mixed"])
-                               ["symbol"] for c in shown], "size": 11, "color": INK,
-                    "line": {"color": "white", "width": 1}},
-            customdata=[[i, c["speed_rpm"]] for i, c in enumerate(shown)],
-            hovertext=[_critical_hover(c) for c in shown], hoverinfo="text"), row=1, col=1)
+        data.append({
+            "type": "scatter", "xaxis": "x", "yaxis": "y",
+            "x": [c["speed_rpm"] for c in shown],
+            "y": [float(a) if a is not None else ymax for a in amps],
+            "mode": "markers+text", "name": "critical speeds", "meta": "critical",
+            "text": [_critical_label(c) for c in shown], "textposition": "top center",
+            "textfont": {"size": 11}, "cliponaxis": False,
+            "marker": {"symbol": [_style(c.get("direction"))["symbol"] for c in shown],
+                       "size": 11, "color": INK, "line": {"color": "white", "width": 1}},
+            "customdata": [[i, c["speed_rpm"]] for i, c in enumerate(shown)],
+            "hovertext": [_critical_hover(c) for c in shown], "hoverinfo": "text"})
     for ln in limit_lines:
         if ln.get("measure") == "1X" and ln.get("value") is not None:
-            fig.add_hline(y=to_display(float(ln["value"]), kind, system), row=1, col=1,
-                          line={"color": "#D55E00", "dash": "longdash", "width": 1.5},
-                          annotation_text=ln.get("label", "limit"), annotation_font_size=10)
-    _add_bode_cursor(fig, traces, kind, system, cursor_rpm)
-    comp = "slow-roll compensated" if compensated else "uncompensated"
-    _layout(fig, title=title or f"Bode plot ({comp})", uirevision=uirevision, height=560)
-    fig.update_layout(hovermode="x")  # a hover anywhere at a speed reads every trace there
-    fig.update_yaxes(title_text=f"amplitude ({amplitude_label(kind, system)})", row=1, col=1,
-                     rangemode="tozero")
-    fig.update_yaxes(title_text="phase lag (deg)", row=2, col=1, range=[0, 360],
-                     tickvals=[0, 90, 180, 270, 360])
-    fig.update_xaxes(title_text="speed (rpm)", row=2, col=1)
-    return fig
-
-
-def _order_name(order: float) -> str:
-    return f"{order:g}X"
-
-
-def _add_bode_cursor(fig, traces, kind, system, cursor_rpm) -> None:
+            _hline(layout, float(to_display(float(ln["value"]), kind, system)),
+                   {"color": "#D55E00", "dash": "longdash", "width": 1.5}, row=1,
+                   text=ln.get("label", "limit"))
     xs, ya, yp = [], [], []
-    if cursor_rpm is not None and traces:
-        tr = traces[0]
-        i = _nearest(tr["speed_rpm"], cursor_rpm)
-        xs = [float(tr["speed_rpm"][i])]
-        ya = [float(to_display(float(tr["amplitude"][i]), kind, system))]
-        yp = [float(tr["phase_lag_deg"][i])]
+    if cursor_rpm is not None and first is not None:
+        i = _nearest(first["rpm"], cursor_rpm)
+        xs, ya, yp = [float(first["rpm"][i])], [float(first["amplitude"][i])], \
+            [float(first["phase"][i])]
     mk = {"symbol": "circle-open", "size": 14, "color": CURSOR_COLOR, "line": {"width": 2}}
-    fig.add_trace(go.Scatter(x=xs, y=ya, mode="markers", marker=mk, name="cursor",
-                             meta="cursor", showlegend=False, hoverinfo="skip"), row=1, col=1)
-    fig.add_trace(go.Scatter(x=xs, y=yp, mode="markers", marker=mk, name="cursor",
-                             meta="cursor", showlegend=False, hoverinfo="skip"), row=2, col=1)
+    for y, ax in ((ya, "y"), (yp, "y2")):
+        data.append({"type": "scatter", "x": xs, "y": y, "xaxis": ax.replace("y", "x"),
+                     "yaxis": ax, "mode": "markers", "marker": mk, "name": "cursor",
+                     "meta": "cursor", "showlegend": False, "hoverinfo": "skip"})
+    return _figure(data, layout)
 
 
 # ----------------------------------------------------------------------------- polar
@@ -390,76 +696,82 @@ def polar(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
 
     Parameters are those of :func:`bode` (the same ``traces`` dicts).
     """
-    fig = go.Figure()
+    data: list[dict] = []
     colors: dict[tuple, str] = {}
-    all_rpm = np.concatenate([np.asarray(t["speed_rpm"], float) for t in traces]) \
-        if traces else np.array([0.0, 1.0])
+    groups = _groups(traces, ("probe", "order", "direction"))
+    all_rpm = np.concatenate([np.asarray(t["speed_rpm"], float) for _, g in groups for t in g]) \
+        if groups else np.array([0.0, 1.0])
     step = label_step_rpm or _nice_step(float(np.ptp(all_rpm)) if all_rpm.size else 1.0)
-    for tr in traces:
-        key = (tr["probe"], tr["order"])
-        colors.setdefault(key, tr.get("color") or PALETTE[len(colors) % len(PALETTE)])
-        rpm = np.asarray(tr["speed_rpm"], dtype=float)
-        if rpm.size == 0:
-            continue
-        amp = np.asarray(to_display(np.asarray(tr["amplitude"], float), kind, system))
-        lag = np.asarray(tr["phase_lag_deg"], dtype=float)
-        idx = _decimate_index(rpm.size, max_points)
-        style = DIRECTION_STYLE.get(tr.get("direction", "mixed"), DIRECTION_STYLE["mixed"])
-        name = f"{tr['probe']} {_order_name(tr['order'])} {tr.get('direction', '')}".strip()
-        fig.add_trace(go.Scatterpolar(
-            r=amp[idx], theta=lag[idx], mode="lines", name=name, meta="data",
-            customdata=rpm[idx], line={"color": colors[key], "dash": style["dash"], "width": 2},
-            hovertemplate="%{customdata:.0f} rpm<br>%{r:.3g} " + amplitude_label(kind, system)
-            + " ∠ %{theta:.0f}°<extra>" + name + "</extra>"))
-        # speed labels where the curve crosses each multiple of the step
-        marks = np.arange(math.ceil(rpm.min() / step) * step, rpm.max() + 1e-9, step)
+    unit = amplitude_label(kind, system)
+    drawn: dict[tuple, dict[str, np.ndarray]] = {}
+    for (probe, order, direction), group in groups:
+        key = (probe, order)
+        colors.setdefault(key, group[0].get("color") or PALETTE[len(colors) % len(PALETTE)])
+        arr = _display_pieces(group, kind, system, phase="wrapped", max_points=max_points,
+                              keep_speeds=_crit_speeds(criticals, probe, direction))
+        drawn[(probe, order, direction)] = arr
+        name = f"{probe} {_order_name(order)} {direction or ''}".strip()
+        data.append({
+            "type": "scatterpolar", "r": _b64(arr["amplitude"]), "theta": _b64(arr["phase"]),
+            "mode": "lines", "name": name, "meta": "data", "customdata": _b64(arr["rpm"]),
+            "line": {"color": colors[key], "dash": _style(direction)["dash"], "width": 2},
+            "hovertemplate": "%{customdata:.0f} rpm<br>%{r:.3g} " + unit
+            + " ∠ %{theta:.0f}°<extra>" + name + "</extra>"})
+        # speed labels where the curve passes each multiple of the step
+        rpm = arr["rpm"]
+        marks = np.arange(math.ceil(np.nanmin(rpm) / step) * step, np.nanmax(rpm) + 1e-9, step)
         li = [_nearest(rpm, m) for m in marks]
-        fig.add_trace(go.Scatterpolar(
-            r=amp[li], theta=lag[li], mode="markers+text", text=[f"{m:.0f}" for m in marks],
-            textposition="top right", textfont={"size": 10, "color": colors[key]},
-            marker={"size": 5, "color": colors[key]}, name=f"{name} speed labels (rpm)",
-            showlegend=False, hoverinfo="skip", meta="labels"))
+        data.append({
+            "type": "scatterpolar", "r": arr["amplitude"][li].tolist(),
+            "theta": arr["phase"][li].tolist(), "mode": "markers+text",
+            "text": [f"{m:.0f}" for m in marks], "textposition": "top right",
+            "textfont": {"size": 10, "color": colors[key]},
+            "marker": {"size": 5, "color": colors[key]}, "name": f"{name} speed labels (rpm)",
+            "showlegend": False, "hoverinfo": "skip", "meta": "labels"})
     shown = []
     for c in criticals:
-        tr = next((t for t in traces if t["probe"] == c.get("probe") and
-                   t.get("direction") == c.get("direction") and t["order"] == 1), None)
-        if tr is None or not c.get("speed_rpm") or len(tr["speed_rpm"]) == 0:
+        arr = next((a for (p, o, d), a in drawn.items() if p == c.get("probe")
+                    and d == c.get("direction") and o == 1), None)
+        if arr is None or not c.get("speed_rpm"):
             continue
-        i = _nearest(tr["speed_rpm"], c["speed_rpm"])
-        shown.append((c, float(to_display(float(tr["amplitude"][i]), kind, system)),
-                      float(tr["phase_lag_deg"][i])))
+        i = _nearest(arr["rpm"], c["speed_rpm"])
+        shown.append((c, float(arr["amplitude"][i]), float(arr["phase"][i])))
     if shown:
-        fig.add_trace(go.Scatterpolar(
-            r=[s[1] for s in shown], theta=[s[2] for s in shown], mode="markers+text",
-            name="critical speeds", meta="critical", text=[_critical_label(s[0]) for s in shown],
-            textposition="bottom center", textfont={"size": 11},
-            customdata=[s[0]["speed_rpm"] for s in shown],
-            hovertext=[_critical_hover(s[0]) for s in shown], hoverinfo="text",
-            marker={"size": 12, "color": INK, "line": {"color": "white", "width": 1},
-                    "symbol": [DIRECTION_STYLE.get(s[0].get("direction"),
-                                                   DIRECTION_STYLE["mixed"])["symbol"]
-                               for s in shown]}))
+        data.append({
+            "type": "scatterpolar", "r": [s[1] for s in shown], "theta": [s[2] for s in shown],
+            "mode": "markers+text", "name": "critical speeds", "meta": "critical",
+            "text": [_critical_label(s[0]) for s in shown], "textposition": "bottom center",
+            "textfont": {"size": 11}, "customdata": [s[0]["speed_rpm"] for s in shown],
+            "hovertext": [_critical_hover(s[0]) for s in shown], "hoverinfo": "text",
+            "marker": {"size": 12, "color": INK, "line": {"color": "white", "width": 1},
+                       "symbol": [_style(s[0].get("direction"))["symbol"] for s in shown]}})
     r, th = [], []
-    if cursor_rpm is not None and traces and len(traces[0]["speed_rpm"]):
-        tr = traces[0]
-        i = _nearest(tr["speed_rpm"], cursor_rpm)
-        r = [float(to_display(float(tr["amplitude"][i]), kind, system))]
-        th = [float(tr["phase_lag_deg"][i])]
-    fig.add_trace(go.Scatterpolar(r=r, theta=th, mode="markers", name="cursor", meta="cursor",
-                                  showlegend=False, hoverinfo="skip",
-                                  marker={"symbol": "circle-open", "size": 14,
-                                          "color": CURSOR_COLOR, "line": {"width": 2}}))
-    _layout(fig, title=title or "Polar plot", uirevision=uirevision, height=560)
-    fig.update_layout(polar={
+    if cursor_rpm is not None and drawn:
+        arr = next(iter(drawn.values()))
+        i = _nearest(arr["rpm"], cursor_rpm)
+        r, th = [float(arr["amplitude"][i])], [float(arr["phase"][i])]
+    data.append({"type": "scatterpolar", "r": r, "theta": th, "mode": "markers",
+                 "name": "cursor", "meta": "cursor", "showlegend": False, "hoverinfo": "skip",
+                 "marker": {"symbol": "circle-open", "size": 14, "color": CURSOR_COLOR,
+                            "line": {"width": 2}}})
+    layout = _base_layout(title or "Polar plot", uirevision, 580)
+    layout.pop("xaxis")
+    layout.pop("yaxis")
+    layout["polar"] = {
+        "domain": {"x": [0, 1], "y": [0.04, 1]},
         "angularaxis": {"rotation": 90, "direction": "clockwise" if rotation == "ccw"
                         else "counterclockwise", "dtick": 30, "gridcolor": GRID,
                         "ticksuffix": "°"},
         "radialaxis": {"gridcolor": GRID, "angle": 90, "tickangle": 90,
-                       "ticksuffix": " " + amplitude_label(kind, system).split(" ")[0]}},
-        annotations=[{"text": f"radius {amplitude_label(kind, system)}; angle: phase lag "
-                      f"(deg), rising against {rotation} rotation; labels: rpm", "xref": "paper", "yref": "paper", "x": 0,
-                      "y": -0.08, "showarrow": False, "font": {"size": 10}}])
-    return fig
+                       "ticksuffix": " " + unit.split(" ")[0]}}
+    layout["legend"] = {"orientation": "h", "yanchor": "top", "y": -0.06, "xanchor": "left",
+                        "x": 0, "font": {"size": 11}}
+    layout["margin"] = {"l": 40, "r": 40, "t": 56, "b": 96}
+    layout["annotations"].append({
+        "text": f"radius {unit}; angle: phase lag (deg), rising against {rotation} rotation; "
+                "labels: rpm", "xref": "paper", "yref": "paper", "x": 0, "y": 0.0,
+        "xanchor": "left", "yanchor": "top", "showarrow": False, "font": {"size": 10}})
+    return _figure(data, layout)
 
 
 # ----------------------------------------------------------------------------- speed
@@ -470,20 +782,28 @@ def speed_time(time_s, speed_rpm, *, criticals: Sequence[Mapping[str, Any]] = ()
 
     A critical's band is its half-power band ``n1_rpm..n2_rpm`` when both are known, else
     its ``band_rpm``. Criticals of several probes that share a band are drawn once.
-    The time inside a band is :func:`time_in_band` over the whole record.
+    The time inside a band is :func:`time_in_band` over the whole record (full data; the
+    drawn line is decimated by :func:`decimate_minmax`).
     """
     t = np.asarray(time_s, dtype=float)
     n = np.asarray(speed_rpm, dtype=float)
-    fig = go.Figure()
-    idx = _decimate_index(t.size, max_points)
-    fig.add_trace(go.Scatter(x=t[idx], y=n[idx], mode="lines", name="speed", meta="data",
-                               line={"color": PALETTE[0], "width": 2},
-                               hovertemplate="%{x:.1f} s<br>%{y:.0f} rpm<extra></extra>"))
+    idx = decimate_minmax(t, n, max_points=max_points)
+    data = [{"type": "scatter", "x": _b64(t[idx]), "y": _b64(n[idx]), "mode": "lines",
+             "name": "speed", "meta": "data", "line": {"color": PALETTE[0], "width": 2},
+             "hovertemplate": "%{x:.1f} s<br>%{y:.0f} rpm<extra></extra>"}]
+    layout = _base_layout(title or "Speed versus time", uirevision, 360)
+    layout["xaxis"]["title"] = {"text": "time from record start (s)"}
+    layout["yaxis"].update(title={"text": "speed (rpm)"}, rangemode="tozero")
     if operating and operating.get("min_operating_speed_rpm") is not None:
-        fig.add_hrect(y0=operating["min_operating_speed_rpm"],
-                      y1=operating["max_continuous_speed_rpm"], fillcolor=OPERATING_FILL,
-                      line_width=0, layer="below", annotation_text="operating range",
-                      annotation_position="top left", annotation_font_size=10)
+        layout["shapes"].append({
+            "type": "rect", "xref": "x domain", "yref": "y", "x0": 0, "x1": 1,
+            "y0": operating["min_operating_speed_rpm"],
+            "y1": operating["max_continuous_speed_rpm"], "fillcolor": OPERATING_FILL,
+            "line": {"width": 0}, "layer": "below"})
+        layout["annotations"].append({
+            "text": "operating range", "xref": "x domain", "yref": "y", "x": 0,
+            "y": operating["max_continuous_speed_rpm"], "xanchor": "left", "yanchor": "top",
+            "showarrow": False, "font": {"size": 10}})
     bands = []
     for c in criticals:
         lo, hi = (c.get("n1_rpm"), c.get("n2_rpm")) if c.get("n1_rpm") and c.get("n2_rpm") \
@@ -496,23 +816,23 @@ def speed_time(time_s, speed_rpm, *, criticals: Sequence[Mapping[str, Any]] = ()
         bands.append({"key": key, "lo": float(lo), "hi": float(hi), "c": c,
                       "seconds": time_in_band(t, n, lo, hi)})
     for b in bands:
-        fig.add_hrect(y0=b["lo"], y1=b["hi"], fillcolor=HALF_POWER_FILL, line_width=0,
-                      layer="below")
+        layout["shapes"].append({"type": "rect", "xref": "x domain", "yref": "y", "x0": 0,
+                                 "x1": 1, "y0": b["lo"], "y1": b["hi"],
+                                 "fillcolor": HALF_POWER_FILL, "line": {"width": 0},
+                                 "layer": "below"})
     if bands:
         lines = [f"{b['lo']:.0f}–{b['hi']:.0f} rpm (critical {_fmt(b['c'].get('speed_rpm'))} rpm):"
                  f" {b['seconds']:.1f} s" for b in bands]
-        fig.add_annotation(text="<b>time inside critical bands</b><br>" + "<br>".join(lines),
-                           xref="paper", yref="paper", x=0.99, y=0.03, xanchor="right",
-                           yanchor="bottom", align="left", showarrow=False,
-                           bgcolor="rgba(255,255,255,0.85)", bordercolor=GRID,
-                           font={"size": 10})
-    fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name="time in band",
-                             meta="bands", visible="legendonly", showlegend=False,
-                             customdata=[[b["lo"], b["hi"], b["seconds"]] for b in bands]))
-    _layout(fig, title=title or "Speed versus time", uirevision=uirevision, height=360)
-    fig.update_xaxes(title_text="time from record start (s)")
-    fig.update_yaxes(title_text="speed (rpm)", rangemode="tozero")
-    return fig
+        layout["annotations"].append({
+            "text": "<b>time inside critical bands</b><br>" + "<br>".join(lines),
+            "xref": "paper", "yref": "paper", "x": 0.99, "y": 0.03, "xanchor": "right",
+            "yanchor": "bottom", "align": "left", "showarrow": False,
+            "bgcolor": "rgba(255,255,255,0.85)", "bordercolor": GRID, "font": {"size": 10}})
+    data.append({"type": "scatter", "x": [None], "y": [None], "mode": "markers",
+                 "name": "time in band", "meta": "bands", "visible": "legendonly",
+                 "showlegend": False,
+                 "customdata": [[b["lo"], b["hi"], b["seconds"]] for b in bands]})
+    return _figure(data, layout)
 
 
 # ----------------------------------------------------------------------------- direct
@@ -528,66 +848,62 @@ def direct_vs_filtered(traces: Sequence[Mapping[str, Any]], *, kind: str = "prox
     (the axis title says so). ``limit_lines`` with ``value`` are drawn as horizontal
     lines, those with ``speed_rpm``/``values`` as curves (reference zones).
     """
-    fig = go.Figure()
-    for k, tr in enumerate(traces):
-        color = tr.get("color") or PALETTE[k % len(PALETTE)]
-        rpm = np.asarray(tr["speed_rpm"], float)
-        if rpm.size == 0:
-            continue
-        style = DIRECTION_STYLE.get(tr.get("direction", "mixed"), DIRECTION_STYLE["mixed"])
-        d = np.asarray(to_display(np.asarray(tr["direct"], float), kind, system))
-        a = np.asarray(to_display(np.asarray(tr["amplitude"], float), kind, system))
-        idx = _decimate_index(rpm.size, max_points, keep=[int(np.nanargmax(d))])
-        base = f"{tr['probe']} {tr.get('direction', '')}".strip()
-        fig.add_trace(go.Scatter(x=rpm[idx], y=d[idx], mode="lines", name=f"{base} direct",
-                                   meta="data", line={"color": color, "dash": style["dash"],
-                                                      "width": 2.2}))
-        fig.add_trace(go.Scatter(x=rpm[idx], y=a[idx], mode="lines", name=f"{base} 1X",
-                                   meta="data", opacity=0.75,
-                                   line={"color": color, "dash": style["dash"], "width": 1}))
-    _operating_shapes(fig, operating)
-    _add_limit_lines(fig, limit_lines, kind, system)
+    data: list[dict] = []
+    layout = _base_layout(title or "Direct (unfiltered) level beside 1X", uirevision, 480)
+    for k, ((probe, direction), group) in enumerate(_groups(traces, ("probe", "direction"))):
+        color = group[0].get("color") or PALETTE[k % len(PALETTE)]
+        dash = _style(direction)["dash"]
+        arr = _display_pieces(group, kind, system, phase=None, max_points=max_points,
+                              fields=("direct", "amplitude"))
+        base = f"{probe} {direction or ''}".strip()
+        x = _b64(arr["rpm"])
+        data.append({"type": "scatter", "x": x, "y": _b64(arr["direct"]), "mode": "lines",
+                     "name": f"{base} direct", "meta": "data",
+                     "line": {"color": color, "dash": dash, "width": 2.2}})
+        data.append({"type": "scatter", "x": x, "y": _b64(arr["amplitude"]), "mode": "lines",
+                     "name": f"{base} 1X", "meta": "data", "opacity": 0.75,
+                     "line": {"color": color, "dash": dash, "width": 1}})
+    _operating_shapes(layout, operating)
+    _add_limit_lines(data, layout, limit_lines, kind, system)
     tops = [float(np.nanmax(to_display(np.asarray(t["direct"], float), kind, system)))
             for t in traces if len(t["direct"])]
     tops += [float(to_display(float(ln["value"]), kind, system)) for ln in limit_lines
              if ln.get("value") is not None]
     if tops:  # reference zones far above the levels are clipped (zoom out to see them)
-        fig.update_yaxes(range=[0, 1.25 * max(tops)])
+        layout["yaxis"]["range"] = [0, 1.25 * max(tops)]
     u = display_unit(kind, system).replace("um", "µm")
     ytitle = (f"amplitude ({u} pp)" if kind == "proximity"
               else f"amplitude ({u}; direct rms, 1X pk)")
-    _layout(fig, title=title or "Direct (unfiltered) level beside 1X", uirevision=uirevision,
-            height=480)
-    fig.update_layout(legend={"orientation": "h", "yanchor": "top", "y": -0.18, "x": 0,
-                              "xanchor": "left"}, margin={"b": 120})
-    fig.update_xaxes(title_text="speed (rpm)")
-    fig.update_yaxes(title_text=ytitle)
-    return fig
+    layout.update(legend={"orientation": "h", "yanchor": "top", "y": -0.18, "x": 0,
+                          "xanchor": "left"}, margin={"l": 64, "r": 24, "t": 56, "b": 120})
+    layout["xaxis"]["title"] = {"text": "speed (rpm)"}
+    layout["yaxis"]["title"] = {"text": ytitle}
+    return _figure(data, layout)
 
 
-def _add_limit_lines(fig, limit_lines, kind, system) -> None:
-    for j, ln in enumerate(limit_lines):
+def _add_limit_lines(data, layout, limit_lines, kind, system) -> None:
+    for ln in limit_lines:
         color = "#D55E00" if ln.get("verdict_line", True) else "#777777"
         if ln.get("value") is not None:
             x0, x1 = ln.get("applies_rpm") or (None, None)
             y = float(to_display(float(ln["value"]), kind, system))
             if x0 is None:
-                fig.add_hline(y=y, line={"color": color, "dash": "longdash", "width": 1.5},
-                              annotation_text=ln.get("label", "limit"),
-                              annotation_position="top left", annotation_font_size=10)
+                _hline(layout, y, {"color": color, "dash": "longdash", "width": 1.5},
+                       text=ln.get("label", "limit"))
             else:
-                fig.add_trace(go.Scatter(x=[x0, x1], y=[y, y], mode="lines+text",
-                                         name=ln.get("label", "limit"), meta="limit",
-                                         line={"color": color, "dash": "longdash", "width": 2},
-                                         text=[ln.get("label", "limit"), ""],
-                                         textposition="top right", textfont={"size": 10},
-                                         hovertext=ln.get("source", ""), hoverinfo="text"))
+                data.append({"type": "scatter", "x": [x0, x1], "y": [y, y],
+                             "mode": "lines+text", "name": ln.get("label", "limit"),
+                             "meta": "limit",
+                             "line": {"color": color, "dash": "longdash", "width": 2},
+                             "text": [ln.get("label", "limit"), ""],
+                             "textposition": "top right", "textfont": {"size": 10},
+                             "hovertext": ln.get("source", ""), "hoverinfo": "text"})
         elif ln.get("speed_rpm") is not None:
             y = np.asarray(to_display(np.asarray(ln["values"], float), kind, system))
-            fig.add_trace(go.Scatter(x=list(ln["speed_rpm"]), y=list(y), mode="lines",
-                                     name=ln.get("label", "zone"), meta="limit",
-                                     line={"color": "#999999", "dash": "dot", "width": 1},
-                                     hovertext=ln.get("source", ""), hoverinfo="text+name"))
+            data.append({"type": "scatter", "x": list(ln["speed_rpm"]), "y": y.tolist(),
+                         "mode": "lines", "name": ln.get("label", "zone"), "meta": "limit",
+                         "line": {"color": "#999999", "dash": "dot", "width": 1},
+                         "hovertext": ln.get("source", ""), "hoverinfo": "text+name"})
 
 
 def guidance_lines(profile, *, kind: str, max_continuous_speed_rpm: float,
@@ -729,28 +1045,28 @@ def campbell(max_speed_rpm: float, *, orders: Sequence[float] = (1, 2, 3, 4),
     interference points, with their speed in the hover text.
     """
     top = float(max_speed_rpm) * 1.15
-    fig = go.Figure()
+    data: list[dict] = []
     for k, o in enumerate(orders):
-        fig.add_trace(go.Scatter(x=[0, top], y=[0, o * top / 60.0], mode="lines+text",
-                                 name=f"{_order_name(o)}", meta="order",
-                                 text=["", _order_name(o)], textposition="top left",
-                                 line={"color": PALETTE[k % len(PALETTE)], "width": 1.5}))
+        data.append({"type": "scatter", "x": [0, top], "y": [0, o * top / 60.0],
+                     "mode": "lines+text", "name": f"{_order_name(o)}", "meta": "order",
+                     "text": ["", _order_name(o)], "textposition": "top left",
+                     "line": {"color": PALETTE[k % len(PALETTE)], "width": 1.5}})
     fmax = max(orders) * top / 60.0 if orders else top / 60.0
-    _operating_shapes(fig, operating)
+    layout = _base_layout(title or "Campbell (interference) diagram", uirevision, 460)
+    _operating_shapes(layout, operating)
     crit = [c for c in criticals if c.get("speed_rpm")]
     if crit:
-        fig.add_trace(go.Scatter(
-            x=[c["speed_rpm"] for c in crit], y=[c["speed_rpm"] / 60.0 for c in crit],
-            mode="markers", name="critical speeds (measured, 1X)", meta="critical",
-            marker={"size": 11, "color": INK, "symbol": [
-                DIRECTION_STYLE.get(c.get("direction"), DIRECTION_STYLE["mixed"])["symbol"]
-                for c in crit]},
-            hovertext=[_critical_hover(c) for c in crit], hoverinfo="text"))
+        data.append({
+            "type": "scatter", "x": [c["speed_rpm"] for c in crit],
+            "y": [c["speed_rpm"] / 60.0 for c in crit], "mode": "markers",
+            "name": "critical speeds (measured, 1X)", "meta": "critical",
+            "marker": {"size": 11, "color": INK,
+                       "symbol": [_style(c.get("direction"))["symbol"] for c in crit]},
+            "hovertext": [_critical_hover(c) for c in crit], "hoverinfo": "text"})
     xs, ys, tx = [], [], []
     for fn in natural_frequencies_hz:
-        fig.add_hline(y=fn, line={"color": "#CC79A7", "dash": "dash", "width": 1.5},
-                      annotation_text=f"natural frequency {fn:g} Hz",
-                      annotation_position="top right", annotation_font_size=10)
+        _hline(layout, fn, {"color": "#CC79A7", "dash": "dash", "width": 1.5},
+               text=f"natural frequency {fn:g} Hz")
         for o in orders:
             n = 60.0 * fn / o
             if n <= top:
@@ -758,15 +1074,14 @@ def campbell(max_speed_rpm: float, *, orders: Sequence[float] = (1, 2, 3, 4),
                 ys.append(fn)
                 tx.append(f"{_order_name(o)} meets {fn:g} Hz at {n:.0f} rpm")
     if xs:
-        fig.add_trace(go.Scatter(x=xs, y=ys, mode="markers", name="interference points",
-                                 meta="interference", hovertext=tx, hoverinfo="text",
-                                 marker={"size": 9, "color": "#CC79A7", "symbol": "x"}))
-    _layout(fig, title=title or "Campbell (interference) diagram", uirevision=uirevision,
-            height=460)
-    fig.update_xaxes(title_text="speed (rpm)", range=[0, top])
-    fig.update_yaxes(title_text="frequency (Hz)",
-                     range=[0, max(fmax, *(list(natural_frequencies_hz) or [0])) * 1.05])
-    return fig
+        data.append({"type": "scatter", "x": xs, "y": ys, "mode": "markers",
+                     "name": "interference points", "meta": "interference", "hovertext": tx,
+                     "hoverinfo": "text",
+                     "marker": {"size": 9, "color": "#CC79A7", "symbol": "x"}})
+    layout["xaxis"].update(title={"text": "speed (rpm)"}, range=[0, top])
+    layout["yaxis"].update(title={"text": "frequency (Hz)"},
+                           range=[0, max(fmax, *(list(natural_frequencies_hz) or [0])) * 1.05])
+    return _figure(data, layout)
 
 
 # ----------------------------------------------------------------------------- orbit

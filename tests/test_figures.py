@@ -284,10 +284,12 @@ class TestHelpers:
         t = np.arange(10.0)
         segs = [{"kind": "steady", "t_start_s": 0.0, "t_end_s": 3.0},
                 {"kind": "run-up", "t_start_s": 3.0, "t_end_s": 9.0}]
-        parts = figures.split_by_direction(t, segs)
+        parts = figures.split_by_direction(t, segs, min_piece_s=2.0)  # a 3 s hold is drawn
         assert [k for k, _ in parts] == ["steady", "run-up"]
         assert_allclose(np.concatenate([i for _, i in parts]), np.arange(10))
         assert figures.split_by_direction(t, [])[0][0] == "mixed"
+        # when the 6 s run-up counts as long (min_piece_s 5 s), the 3 s hold is its blip
+        assert [k for k, _ in figures.split_by_direction(t, segs, min_piece_s=5.0)] == ["run-up"]
         # a short hold inside a run-up is drawn as part of it
         segs = [{"kind": "run-up", "t_start_s": 0.0, "t_end_s": 3.0},
                 {"kind": "steady", "t_start_s": 3.0, "t_end_s": 4.0},
