@@ -48,3 +48,12 @@ POLL = "import-poll"
 STATUS = "import-status"
 PROGRESS = "import-progress"
 RESULT = "import-result"
+
+# live monitor
+LIVE_RUN = "live-run"
+LIVE_POLL = "live-poll"
+LIVE_STATUS = "live-status"
+LIVE_ALERTS = "live-alerts"
+LIVE_BODE = "live-bode"
+LIVE_POLAR = "live-polar"
+LIVE_EVENTS = "live-events"

@@ -1,0 +1,158 @@
+"""Live monitor page: a run being recorded, polled from the database.
+
+Route ``/live`` (the run recorded last) or ``/live/<run id>``. Every poll reads the
+recorder's status, the live vectors and the event log (short read transactions: the page
+never blocks the recorder, and only whole committed batches are seen) and shows the
+current speed and acceleration, an alert strip of the warnings that hold, Bode and polar
+plots of 1X building up with the expected critical bands of earlier runs shaded, and the
+event log. The warnings themselves are computed by the recorder
+(:mod:`rundash.analysis.live_warnings`); this page only shows them.
+"""
+
+from __future__ import annotations
+
+import re
+
+from rundash import CAUTION
+from rundash.dashboard import ids
+
+PATH = "/live"
+TITLE = "Live monitor"
+POLL_MS = 1000
+_ROUTE = re.compile(r"^/live(?:/(\d+))?/?$")
+
+
+def match(pathname: str):
+    m = _ROUTE.match(pathname or "")
+    if m is None:
+        return None
+    return {"run_id": int(m.group(1)) if m.group(1) else None}
+
+
+def layout(db, run_id: int | None = None):
+    from dash import dcc, html
+
+    return html.Div(className="live-page", children=[
+        html.H2("Live monitor"),
+        dcc.Store(id=ids.LIVE_RUN, data=run_id),
+        dcc.Interval(id=ids.LIVE_POLL, interval=POLL_MS),
+        html.Div(id=ids.LIVE_STATUS, className="card"),
+        html.Div(id=ids.LIVE_ALERTS, className="alert-strip"),
+        html.Div(className="row", children=[
+            dcc.Graph(id=ids.LIVE_BODE, style={"flex": "2"}),
+            dcc.Graph(id=ids.LIVE_POLAR, style={"flex": "1"})]),
+        html.H3("Event log"),
+        html.Table(id=ids.LIVE_EVENTS, className="events"),
+        html.P(CAUTION, className="muted"),
+    ])
+
+
+def snapshot(db, run_id: int | None) -> dict:
+    """Everything the page shows, read in one short read transaction."""
+    from rundash.storage import live_queries as lq
+
+    with db.read() as conn:
+        if run_id is None:
+            run_id = lq.latest_live_run(conn)
+        if run_id is None:
+            return {"run_id": None}
+        status = lq.load_status(conn, run_id)
+        tracks = lq.load_live_tracks(conn, run_id, order=1.0)
+        events = lq.load_events(conn, run_id)
+    bands = []
+    for e in events:
+        if e.kind == "recording":
+            bands = [tuple(b) for b in e.details.get("bands", [])]
+            break
+    return {"run_id": run_id, "status": status, "tracks": tracks, "events": events,
+            "bands": bands}
+
+
+def active_alerts(events) -> list[tuple[str, str]]:
+    """(severity, text) of the conditions that still hold after the event log so far."""
+    on: dict[str, tuple[str, str]] = {}
+    for e in events:
+        d = e.details or {}
+        if e.kind == "tach-lost":
+            on["tach"] = (e.severity, e.message)
+        elif e.kind == "tach-restored":
+            on.pop("tach", None)
+        elif e.kind in ("approaching", "entered-band", "dwell"):
+            on[f"band{d.get('band')}"] = (e.severity, e.message)
+        elif e.kind == "left-band":
+            on.pop(f"band{d.get('band')}", None)
+        elif e.kind == "level-alarm":
+            on[f"level{d.get('probe')}"] = (e.severity, e.message)
+        elif e.kind == "level-normal":
+            on.pop(f"level{d.get('probe')}", None)
+        elif e.kind == "recording-ended":
+            on.pop("tach", None)
+    return list(on.values())
+
+
+def figures(snap: dict):
+    """Bode (amplitude and phase lag against speed) and polar figures of the live 1X."""
+    import plotly.graph_objects as go
+    from plotly.subplots import make_subplots
+
+    bode = make_subplots(rows=2, cols=1, shared_xaxes=True, vertical_spacing=0.06)
+    polar = go.Figure()
+    for lo, crit, hi in snap.get("bands", []):
+        for row in (1, 2):
+            bode.add_vrect(x0=lo, x1=hi, fillcolor="rgba(200,120,0,0.15)", line_width=0,
+                           row=row, col=1, exclude_empty_subplots=False)
+        bode.add_annotation(x=crit, y=1.0, yref="paper", text=f"expected {crit:.0f} rpm",
+                            showarrow=False)
+    for tr in snap.get("tracks", []):
+        unit = "µm pp" if tr.kind == "proximity" else "mm/s pk"
+        bode.add_scatter(x=tr.speed_rpm, y=tr.amplitude, mode="lines", name=tr.probe_name,
+                         row=1, col=1)
+        bode.add_scatter(x=tr.speed_rpm, y=tr.phase_lag_deg, mode="markers",
+                         marker={"size": 3}, name=f"{tr.probe_name} lag", showlegend=False,
+                         row=2, col=1)
+        bode.update_yaxes(title_text=f"1X ({unit})", row=1, col=1)
+        polar.add_scatterpolar(r=tr.amplitude, theta=tr.phase_lag_deg, mode="lines",
+                               name=tr.probe_name)
+    bode.update_yaxes(title_text="phase lag (deg)", range=[0, 360], row=2, col=1)
+    bode.update_xaxes(title_text="speed (rpm)", row=2, col=1)
+    bode.update_layout(height=460, margin={"t": 30, "b": 40, "l": 60, "r": 20},
+                       uirevision="live")
+    polar.update_layout(height=460, margin={"t": 30, "b": 30}, uirevision="live",
+                        polar={"angularaxis": {"direction": "clockwise"}})
+    return bode, polar
+
+
+def register_callbacks(app, db) -> None:
+    from dash import Input, Output, State, html
+
+    @app.callback(Output(ids.LIVE_STATUS, "children"), Output(ids.LIVE_ALERTS, "children"),
+                  Output(ids.LIVE_BODE, "figure"), Output(ids.LIVE_POLAR, "figure"),
+                  Output(ids.LIVE_EVENTS, "children"),
+                  Input(ids.LIVE_POLL, "n_intervals"), State(ids.LIVE_RUN, "data"))
+    def _poll(_n, run_id):
+        snap = snapshot(db, run_id)
+        if snap["run_id"] is None:
+            empty = figures({})
+            return ("No run is being recorded (start one with rundash record).", [],
+                    empty[0], empty[1], [])
+        st = snap["status"]
+        if st is None:
+            status = f"run {snap['run_id']}: no live status (not recorded live)"
+        else:
+            speed = "-" if st.speed_rpm is None else f"{st.speed_rpm:,.0f} rpm"
+            acc = "-" if st.accel_rpm_s is None else f"{st.accel_rpm_s:+,.0f} rpm/s"
+            status = (f"run {snap['run_id']} · {st.state} · t = {st.time_s:.1f} s · speed "
+                      f"{speed} · acceleration {acc} · tach {'ok' if st.tach_ok else 'LOST'} · "
+                      f"{st.n_revs} revolutions")
+        alerts = [html.Span(text, className=f"alert {sev}")
+                  for sev, text in active_alerts(snap["events"])]
+        if not alerts:
+            alerts = [html.Span("no active warning", className="alert none")]
+        bode, polar = figures(snap)
+        rows = [html.Tr([html.Th(h) for h in ("t (s)", "speed (rpm)", "level", "event")])]
+        for e in reversed(snap["events"]):
+            rows.append(html.Tr([html.Td(f"{e.time_s:.1f}"),
+                                 html.Td("-" if e.speed_rpm is None else f"{e.speed_rpm:,.0f}"),
+                                 html.Td(e.severity), html.Td(e.message)],
+                                className=f"event {e.kind}"))
+        return status, alerts, bode, polar, rows
