@@ -12,6 +12,7 @@ event log. The warnings themselves are computed by the recorder
 from __future__ import annotations
 
 import re
+from datetime import datetime, timezone
 
 from rundash import CAUTION
 from rundash.dashboard import ids
@@ -19,6 +20,7 @@ from rundash.dashboard import ids
 PATH = "/live"
 TITLE = "Live monitor"
 POLL_MS = 1000
+STALE_S = 10.0  # a recording status older than this: the recorder is silent
 _ROUTE = re.compile(r"^/live(?:/(\d+))?/?$")
 
 
@@ -144,6 +146,10 @@ def register_callbacks(app, db) -> None:
             status = (f"run {snap['run_id']} · {st.state} · t = {st.time_s:.1f} s · speed "
                       f"{speed} · acceleration {acc} · tach {'ok' if st.tach_ok else 'LOST'} · "
                       f"{st.n_revs} revolutions")
+            silent = (datetime.now(timezone.utc) - st.updated_at).total_seconds()
+            if st.state == "recording" and silent > STALE_S:
+                status += (f" · no update for {silent:.0f} s: the recorder may have stopped "
+                           "(the run stays incomplete and can be processed)")
         alerts = [html.Span(text, className=f"alert {sev}")
                   for sev, text in active_alerts(snap["events"])]
         if not alerts:
