@@ -1006,29 +1006,31 @@ def cascade(speed_rpm, freq_hz, amplitude, *, kind: str = "proximity",
     floor = peak * 1e-3
     zlog = np.log10(np.maximum(a, floor))
     decades = np.arange(math.floor(math.log10(floor)), math.ceil(math.log10(peak)) + 1)
-    fig = go.Figure(go.Heatmap(
-        x=f, y=rpm, z=zlog, customdata=a, colorscale="Cividis", meta="data",
-        zmin=math.log10(floor), zmax=math.log10(peak),
-        colorbar={"title": {"text": unit + " (log)", "side": "right"}, "thickness": 14,
-                  "tickvals": decades.tolist(), "ticktext": [f"{10.0 ** d:g}" for d in decades]},
-        hovertemplate="%{x:.1f} Hz<br>%{y:.0f} rpm<br>%{customdata:.3g} " + unit
-        + "<extra></extra>"))
+    data: list[dict] = [{
+        "type": "heatmap", "x": _b64(f), "y": _b64(rpm), "z": zlog.tolist(),
+        "customdata": a.tolist(), "colorscale": "Cividis", "meta": "data",
+        "zmin": math.log10(floor), "zmax": math.log10(peak),
+        "colorbar": {"title": {"text": unit + " (log)", "side": "right"}, "thickness": 14,
+                     "tickvals": decades.tolist(),
+                     "ticktext": [f"{10.0 ** d:g}" for d in decades]},
+        "hovertemplate": "%{x:.1f} Hz<br>%{y:.0f} rpm<br>%{customdata:.3g} " + unit
+        + "<extra></extra>"}]
     top = float(rpm.max()) if rpm.size else 1.0
     fmax = float(f.max()) if f.size else 1.0
     for o in orders:
         n_end = min(top, 60.0 * fmax / o)
-        fig.add_trace(go.Scatter(x=[0, o * n_end / 60.0], y=[0, n_end], mode="lines+text",
-                                 name=f"{_order_name(o)} line", meta="order",
-                                 text=["", _order_name(o)], textposition="middle right",
-                                 line={"color": "white", "width": 1, "dash": "dot"},
-                                 textfont={"color": INK, "size": 11}, showlegend=False,
-                                 hoverinfo="skip"))
-    _layout(fig, title=title or f"Cascade {probe}".strip(), uirevision=uirevision, height=460)
+        data.append({"type": "scatter", "x": [0, o * n_end / 60.0], "y": [0, n_end],
+                     "mode": "lines+text", "name": f"{_order_name(o)} line", "meta": "order",
+                     "text": ["", _order_name(o)], "textposition": "middle right",
+                     "line": {"color": "white", "width": 1, "dash": "dot"},
+                     "textfont": {"color": INK, "size": 11}, "showlegend": False,
+                     "hoverinfo": "skip"})
+    layout = _base_layout(title or f"Cascade {probe}".strip(), uirevision, 460)
     shown_f = min(fmax, 1.5 * max(orders or [1]) * top / 60.0)
-    fig.update_xaxes(title_text="frequency (Hz)", range=[0, shown_f], showgrid=False)
-    fig.update_yaxes(title_text="speed (rpm)", range=[float(rpm.min()) if rpm.size else 0, top],
-                     showgrid=False)
-    return fig
+    layout["xaxis"].update(title={"text": "frequency (Hz)"}, range=[0, shown_f], showgrid=False)
+    layout["yaxis"].update(title={"text": "speed (rpm)"},
+                           range=[float(rpm.min()) if rpm.size else 0, top], showgrid=False)
+    return _figure(data, layout)
 
 
 # ----------------------------------------------------------------------------- campbell

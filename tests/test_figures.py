@@ -308,3 +308,165 @@ class TestHelpers:
         z = figures.margin_zones(crits, OPERATING)
         assert_allclose([z[0]["lo_rpm"], z[1]["hi_rpm"]],
                         [4400 * (1 - 0.12143), 5460 * 1.22143])
+
+
+class TestValidFigures:
+    @pytest.mark.parametrize("build", [
+        lambda: figures.bode([track(), track(direction="coast-down"), track(order=2.0)],
+                             criticals=[critical()], operating=OPERATING, cursor_rpm=3000.0,
+                             limit_lines=[{"measure": "1X", "value": 30.0, "label": "x"}]),
+        lambda: figures.bode([track()], phase="wrapped"),
+        lambda: figures.polar([track()], criticals=[critical()], cursor_rpm=3000.0),
+        lambda: figures.direct_vs_filtered(
+            [track()], operating=OPERATING, limit_lines=figures.guidance_lines(
+                "api617", kind="proximity", max_continuous_speed_rpm=5460.0,
+                speed_range_rpm=(0.0, 5500.0))),
+        lambda: figures.speed_time(np.linspace(0, 40, 401), np.linspace(300, 5900, 401),
+                                   criticals=[critical()], operating=OPERATING),
+        lambda: figures.cascade(np.linspace(500, 6000, 50), np.linspace(0, 500, 101),
+                                np.ones((50, 101))),
+        lambda: figures.campbell(6000.0, natural_frequencies_hz=[50.0], operating=OPERATING,
+                                 criticals=[critical()]),
+    ], ids=["bode", "bode-wrapped", "polar", "direct", "speed", "cascade", "campbell"])
+    def test_builders_pass_plotly_validation(self, build):
+        # the builders skip plotly.py's per-property validation for speed; plotly's own
+        # validator (go.Figure on the dict) is the reference that the output is valid
+        import plotly.graph_objects as go
+
+        go.Figure(build().to_dict())
+
+
+class TestDecimateMinmax:
+    def test_each_speed_bin_keeps_its_extremes(self):
+        # reference: scipy.ndimage.maximum / minimum per label over the same bins
+        from scipy import ndimage
+
+        rng = np.random.default_rng(11)
+        rpm = np.linspace(300.0, 5500.0, 60_000)
+        amp, lag = sdof_unbalance(rpm, 3000.0, 0.05)
+        amp = amp + rng.normal(0.0, 0.3, rpm.size)
+        idx = figures.decimate_minmax(rpm, amp, lag, max_points=1200)
+        assert idx.size <= 1200
+        n_bins = 1200 // 6
+        bins = np.clip(((rpm - rpm[0]) / (rpm[-1] - rpm[0]) * n_bins).astype(int), 0,
+                       n_bins - 1)
+        labels = np.arange(n_bins)
+        assert_allclose(ndimage.maximum(amp[idx], bins[idx], labels),
+                        ndimage.maximum(amp, bins, labels), rtol=0, atol=0)
+        assert_allclose(ndimage.minimum(amp[idx], bins[idx], labels),
+                        ndimage.minimum(amp, bins, labels), rtol=0, atol=0)
+        assert np.argmax(amp) in idx and 0 in idx and rpm.size - 1 in idx
+
+    def test_short_tracks_untouched_and_keep_indices_kept(self):
+        assert_allclose(figures.decimate_minmax(np.arange(10.0), np.ones(10)), np.arange(10))
+        rpm = np.linspace(0.0, 1.0, 10_000)
+        idx = figures.decimate_minmax(rpm, rpm, max_points=100, keep=[1234])
+        assert 1234 in idx and idx.size <= 101
+
+    def test_dithering_speed_falls_back_to_index_blocks(self):
+        rng = np.random.default_rng(3)
+        rpm = 3000.0 + rng.normal(0.0, 50.0, 50_000)  # a hold: speed jitters across bins
+        amp = rng.normal(10.0, 1.0, rpm.size)
+        idx = figures.decimate_minmax(rpm, amp, max_points=1000)
+        assert idx.size <= 1000
+        assert np.argmax(amp) in idx and np.argmin(amp) in idx
+
+
+class TestUnwrapPhase:
+    def test_continuous_through_a_critical_and_equal_modulo_360(self):
+        # SDOF lag rises 0 -> 180 deg through the critical (Thomson, 4th ed., sec. 3.3);
+        # a probe angle of 300 deg makes the stored value wrap at 360 mid-critical
+        rpm = np.linspace(300.0, 5500.0, 3000)
+        amp, lag = sdof_unbalance(rpm, 3000.0, 0.05)
+        stored = (lag + 300.0) % 360.0
+        u = figures.unwrap_phase_deg(stored, rpm, amp)
+        assert np.max(np.abs(np.diff(u))) < 30.0
+        assert_allclose(u % 360.0, stored, atol=1e-9)
+        assert 0.0 <= u[0] < 360.0
+        # reference: numpy's unwrap on the clean sequence, shifted to start in [0, 360)
+        ref = np.unwrap(stored, period=360.0)
+        assert_allclose(u, ref - 360.0 * np.floor(ref[0] / 360.0), atol=1e-9)
+
+    def test_coast_down_starts_in_range_at_its_lowest_speed(self):
+        rpm = np.linspace(5500.0, 300.0, 3000)
+        amp, lag = sdof_unbalance(rpm, 3000.0, 0.05)
+        u = figures.unwrap_phase_deg((lag + 300.0) % 360.0, rpm, amp)
+        assert 0.0 <= u[-1] < 360.0 and np.max(np.abs(np.diff(u))) < 30.0
+
+    def test_noise_at_low_amplitude_does_not_steer_the_unwrapping(self):
+        # slow roll after compensation: amplitude ~0, phase uniform noise
+        rng = np.random.default_rng(5)
+        rpm = np.linspace(300.0, 5500.0, 4000)
+        amp, lag = sdof_unbalance(rpm, 3000.0, 0.05)
+        stored = (lag + 200.0) % 360.0
+        weak = rpm < 900.0
+        amp = amp.copy()
+        amp[weak] = 0.001
+        stored[weak] = rng.uniform(0.0, 360.0, weak.sum())
+        u = figures.unwrap_phase_deg(stored, rpm, amp)
+        strong = ~weak
+        assert np.max(np.abs(np.diff(u[strong]))) < 30.0
+        assert_allclose(u % 360.0, stored, atol=1e-9)  # display only: same angles
+        assert np.ptp(u[strong]) < 200.0  # the ~180 deg climb, no stray 360s
+
+
+class TestManySegments:
+    SEGMENTS = [  # shaped like a smooth sweep cut into pieces by a jittery segmentation
+        {"kind": "steady", "t_start_s": 0.0, "t_end_s": 166.0, "rpm_start": 300.0,
+         "rpm_end": 1188.0},
+        {"kind": "run-up", "t_start_s": 166.0, "t_end_s": 276.0, "rpm_start": 1188.0,
+         "rpm_end": 2500.0},
+        {"kind": "steady", "t_start_s": 276.0, "t_end_s": 279.0, "rpm_start": 2500.0,
+         "rpm_end": 2520.0},
+        {"kind": "run-up", "t_start_s": 279.0, "t_end_s": 408.0, "rpm_start": 2520.0,
+         "rpm_end": 4200.0},
+        {"kind": "coast-down", "t_start_s": 408.0, "t_end_s": 411.0, "rpm_start": 4200.0,
+         "rpm_end": 4190.0},
+        {"kind": "run-up", "t_start_s": 411.0, "t_end_s": 600.0, "rpm_start": 4190.0,
+         "rpm_end": 5300.0},
+    ]
+
+    def test_drawn_as_one_sweep(self):
+        assert figures.drawing_segments(self.SEGMENTS) == [
+            {"kind": "run-up", "t_start_s": 0.0, "t_end_s": 600.0}]
+
+    def test_a_real_hold_and_a_real_coast_down_stay(self):
+        segs = [{"kind": "run-up", "t_start_s": 0.0, "t_end_s": 100.0},
+                {"kind": "steady", "t_start_s": 100.0, "t_end_s": 160.0, "rpm_start": 5400.0,
+                 "rpm_end": 5410.0},
+                {"kind": "coast-down", "t_start_s": 160.0, "t_end_s": 260.0}]
+        assert [s["kind"] for s in figures.drawing_segments(segs)] == \
+            ["run-up", "steady", "coast-down"]
+
+    def test_one_trace_per_probe_order_direction_with_gaps(self):
+        t = np.linspace(0.0, 300.0, 3001)
+        rpm = np.concatenate([np.linspace(300, 5000, 1000), np.linspace(5000, 1000, 1000),
+                              np.linspace(1000, 5000, 1001)])
+        amp, lag = sdof_unbalance(rpm, 3000.0, 0.1)
+        segs = [{"kind": "run-up", "t_start_s": 0.0, "t_end_s": t[1000]},
+                {"kind": "coast-down", "t_start_s": t[1000], "t_end_s": t[2000]},
+                {"kind": "run-up", "t_start_s": t[2000], "t_end_s": 300.0}]
+        traces = [{"probe": "P-X", "order": 1.0, "direction": d, "speed_rpm": rpm[i],
+                   "amplitude": amp[i], "phase_lag_deg": lag[i]}
+                  for d, i in figures.split_by_direction(t, segs)]
+        assert len(traces) == 3
+        d = figures.bode(traces).to_dict()
+        data = [tr for tr in d["data"] if tr.get("meta") == "data"]
+        assert sorted(tr["name"] for tr in data[::2]) == ["P-X 1X coast-down", "P-X 1X run-up"]
+        x = arr([tr for tr in data if tr["name"] == "P-X 1X run-up"][0]["x"])
+        assert np.isnan(x).sum() == 1  # one gap between the two run-up pieces
+
+
+class TestBodePhase:
+    def test_unwrapped_by_default_wrapped_on_request(self):
+        tr = track()
+        tr["phase_lag_deg"] = (tr["phase_lag_deg"] + 300.0) % 360.0  # wraps mid-critical
+        du = figures.bode([tr]).to_dict()
+        dw = figures.bode([tr], phase="wrapped").to_dict()
+        pu, pw = arr(du["data"][1]["y"]), arr(dw["data"][1]["y"])
+        assert np.max(np.abs(np.diff(pu))) < 30.0 and np.max(np.abs(np.diff(pw))) > 300.0
+        assert_allclose(pu % 360.0, pw, atol=1e-9)  # same angles, display only
+        assert dw["layout"]["yaxis2"]["range"] == [0, 360]
+        assert "range" not in du["layout"]["yaxis2"]
+        assert any("unwrapped" in a["text"] for a in du["layout"]["annotations"])
+        assert_allclose(tr["phase_lag_deg"], (track()["phase_lag_deg"] + 300.0) % 360.0)

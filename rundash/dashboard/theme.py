@@ -30,7 +30,17 @@ table.plain th, table.plain td { text-align:left; padding:5px 8px; border-bottom
                                  vertical-align:top; }
 table.plain th { font-weight:600; background:#fafafa; }
 tr.clickable { cursor:pointer; } tr.clickable:hover { background:#e6f0f8; }
-td.v-pass { color:#00704f; font-weight:600; } td.v-fail { color:#b34700; font-weight:600; }
+td.v-pass, td.v-within { color:#00704f; font-weight:600; }
+td.v-fail, td.v-exceeds { color:#b34700; font-weight:700; }
+td.v-reference-only, td.v-not-judged { color:var(--unjudged); }
+tr.row-fail { background:#fdf0e8; } tr.row-fail:hover { background:#fbe3d4; }
+.reasons { background:#fdf0e8; border-left:4px solid var(--fail); padding:6px 12px; margin:6px 0 10px 0; }
+.reasons ul { margin:4px 0; padding-left:20px; }
+.attention { background:#fff6e0; border-left:4px solid var(--attention); padding:4px 12px; margin:6px 0; }
+.attention ul { margin:4px 0; padding-left:20px; }
+details.reference { margin-top:8px; border:1px solid var(--line); border-radius:4px; padding:4px 10px; }
+details.reference summary { cursor:pointer; color:var(--muted); padding:4px 0; }
+details.reference table td { color:var(--muted); }
 .badge { display:inline-block; padding:2px 9px; border-radius:10px; font-weight:600;
          font-size:12px; color:white; background:var(--unjudged); }
 .badge.pass { background:var(--pass); } .badge.fail { background:var(--fail); }

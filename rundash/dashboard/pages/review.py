@@ -22,6 +22,7 @@ PATH = "/run/"
 TITLE = "Run review"
 _ROUTE = re.compile(r"^/run/(\d+)/?$")
 UNIT_SYSTEMS = ("metric", "imperial")
+PHASE_DISPLAYS = ("unwrapped", "wrapped")
 
 
 def match(pathname: str):
@@ -30,21 +31,17 @@ def match(pathname: str):
 
 
 # ----------------------------------------------------------------------------- reading
-def load_context(db, run_id: int) -> dict[str, Any]:
-    """Everything the page header and verdict need, read in one connection."""
-    from rundash.storage import queries as q
+def _cache(db, cache):
+    """The app's cache, or an uncached reader (tests and scripts call without one)."""
+    from rundash.dashboard.cache import ResultCache
 
-    with db.read() as conn:
-        run = q.get_run(conn, run_id)
-        machine = q.get_machine(conn, q.run_machine_id(conn, run_id))
-        processing = q.load_processing(conn, run_id)
-        channels = q.list_channels(conn, run_id)
-    probe_by_name = {p.name: p for p in machine.probes}
-    probes = [probe_by_name[c.probe_name] for c in channels
-              if c.role == "probe" and c.probe_name in probe_by_name]
-    return {"run": run, "machine": machine, "processing": processing, "channels": channels,
-            "probes": probes,
-            "findings": processing.findings if processing is not None else None}
+    return cache if cache is not None else ResultCache(db, maxsize=0)
+
+
+def load_context(db, run_id: int, *, cache=None) -> dict[str, Any]:
+    """Everything the page header and verdict need: run, machine, processing, channels,
+    probes, findings and the cache key of the run's processing."""
+    return _cache(db, cache).context(run_id)
 
 
 def operating_of(machine) -> dict[str, float | None]:
@@ -59,95 +56,121 @@ def _criticals(findings, probe: str | None = None) -> list[dict[str, Any]]:
     return [c for c in cs if probe is None or c.get("probe") == probe]
 
 
-def vector_traces(db, run_id: int, probe: str, orders, compensated: bool
-                  ) -> tuple[list[dict[str, Any]], str]:
-    """Stored tracks of one probe, cut into run-direction pieces; and the probe's kind."""
-    from rundash.storage import queries as q
+def vector_traces(db, run_id: int, probe: str, orders, compensated: bool, *, cache=None,
+                  ctx=None) -> tuple[list[dict[str, Any]], str]:
+    """Stored tracks of one probe, cut into run-direction pieces; and the probe's kind.
 
-    with db.read() as conn:
-        proc = q.load_processing(conn, run_id)
-        tracks = q.load_tracks(conn, run_id, probe_name=probe)
-    if not tracks:
-        return [], "proximity"
-    kind = tracks[0].kind
-    has_comp = any(t.compensated for t in tracks)
-    use_comp = bool(compensated) and has_comp
+    Pieces follow :func:`rundash.figures.split_by_direction` (short segments drawn with
+    their neighbour); the figures join the pieces of one direction into one trace.
+    """
+    src = _cache(db, cache)
+    ctx = ctx or src.context(run_id)
+    proc = ctx["processing"]
     segments = proc.segments if proc is not None else []
+    kind = next((c.kind for c in ctx["channels"] if c.probe_name == probe), None)
     out = []
     for order in sorted({float(o) for o in orders} | {1.0}):
-        t = next((t for t in tracks if t.order == order and t.compensated == use_comp), None)
+        tracks = src.tracks(ctx["key"], probe, order)
+        if not tracks:
+            continue
+        kind = tracks[0].kind
+        use_comp = bool(compensated) and any(t.compensated for t in tracks)
+        t = next((t for t in tracks if t.compensated == use_comp), None)
         if t is None:
             continue
         for direction, idx in figures.split_by_direction(t.time_s, segments):
-            if direction == "steady" and idx.size < 3:
-                continue
             out.append({"probe": probe, "order": order, "direction": direction,
                         "time_s": t.time_s[idx], "speed_rpm": t.speed_rpm[idx],
                         "amplitude": t.amplitude[idx], "phase_lag_deg": t.phase_lag_deg[idx],
-                        "direct": t.direct[idx]})
-    return out, kind
+                        "direct": t.direct[idx], "compensated": t.compensated})
+    return out, kind or "proximity"
 
 
 def _uirev(run_id, system, extra=""):
     return f"run-{run_id}-{system}{extra}"
 
 
-def vector_figures(db, run_id: int, probe: str, orders, compensation: str, system: str):
-    """Bode, polar and direct-versus-1X figures for one probe."""
-    ctx = load_context(db, run_id)
-    compensated = compensation == "compensated"
-    traces, kind = vector_traces(db, run_id, probe, orders, compensated)
-    has_comp = kind == "proximity" and compensated
-    crit = _criticals(ctx["findings"], probe)
-    op = operating_of(ctx["machine"])
+def _vector_setup(db, run_id, probe, orders, compensation, system, cache):
+    src = _cache(db, cache)
+    ctx = src.context(run_id)
+    traces, kind = vector_traces(db, run_id, probe, orders, compensation == "compensated",
+                                 cache=src, ctx=ctx)
+    has_comp = any(t.get("compensated") for t in traces)
     spec = ctx["machine"].spec
-    rpm_max = max([float(np.max(t["speed_rpm"])) for t in traces] or [spec.max_continuous_speed_rpm])
+    rpm_max = max([float(np.max(t["speed_rpm"])) for t in traces] or
+                  [spec.max_continuous_speed_rpm])
     try:
-        limits = figures.guidance_lines(spec.profile, kind=kind,
-                                        max_continuous_speed_rpm=spec.max_continuous_speed_rpm,
-                                        speed_range_rpm=(0.0, rpm_max))
+        limits = src.guidance_lines(ctx["key"], spec.profile, kind=kind,
+                                    max_continuous_speed_rpm=spec.max_continuous_speed_rpm,
+                                    speed_range_rpm=(0.0, round(rpm_max, -1)))
     except RundashError:
         limits = []
-    uirev = _uirev(run_id, system)
     comp_word = "slow-roll compensated" if has_comp else "uncompensated"
-    bode = figures.bode(traces, kind=kind, system=system, criticals=crit, operating=op,
-                        limit_lines=limits, compensated=has_comp, uirevision=uirev,
-                        title=f"Bode plot, {probe} ({comp_word})")
-    one_x = [t for t in traces if t["order"] == 1.0]
-    polar = figures.polar(one_x, kind=kind, system=system, rotation=spec.rotation,
+    return ctx, traces, kind, comp_word, has_comp, limits
+
+
+def bode_figure(db, run_id: int, probe: str, orders, compensation: str, system: str,
+                phase: str = "unwrapped", *, cache=None):
+    """The Bode plot of one probe (orders chosen, 1X always), phase unwrapped or wrapped."""
+    ctx, traces, kind, comp_word, has_comp, limits = _vector_setup(
+        db, run_id, probe, orders, compensation, system, cache)
+    return figures.bode(traces, kind=kind, system=system, criticals=_criticals(
+        ctx["findings"], probe), operating=operating_of(ctx["machine"]), limit_lines=limits,
+        compensated=has_comp, phase=phase if phase in PHASE_DISPLAYS else "unwrapped",
+        uirevision=_uirev(run_id, system), title=f"Bode plot, {probe} ({comp_word})")
+
+
+def polar_direct_figures(db, run_id: int, probe: str, compensation: str, system: str, *,
+                         cache=None):
+    """The polar plot (1X) and the direct-versus-1X plot of one probe."""
+    ctx, traces, kind, comp_word, _, limits = _vector_setup(
+        db, run_id, probe, [1.0], compensation, system, cache)
+    spec = ctx["machine"].spec
+    crit = _criticals(ctx["findings"], probe)
+    uirev = _uirev(run_id, system)
+    polar = figures.polar(traces, kind=kind, system=system, rotation=spec.rotation,
                           criticals=crit, uirevision=uirev,
                           title=f"Polar plot, {probe} 1X ({comp_word})")
     direct = figures.direct_vs_filtered(
-        one_x, kind=kind, system=system, limit_lines=limits, operating=op, uirevision=uirev,
+        traces, kind=kind, system=system, limit_lines=limits,
+        operating=operating_of(ctx["machine"]), uirevision=uirev,
         title=f"Direct (unfiltered) level beside 1X, {probe}")
+    return polar, direct
+
+
+def vector_figures(db, run_id: int, probe: str, orders, compensation: str, system: str,
+                   phase: str = "unwrapped", *, cache=None):
+    """Bode, polar and direct-versus-1X figures for one probe."""
+    src = _cache(db, cache)
+    if cache is None:  # one call reads each track once
+        from rundash.dashboard.cache import ResultCache
+
+        src = ResultCache(db, maxsize=16)
+    bode = bode_figure(db, run_id, probe, orders, compensation, system, phase, cache=src)
+    polar, direct = polar_direct_figures(db, run_id, probe, compensation, system, cache=src)
     return bode, polar, direct
 
 
-def speed_figure(db, run_id: int, probe: str | None = None):
+def speed_figure(db, run_id: int, probe: str | None = None, *, cache=None):
     """Speed versus time with the critical bands of ``probe`` (all probes when None)."""
-    from rundash.storage import queries as q
-
-    ctx = load_context(db, run_id)
-    with db.read() as conn:
-        prof = q.load_speed_profile(conn, run_id)
+    src = _cache(db, cache)
+    ctx = src.context(run_id)
+    prof = src.speed_profile(ctx["key"])
     t, n = prof if prof is not None else (np.zeros(0), np.zeros(0))
     crit = _criticals(ctx["findings"], probe)
     return figures.speed_time(t, n, criticals=crit, operating=operating_of(ctx["machine"]),
                               uirevision=f"run-{run_id}")
 
 
-def cascade_figure(db, run_id: int, probe: str, system: str):
-    from rundash.storage import queries as q
-
-    with db.read() as conn:
-        cas = [c for c in q.load_cascades(conn, run_id) if c.probe_name == probe]
-        proc = q.load_processing(conn, run_id)
-        kind = next((c.kind for c in q.list_channels(conn, run_id) if c.probe_name == probe),
-                    "proximity")
-    if not cas:
+def cascade_figure(db, run_id: int, probe: str, system: str, *, cache=None):
+    src = _cache(db, cache)
+    ctx = src.context(run_id)
+    c = src.cascade(ctx["key"], probe)
+    if c is None:
         return _empty(f"No cascade stored for {probe}")
+    proc = ctx["processing"]
+    kind = next((ch.kind for ch in ctx["channels"] if ch.probe_name == probe), "proximity")
     orders = tuple((proc.params or {}).get("orders") or (1, 2, 3, 4)) if proc else (1, 2, 3, 4)
-    c = cas[0]
     return figures.cascade(c.speed_rpm, c.freq_hz, c.amplitude, kind=kind, system=system,
                            orders=orders, probe=probe, uirevision=_uirev(run_id, system, probe),
                            title=f"Cascade of spectra versus speed, {probe}")
@@ -175,12 +198,10 @@ def parse_frequencies(text: str | None) -> tuple[list[float], str]:
     return out, note
 
 
-def campbell_figure(db, run_id: int, natural_text: str | None):
-    from rundash.storage import queries as q
-
-    ctx = load_context(db, run_id)
-    with db.read() as conn:
-        prof = q.load_speed_profile(conn, run_id)
+def campbell_figure(db, run_id: int, natural_text: str | None, *, cache=None):
+    src = _cache(db, cache)
+    ctx = src.context(run_id)
+    prof = src.speed_profile(ctx["key"])
     top = float(np.max(prof[1])) if prof is not None and prof[1].size else \
         ctx["machine"].spec.max_continuous_speed_rpm
     proc = ctx["processing"]
@@ -207,7 +228,7 @@ def orbit_pairs(probes) -> list[tuple[str, str]]:
 
 
 def orbit_figure(db, run_id: int, pair: str | None, speed_rpm, direction: str | None,
-                 system: str):
+                 system: str, *, cache=None):
     """Orbit of an X/Y pair at the revolution nearest the chosen speed (and direction).
 
     The filtered orbit uses the uncompensated 1X vectors of that revolution, the unfiltered
@@ -216,7 +237,8 @@ def orbit_figure(db, run_id: int, pair: str | None, speed_rpm, direction: str | 
     """
     from rundash.storage import queries as q
 
-    ctx = load_context(db, run_id)
+    src = _cache(db, cache)
+    ctx = src.context(run_id)
     pairs = orbit_pairs(ctx["probes"])
     if not pairs:
         return _empty("No X/Y probe pair in this machine's description"), \
@@ -224,29 +246,30 @@ def orbit_figure(db, run_id: int, pair: str | None, speed_rpm, direction: str | 
     xname, yname = next((p for p in pairs if "|".join(p) == pair), pairs[0])
     probes = {p.name: p for p in ctx["probes"]}
     chans = {c.probe_name: c for c in ctx["channels"] if c.role == "probe"}
+    key = ctx["key"]
+    opr = src.tach(key) if ctx["processing"] is not None else None
+    tx = [t for t in src.tracks(key, xname, 1.0) if not t.compensated]
+    ty = [t for t in src.tracks(key, yname, 1.0) if not t.compensated]
+    if opr is None or not tx or not ty or opr.size < 2:
+        return _empty("Run not processed: no orbit"), "Process the run first."
+    tx, ty = tx[0], ty[0]
+    proc = ctx["processing"]
+    segs = proc.segments if proc else []
+    candidates = np.arange(tx.time_s.size)
+    if direction and direction != "any":
+        pieces = [idx for d, idx in figures.split_by_direction(tx.time_s, segs)
+                  if d == direction]
+        if pieces:
+            candidates = np.concatenate(pieces)
+    target = float(speed_rpm) if speed_rpm not in (None, "") else \
+        float(ctx["machine"].spec.max_continuous_speed_rpm)
+    i = int(candidates[np.argmin(np.abs(tx.speed_rpm[candidates] - target))])
+    t_mid = float(tx.time_s[i])
+    k = int(np.clip(np.searchsorted(opr, t_mid) - 1, 0, opr.size - 2))
+    cx, cy = chans[xname], chans[yname]
+    fs = cx.sample_rate_hz
+    i0, i1 = int(round(opr[k] * fs)), int(round(opr[k + 1] * fs))
     with db.read() as conn:
-        opr = q.load_tach(conn, run_id, "once_per_rev")
-        tx = q.load_tracks(conn, run_id, order=1.0, compensated=False, probe_name=xname)
-        ty = q.load_tracks(conn, run_id, order=1.0, compensated=False, probe_name=yname)
-        if opr is None or not tx or not ty:
-            return _empty("Run not processed: no orbit"), "Process the run first."
-        tx, ty = tx[0], ty[0]
-        proc = ctx["processing"]
-        segs = proc.segments if proc else []
-        candidates = np.arange(tx.time_s.size)
-        if direction and direction != "any":
-            pieces = [idx for d, idx in figures.split_by_direction(tx.time_s, segs)
-                      if d == direction]
-            if pieces:
-                candidates = np.concatenate(pieces)
-        target = float(speed_rpm) if speed_rpm not in (None, "") else \
-            float(ctx["machine"].spec.max_continuous_speed_rpm)
-        i = int(candidates[np.argmin(np.abs(tx.speed_rpm[candidates] - target))])
-        t_mid = float(tx.time_s[i])
-        k = int(np.clip(np.searchsorted(opr, t_mid) - 1, 0, opr.size - 2))
-        cx, cy = chans[xname], chans[yname]
-        fs = cx.sample_rate_hz
-        i0, i1 = int(round(opr[k] * fs)), int(round(opr[k + 1] * fs))
         raw_x = q.read_channel(conn, cx.id, i0, i1 + 1)
         raw_y = q.read_channel(conn, cy.id, i0, i1 + 1)
     px, py = probes[xname], probes[yname]
@@ -284,20 +307,46 @@ def _num(x, digits=0, unit=""):
     return str(x)
 
 
+_UNIT_KINDS = {"um": "proximity", "µm": "proximity", "μm": "proximity", "mm/s": "velocity",
+               "m/s2": "acceleration", "m/s²": "acceleration"}
+
+
 def _amp(value, units: str | None, system: str) -> str:
-    """An amplitude stated by the findings, in the chosen unit system."""
+    """An amplitude stated by the findings (storage units, e.g. 'um pp' or 'µm pp'), in
+    the chosen unit system, with its unit and pp/pk/rms."""
     from rundash.units import display_unit, to_display
 
     if value is None:
         return "–"
-    kinds = {"um": "proximity", "mm/s": "velocity", "m/s2": "acceleration"}
     base = (units or "").split(" ")[0]
     tail = " ".join((units or "").split(" ")[1:])
-    kind = kinds.get(base)
+    kind = _UNIT_KINDS.get(base)
     if kind is None:
         return _num(value, 2, units or "")
     v = float(to_display(float(value), kind, system))
     return f"{v:.3g} {display_unit(kind, system).replace('um', 'µm')} {tail}".strip()
+
+
+_SIDE_REF = {"below": "N_min", "above": "N_mc"}
+
+
+def _side_text(c) -> str:
+    side = c.get("side") or c.get("margin_side")
+    if side in _SIDE_REF:
+        ref = c.get("reference_speed_rpm")
+        return f"{side} the range (from {_SIDE_REF[side]}" + \
+            (f" {_num(ref)} rpm)" if ref is not None else ")")
+    if side == "inside":
+        return "inside the operating range"
+    return "–"
+
+
+def _pct_of(c, key) -> str:
+    v = c.get(key)
+    side = c.get("side") or c.get("margin_side")
+    if v is None:
+        return "–"
+    return f"{_num(v, 1, '%')} of {_SIDE_REF[side]}" if side in _SIDE_REF else _num(v, 1, "%")
 
 
 def critical_rows(findings, system: str = "metric") -> list[dict[str, str]]:
@@ -305,41 +354,53 @@ def critical_rows(findings, system: str = "metric") -> list[dict[str, str]]:
     rows = []
     for i, c in enumerate(_criticals(findings)):
         af = c.get("af_governing")
+        req = _pct_of(c, "required_margin_pct")
+        if req == "–" and c.get("critically_damped"):
+            req = "none (critically damped)"
         rows.append({
             "i": i, "probe": c.get("probe") or "–", "direction": c.get("direction") or "–",
             "speed": _num(c.get("speed_rpm")), "basis": c.get("speed_basis") or "–",
             "peak": _amp(c.get("peak_amplitude"), c.get("amplitude_units"), system),
             "af": f"{af:.1f} ({c.get('af_method') or '?'})" if af is not None else "–",
-            "margin": _num(c.get("separation_margin_pct"), 1, "%"),
-            "required": _num(c.get("required_margin_pct"), 1, "%"),
-            "side": c.get("margin_side") or "–",
+            "side": _side_text(c),
+            "margin": _pct_of(c, "separation_margin_pct"), "required": req,
             "verdict": c.get("margin_verdict") or "–",
-            "confidence": c.get("confidence") or "–"})
+            "confidence": c.get("confidence") or "–",
+            "source": c.get("margin_reason") or ""})
     return rows
 
 
 CRITICAL_COLUMNS = [("probe", "Probe"), ("direction", "Direction"), ("speed", "Speed (rpm)"),
                     ("basis", "Speed from"), ("peak", "Peak 1X"), ("af", "AF (method)"),
-                    ("margin", "Margin found"), ("required", "Required"), ("side", "Side"),
-                    ("verdict", "Margin verdict"), ("confidence", "Confidence")]
-LIMIT_COLUMNS = [("probe", "Probe"), ("measure", "Measure"), ("where", "Where"),
-                 ("speed", "Speed (rpm)"), ("value", "Level"), ("limit", "Limit"),
-                 ("zone", "Zone"), ("verdict", "Verdict"), ("basis", "Basis")]
+                    ("side", "Side of operating range"), ("margin", "Margin found"),
+                    ("required", "Margin required"), ("verdict", "Margin verdict"),
+                    ("confidence", "Confidence")]
+LIMIT_COLUMNS = [("probe", "Probe"), ("direction", "Direction"), ("measure", "Measure"),
+                 ("where", "Where"), ("speed", "Speed (rpm)"), ("value", "Level"),
+                 ("limit", "Limit"), ("zone", "Zone"), ("verdict", "Verdict"),
+                 ("basis", "Basis")]
+_MEASURES = {"direct": "direct (unfiltered)", "1x": "1X", "1X": "1X"}
+_JUDGED = {"exceeds": 0, "fail": 0, "within": 1, "pass": 1}
 
 
 def limit_rows(findings, system: str = "metric") -> list[dict[str, str]]:
+    """Rows of the limit checks, judged rows first (exceeds before within), then the
+    reference-only rows, each group in the findings' order."""
     rows = []
     for lim in (findings or {}).get("limits") or []:
         limit = lim.get("limit")
         limit_txt = _amp(limit, lim.get("units"), system) if isinstance(limit, (int, float)) \
             else (limit or "–")
-        rows.append({"probe": lim.get("probe") or "–", "measure": lim.get("measure") or "–",
+        verdict = lim.get("verdict") or "–"
+        rows.append({"probe": lim.get("probe") or "–", "direction": lim.get("direction") or "–",
+                     "measure": _MEASURES.get(lim.get("measure"), lim.get("measure") or "–"),
                      "where": lim.get("where") or "–", "speed": _num(lim.get("speed_rpm")),
                      "value": _amp(lim.get("value"), lim.get("units"), system),
                      "limit": limit_txt, "zone": lim.get("zone") or "–",
-                     "verdict": lim.get("verdict") or "–", "basis": lim.get("basis") or "–",
-                     "source": lim.get("source") or ""})
-    return rows
+                     "verdict": verdict, "basis": lim.get("basis") or "–",
+                     "source": lim.get("source") or "",
+                     "judged": verdict in _JUDGED, "exceeds": _JUDGED.get(verdict) == 0})
+    return sorted(rows, key=lambda r: _JUDGED.get(r["verdict"], 2))
 
 
 CRITICAL_ROW = "review-critical-row"  # pattern-matching id type of the criticals rows
@@ -347,19 +408,67 @@ CRITICAL_ROW = "review-critical-row"  # pattern-matching id type of the critical
 
 def _table(columns, rows, table_id=None, *, clickable: bool = False):
     """A plain table; verdict cells carry their word and a class; rows of the criticals
-    table are clickable (pattern-matching ids ``{'type': CRITICAL_ROW, 'index': i}``)."""
+    table are clickable (pattern-matching ids ``{'type': CRITICAL_ROW, 'index': i}``);
+    rows whose check exceeds its limit or whose margin fails carry ``row-fail``."""
     from dash import html
 
     head = html.Thead(html.Tr([html.Th(n) for _, n in columns]))
     body = []
     for i, r in enumerate(rows):
-        cells = [html.Td(r.get(k, "–"), title=r.get("source") if k == "basis" else None,
-                         className=f"v-{r.get(k)}" if k == "verdict" else None)
+        cells = [html.Td(r.get(k, "–"),
+                         title=r.get("source") or None if k in ("basis", "verdict") else None,
+                         className=f"v-{str(r.get(k)).replace(' ', '-')}" if k == "verdict"
+                         else None)
                  for k, _ in columns]
-        kw = {"id": {"type": CRITICAL_ROW, "index": i}, "n_clicks": 0,
-              "className": "clickable"} if clickable else {}
+        failing = r.get("exceeds") or r.get("verdict") == "fail"
+        kw: dict[str, Any] = {"id": {"type": CRITICAL_ROW, "index": i}, "n_clicks": 0} \
+            if clickable else {}
+        cls = " ".join(c for c in ("clickable" if clickable else "",
+                                   "row-fail" if failing else "") if c)
+        if cls:
+            kw["className"] = cls
         body.append(html.Tr(cells, **kw))
-    return html.Table([head, html.Tbody(body)], id=table_id, className="plain")
+    kw = {"id": table_id} if table_id is not None else {}
+    return html.Table([head, html.Tbody(body)], className="plain", **kw)
+
+
+def verdict_reasons(findings, system: str = "metric") -> list[str]:
+    """Plain sentences saying what makes the run verdict: failed margins, exceeded limits,
+    and how much was judged at all."""
+    f = findings or {}
+    crit = _criticals(f)
+    out = []
+    for c in crit:
+        if c.get("margin_verdict") == "fail":
+            out.append(f"{c.get('probe')} {c.get('direction', '')}: critical at "
+                       f"{_num(c.get('speed_rpm'))} rpm, {_side_text(c)}: margin "
+                       f"{_pct_of(c, 'separation_margin_pct')} found, "
+                       f"{_pct_of(c, 'required_margin_pct')} required.")
+    for r in limit_rows(f, system):
+        if r["exceeds"]:
+            out.append(f"{r['probe']} {r['direction']}: {r['measure']} at {r['where']} "
+                       f"({r['speed']} rpm) is {r['value']}, above the limit {r['limit']} "
+                       f"({r['basis']}).")
+    return out
+
+
+def _summary_line(findings) -> str:
+    f = findings or {}
+    crit = _criticals(f)
+    mv = [c.get("margin_verdict") for c in crit]
+    lims = limit_rows(f)
+    judged = [r for r in lims if r["judged"]]
+    parts = [f"{len(crit)} critical speed{'s' if len(crit) != 1 else ''}: "
+             f"{mv.count('pass')} margin pass, {mv.count('fail')} fail, "
+             f"{len(mv) - mv.count('pass') - mv.count('fail')} not judged",
+             f"{len(judged)} limit checks judged: {sum(r['exceeds'] for r in judged)} exceed, "
+             f"{sum(not r['exceeds'] for r in judged)} within",
+             f"{len(lims) - len(judged)} reference only"]
+    rising = f.get("rising_at_top") or []
+    if rising:
+        parts.append(f"{len(rising)} response{'s' if len(rising) != 1 else ''} still rising "
+                     "at the top speed (not judged)")
+    return "; ".join(parts) + "."
 
 
 def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
@@ -370,7 +479,6 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
 
     f = ctx["findings"]
     proc = ctx["processing"]
-    run = ctx["run"]
     children = []
     if proc is None:
         children += [html.H2(["Verdict ", verdict_badge(None, False, big=True)]),
@@ -386,6 +494,11 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
     else:
         prof = f.get("profile") or {}
         children.append(html.H2(["Verdict ", verdict_badge(f.get("run_verdict"), True, big=True)]))
+        children.append(html.P(_summary_line(f), id=ids.VERDICT_SUMMARY))
+        reasons = verdict_reasons(f, system)
+        if reasons:
+            children.append(html.Div(className="reasons", id=ids.VERDICT_REASONS, children=[
+                html.Strong("What fails:"), html.Ul([html.Li(r) for r in reasons])]))
         children.append(html.P([f"Guidance profile: {prof.get('title') or prof.get('name') or '–'}",
                                 html.Span(" · needs your confirmation: the profile's values "
                                           "are of low confidence", className="warn")
@@ -394,12 +507,17 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
         children.append(html.H3(f"Critical speeds found ({len(crit)})"))
         if crit:
             children.append(_table(CRITICAL_COLUMNS, crit, ids.CRITICALS_TABLE, clickable=True))
-            children.append(html.P("Click a row (or a critical marker on the Bode plot) for "
-                                   "the evidence behind it.", className="note"))
+            children.append(html.P(
+                "Margins are in % of the minimum operating speed N_min for a critical below "
+                "the operating range and of the maximum continuous speed N_mc above it, as "
+                "the profile's rule states. Click a row (or a critical marker on the Bode "
+                "plot) for the evidence behind it.", className="note"))
         else:
             children.append(html.P("No critical speed was found in the speed range of this "
                                    "run.", className="muted"))
         children.append(html.Div(id=ids.EVIDENCE))
+        children += _rising_section(f)
+        children += _directions_section(f)
         bearings = f.get("bearings") or []
         if bearings:
             children.append(html.H3("Agreement between probes of a bearing"))
@@ -407,17 +525,88 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
                 f"{b.get('bearing', '?')} {b.get('direction', '')}: "
                 f"{_num(b.get('speed_rpm'))} rpm, {b.get('agreement', '–')}"
                 + (f" ({b['note']})" if b.get("note") else "")) for b in bearings]))
-        lims = limit_rows(f, system)
-        children.append(html.H3(f"Vibration limit checks ({len(lims)})"))
-        children.append(_table(LIMIT_COLUMNS, lims, ids.LIMITS_TABLE) if lims else
-                        html.P("No limit applies to this run's probes.", className="muted"))
-    warn = list((f or {}).get("warnings") or []) + list(proc.warnings if proc else [])
+        children += _limits_section(f, system)
+    warn = list(dict.fromkeys(str(w) for w in list((f or {}).get("warnings") or [])
+                              + list(proc.warnings if proc else [])))
     if warn:
-        children.append(html.H3("Warnings"))
-        children += [html.Div(str(w), className="warn") for w in warn]
+        children.append(html.H3(f"Warnings ({len(warn)})"))
+        children.append(html.Div(id=ids.WARNINGS, children=[
+            html.Div(w, className="warn") for w in warn]))
     children.append(html.P((f or {}).get("caution") or CAUTION, className="note",
                            style={"fontStyle": "italic", "marginTop": "10px"}))
     return html.Div(children)
+
+
+def _rising_section(f) -> list:
+    from dash import html
+
+    rising = f.get("rising_at_top") or []
+    if not rising:
+        return []
+    items = []
+    for r in rising:
+        items.append(html.Li([
+            html.Strong(f"{r.get('probe', '?')} {r.get('direction', '')}: "),
+            f"1X rises {_num(r.get('rise_pct'), 0, '%')} from {_num(r.get('from_rpm'))} to "
+            f"{_num(r.get('to_rpm'))} rpm (lag change {_num(r.get('lag_change_deg'), 0, '°')}); "
+            "a critical may lie above the top speed of this run: not located, not judged.",
+            html.Div(r.get("note"), className="note") if r.get("note") else ""]))
+    return [html.H3(f"Response still rising at the top speed ({len(rising)})"),
+            html.Div(className="attention", id=ids.RISING_AT_TOP, children=html.Ul(items))]
+
+
+def _directions_section(f) -> list:
+    from dash import html
+
+    dirs = f.get("directions") or []
+    if not dirs:
+        return []
+    cols = [("probe", "Probe"), ("up", "Run-up critical (rpm)"),
+            ("down", "Coast-down critical (rpm)"), ("diff", "Speed difference"),
+            ("af", "AF difference"), ("agreement", "Agreement"), ("note", "Note")]
+    rows = [{"probe": d.get("probe") or "–", "up": _num(d.get("run_up_speed_rpm")),
+             "down": _num(d.get("coast_down_speed_rpm")),
+             "diff": _num(d.get("speed_difference_pct"), 1, "%"),
+             "af": _num(d.get("af_difference"), 2), "agreement": d.get("agreement") or "–",
+             "note": d.get("note") or ""} for d in dirs]
+    return [html.H3(f"Run-up versus coast-down ({len(rows)})"),
+            _table(cols, rows, ids.DIRECTIONS_TABLE)]
+
+
+def _limits_section(f, system) -> list:
+    from dash import html
+
+    lims = limit_rows(f, system)
+    judged = [r for r in lims if r["judged"]]
+    ref = [r for r in lims if not r["judged"]]
+    n_exc = sum(r["exceeds"] for r in judged)
+    out = [html.H3(f"Vibration limit checks: {len(judged)} judged"
+                   + (f", {n_exc} exceed" if n_exc else "")
+                   + (f"; {len(ref)} for reference" if ref else ""))]
+    if not lims:
+        return out + [html.P("No limit applies to this run's probes.", className="muted")]
+    if judged:
+        out.append(_table(LIMIT_COLUMNS, judged, ids.LIMITS_TABLE))
+    else:
+        out.append(html.P("No limit check is judged for this run (all are for reference).",
+                          className="muted", id=ids.LIMITS_TABLE))
+    if ref:  # the rows are drawn when the reader opens the fold (reference_table)
+        out.append(html.Details(id=ids.LIMITS_REFERENCE, className="reference", open=False,
+                                children=[
+            html.Summary(f"{len(ref)} reference-only rows: zones and limits shown for "
+                         "orientation (meant for steady operation or for the top speed), "
+                         "not verdicts"),
+            html.Div(id=ids.LIMITS_REFERENCE_BODY)]))
+    return out
+
+
+def reference_table(findings, system: str = "metric"):
+    """The reference-only limit rows, as a table (drawn when their fold is opened)."""
+    from dash import html
+
+    ref = [r for r in limit_rows(findings, system) if not r["judged"]]
+    return _table(LIMIT_COLUMNS, ref) if ref else html.P("No reference-only rows.",
+                                                         className="muted")
 
 
 EVIDENCE_FIELDS = [
@@ -433,7 +622,8 @@ EVIDENCE_FIELDS = [
     ("classification", "classification", "", None), ("mode_hint", "mode hint", "", None),
     ("sweep_rate_rpm_s", "sweep rate", "rpm/s", 0), ("sweep_note", "sweep", "", None),
     ("separation_margin_pct", "margin found", "%", 1),
-    ("required_margin_pct", "margin required", "%", 1), ("margin_side", "side", "", None),
+    ("required_margin_pct", "margin required", "%", 1), ("side", "side of operating range", "", None),
+    ("reference_speed_rpm", "margin measured from", "rpm", 0),
     ("margin_verdict", "margin verdict", "", None), ("margin_reason", "why", "", None),
     ("confidence", "confidence", "", None), ("profile", "profile", "", None)]
 
@@ -488,11 +678,11 @@ def _graph(id_, height):
                      config={"displaylogo": False, "toImageButtonOptions": {"format": "png"}})
 
 
-def layout(db, run_id: int):
+def layout(db, run_id: int, *, cache=None):
     from dash import dcc, html
 
     try:
-        ctx = load_context(db, run_id)
+        ctx = load_context(db, run_id, cache=cache)
     except NotFoundError:
         return html.Div(className="card", children=[
             html.H2("Run not found"), html.P([f"There is no run {run_id}. ",
@@ -540,6 +730,10 @@ def layout(db, run_id: int):
                   _radio(ids.UNITS, [{"label": "metric (µm pp, mm/s)", "value": "metric"},
                                      {"label": "imperial (mil pp, in/s)", "value": "imperial"}],
                          "metric")]),
+        html.Div([html.Label("Bode phase", className="head"),
+                  _radio(ids.PHASE, [
+                      {"label": "unwrapped (continuous along speed)", "value": "unwrapped"},
+                      {"label": "wrapped 0–360°", "value": "wrapped"}], "unwrapped")]),
     ])
     plots = [
         html.Div(className="grid2", children=[
@@ -650,37 +844,52 @@ function(hover, fig, target) {
 def register_callbacks(app, db) -> None:
     from dash import ALL, Input, Output, State, ctx, no_update
 
-    @app.callback(Output(ids.BODE, "figure"), Output(ids.POLAR, "figure"),
-                  Output(ids.DIRECT, "figure"),
+    from rundash.dashboard.cache import cache_of
+
+    cache = cache_of(app, db)  # one per app: keyed by run and processing time
+
+    def _units(units):
+        return units if units in UNIT_SYSTEMS else "metric"
+
+    @app.callback(Output(ids.BODE, "figure"),
                   Input(ids.PROBE, "value"), Input(ids.ORDERS, "value"),
                   Input(ids.COMPENSATION, "value"), Input(ids.UNITS, "value"),
-                  State(ids.RUN_ID, "data"))
-    def _vectors(probe, orders, compensation, units, run_id):
+                  Input(ids.PHASE, "value"), State(ids.RUN_ID, "data"))
+    def _bode(probe, orders, compensation, units, phase, run_id):
         if not probe or run_id is None:
-            return no_update, no_update, no_update
-        return vector_figures(db, run_id, probe, orders or [1.0], compensation,
-                              units if units in UNIT_SYSTEMS else "metric")
+            return no_update
+        return bode_figure(db, run_id, probe, orders or [1.0], compensation, _units(units),
+                           phase or "unwrapped", cache=cache)
+
+    @app.callback(Output(ids.POLAR, "figure"), Output(ids.DIRECT, "figure"),
+                  Input(ids.PROBE, "value"), Input(ids.COMPENSATION, "value"),
+                  Input(ids.UNITS, "value"), State(ids.RUN_ID, "data"))
+    def _polar_direct(probe, compensation, units, run_id):
+        if not probe or run_id is None:
+            return no_update, no_update
+        return polar_direct_figures(db, run_id, probe, compensation, _units(units),
+                                    cache=cache)
 
     @app.callback(Output(ids.CASCADE, "figure"), Input(ids.PROBE, "value"),
                   Input(ids.UNITS, "value"), State(ids.RUN_ID, "data"))
     def _cascade(probe, units, run_id):
         if not probe or run_id is None:
             return no_update
-        return cascade_figure(db, run_id, probe, units if units in UNIT_SYSTEMS else "metric")
+        return cascade_figure(db, run_id, probe, _units(units), cache=cache)
 
     @app.callback(Output(ids.SPEED, "figure"), Input(ids.PROBE, "value"),
                   State(ids.RUN_ID, "data"))
     def _speed(probe, run_id):
         if run_id is None:
             return no_update
-        return speed_figure(db, run_id, probe)
+        return speed_figure(db, run_id, probe, cache=cache)
 
     @app.callback(Output(ids.CAMPBELL, "figure"), Output(ids.NATURAL_FREQS_NOTE, "children"),
                   Input(ids.NATURAL_FREQS, "value"), State(ids.RUN_ID, "data"))
     def _campbell(text, run_id):
         if run_id is None:
             return no_update, no_update
-        return campbell_figure(db, run_id, text)
+        return campbell_figure(db, run_id, text, cache=cache)
 
     @app.callback(Output(ids.ORBIT, "figure"), Output(ids.ORBIT_NOTE, "children"),
                   Input(ids.ORBIT_PAIR, "value"), Input(ids.ORBIT_SPEED, "value"),
@@ -689,14 +898,21 @@ def register_callbacks(app, db) -> None:
     def _orbit(pair, speed, direction, units, run_id):
         if run_id is None:
             return no_update, no_update
-        return orbit_figure(db, run_id, pair, speed, direction,
-                            units if units in UNIT_SYSTEMS else "metric")
+        return orbit_figure(db, run_id, pair, speed, direction, _units(units), cache=cache)
 
     @app.callback(Output(ids.VERDICT_PANEL, "children"), Input(ids.UNITS, "value"),
                   State(ids.RUN_ID, "data"), prevent_initial_call=True)
     def _verdict(units, run_id):
-        return verdict_panel(load_context(db, run_id), units if units in UNIT_SYSTEMS
-                             else "metric")
+        return verdict_panel(load_context(db, run_id, cache=cache), _units(units))
+
+    @app.callback(Output(ids.LIMITS_REFERENCE_BODY, "children"),
+                  Input(ids.LIMITS_REFERENCE, "open"), State(ids.UNITS, "value"),
+                  State(ids.RUN_ID, "data"), prevent_initial_call=True)
+    def _reference_rows(is_open, units, run_id):
+        if not is_open or run_id is None:
+            return no_update
+        return reference_table(load_context(db, run_id, cache=cache)["findings"],
+                               _units(units))
 
     @app.callback(Output(ids.EVIDENCE, "children"),
                   Input({"type": CRITICAL_ROW, "index": ALL}, "n_clicks"),
@@ -711,11 +927,12 @@ def register_callbacks(app, db) -> None:
                 return no_update  # rows drawn anew, nothing clicked
             index = int(trig["index"])
         elif trig == ids.BODE and click:
-            index = critical_index_from_click(load_context(db, run_id)["findings"], click)
+            index = critical_index_from_click(
+                load_context(db, run_id, cache=cache)["findings"], click)
             if index is None:
                 return no_update
-        return evidence_panel(load_context(db, run_id)["findings"], index,
-                              units if units in UNIT_SYSTEMS else "metric")
+        return evidence_panel(load_context(db, run_id, cache=cache)["findings"], index,
+                              _units(units))
 
     app.clientside_callback(
         _CURSOR_JS.replace("function(hover, fig, target)", "function(hover, fig)")
