@@ -226,11 +226,15 @@ def cmd_findings(*, db: str | None, run: int, as_json: bool) -> int:
     return 0
 
 
-def cmd_serve(*, db: str | None, host: str, port: int, debug: bool) -> int:
+def cmd_serve(*, db: str | None, host: str, port: int, debug: bool,
+              password_file: str | None) -> int:
     from rundash.dashboard.app import serve
+    from rundash.dashboard.security import check_serve_options, resolve_password
 
+    password = resolve_password(password_file)
+    check_serve_options(host, password=password, debug=debug)  # before opening anything
     database = _open(db)
-    return serve(database, host=host, port=port, debug=debug)
+    return serve(database, host=host, port=port, debug=debug, password=password)
 
 
 def cmd_demo(*, db: str | None, host: str, port: int, serve: bool, quiet: bool) -> int:
@@ -242,7 +246,8 @@ def cmd_demo(*, db: str | None, host: str, port: int, serve: bool, quiet: bool) 
     if not serve:
         return 0
     from rundash.dashboard.app import serve as serve_app
-    return serve_app(database, host=host, port=port, debug=False)
+    from rundash.dashboard.security import resolve_password
+    return serve_app(database, host=host, port=port, debug=False, password=resolve_password())
 
 
 def cmd_sync(*, source: str, to: str, machine: str | None, as_json: bool, quiet: bool) -> int:
@@ -499,9 +504,14 @@ def build_parser() -> argparse.ArgumentParser:
                    help="the findings as JSON (schema rundash.findings/1, see the README)")
 
     s = with_db(sub.add_parser("serve", help="serve the dashboard"))
-    s.add_argument("--host", default="127.0.0.1", help="address to bind (default 127.0.0.1)")
+    s.add_argument("--host", default="127.0.0.1",
+                   help="address to bind (default 127.0.0.1: this computer only); any other "
+                        "address needs a password from $RUNDASH_PASSWORD or --password-file")
     s.add_argument("--port", type=int, default=8050)
-    s.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+    s.add_argument("--password-file", metavar="FILE",
+                   help="file whose first line is the dashboard password (HTTP basic auth, "
+                        "user 'rundash'); default: $RUNDASH_PASSWORD")
+    s.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)  # loopback only
 
     s = sub.add_parser("demo", help="build the demo database from the bundled sample runs, "
                                     "process them and serve the dashboard")
