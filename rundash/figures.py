@@ -682,6 +682,20 @@ def _nice_step(span: float, n: int = 8) -> float:
     return 10 * mag
 
 
+def _spread_labels(marks, li, r, theta_deg, min_gap: float = 0.04):
+    """Speed labels that would sit on top of an earlier one (closer than ``min_gap`` of
+    the largest radius, e.g. piled at the centre at slow roll) are left out."""
+    r_max = float(np.nanmax(r)) if len(r) else 0.0
+    kept_m, kept_i, pts = [], [], []
+    for m, i in zip(marks, li):
+        z = r[i] * np.exp(1j * np.radians(theta_deg[i]))
+        if all(abs(z - p) >= min_gap * r_max for p in pts):
+            kept_m.append(m)
+            kept_i.append(i)
+            pts.append(z)
+    return kept_m, kept_i
+
+
 def polar(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
           system: UnitSystem = "metric", rotation: str = "ccw",
           criticals: Sequence[Mapping[str, Any]] = (), cursor_rpm: float | None = None,
@@ -721,6 +735,7 @@ def polar(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
         rpm = arr["rpm"]
         marks = np.arange(math.ceil(np.nanmin(rpm) / step) * step, np.nanmax(rpm) + 1e-9, step)
         li = [_nearest(rpm, m) for m in marks]
+        marks, li = _spread_labels(marks, li, arr["amplitude"], arr["phase"])
         data.append({
             "type": "scatterpolar", "r": arr["amplitude"][li].tolist(),
             "theta": arr["phase"][li].tolist(), "mode": "markers+text",
@@ -820,13 +835,15 @@ def speed_time(time_s, speed_rpm, *, criticals: Sequence[Mapping[str, Any]] = ()
                                  "x1": 1, "y0": b["lo"], "y1": b["hi"],
                                  "fillcolor": HALF_POWER_FILL, "line": {"width": 0},
                                  "layer": "below"})
-    if bands:
+    if bands:  # the note goes in the corner the speed curve does not end in
+        ends_low = bool(n.size) and float(n[-1]) < 0.5 * float(np.nanmax(n))
         lines = [f"{b['lo']:.0f}–{b['hi']:.0f} rpm (critical {_fmt(b['c'].get('speed_rpm'))} rpm):"
                  f" {b['seconds']:.1f} s" for b in bands]
         layout["annotations"].append({
             "text": "<b>time inside critical bands</b><br>" + "<br>".join(lines),
-            "xref": "paper", "yref": "paper", "x": 0.99, "y": 0.03, "xanchor": "right",
-            "yanchor": "bottom", "align": "left", "showarrow": False,
+            "xref": "paper", "yref": "paper", "x": 0.99, "y": 0.97 if ends_low else 0.03,
+            "xanchor": "right", "yanchor": "top" if ends_low else "bottom", "align": "left",
+            "showarrow": False,
             "bgcolor": "rgba(255,255,255,0.85)", "bordercolor": GRID, "font": {"size": 10}})
     data.append({"type": "scatter", "x": [None], "y": [None], "mode": "markers",
                  "name": "time in band", "meta": "bands", "visible": "legendonly",
@@ -895,8 +912,8 @@ def _add_limit_lines(data, layout, limit_lines, kind, system) -> None:
                              "mode": "lines+text", "name": ln.get("label", "limit"),
                              "meta": "limit",
                              "line": {"color": color, "dash": "longdash", "width": 2},
-                             "text": [ln.get("label", "limit"), ""],
-                             "textposition": "top right", "textfont": {"size": 10},
+                             "text": ["", ln.get("label", "limit")],
+                             "textposition": "top left", "textfont": {"size": 10},
                              "hovertext": ln.get("source", ""), "hoverinfo": "text"})
         elif ln.get("speed_rpm") is not None:
             y = np.asarray(to_display(np.asarray(ln["values"], float), kind, system))

@@ -56,8 +56,15 @@ def make_findings(run_id: int, machine: str) -> dict:
                                                    "both half-power points inside the data"],
                 "mode_hint": None, "sweep_rate_rpm_s": 140.0, "sweep_note": None,
                 "separation_margin_pct": sm if sm is not None else 100 * (4400 - speed) / 4400,
-                "required_margin_pct": req, "margin_side": "below", "margin_verdict": "pass",
+                "required_margin_pct": req, "side": "below", "reference_speed_rpm": 4400.0,
+                "margin_verdict": "pass",
                 "margin_reason": None, "profile": "api617"}
+
+    def lim(probe, where, speed, value, limit, zone, verdict, basis):
+        return {"probe": probe, "direction": "run-up", "measure": "direct", "where": where,
+                "speed_rpm": speed, "value": value, "units": "um pp", "limit": limit,
+                "zone": zone, "verdict": verdict, "basis": basis,
+                "source": "API 617 / ISO 7919-3 (from memory)"}
 
     return {
         "schema": "rundash.findings/1",
@@ -71,12 +78,23 @@ def make_findings(run_id: int, machine: str) -> dict:
                       crit("K410-NDE-X", 3480.0, af=None, sm=20.9, req=None)],
         "bearings": [{"bearing": "DE", "direction": "run-up", "speed_rpm": 3510.0,
                       "agreement": "agree", "note": None}],
-        "limits": [{"probe": "K410-DE-X", "measure": "direct", "where": "top speed",
-                    "speed_rpm": 5460.0, "value": 12.7, "units": "um pp", "limit": 25.4,
-                    "zone": "A", "verdict": "pass", "basis": "API 617 style",
-                    "source": "API 617 (from memory)"}],
-        "warnings": ["test warning: sweep near the limit"],
-        "run_verdict": "pass",
+        "limits": [
+            lim("K410-DE-X", "critical band", 3500.0, 95.0, 155.0, "B", "reference only",
+                "zone B for reference (test)"),
+            lim("K410-DE-X", "top speed", 5460.0, 12.7, 25.4, "A", "within", "API 617 style"),
+            lim("K410-DE-Y", "critical band", 3520.0, 90.0, 155.0, "B", "reference only",
+                "zone B for reference (test)"),
+            lim("K410-DE-Y", "top speed", 5460.0, 30.48, 25.4, None, "exceeds",
+                "API 617 style")],
+        "rising_at_top": [{"probe": "K410-NDE-Y", "direction": "run-up", "from_rpm": 5000.0,
+                           "to_rpm": 5460.0, "rise_pct": 40.0, "lag_change_deg": -8.0,
+                           "note": "test note: the 1X amplitude still rises at the top"}],
+        "directions": [{"probe": "K410-DE-X", "run_up_speed_rpm": 3500.0,
+                        "coast_down_speed_rpm": 3430.0, "speed_difference_pct": -2.0,
+                        "af_difference": 0.4, "agreement": "agree", "note": None}],
+        "warnings": ["test warning: sweep near the limit",
+                     "K410-NDE-Y run-up: test note: the 1X amplitude still rises at the top"],
+        "run_verdict": "fail",
         "caution": CAUTION,
     }
 

@@ -9,6 +9,7 @@ import shutil
 
 import pytest
 
+from rundash import CAUTION
 from rundash.dashboard import ids
 from rundash.dashboard.app import create_app
 from tests.dashboard.conftest import ARTIFACTS
@@ -36,6 +37,9 @@ def _severe(dash_duo):
 
 
 def test_review_workflow(dash_duo, demo_db):
+    from dash.testing.wait import until
+    from selenium.webdriver.common.action_chains import ActionChains
+
     app = create_app(demo_db.db)
     dash_duo.start_server(app)
     dash_duo.wait_for_text_to_equal(".brand", "rundash")
@@ -52,11 +56,37 @@ def test_review_workflow(dash_duo, demo_db):
         "const d = document.querySelector('#%s .js-plotly-plot').data;"
         "return Array.from(d.find(t => t.name === 'critical speeds').x);" % ids.BODE)
     assert x == [3500.0]
+    # the verdict says what fails; judged limit rows first, the failing one marked
+    dash_duo.wait_for_contains_text(f"#{ids.VERDICT_REASONS}", "K410-DE-Y", timeout=10)
+    first = dash_duo.find_element(f"#{ids.LIMITS_TABLE} tbody tr")
+    assert "row-fail" in first.get_attribute("class") and "exceeds" in first.text
+    # reference-only rows folded with their count, drawn when opened
+    fold = dash_duo.find_element(f"#{ids.LIMITS_REFERENCE}")
+    assert fold.get_attribute("open") is None
+    assert "2 reference-only rows" in fold.find_element("css selector", "summary").text
+    assert "Side (margin from)" in dash_duo.find_element(f"#{ids.CRITICALS_TABLE}").text
+    assert "below N_min (4,400 rpm)" in dash_duo.find_element(f"#{ids.CRITICALS_TABLE}").text
+    assert "not judged" in dash_duo.find_element(f"#{ids.RISING_AT_TOP}").text
+    assert CAUTION in dash_duo.find_element(f"#{ids.CAUTION_BAR}").text
+    dash_duo.driver.set_window_size(1400, 2600)
     _shot(dash_duo, "review")
+    dash_duo.driver.set_window_size(1400, 1000)
+    _click(dash_duo, f"#{ids.LIMITS_REFERENCE} summary")
+    until(lambda: fold.get_attribute("open") is not None, timeout=10)
+    assert "reference only" in dash_duo.find_element(f"#{ids.LIMITS_REFERENCE_BODY}").text
+    _shot(dash_duo, "review-reference-rows")
+
+    # Bode phase: unwrapped by default (no fixed 0-360 range), wrapped on request
+    layout2 = ("const l = document.querySelector('#%s .js-plotly-plot').layout.yaxis2;"
+               "return l.autorange === true || !l.range ? 'auto' : l.range;" % ids.BODE)
+    assert dash_duo.find_element(f"#{ids.PHASE} input[value='unwrapped']").is_selected()
+    assert dash_duo.driver.execute_script(layout2) == "auto"
+    _click(dash_duo, f"#{ids.PHASE} input[value='wrapped']")
+    until(lambda: dash_duo.driver.execute_script(layout2) == [0, 360], timeout=10)
+    _click(dash_duo, f"#{ids.PHASE} input[value='unwrapped']")
+    until(lambda: dash_duo.driver.execute_script(layout2) == "auto", timeout=10)
 
     # linked cursor: a hover on the Bode plot marks the same speed on the polar plot
-    from dash.testing.wait import until
-    from selenium.webdriver.common.action_chains import ActionChains
 
     area = dash_duo.find_element(f"#{ids.BODE} .nsewdrag")
     dash_duo.driver.execute_script("arguments[0].scrollIntoView({block: 'center'});", area)

@@ -9,6 +9,7 @@ import pytest
 from numpy.testing import assert_allclose
 
 from rundash import CAUTION
+from rundash.dashboard import ids
 from rundash.dashboard.pages import importer, review, runs
 from rundash.errors import InputError
 from rundash.units import UM_PER_MIL
@@ -35,6 +36,19 @@ def _text(component) -> str:
     return " ".join(out)
 
 
+def _find(component, id_):
+    """The component with ``id`` in a Dash component tree (None when absent)."""
+    if getattr(component, "id", None) == id_:
+        return component
+    kids = getattr(component, "children", None)
+    for k in kids if isinstance(kids, (list, tuple)) else [kids]:
+        if k is not None and not isinstance(k, (str, int, float)):
+            hit = _find(k, id_)
+            if hit is not None:
+                return hit
+    return None
+
+
 class TestRoutes:
     def test_match(self):
         assert runs.match("/") == {}
@@ -47,7 +61,7 @@ class TestRunsPage:
     def test_lists_the_run_with_its_verdict(self, demo_db):
         text = _text(runs.layout(demo_db.db))
         assert "First start (test)" in text and "2023 overhaul" in text
-        assert "pass" in text and "processed" in text
+        assert "fail" in text and "processed" in text  # the fixture's run verdict
 
     def test_badge_words(self):
         assert _text(runs.verdict_badge(None, False)) == "not processed"
@@ -63,6 +77,47 @@ class TestReview:
         assert "12.1 %" in text and "3,500" in text
         assert "test warning" in text
         assert CAUTION in text
+
+    def test_judged_limits_first_reference_rows_folded(self, demo_db):
+        ctx = review.load_context(demo_db.db, demo_db.run_id)
+        panel = review.verdict_panel(ctx)
+        judged = _find(panel, ids.LIMITS_TABLE)
+        rows = judged.children[1].children
+        assert [r.children[8].children for r in rows] == ["exceeds", "within"]
+        assert "row-fail" in getattr(rows[0], "className", "") \
+            and not getattr(rows[1], "className", "")
+        fold = _find(panel, ids.LIMITS_REFERENCE)
+        assert not getattr(fold, "open", False)  # folded
+        assert "2 reference-only rows" in _text(fold.children[0])
+        ref = _text(_find(panel, ids.LIMITS_REFERENCE_BODY))
+        assert ref.count("reference only") == 2 and "exceeds" not in ref
+        text = _text(panel)
+        assert "Vibration limit checks: 2 judged, 1 exceed; 2 for reference" in text
+        # what fails, in words: 30.48 um = 1.2 mil exactly (1 mil = 25.4 um)
+        reasons = _text(_find(panel, ids.VERDICT_REASONS))
+        assert "K410-DE-Y" in reasons and "30.5 µm pp" in reasons and "25.4 µm pp" in reasons
+        assert "1.2 mil pp" in _text(review.verdict_panel(ctx, "imperial")
+                                     .children[2])
+
+    def test_side_margins_rising_directions_and_warnings(self, demo_db):
+        ctx = review.load_context(demo_db.db, demo_db.run_id)
+        rows = review.critical_rows(ctx["findings"])
+        assert rows[0]["side"] == "below N_min (4,400 rpm)"
+        assert rows[0]["margin"] == "20.5 % below"  # 100 (4400 - 3500) / 4400
+        assert rows[0]["required"] == "12.1 % below"
+        assert rows[0]["peak"] == "50.8 µm pp"
+        panel = review.verdict_panel(ctx)
+        rising = _text(_find(panel, ids.RISING_AT_TOP))
+        assert "K410-NDE-Y run-up" in rising and "not judged" in rising
+        assert "3,430" in _text(_find(panel, ids.DIRECTIONS_TABLE))
+        warnings = _text(_find(panel, ids.WARNINGS))
+        assert "test warning" in warnings and "test note" not in warnings  # said once
+        assert "1 exceed" in _text(_find(panel, ids.VERDICT_SUMMARY))
+        assert CAUTION in _text(panel)
+
+    def test_findings_units_with_micro_sign_convert(self):
+        # the findings write 'µm pp'; 1 mil = 25.4 um exactly
+        assert review._amp(50.8, "µm pp", "imperial") == "2 mil pp"
 
     def test_verdict_panel_without_findings(self, demo_db):
         ctx = dict(review.load_context(demo_db.db, demo_db.run_id), findings=None)

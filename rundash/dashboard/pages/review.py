@@ -331,22 +331,23 @@ _SIDE_REF = {"below": "N_min", "above": "N_mc"}
 
 
 def _side_text(c) -> str:
+    """'below N_min (4,400 rpm)', 'above N_mc (…)', 'inside the range' or '–'."""
     side = c.get("side") or c.get("margin_side")
     if side in _SIDE_REF:
         ref = c.get("reference_speed_rpm")
-        return f"{side} the range (from {_SIDE_REF[side]}" + \
-            (f" {_num(ref)} rpm)" if ref is not None else ")")
+        return f"{side} {_SIDE_REF[side]}" + (f" ({_num(ref)} rpm)" if ref is not None else "")
     if side == "inside":
         return "inside the operating range"
     return "–"
 
 
 def _pct_of(c, key) -> str:
+    """A margin in % with the side it is measured on ('23.3 % below')."""
     v = c.get(key)
     side = c.get("side") or c.get("margin_side")
     if v is None:
         return "–"
-    return f"{_num(v, 1, '%')} of {_SIDE_REF[side]}" if side in _SIDE_REF else _num(v, 1, "%")
+    return f"{_num(v, 1, '%')} {side}" if side in _SIDE_REF else _num(v, 1, "%")
 
 
 def critical_rows(findings, system: str = "metric") -> list[dict[str, str]]:
@@ -372,8 +373,8 @@ def critical_rows(findings, system: str = "metric") -> list[dict[str, str]]:
 
 CRITICAL_COLUMNS = [("probe", "Probe"), ("direction", "Direction"), ("speed", "Speed (rpm)"),
                     ("basis", "Speed from"), ("peak", "Peak 1X"), ("af", "AF (method)"),
-                    ("side", "Side of operating range"), ("margin", "Margin found"),
-                    ("required", "Margin required"), ("verdict", "Margin verdict"),
+                    ("side", "Side (margin from)"), ("margin", "Margin found (% of N)"),
+                    ("required", "Required (% of N)"), ("verdict", "Margin verdict"),
                     ("confidence", "Confidence")]
 LIMIT_COLUMNS = [("probe", "Probe"), ("direction", "Direction"), ("measure", "Measure"),
                  ("where", "Where"), ("speed", "Speed (rpm)"), ("value", "Level"),
@@ -508,10 +509,11 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
         if crit:
             children.append(_table(CRITICAL_COLUMNS, crit, ids.CRITICALS_TABLE, clickable=True))
             children.append(html.P(
-                "Margins are in % of the minimum operating speed N_min for a critical below "
-                "the operating range and of the maximum continuous speed N_mc above it, as "
-                "the profile's rule states. Click a row (or a critical marker on the Bode "
-                "plot) for the evidence behind it.", className="note"))
+                "Margins are in % of N, the speed they are measured from: the minimum "
+                "operating speed N_min for a critical below the operating range, the maximum "
+                "continuous speed N_mc above it (the profile's rule). Peak 1X in the "
+                "transducer's units (pp: peak-to-peak, pk: peak). Click a row (or a critical "
+                "marker on the Bode plot) for the evidence behind it.", className="note"))
         else:
             children.append(html.P("No critical speed was found in the speed range of this "
                                    "run.", className="muted"))
@@ -526,8 +528,10 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
                 f"{_num(b.get('speed_rpm'))} rpm, {b.get('agreement', '–')}"
                 + (f" ({b['note']})" if b.get("note") else "")) for b in bearings]))
         children += _limits_section(f, system)
-    warn = list(dict.fromkeys(str(w) for w in list((f or {}).get("warnings") or [])
-                              + list(proc.warnings if proc else [])))
+    shown = [str(r.get("note")) for r in (f or {}).get("rising_at_top") or [] if r.get("note")]
+    warn = [w for w in dict.fromkeys(str(w) for w in list((f or {}).get("warnings") or [])
+                                     + list(proc.warnings if proc else []))
+            if not any(n and w.endswith(n) for n in shown)]  # said above already
     if warn:
         children.append(html.H3(f"Warnings ({len(warn)})"))
         children.append(html.Div(id=ids.WARNINGS, children=[
@@ -545,12 +549,12 @@ def _rising_section(f) -> list:
         return []
     items = []
     for r in rising:
-        items.append(html.Li([
-            html.Strong(f"{r.get('probe', '?')} {r.get('direction', '')}: "),
+        text = r.get("note") or (
             f"1X rises {_num(r.get('rise_pct'), 0, '%')} from {_num(r.get('from_rpm'))} to "
-            f"{_num(r.get('to_rpm'))} rpm (lag change {_num(r.get('lag_change_deg'), 0, '°')}); "
-            "a critical may lie above the top speed of this run: not located, not judged.",
-            html.Div(r.get("note"), className="note") if r.get("note") else ""]))
+            f"{_num(r.get('to_rpm'))} rpm (lag change {_num(r.get('lag_change_deg'), 0, '°')})")
+        items.append(html.Li([html.Strong(f"{r.get('probe', '?')} {r.get('direction', '')}: "),
+                              text, " — a critical may lie above this run's top speed: "
+                              "not located, not judged."]))
     return [html.H3(f"Response still rising at the top speed ({len(rising)})"),
             html.Div(className="attention", id=ids.RISING_AT_TOP, children=html.Ul(items))]
 
@@ -590,23 +594,13 @@ def _limits_section(f, system) -> list:
     else:
         out.append(html.P("No limit check is judged for this run (all are for reference).",
                           className="muted", id=ids.LIMITS_TABLE))
-    if ref:  # the rows are drawn when the reader opens the fold (reference_table)
-        out.append(html.Details(id=ids.LIMITS_REFERENCE, className="reference", open=False,
-                                children=[
+    if ref:  # folded by the browser (a details element): no callback needed
+        out.append(html.Details(id=ids.LIMITS_REFERENCE, className="reference", children=[
             html.Summary(f"{len(ref)} reference-only rows: zones and limits shown for "
                          "orientation (meant for steady operation or for the top speed), "
                          "not verdicts"),
-            html.Div(id=ids.LIMITS_REFERENCE_BODY)]))
+            html.Div(_table(LIMIT_COLUMNS, ref), id=ids.LIMITS_REFERENCE_BODY)]))
     return out
-
-
-def reference_table(findings, system: str = "metric"):
-    """The reference-only limit rows, as a table (drawn when their fold is opened)."""
-    from dash import html
-
-    ref = [r for r in limit_rows(findings, system) if not r["judged"]]
-    return _table(LIMIT_COLUMNS, ref) if ref else html.P("No reference-only rows.",
-                                                         className="muted")
 
 
 EVIDENCE_FIELDS = [
@@ -904,15 +898,6 @@ def register_callbacks(app, db) -> None:
                   State(ids.RUN_ID, "data"), prevent_initial_call=True)
     def _verdict(units, run_id):
         return verdict_panel(load_context(db, run_id, cache=cache), _units(units))
-
-    @app.callback(Output(ids.LIMITS_REFERENCE_BODY, "children"),
-                  Input(ids.LIMITS_REFERENCE, "open"), State(ids.UNITS, "value"),
-                  State(ids.RUN_ID, "data"), prevent_initial_call=True)
-    def _reference_rows(is_open, units, run_id):
-        if not is_open or run_id is None:
-            return no_update
-        return reference_table(load_context(db, run_id, cache=cache)["findings"],
-                               _units(units))
 
     @app.callback(Output(ids.EVIDENCE, "children"),
                   Input({"type": CRITICAL_ROW, "index": ALL}, "n_clicks"),
