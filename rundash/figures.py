@@ -268,20 +268,6 @@ def _layout(fig: go.Figure, *, title: str, uirevision: Any = None, height: int =
     fig.update_yaxes(showgrid=True, gridcolor=GRID, zeroline=False, ticks="outside")
 
 
-def _decimate_index(n: int, max_points: int, keep: Iterable[int] = ()) -> np.ndarray:
-    """Indices of an even stride through ``n`` points, plus ``keep`` (e.g. the peak)."""
-    if n <= max_points:
-        return np.arange(n)
-    idx = np.unique(np.concatenate([np.linspace(0, n - 1, max_points).astype(int),
-                                    np.asarray(list(keep), dtype=int)]))
-    return idx
-
-
-def _direct_label(kind: str, system: UnitSystem) -> str:
-    unit = display_unit(kind, system).replace("um", "µm")
-    return f"{unit} {'pp' if kind == 'proximity' else 'rms'}"
-
-
 def _fmt(x: Any, digits: int = 0, unit: str = "") -> str:
     if x is None or (isinstance(x, float) and not math.isfinite(x)):
         return "–"
@@ -384,16 +370,6 @@ def split_by_direction(time_s, segments: Sequence[Mapping[str, Any]] | None, *,
         if idx.size:
             out.append((str(s.get("kind", "mixed")), idx))
     return out
-
-
-def group_by_direction(time_s, segments: Sequence[Mapping[str, Any]] | None, *,
-                       min_piece_s: float = MIN_PIECE_S) -> list[tuple[str, list[np.ndarray]]]:
-    """:func:`split_by_direction` gathered per kind: one entry per direction (first
-    appearance order), with its pieces in time order (drawn as one trace with gaps)."""
-    out: dict[str, list[np.ndarray]] = {}
-    for kind, idx in split_by_direction(time_s, segments, min_piece_s=min_piece_s):
-        out.setdefault(kind, []).append(idx)
-    return list(out.items())
 
 
 def time_in_band(time_s, speed_rpm, lo_rpm: float, hi_rpm: float) -> float:
