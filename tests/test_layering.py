@@ -22,9 +22,10 @@ ALLOWED = {
     "ingest": {"storage", "model"},
     "pipeline": {"storage", "ingest", "dsp", "analysis", "model", "findings"},
     "batch": {"pipeline", "storage", "model"},  # pipeline level: process_run on Dask
+    "live": {"pipeline", "storage", "ingest", "dsp", "analysis", "model"},
     "findings": {"analysis", "dsp", "model"},
     "figures": {"analysis", "dsp", "model"},
-    "face": {"pipeline", "batch", "figures", "model", "storage", "ingest", "demo", "face",
+    "face": {"pipeline", "batch", "live", "figures", "model", "storage", "ingest", "demo", "face",
              "analysis.profiles"},
     "demo": {"pipeline", "ingest", "storage", "model"},
 }
