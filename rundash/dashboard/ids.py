@@ -65,3 +65,23 @@ LIVE_ALERTS = "live-alerts"
 LIVE_BODE = "live-bode"
 LIVE_POLAR = "live-polar"
 LIVE_EVENTS = "live-events"
+
+# compare runs
+COMPARE_MACHINE = "compare-machine"
+COMPARE_RUNS = "compare-runs"
+COMPARE_PROBE = "compare-probe"
+COMPARE_UNITS = "compare-units"
+COMPARE_NOTE = "compare-note"
+COMPARE_BODE = "compare-bode"
+COMPARE_POLAR = "compare-polar"
+COMPARE_BUSY = "compare-busy"
+COMPARE_STATUS = "compare-status"
+COMPARE_TREND = "compare-trend"
+COMPARE_TABLE = "compare-table"
+
+# run review: report downloads
+REPORT_HTML = "review-report-html"
+REPORT_PDF = "review-report-pdf"
+REPORT_DOWNLOAD = "review-report-download"
+REPORT_STATUS = "review-report-status"
+REPORT_BUSY = "review-report-busy"

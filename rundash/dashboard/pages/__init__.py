@@ -13,16 +13,17 @@ def register(app, db) -> None:
     from dash import Input, Output, dcc, html
 
     from rundash.dashboard import ids
-    from rundash.dashboard.pages import importer, live, review, runs
+    from rundash.dashboard.pages import compare, importer, live, review, runs
 
-    modules = (runs, review, importer, live)
+    modules = (runs, review, importer, live, compare)
     app.layout = html.Div([
         dcc.Location(id=ids.URL),
         html.Header(className="shell-head", children=[
             html.Span("rundash", className="brand"),
             html.Nav([dcc.Link("Machines and runs", href=runs.PATH),
                       dcc.Link("Import a run", href=importer.PATH),
-                      dcc.Link("Live monitor", href=live.PATH)]),
+                      dcc.Link("Live monitor", href=live.PATH),
+                      dcc.Link("Compare runs", href=compare.PATH)]),
             html.Span("start-up and coast-down review", className="muted")]),
         html.Main(id=ids.PAGE, className="shell-main"),
         html.Div(CAUTION, id=ids.CAUTION_BAR, className="caution"),

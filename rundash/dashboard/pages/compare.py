@@ -1,0 +1,422 @@
+"""Run comparison: overlaid Bode and polar plots of chosen runs of one machine, the trend
+of critical speed and AF across runs and overhaul cycles with their uncertainties, and
+the table of what changed (:func:`rundash.comparison.compare_runs`).
+
+Routes: ``/compare`` (the first machine), ``/compare/machine/<id>`` and
+``/compare/<run>,<run>,...`` (those runs ticked, their machine shown).
+
+The earliest chosen run (by start time) is the reference, so shifts read forward in
+time. The bootstrap runs with :data:`N_BOOT` replicates (a few seconds); each comparison
+is kept in the app's result cache under the runs and their processing times, so a
+re-processed run is compared anew. Callbacks are thin: tests call :func:`overlay_figures`,
+:func:`comparison_view` and :func:`selection_note` directly.
+"""
+
+from __future__ import annotations
+
+import re
+from datetime import datetime, timezone
+from typing import Any, Sequence
+
+from rundash import CAUTION, figures
+from rundash.dashboard import ids
+from rundash.errors import NotFoundError, RundashError
+
+PATH = "/compare"
+TITLE = "Compare runs"
+#: Bootstrap replicates of the page's comparison (the CLI and report default to 100).
+N_BOOT = 30
+_ROUTE = re.compile(r"^/compare(?:/(?:machine/(?P<machine>\d+)|(?P<runs>\d+(?:,\d+)*)))?/?$")
+_FAR = datetime.max.replace(tzinfo=timezone.utc)
+
+
+def match(pathname: str):
+    m = _ROUTE.match(pathname or "")
+    if not m:
+        return None
+    if m.group("machine"):
+        return {"machine_id": int(m.group("machine"))}
+    if m.group("runs"):
+        return {"run_ids": [int(x) for x in m.group("runs").split(",")]}
+    return {}
+
+
+def href(run_ids: Sequence[int] = ()) -> str:
+    """The page's address with ``run_ids`` ticked."""
+    return PATH + ("/" + ",".join(str(int(r)) for r in run_ids) if run_ids else "")
+
+
+def _cache(db, cache):
+    from rundash.dashboard.cache import ResultCache
+
+    return cache if cache is not None else ResultCache(db, maxsize=0)
+
+
+# ----------------------------------------------------------------------------- reading
+def machine_runs(db, machine_id: int | None = None, run_ids: Sequence[int] = ()):
+    """(machines, chosen MachineInfo, its runs newest first): the machine is ``machine_id``,
+    else that of the first of ``run_ids``, else the first machine by name."""
+    from rundash.storage import queries as q
+
+    with db.read() as conn:
+        machines = q.list_machines(conn)
+        if machine_id is None and run_ids:
+            machine_id = q.run_machine_id(conn, int(run_ids[0]))
+        chosen = next((m for m in machines if m.id == machine_id), None) if machine_id \
+            is not None else (machines[0] if machines else None)
+        if machine_id is not None and chosen is None:
+            raise NotFoundError(f"there is no machine {machine_id}")
+        runs = q.list_runs(conn, chosen.id) if chosen is not None else []
+    return machines, chosen, runs
+
+
+def run_options(runs) -> list[dict[str, Any]]:
+    """Checklist options, in the order given (newest first): date, kind, cycle, label."""
+    out = []
+    for r in runs:
+        when = r.started_at.strftime("%Y-%m-%d %H:%M") if r.started_at else "no start time"
+        text = f"run {r.id} · {when} · {r.kind} · cycle {r.cycle or '–'} · " \
+               f"{r.label or r.source_name}"
+        out.append({"label": text + ("" if r.processed else " (not processed)"),
+                    "value": r.id, "disabled": not r.processed})
+    return out
+
+
+def _ordered(db, run_ids: Sequence[int], cache=None) -> list:
+    """The chosen runs' contexts, earliest start first (the reference first)."""
+    src = _cache(db, cache)
+    ctxs = [src.context(int(r)) for r in dict.fromkeys(int(r) for r in run_ids or [])]
+    ctxs.sort(key=lambda c: (c["run"].started_at or _FAR, c["run"].id))
+    return ctxs
+
+
+def _probe_kind(ctxs, probe: str) -> str:
+    for c in ctxs:
+        for ch in c["channels"]:
+            if ch.probe_name == probe:
+                return ch.kind
+    return "proximity"
+
+
+def selection_note(db, run_ids: Sequence[int], *, cache=None) -> list[str]:
+    """Plain sentences about the chosen runs: too few, mixed directions, mixed machines."""
+    ids_ = list(dict.fromkeys(int(r) for r in run_ids or []))
+    if len(ids_) < 2:
+        return ["Tick two or more processed runs to compare them."]
+    ctxs = _ordered(db, ids_, cache)
+    notes = []
+    if len({c["machine"].id for c in ctxs}) > 1:
+        notes.append("The runs belong to different machines: only runs of one machine can "
+                     "be compared.")
+    kinds = {c["run"].kind for c in ctxs}
+    if len(kinds) > 1:
+        notes.append(f"Runs of different directions are overlaid ({', '.join(sorted(kinds))})."
+                     " Compare like with like: the sweep moves the apparent peak in its own "
+                     "direction (F. M. Lewis, 1932), so a run-up and a coast-down differ even "
+                     "when the machine has not changed. The table compares run-up with run-up "
+                     "and coast-down with coast-down where both runs have one.")
+    return notes
+
+
+# ----------------------------------------------------------------------------- figures
+def overlay_figures(db, run_ids: Sequence[int], probe: str, system: str = "metric", *,
+                    cache=None):
+    """Overlaid 1X Bode and polar plots of ``probe`` for the chosen runs.
+
+    One colour per run (the theme's palette, in reference-first order), run direction by
+    line dash; vectors as the findings use them (slow-roll compensated where stored).
+    """
+    from rundash.dashboard.pages.review import vector_traces
+
+    src = _cache(db, cache)
+    ctxs = _ordered(db, run_ids, src)
+    traces = []
+    for k, c in enumerate(ctxs):
+        if c["processing"] is None:
+            continue
+        rid = c["run"].id
+        pieces, _ = vector_traces(db, rid, probe, [1.0], True, cache=src, ctx=c)
+        color = figures.PALETTE[k % len(figures.PALETTE)]
+        for p in pieces:
+            if p["direction"] == "steady" or len(p["speed_rpm"]) < 3:
+                continue
+            traces.append(dict(p, probe=f"run {rid}", color=color))
+    kind = _probe_kind(ctxs, probe)
+    comp = any(t.get("compensated") for t in traces)
+    word = "slow-roll compensated" if comp else "uncompensated"
+    machine = ctxs[0]["machine"] if ctxs else None
+    op = None
+    if machine is not None:
+        s = machine.spec
+        op = {"min_operating_speed_rpm": s.min_operating_speed_rpm,
+              "max_continuous_speed_rpm": s.max_continuous_speed_rpm,
+              "trip_speed_rpm": s.trip_speed_rpm}
+    uirev = f"compare-{probe}-{system}-{','.join(str(c['run'].id) for c in ctxs)}"
+    bode = figures.bode(traces, kind=kind, system=system, operating=op, compensated=comp,
+                        uirevision=uirev, title=f"Bode plots across runs, {probe} 1X ({word})")
+    polar = figures.polar(traces, kind=kind, system=system,
+                          rotation=machine.spec.rotation if machine else "ccw",
+                          uirevision=uirev, title=f"Polar plots across runs, {probe} 1X ({word})")
+    return bode, polar
+
+
+# ----------------------------------------------------------------------------- comparison
+def comparison_of(db, run_ids: Sequence[int], *, cache=None, n_boot: int = N_BOOT
+                  ) -> dict[str, Any]:
+    """The comparison of the chosen runs (earliest first), cached per runs and their
+    processing times."""
+    from rundash.comparison import compare_runs
+
+    src = _cache(db, cache)
+    ctxs = _ordered(db, run_ids, src)
+    ordered = [c["run"].id for c in ctxs]
+    key = ("comparison", int(n_boot), *(c["key"] for c in ctxs))
+    return src._get(key, lambda: compare_runs(db, ordered, n_boot=n_boot))
+
+
+def _pm(value, sigma, digits: int, unit: str = "") -> str:
+    if value is None:
+        return "–"
+    txt = f"{value:+,.{digits}f}"
+    if sigma is not None:
+        txt += f" ± {sigma:.2g}"
+    return txt + unit
+
+
+def _val(value, sigma, digits: int) -> str:
+    if value is None:
+        return "–"
+    return f"{value:,.{digits}f}" + (f" ± {sigma:.2g}" if sigma is not None else "")
+
+
+def _sig(shift) -> str:
+    if not shift or shift.get("significant") is None:
+        return "not judged"
+    return "significant" if shift["significant"] else "not significant"
+
+
+def table_rows(comparison: dict[str, Any], probe: str | None = None) -> list[dict[str, str]]:
+    """One row per matched critical of each run pair (of ``probe``, or every probe)."""
+    rows = []
+    for p in comparison.get("pairs") or []:
+        for pr in p["probes"]:
+            if probe is not None and pr["probe"] != probe:
+                continue
+            d = pr["direction_a"] if pr["direction_a"] == pr["direction_b"] else \
+                f"{pr['direction_a']} vs {pr['direction_b']}"
+            for m in pr["criticals"]:
+                sp, af = m.get("speed") or {}, m.get("af") or {}
+                a, b = m.get("a") or {}, m.get("b") or {}
+                pct = sp.get("delta_pct")
+                rows.append({
+                    "runs": f"{p['a']} → {p['b']}", "probe": pr["probe"], "direction": d,
+                    "speed_a": _val(a.get("speed_rpm"), a.get("speed_std_rpm"), 1),
+                    "speed_b": _val(b.get("speed_rpm"), b.get("speed_std_rpm"), 1),
+                    "speed_shift": _pm(sp.get("delta"), sp.get("sigma"), 1, " rpm")
+                    + (f" ({pct:+.1f} %)" if pct is not None else ""),
+                    "speed_sig": _sig(sp),
+                    "af_a": _val(a.get("af"), a.get("af_std"), 2),
+                    "af_b": _val(b.get("af"), b.get("af_std"), 2),
+                    "af_shift": _pm(af.get("delta"), af.get("sigma"), 2), "af_sig": _sig(af),
+                    "hints": "; ".join(m.get("hints") or []) or "–",
+                    "notes": "; ".join(list(m.get("notes") or []) + list(pr.get("notes") or
+                                                                         [])),
+                    "changed": "changed" if m.get("changed") else "no significant change"})
+    return rows
+
+
+TABLE_COLUMNS = [("runs", "Runs (ref → later)"), ("probe", "Probe"),
+                 ("direction", "Direction"), ("speed_a", "Critical, ref (rpm ± 1σ)"),
+                 ("speed_b", "Critical, later (rpm ± 1σ)"), ("speed_shift", "Shift"),
+                 ("speed_sig", "Speed shift"), ("af_a", "AF, ref"), ("af_b", "AF, later"),
+                 ("af_shift", "AF shift ± 1σ"), ("af_sig", "AF shift"),
+                 ("hints", "Hints (not diagnoses)")]
+
+
+def _table(rows):
+    from dash import html
+
+    head = html.Tr([html.Th(t) for _, t in TABLE_COLUMNS])
+    body = []
+    for r in rows:
+        cells = []
+        for k, _ in TABLE_COLUMNS:
+            cls = {"significant": "v-fail", "not significant": "v-pass"}.get(r[k], "") \
+                if k.endswith("_sig") else ""
+            cells.append(html.Td(r[k], className=cls))
+        body.append(html.Tr(cells, className="row-fail" if r["changed"] == "changed" else ""))
+        if r["notes"]:
+            body.append(html.Tr(html.Td(r["notes"], colSpan=len(TABLE_COLUMNS),
+                                        className="note")))
+    return html.Table([html.Thead(head), html.Tbody(body)], className="plain")
+
+
+def comparison_view(db, run_ids: Sequence[int], probe: str, *, cache=None,
+                    n_boot: int = N_BOOT):
+    """(trend figure, table component, status text) for the chosen runs and probe.
+
+    Errors (runs not processed, of other machines, nothing in common) come back as a
+    visible message in place of the table, with an empty trend.
+    """
+    from dash import html
+
+    ids_ = list(dict.fromkeys(int(r) for r in run_ids or []))
+    if len(ids_) < 2:
+        return (figures.comparison_trend({"runs": []}, probe=probe or "–"),
+                html.P("Tick two or more processed runs to see what changed.",
+                       className="muted"), "No comparison yet.")
+    try:
+        comparison = comparison_of(db, ids_, cache=cache, n_boot=n_boot)
+    except RundashError as exc:
+        return (figures.comparison_trend({"runs": []}, probe=probe or "–"),
+                html.Div(str(exc), className="error", role="alert"),
+                "The comparison could not be made.")
+    trend = figures.comparison_trend(comparison, probe=probe,
+                                     uirevision=f"trend-{probe}-{','.join(map(str, ids_))}")
+    rows = table_rows(comparison, probe)
+    verdicts = [f"run {p['b']} against run {p['a']}: {p['verdict']}"
+                for p in comparison["pairs"]]
+    others = [r for r in table_rows(comparison) if r["probe"] != probe]
+    parts = [html.H3("What changed" + (f", {probe}" if probe else "")),
+             html.P("; ".join(verdicts) + ".", className="muted")]
+    if rows:
+        parts.append(_table(rows))
+    else:
+        parts.append(html.P(f"No critical of {probe} to compare in these runs.",
+                            className="muted"))
+    if others:
+        parts.append(html.Details(className="reference", children=[
+            html.Summary(f"Other probes ({len(others)} rows)"), _table(others)]))
+    parts += [html.P(comparison["rule"].capitalize() + ".", className="note"),
+              html.P("Uncertainty: " + comparison["method"], className="note"),
+              html.P("Hints name possible causes to look into; they are not diagnoses.",
+                     className="note"),
+              html.Div(comparison["caution"], className="attention")]
+    ref = comparison["reference"]
+    status = (f"Compared {len(ids_)} runs (reference: run {ref}, the earliest), "
+              f"{n_boot} bootstrap replicates.")
+    return trend, html.Div(parts), status
+
+
+# ----------------------------------------------------------------------------- layout
+def default_selection(runs, run_ids: Sequence[int] = ()) -> list[int]:
+    """Runs ticked when the page opens: those named, else the two newest processed runs
+    of the newest run's kind (like with like)."""
+    processed = [r for r in runs if r.processed]
+    if run_ids:
+        known = {r.id for r in processed}
+        return [int(r) for r in run_ids if int(r) in known]
+    if not processed:
+        return []
+    kind = processed[0].kind
+    same = [r.id for r in processed if r.kind == kind]
+    return same[:2] if len(same) >= 2 else [r.id for r in processed[:2]]
+
+
+def layout(db, machine_id: int | None = None, run_ids: Sequence[int] = (), *, cache=None):
+    from dash import dcc, html
+
+    try:
+        machines, machine, runs = machine_runs(db, machine_id, run_ids)
+    except NotFoundError as exc:
+        return html.Div(className="card", children=[
+            html.H2("Not found"), html.P([f"{str(exc).capitalize()}. ",
+                                         dcc.Link("Back to the runs", href="/")])])
+    if machine is None:
+        return html.Div(className="card", children=[
+            html.H2("No machines yet"), html.P(["Import runs first on the ",
+                                                dcc.Link("import page", href="/import"), "."])])
+    chosen = default_selection(runs, run_ids)
+    probes = [p.name for p in machine.probes]
+    head = html.Div(className="card", children=[
+        html.Div(dcc.Link("← machines and runs", href="/"), className="note"),
+        html.H1(f"{TITLE}: {machine.spec.name}", style={"fontSize": "22px",
+                                                        "margin": "4px 0"}),
+        html.P("Overlay runs of one machine, see how its critical speeds and amplification "
+               "factors moved across runs and overhaul cycles, and whether each change is "
+               "larger than its uncertainty. The earliest ticked run is the reference.",
+               className="muted"),
+        html.Div(className="controls", children=[
+            html.Div([html.Label("Machine", className="head"),
+                      dcc.Dropdown(id=ids.COMPARE_MACHINE, clearable=False,
+                                   value=machine.id, style={"width": "320px"},
+                                   options=[{"label": m.spec.name, "value": m.id}
+                                            for m in machines])]),
+            html.Div([html.Label("Probe", className="head"),
+                      dcc.RadioItems(id=ids.COMPARE_PROBE, value=probes[0] if probes else None,
+                                     inline=True, inputStyle={"marginRight": "4px"},
+                                     labelStyle={"marginRight": "12px"},
+                                     options=[{"label": p, "value": p} for p in probes])]),
+            html.Div([html.Label("Units", className="head"),
+                      dcc.RadioItems(id=ids.COMPARE_UNITS, value="metric", inline=True,
+                                     inputStyle={"marginRight": "4px"},
+                                     labelStyle={"marginRight": "12px"},
+                                     options=[{"label": "metric", "value": "metric"},
+                                              {"label": "imperial", "value": "imperial"}])]),
+        ]),
+        html.Label("Runs (newest first)", className="head note",
+                   style={"display": "block", "marginTop": "10px"}),
+        dcc.Checklist(id=ids.COMPARE_RUNS, value=chosen, options=run_options(runs),
+                      inputStyle={"marginRight": "6px"},
+                      labelStyle={"display": "block", "padding": "2px 0"}),
+        html.Div(id=ids.COMPARE_NOTE, children=[
+            html.Div(n, className="warn") for n in selection_note(db, chosen, cache=cache)
+            if len(chosen) >= 2]),
+    ])
+    graph = dict(config={"displaylogo": False, "toImageButtonOptions": {"format": "png"}})
+    return html.Div([
+        head,
+        html.Div(className="grid2", children=[
+            html.Div(className="card", children=[
+                dcc.Graph(id=ids.COMPARE_BODE, style={"height": "560px"}, **graph)]),
+            html.Div(className="card", children=[
+                dcc.Graph(id=ids.COMPARE_POLAR, style={"height": "560px"}, **graph)])]),
+        html.Div(className="card", children=[
+            html.Div(id=ids.COMPARE_BUSY, className="attention", role="status",
+                     style={"display": "none"}),
+            html.Div("Waiting for a comparison…", id=ids.COMPARE_STATUS, className="note"),
+            dcc.Graph(id=ids.COMPARE_TREND, style={"height": "560px"}, **graph),
+            html.Div(id=ids.COMPARE_TABLE)]),
+        html.Div(CAUTION, className="attention"),
+    ])
+
+
+# ----------------------------------------------------------------------------- callbacks
+def register_callbacks(app, db) -> None:
+    from dash import Input, Output, html, no_update
+
+    from rundash.dashboard.cache import cache_of
+
+    cache = cache_of(app, db)
+
+    @app.callback(Output(ids.URL, "pathname", allow_duplicate=True),
+                  Input(ids.COMPARE_MACHINE, "value"), prevent_initial_call=True)
+    def _machine(machine_id):
+        if machine_id is None:
+            return no_update
+        return f"{PATH}/machine/{int(machine_id)}"
+
+    @app.callback(Output(ids.COMPARE_BODE, "figure"), Output(ids.COMPARE_POLAR, "figure"),
+                  Output(ids.COMPARE_NOTE, "children"),
+                  Input(ids.COMPARE_RUNS, "value"), Input(ids.COMPARE_PROBE, "value"),
+                  Input(ids.COMPARE_UNITS, "value"))
+    def _overlay(run_ids, probe, units):
+        if not probe:
+            return no_update, no_update, no_update
+        system = units if units in ("metric", "imperial") else "metric"
+        notes = selection_note(db, run_ids or [], cache=cache)
+        bode, polar = overlay_figures(db, run_ids or [], probe, system, cache=cache)
+        return bode, polar, [html.Div(n, className="warn") for n in notes]
+
+    @app.callback(Output(ids.COMPARE_TREND, "figure"), Output(ids.COMPARE_TABLE, "children"),
+                  Output(ids.COMPARE_STATUS, "children"),
+                  Input(ids.COMPARE_RUNS, "value"), Input(ids.COMPARE_PROBE, "value"),
+                  running=[(Output(ids.COMPARE_BUSY, "children"),
+                            f"Computing the comparison ({N_BOOT} bootstrap replicates; a few "
+                            "seconds)…", ""),
+                           (Output(ids.COMPARE_BUSY, "style"), {"display": "block"},
+                            {"display": "none"})])
+    def _compare(run_ids, probe):
+        if not probe:
+            return no_update, no_update, no_update
+        return comparison_view(db, run_ids or [], probe, cache=cache)
