@@ -52,11 +52,16 @@ def _vector_at(speed, vec, nc, width_pct=0.5):
 
 
 def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[ChannelInfo],
-                   track, compensated: np.ndarray, segments, slow_roll_rpm) -> dict[str, Any]:
-    """Findings JSON of one processed run (see the module docstring)."""
+                   track, compensated: np.ndarray, segments, slow_roll_rpm,
+                   processing_notes: Sequence[str] = ()) -> dict[str, Any]:
+    """Findings JSON of one processed run (see the module docstring).
+
+    ``processing_notes`` (tach repairs, a missing slow-roll window, ...) lead the
+    findings' warnings: a reviewer must see what the vectors rest on.
+    """
     m = desc.machine
     profile = load_profile(m.profile)
-    notes: list[str] = []
+    notes: list[str] = list(processing_notes)
     k1 = int(np.flatnonzero(np.isclose(track.orders, 1.0))[0]) if np.any(
         np.isclose(track.orders, 1.0)) else None
     spec_by_name = {p.name: p for p in desc.probes}
@@ -226,7 +231,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
         "rising_at_top": open_top,
         "limits": limits_json,
         "warnings": notes + list(sj["notes"]),
-        "run_verdict": sj["overall"],
+        # nothing to judge (no run-up or coast-down long enough): never a silent pass
+        "run_verdict": sj["overall"] if directions else "not judged",
         "caution": CAUTION,
     }
 

@@ -170,7 +170,7 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
     if findings_mod is not None:
         findings = findings_mod.build_findings(
             desc=desc, run=run, probes=probes, track=track, compensated=comp,
-            segments=segments, slow_roll_rpm=window)
+            segments=segments, slow_roll_rpm=window, processing_notes=notes)
         result.findings = findings
 
     tach_report = dict(
