@@ -15,7 +15,7 @@ from typing import Any
 import numpy as np
 
 from rundash import CAUTION, figures
-from rundash.dashboard import ids
+from rundash.dashboard import ids, reports
 from rundash.errors import NotFoundError, RundashError
 
 PATH = "/run/"
@@ -696,7 +696,8 @@ def layout(db, run_id: int, *, cache=None):
                f"{m.spec.max_continuous_speed_rpm:,.0f} rpm"
                + (f", trip {m.spec.trip_speed_rpm:,.0f} rpm" if m.spec.trip_speed_rpm else "")
                + (f" · slow-roll window {proc.slow_roll_rpm[0]:.0f}–{proc.slow_roll_rpm[1]:.0f}"
-                  " rpm" if proc and proc.slow_roll_rpm else ""), className="muted")])
+                  " rpm" if proc and proc.slow_roll_rpm else ""), className="muted"),
+        reports.run_actions(db, run, proc is not None)])
     verdict = html.Div(id=ids.VERDICT_PANEL, className="card",
                        children=verdict_panel(ctx, "metric"))
     if proc is None:
@@ -841,6 +842,7 @@ def register_callbacks(app, db) -> None:
     from rundash.dashboard.cache import cache_of
 
     cache = cache_of(app, db)  # one per app: keyed by run and processing time
+    reports.register_callbacks(app, db)  # report downloads of the actions row
 
     def _units(units):
         return units if units in UNIT_SYSTEMS else "metric"

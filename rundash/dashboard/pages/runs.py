@@ -77,7 +77,9 @@ def layout(db):
             html.P(f"{s.kind.replace('_', ' ')} · {speeds} · guidance profile {s.profile} · "
                    f"{len(m.probes)} probes · rotation {s.rotation} (from the driver end)",
                    className="muted"),
-            body]))
+            body,
+            html.P(dcc.Link("Compare runs of this machine →", href=f"/compare/machine/{m.id}"),
+                   className="note") if len(runs) > 1 else None]))
     return html.Div(id=ids.RUNS_TABLE, children=[html.H1(TITLE, style={"fontSize": "22px"}),
                                                   *cards])
 

@@ -1,0 +1,117 @@
+"""Report downloads and the comparison link of the run review page.
+
+:func:`run_actions` draws the row of actions under the review page's header (download the
+sign-off report as HTML or PDF, compare with other runs); :func:`build_report` writes the
+report with :func:`rundash.report.write_report` into a throw-away folder and returns it as
+the dict ``dcc.Download`` takes; :func:`register_callbacks` wires the buttons. Errors
+(run not processed, no Chromium for the PDF) come back as a visible alert, one line.
+"""
+
+from __future__ import annotations
+
+import base64
+import tempfile
+from pathlib import Path
+from typing import Any, Literal
+
+from rundash.dashboard import ids
+from rundash.errors import InputError, RundashError
+
+ReportFormat = Literal["html", "pdf"]
+MIME = {"html": "text/html", "pdf": "application/pdf"}
+
+
+def report_filename(run, fmt: ReportFormat) -> str:
+    """``rundash-run-<id>-<start date>.<fmt>``: a name that sorts and says which run."""
+    day = run.started_at.strftime("%Y-%m-%d") if run.started_at else "undated"
+    return f"rundash-run-{run.id}-{day}.{fmt}"
+
+
+def build_report(db, run_id: int, fmt: ReportFormat, *, reviewer: str = "") -> dict[str, Any]:
+    """The sign-off report of ``run_id`` as a ``dcc.Download`` dict (base64 content).
+
+    Raises
+    ------
+    InputError
+        ``fmt`` is neither ``'html'`` nor ``'pdf'``.
+    RundashError
+        Whatever :func:`rundash.report.write_report` raises (run not processed, no
+        Chromium for the PDF, ...).
+    """
+    from rundash.report import write_report
+    from rundash.storage import queries as q
+
+    if fmt not in MIME:
+        raise InputError(f"Invalid value for 'format': allowed 'html', 'pdf', got {fmt!r}")
+    with db.read() as conn:
+        run = q.get_run(conn, int(run_id))
+    name = report_filename(run, fmt)
+    with tempfile.TemporaryDirectory(prefix="rundash-dl-") as tmp:
+        out = write_report(db, int(run_id), Path(tmp) / name, reviewer=reviewer)
+        content = out.read_bytes()
+    return {"content": base64.b64encode(content).decode("ascii"), "filename": name,
+            "base64": True, "type": MIME[fmt]}
+
+
+def compare_href(db, run) -> str:
+    """The compare page with this run and the earliest other processed run of its kind
+    (of any kind when there is none) ticked; just this run when it is the only one."""
+    from rundash.dashboard.pages.compare import href
+    from rundash.storage import queries as q
+
+    with db.read() as conn:
+        runs = q.list_runs(conn, q.run_machine_id(conn, run.id))
+    others = [r for r in reversed(runs) if r.processed and r.id != run.id]
+    same = [r for r in others if r.kind == run.kind]
+    pick = (same or others)[:1]
+    return href([run.id, *[r.id for r in pick]])
+
+
+def run_actions(db, run, processed: bool):
+    """The actions row: report downloads (when processed) and the comparison link."""
+    from dash import dcc, html
+
+    link = dcc.Link("Compare with other runs of this machine →", href=compare_href(db, run))
+    if not processed:
+        return html.Div(className="controls", children=[
+            html.Span("The report can be downloaded once the run is processed.",
+                      className="note"), link])
+    return html.Div(className="controls", style={"alignItems": "center", "marginTop": "6px"},
+                    children=[
+        html.Button("Download report (HTML)", id=ids.REPORT_HTML, n_clicks=0),
+        html.Button("Download report (PDF)", id=ids.REPORT_PDF, n_clicks=0,
+                    title="Printed by headless Chromium; takes a few seconds"),
+        dcc.Download(id=ids.REPORT_DOWNLOAD),
+        html.Span(id=ids.REPORT_BUSY, className="note", role="status"),
+        html.Div(id=ids.REPORT_STATUS),
+        link])
+
+
+def download(db, run_id, trigger: str | None):
+    """(download dict or None, status component) for a click on one of the buttons."""
+    from dash import html
+
+    fmt = {ids.REPORT_HTML: "html", ids.REPORT_PDF: "pdf"}.get(trigger or "")
+    if fmt is None or run_id is None:
+        return None, None
+    try:
+        data = build_report(db, int(run_id), fmt)
+    except RundashError as exc:
+        return None, html.Div(f"The {fmt.upper()} report could not be made: {exc}",
+                              className="error", role="alert")
+    size = len(base64.b64decode(data["content"]))
+    return data, html.Div(f"{data['filename']} ready ({size / 1e6:.1f} MB).", className="note")
+
+
+def register_callbacks(app, db) -> None:
+    from dash import Input, Output, State, ctx
+
+    @app.callback(Output(ids.REPORT_DOWNLOAD, "data"), Output(ids.REPORT_STATUS, "children"),
+                  Input(ids.REPORT_HTML, "n_clicks"), Input(ids.REPORT_PDF, "n_clicks"),
+                  State(ids.RUN_ID, "data"), prevent_initial_call=True,
+                  running=[(Output(ids.REPORT_HTML, "disabled"), True, False),
+                           (Output(ids.REPORT_PDF, "disabled"), True, False),
+                           (Output(ids.REPORT_BUSY, "children"),
+                            "Building the report (the PDF takes a few seconds)…", "")])
+    def _download(_html_clicks, _pdf_clicks, run_id):
+        return download(db, run_id, ctx.triggered_id)
