@@ -12,35 +12,10 @@ from sqlalchemy import select
 
 from rundash.storage import orm
 from rundash.storage.sync import run_content_hash
+from tests.test_pipeline import MACHINE as PIPELINE_MACHINE
 
-MACHINE = """
-[machine]
-name = "Fleet rig F-1"
-kind = "fan"
-rated_speed_rpm = 3000
-min_operating_speed_rpm = 2800
-max_continuous_speed_rpm = 3100
-
-[tach]
-column = "ch1"
-
-[[probes]]
-name = "A-X"
-column = "ch2"
-kind = "proximity"
-units = "um"
-sensitivity_mv_per_unit = 7.874
-
-[[probes]]
-name = "A-V"
-column = "ch3"
-kind = "velocity"
-units = "mm/s"
-sensitivity_mv_per_unit = 20.0
-
-[data]
-full_scale_v = 10.0
-"""
+# the pipeline test's two-probe rig, under a name of its own
+MACHINE = PIPELINE_MACHINE.replace('name = "Synthetic rig"', 'name = "Fleet rig F-1"')
 
 
 def write_run_wavs(folder: Path, n: int, *, n_samples: int, fs: int = 2048, seed: int = 0):
