@@ -376,25 +376,37 @@ def layout(db, machine_id: int | None = None, run_ids: Sequence[int] = (), *, ca
                      style={"display": "none"}),
             html.Div("Waiting for a comparison…", id=ids.COMPARE_STATUS, className="note"),
             dcc.Graph(id=ids.COMPARE_TREND, style={"height": "560px"}, **graph),
-            html.Div(id=ids.COMPARE_TABLE)]),
-        html.Div(CAUTION, className="attention"),
+            html.Div(id=ids.COMPARE_TABLE, children=html.Div(CAUTION, className="attention"))]),
     ])
+
+
+def machine_path(db, machine_id, pathname: str | None) -> str | None:
+    """The page's address for another machine picked, None when it is the one shown (the
+    dropdown may report its value when it is drawn)."""
+    if machine_id is None:
+        return None
+    try:
+        shown = machine_runs(db, **(match(pathname or PATH) or {}))[1]
+    except NotFoundError:
+        shown = None
+    if shown is not None and shown.id == int(machine_id):
+        return None
+    return f"{PATH}/machine/{int(machine_id)}"
 
 
 # ----------------------------------------------------------------------------- callbacks
 def register_callbacks(app, db) -> None:
-    from dash import Input, Output, html, no_update
+    from dash import Input, Output, State, html, no_update
 
     from rundash.dashboard.cache import cache_of
 
     cache = cache_of(app, db)
 
     @app.callback(Output(ids.URL, "pathname", allow_duplicate=True),
-                  Input(ids.COMPARE_MACHINE, "value"), prevent_initial_call=True)
-    def _machine(machine_id):
-        if machine_id is None:
-            return no_update
-        return f"{PATH}/machine/{int(machine_id)}"
+                  Input(ids.COMPARE_MACHINE, "value"), State(ids.URL, "pathname"),
+                  prevent_initial_call=True)
+    def _machine(machine_id, pathname):
+        return machine_path(db, machine_id, pathname) or no_update
 
     @app.callback(Output(ids.COMPARE_BODE, "figure"), Output(ids.COMPARE_POLAR, "figure"),
                   Output(ids.COMPARE_NOTE, "children"),

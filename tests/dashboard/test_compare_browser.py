@@ -1,0 +1,70 @@
+"""The compare page and the report download in headless Chromium (dash's ``dash_duo``).
+
+Demo database (rundash.demo.build_demo); the later cycle's first critical is about 3.3 %
+lower on DE-X (sample_runs/scenario.json: -3.4 % at steady state). Screenshots go to
+artifacts/ (ignored by git). The console must log no errors.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+
+import pytest
+
+from rundash import CAUTION
+from rundash.dashboard import ids
+from rundash.dashboard.app import create_app
+from tests.dashboard.test_browser import _click, _severe, _shot
+from tests.dashboard.test_compare_page import demo_full, ups  # noqa: F401  (fixtures)
+
+pytestmark = pytest.mark.skipif(shutil.which("chromedriver") is None,
+                                reason="chromedriver is not installed (see .ci/run)")
+
+_TREND = ("const d = document.querySelector('#%s .js-plotly-plot').data"
+          ".filter(t => t.meta === 'trend' && t.yaxis === 'y');"
+          "return d.map(t => [t.name, Array.from(t.customdata), Array.from(t.error_y.array)]);"
+          % ids.COMPARE_TREND)
+
+
+def test_compare_and_download(dash_duo, demo_full, ups):  # noqa: F811
+    from dash.testing.wait import until
+
+    db, by_file = demo_full
+    dash_duo.start_server(create_app(db))
+    dash_duo.driver.get(dash_duo.server_url + f"/compare/{ups[0]},{ups[1]}")
+    dash_duo.wait_for_contains_text(f"#{ids.COMPARE_STATUS}", "Compared 2 runs", timeout=30)
+    dash_duo.wait_for_contains_text(f"#{ids.COMPARE_TABLE}", "(-3.3 %)", timeout=10)
+    table = dash_duo.find_element(f"#{ids.COMPARE_TABLE}").text
+    assert "significant" in table and "moved down" in table and CAUTION in table
+    # the trend: the two run-ups, each with its error bar
+    until(lambda: dash_duo.driver.execute_script(_TREND), timeout=10)
+    trend = dash_duo.driver.execute_script(_TREND)
+    assert [t[0] for t in trend] == ["critical 1, run-up"]
+    assert trend[0][1] == list(ups) and len(trend[0][2]) == 2 and all(e > 0 for e in trend[0][2])
+    assert dash_duo.find_elements(f"#{ids.COMPARE_TREND} .errorbar")
+    names = dash_duo.driver.execute_script(
+        "return document.querySelector('#%s .js-plotly-plot').data"
+        ".filter(t => t.meta === 'data').map(t => t.name);" % ids.COMPARE_BODE)
+    assert f"run {ups[0]} 1X run-up" in names and f"run {ups[1]} 1X run-up" in names
+    dash_duo.driver.set_window_size(1400, 2400)
+    _shot(dash_duo, "compare")
+    dash_duo.driver.set_window_size(1400, 1000)
+
+    # mixing directions says so
+    down = by_file["k410_2023_down.wav"]
+    _click(dash_duo, f"#{ids.COMPARE_RUNS} input[value='{down}']")
+    dash_duo.wait_for_contains_text(f"#{ids.COMPARE_NOTE}", "different directions", timeout=10)
+
+    # the review page's HTML download lands a file
+    dash_duo.driver.get(dash_duo.server_url + f"/run/{ups[1]}")
+    dash_duo.wait_for_element(f"#{ids.REPORT_HTML}", timeout=10)
+    _click(dash_duo, f"#{ids.REPORT_HTML}")
+    dash_duo.wait_for_contains_text(f"#{ids.REPORT_STATUS}", "ready", timeout=30)
+    name = f"rundash-run-{ups[1]}-2025-06-03.html"
+    path = os.path.join(dash_duo.download_path, name)
+    until(lambda: os.path.isfile(path) and os.path.getsize(path) > 100_000, timeout=20)
+    with open(path, encoding="utf-8") as fh:
+        assert fh.read(15).lower() == "<!doctype html>"
+    _shot(dash_duo, "review-download")
+    assert _severe(dash_duo) == []
