@@ -251,6 +251,15 @@ class TestLayout:
         checklist = _find(cp.layout(db, cache=cache), ids.COMPARE_RUNS)
         assert checklist.value == [by_file["k410_2025_trip.wav"], by_file["k410_2023_down.wav"]]
 
+    def test_machine_picker_moves_only_to_another_machine(self, demo_full, ups):
+        db, _ = demo_full
+        with db.read() as conn:
+            mid = q.run_machine_id(conn, ups[0])
+        assert cp.machine_path(db, mid, f"/compare/{ups[0]},{ups[1]}") is None
+        assert cp.machine_path(db, mid, "/compare") is None
+        assert cp.machine_path(db, mid + 1, "/compare") == f"/compare/machine/{mid + 1}"
+        assert cp.machine_path(db, None, "/compare") is None
+
     def test_unknown_machine(self, demo_full):
         assert "no machine 99" in _text(cp.layout(demo_full[0], machine_id=99))
 
