@@ -125,8 +125,12 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
     level_checks = []
     crit_json: list[dict[str, Any]] = []
     limits_json: list[dict[str, Any]] = []
-    steady_top = any(s.kind == "steady" and s.rpm_start >= 0.95 * max(
-        track.speed_rpm.max(), 1.0) for s in segments)
+    # a hold at the top speed within the operating range (not a hold at trip speed)
+    n_mc_tol = m.max_continuous_speed_rpm * 1.005
+    inside = track.speed_rpm[track.speed_rpm <= n_mc_tol]
+    top_in = float(inside.max()) if inside.size else float(track.speed_rpm.max())
+    steady_top = any(s.kind == "steady" and abs(s.rpm_start - top_in) <= 0.01 * top_in
+                     and s.rpm_start <= n_mc_tol for s in segments)
     for (name, d), (crits, s, v, t, afac, i) in per_probe.items():
         ch = probes[i]
         sp = spec_by_name.get(name)

@@ -30,7 +30,7 @@ ZONES = ("A", "B", "C", "D")
 class LevelCheck:
     """One level compared with one limit or zone table.
 
-    ``where`` is ``'critical band'`` or ``'top speed'``; ``band_rpm`` the speed range
+    ``where`` is ``'critical band'``, ``'top speed'`` or ``'above N_mc'``; ``band_rpm`` the speed range
     searched; ``speed_rpm`` where the highest level occurred; ``level`` in ``units``;
     ``status`` ``'within'`` | ``'exceeds'`` | ``'reference only'``.
     """
@@ -97,6 +97,10 @@ def check_levels(speed_rpm, *, vector=None, direct=None, criticals=(), kind: Lit
                  ) -> tuple[LevelCheck, ...]:
     """Highest direct and 1X level through each critical band and at the top speed.
 
+    The top speed is the highest speed reached within the operating range (up to N_mc,
+    0.5 % tolerance); where the run went on above N_mc (an overspeed trip test) the
+    levels there are checked in an ``'above N_mc'`` window, for reference only.
+
     Parameters
     ----------
     speed_rpm : array_like, shape (n,)
@@ -152,8 +156,17 @@ def check_levels(speed_rpm, *, vector=None, direct=None, criticals=(), kind: Lit
         hp = c.half_power
         band = (hp.n1_rpm, hp.n2_rpm) if hp is not None and hp.determinable else c.band_rpm
         windows.append(("critical band", (float(band[0]), float(band[1]))))
-    top = float(np.nanmax(s))
+    # The limits and zones apply within the operating range: the "top speed" is the
+    # highest speed reached up to N_mc (0.5 % tolerance); a run that went on above it (an
+    # overspeed trip test) gets an "above N_mc" window, shown for reference only
+    # (common practice, no source).
+    n_mc_tol = max_continuous_speed_rpm * 1.005
+    top_all = float(np.nanmax(s))
+    inside = s[s <= n_mc_tol]
+    top = float(np.nanmax(inside)) if inside.size else top_all
     windows.append(("top speed", (top * (1 - top_window_pct / 100.0), top)))
+    if top_all > n_mc_tol:
+        windows.append(("above N_mc", (n_mc_tol, top_all)))
     out = []
     for where, (lo, hi) in windows:
         m = (s >= lo) & (s <= hi)
@@ -166,6 +179,7 @@ def check_levels(speed_rpm, *, vector=None, direct=None, criticals=(), kind: Lit
                 continue
             level, at = float(vals[k]), float(s[k])
             steady = where == "top speed" and top_speed_is_steady
+            above = where == "above N_mc"
             if kind == "proximity":
                 bounds = tuple(float(b) for b in shaft_zone_boundaries_um_pp(at))
                 src = _cite(zones["shaft_displacement"])
@@ -192,9 +206,15 @@ def check_levels(speed_rpm, *, vector=None, direct=None, criticals=(), kind: Lit
                 if lim.transducer != kind or lim.quantity != quantity:
                     continue
                 value = lim.value(max_continuous_speed_rpm)
-                applies = lim.applies == "always" or where == "top speed"
+                applies = not above and (lim.applies == "always" or where == "top speed")
                 status = ("within" if level <= value else "exceeds") if applies else "reference only"
-                note = lim.title + ("" if applies else ": applies at the top speed; shown for reference")
+                if above:
+                    note = (lim.title + ": above the maximum continuous speed (e.g. an "
+                            "overspeed trip test); shown for reference, the limit applies "
+                            "within the operating range")
+                else:
+                    note = lim.title + ("" if applies else
+                                        ": applies at the top speed; shown for reference")
                 out.append(LevelCheck(where, (lo, hi), at, quantity, level, units, lim.id, value,
                                       None, status, note, lim.source.cite()))
     return tuple(out)
