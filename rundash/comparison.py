@@ -253,16 +253,3 @@ def compare_runs(db: Database, run_ids: Sequence[int], *,
         "phase_speeds_rpm": speeds,
         "caution": CAUTION,
     }
-
-
-def comparison_rows(comparison: dict[str, Any]) -> list[dict[str, Any]]:
-    """Flat rows (one per matched critical) for tables: run pair, probe, the shifts."""
-    rows = []
-    for p in comparison["pairs"]:
-        for pr in p["probes"]:
-            for c in pr["criticals"]:
-                rows.append(dict(a=p["a"], b=p["b"], probe=pr["probe"],
-                                 direction=pr["direction_a"] if pr["direction_a"] ==
-                                 pr["direction_b"] else f"{pr['direction_a']} vs "
-                                 f"{pr['direction_b']}", units=pr["units"], **c))
-    return rows
