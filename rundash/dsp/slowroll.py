@@ -25,8 +25,10 @@ def auto_slow_roll_window(speed_rpm, time_s, *, max_fraction: float = 0.15,
     Rule (common practice, no source): consider the blocks below ``max_fraction`` of the
     record's top speed and above ``min_speed_rpm`` (and, if given, with |acceleration|
     at most ``max_accel_rpm_s``). Slide a band ``width_fraction`` x top speed wide over
-    their speeds and keep the band that holds the most blocks (the speed dwelled there,
-    so it is the steadiest), the lowest of equal ones. Return ``None`` when no band holds
+    their speeds and keep the band where the machine spent the most time (the sum of its
+    blocks' durations, each in proportion to 1/speed: the speed dwelled there, so it is
+    the steadiest; counting blocks alone would favour the top of a sweep); of the bands
+    within 5 % of the longest dwell, the lowest. Return ``None`` when no band holds
     ``min_blocks`` blocks. The user should confirm the band is well below the first
     critical speed.
 
@@ -69,7 +71,14 @@ def auto_slow_roll_window(speed_rpm, time_s, *, max_fraction: float = 0.15,
     width = width_fraction * top
     hi_idx = np.searchsorted(cand, cand + width, side="right")
     counts = hi_idx - np.arange(cand.size)
-    best = int(np.argmax(counts))  # first maximum: the lowest band
+    # time spent in each band: a block of whole revolutions lasts in proportion to
+    # 1/speed, so counting blocks alone would favour the higher speeds of a sweep
+    dur = 1.0 / np.maximum(cand, 1e-9)
+    cum = np.concatenate([[0.0], np.cumsum(dur)])
+    spent = np.where(counts >= min_blocks, cum[hi_idx] - cum[np.arange(cand.size)], -1.0)
+    # the lowest band within 5 % of the longest dwell (a sweep at constant deceleration
+    # spends equal time in every band: then the lowest, where the response is least)
+    best = int(np.flatnonzero(spent >= 0.95 * spent.max())[0])
     if counts[best] < min_blocks:
         return None
     lo = float(cand[best])

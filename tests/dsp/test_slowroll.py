@@ -65,3 +65,19 @@ def test_errors():
         compensate(vec, np.zeros(3))
     with pytest.raises(DspError, match="Invalid value for 'max_fraction'"):
         auto_slow_roll_window(speed, time_s, max_fraction=0.0)
+
+
+class TestWindowOnASweep:
+    def test_coast_down_window_sits_at_the_lowest_speeds(self):
+        # A coast-down with a constant deceleration (friction, closed form): per-rev
+        # blocks crowd the higher speeds, but the machine spends the most time at the
+        # lowest ones, where the dynamic response is smallest (common practice, no
+        # source): the band must start at the bottom of the record.
+        from tests.synth import linear_sweep
+        sw = linear_sweep(6000.0, -130.0, 44.0)  # 6000 -> 280 rpm
+        rt = sw.rev_times()
+        speed = 60.0 / np.diff(rt)
+        t = 0.5 * (rt[1:] + rt[:-1])
+        lo, hi = auto_slow_roll_window(speed, t)
+        assert lo == pytest.approx(speed.min(), rel=1e-6)
+        assert hi <= 0.15 * speed.max() + 1e-9
