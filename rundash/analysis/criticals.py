@@ -536,6 +536,16 @@ def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min,
     zeta = mode.zeta if mode is not None else (0.5 / af if af else None)
     hb = (hp.n1_rpm, hp.n2_rpm) if hp.determinable else band
     rate, ratio, note = _sweep(s_raw, t_raw, hb, zeta, hp.nc_rpm, ratio_min)
+    cd = _closing_evidence(evidence, rate, note, af, cd_af)
+    confidence = _confidence(classification, loop, hp.determinable or mode is not None, note)
+    return Critical(hp.nc_rpm, "amplitude peak", hp.nc_rpm, quad, hp.peak_amplitude, change,
+                    float(lag_pk % 360.0), rel_pk, float(base % 360.0), band, hp, pa, mode,
+                    af, method, reason, cd, rate, ratio, note, loop, classification,
+                    confidence, tuple(evidence), direction, afac)
+
+
+def _closing_evidence(evidence: list, rate, note: str, af, cd_af: float) -> bool:
+    """Append the sweep-rate and critically-damped sentences; True when critically damped."""
     if rate is not None:
         evidence.append(f"sweep rate through the band {rate:+.1f} rpm/s")
     if note:
@@ -543,11 +553,7 @@ def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min,
     cd = af is not None and af < cd_af
     if cd:
         evidence.append(f"AF below {cd_af:g}: critically damped, no separation margin required")
-    confidence = _confidence(classification, loop, hp.determinable or mode is not None, note)
-    return Critical(hp.nc_rpm, "amplitude peak", hp.nc_rpm, quad, hp.peak_amplitude, change,
-                    float(lag_pk % 360.0), rel_pk, float(base % 360.0), band, hp, pa, mode,
-                    af, method, reason, cd, rate, ratio, note, loop, classification,
-                    confidence, tuple(evidence), direction, afac)
+    return cd
 
 
 def _confidence(classification, loop, af_known, sweep_note) -> str:
@@ -625,13 +631,7 @@ def _phase_only(curve, bands, s_raw, t_raw, cd_af, ratio_min, do_fit, direction,
               f"modal fit: natural frequency {mode.fn_rpm:.0f} rpm, damping ratio {mode.zeta:.2f}"
               if mode is not None else "no usable modal fit",
               f"AF {af:.2f} by {method}" if af is not None else "AF not determinable"]
-        if rate is not None:
-            ev.append(f"sweep rate through the band {rate:+.1f} rpm/s")
-        if note:
-            ev.append(note)
-        cd = af is not None and af < cd_af
-        if cd:
-            ev.append(f"AF below {cd_af:g}: critically damped, no separation margin required")
+        cd = _closing_evidence(ev, rate, note, af, cd_af)
         out.append(Critical(nc, basis, None, quad, None, change, None, None,
                             float(base % 360.0), band, None, pa, mode, af, method, reason, cd,
                             rate, ratio, note, None, "phase-only", "low", tuple(ev), direction,
