@@ -87,6 +87,10 @@ def test_sigkill_during_import_never_leaves_a_partial_run(tmp_path):
     machine.write_text(EXAMPLE_MACHINE, encoding="utf-8")
     db = tmp_path / "crash.sqlite"
 
+    # a first run compiles bytecode and fills the page cache (a fresh clone in CI): time
+    # the second, so that the kill delays below are fractions of a warm import
+    warm = _start(data, machine, tmp_path / "warm.sqlite")
+    assert warm.wait(timeout=120) == 0
     t0 = time.monotonic()
     p = _start(data, machine, db)
     out, err = p.communicate(timeout=120)
