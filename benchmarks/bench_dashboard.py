@@ -93,7 +93,7 @@ def build(folder: Path, minutes: float, n_probes: int, fs: float):
     del data, cols
     text = machine_toml(n_probes)
     desc = parse_machine_description(text, "bench machine")
-    db = open_database(str(folder / "bench.sqlite"))
+    db = open_database(str(folder / "bench.sqlite"), create=True)
     t0 = time.perf_counter()
     res = import_run(db, path, desc, description_text=text, label="bench", kind="run-up")
     t1 = time.perf_counter()

@@ -77,8 +77,8 @@ def our_import_rate(data: Path, machine: Path, db: Path) -> float:
     from rundash.ingest.machine_file import load_machine_description
     from rundash.storage.engine import open_database
     desc, text = load_machine_description(machine)
-    d = open_database(str(db))
-    warm = open_database(str(db) + ".warm")
+    d = open_database(str(db), create=True)
+    warm = open_database(str(db) + ".warm", create=True)
     import_run(warm, data, desc)  # one-off module imports and a warm page cache, untimed
     warm.dispose()
     t0 = time.perf_counter()

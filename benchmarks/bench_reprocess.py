@@ -37,7 +37,7 @@ def _warm_up(path: str) -> None:
 def main() -> int:
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
-        db = open_database(str(tmp / "base.sqlite"))
+        db = open_database(str(tmp / "base.sqlite"), create=True)
         desc = parse_machine_description(MACHINE, "m.toml")
         ids = [import_run(db, p, desc, description_text=MACHINE, label=f"r{k}",
                           started_at=datetime(2026, 4, 1 + k, tzinfo=timezone.utc)).run_id

@@ -48,7 +48,7 @@ def main() -> int:
     try:
         with tempfile.TemporaryDirectory() as tmp:
             tmp = Path(tmp)
-            src = open_database(str(tmp / "src.sqlite"))
+            src = open_database(str(tmp / "src.sqlite"), create=True)
             desc = parse_machine_description(MACHINE, "m.toml")
             for k, p in enumerate(write_run_wavs(tmp, N_RUNS, n_samples=N_SAMPLES, fs=FS)):
                 import_run(src, p, desc, description_text=MACHINE, label=f"bench {k}",
@@ -59,7 +59,7 @@ def main() -> int:
             n_ch = 3
             ch_hours = N_RUNS * n_ch * N_SAMPLES / FS / 3600
             sqlite_bytes = (tmp / "src.sqlite").stat().st_size
-            dst = open_database(url)
+            dst = open_database(url, create=True)
             t0 = time.perf_counter()
             rep = sync(src, dst)
             t_sync = time.perf_counter() - t0

@@ -34,9 +34,34 @@ def _parse_time(text: str | None) -> datetime | None:
     return t.astimezone(timezone.utc)
 
 
-def _open(db: str | None):
+def _open(db: str | None, *, create: bool = False):
+    """Open the database; only the commands that store new runs (import, record, demo,
+    sync's destination) may create it. An older schema is upgraded, saying so."""
+    from rundash.errors import NoDatabaseError
     from rundash.storage.engine import open_database
-    return open_database(db)
+
+    try:
+        database = open_database(db, create=create,
+                                 log=lambda line: print(line, file=sys.stderr, flush=True))
+    except NoDatabaseError as exc:
+        raise NoDatabaseError(f"no database at {exc.path}: the file does not exist (check "
+                              "--db or $RUNDASH_DB; 'rundash import' or 'rundash demo' makes "
+                              "a new one)", exc.path) from None
+    database.on_lock_wait = _lock_wait_reporter(database.shown)
+    return database
+
+
+def _lock_wait_reporter(shown: str):
+    """Say on stderr, after 1 s and then every 10 s, that a write waits for another
+    writer's lock."""
+    said = [-9.0]
+
+    def report(waited_s: float, limit_s: float) -> None:
+        if waited_s - said[0] >= 10.0:
+            said[0] = waited_s
+            print(f"\nwaiting for {shown}: another writer holds its write lock "
+                  f"({waited_s:.0f} s of at most {limit_s:.0f} s)", file=sys.stderr, flush=True)
+    return report
 
 
 def _bar(quiet: bool):
@@ -51,7 +76,7 @@ def cmd_import(*, db: str | None, data: str, machine: str, label: str, cycle: st
     from rundash.ingest.machine_file import load_machine_description
 
     desc, text = load_machine_description(machine)
-    database = _open(db)
+    database = _open(db, create=True)
     bar = _bar(quiet)
     res = import_run(database, data, desc, description_text=text, label=label, cycle=cycle,
                      notes=notes, started_at=_parse_time(started), kind=kind, force=force,
@@ -240,7 +265,7 @@ def cmd_serve(*, db: str | None, host: str, port: int, debug: bool,
 def cmd_demo(*, db: str | None, host: str, port: int, serve: bool, quiet: bool) -> int:
     from rundash.demo import build_demo
 
-    database = _open(db or DEMO_DB)
+    database = _open(db or DEMO_DB, create=True)
     ids = build_demo(database, progress=_bar(quiet), log=print)
     print(f"demo database: {database.url} ({len(ids)} runs)")
     if not serve:
@@ -253,7 +278,7 @@ def cmd_demo(*, db: str | None, host: str, port: int, serve: bool, quiet: bool) 
 def cmd_sync(*, source: str, to: str, machine: str | None, as_json: bool, quiet: bool) -> int:
     from rundash.storage.sync import sync
 
-    src, dst = _open(source), _open(to)
+    src, dst = _open(source), _open(to, create=True)
     bar = _bar(quiet or as_json)
 
     def log(line: str) -> None:
@@ -399,7 +424,7 @@ def cmd_record(*, db: str | None, machine: str, source: str, label: str, cycle: 
     from rundash.live import LiveParams, WarningSettings, record_live
 
     desc, text = load_machine_description(machine)
-    database = _open(db)
+    database = _open(db, create=True)
     src = parse_source(source, desc.data)
     # a polite stop (kill, service manager) ends the run like Ctrl-C: kept, incomplete
     def _stop(*_):

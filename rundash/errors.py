@@ -32,6 +32,14 @@ class NotFoundError(StorageError):
     """A run, machine or probe asked for does not exist."""
 
 
+class NoDatabaseError(NotFoundError):
+    """No database exists where one was named, and none was to be created."""
+
+    def __init__(self, message: str, path: str = ""):
+        super().__init__(message)
+        self.path = path
+
+
 class DspError(RundashError):
     """Signal processing cannot proceed with the given signal or parameters."""
 

@@ -166,7 +166,7 @@ def db_path(tmp_path: Path) -> Path:
 
 @pytest.fixture
 def db(db_url: str):
-    d = open_database(db_url)
+    d = open_database(db_url, create=True)
     yield d
     d.dispose()
 

@@ -27,7 +27,7 @@ RUNS = list(SCENARIO["runs"])
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
     path = tmp_path_factory.mktemp("demo") / "demo.sqlite"
-    db = open_database(str(path))
+    db = open_database(str(path), create=True)
     ids = build_demo(db)
     with db.read() as conn:
         by_file = {q.get_run(conn, i).source_name: i for i in ids}

@@ -175,7 +175,7 @@ class TestRobustness:
         mfile = tmp_path / "machine.toml"
         mfile.write_text(live_synth.MACHINE, encoding="utf-8")
         dbp = tmp_path / "kill.sqlite"
-        open_database(str(dbp)).dispose()  # migrate before the recorder starts
+        open_database(str(dbp), create=True).dispose()  # migrate before the recorder starts
         env = dict(os.environ, PYTHONPATH=str(ROOT))
         cmd = [sys.executable, "-m", "rundash.cli", "record", "--db", str(dbp), "--machine",
                str(mfile), "--source", f"replay:{wav}@8"]

@@ -81,7 +81,7 @@ def _processed(tmp, url):
     path = tmp / "synthetic.wav"
     wavfile.write(path, int(FS), (volts.T / 10.0).astype(np.float32))
     from rundash.storage.engine import open_database
-    db = open_database(url)
+    db = open_database(url, create=True)
     desc = parse_machine_description(MACHINE, "m.toml")
     res = import_run(db, path, desc, description_text=MACHINE, kind="mixed")
     out = process_run(db, res.run_id, params=ProcessingParams(slow_roll_rpm=(300.0, 360.0)))

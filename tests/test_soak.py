@@ -138,7 +138,7 @@ def test_writer_and_readers_soak(tmp_path):
     data = write_csv(tmp_path / "soak.csv", signals())
     machine = tmp_path / "machine.toml"
     machine.write_text(machine_text(), encoding="utf-8")
-    db = open_database(str(db_path))  # schema first, so no process races the migration
+    db = open_database(str(db_path), create=True)  # schema first, so no process races the migration
 
     port = _free_port()
     server_log = open(tmp_path / "server.log", "wb")  # a pipe would fill up and stall it

@@ -38,7 +38,7 @@ def template(corpus, tmp_path_factory):
     path = tmp_path_factory.mktemp("template") / "template.sqlite"
     assert main(["import", "--machine", str(root / "machine.toml"), "--db", str(path),
                  "--quiet", "--label", "good", "--", str(root / "good.csv")]) == 0
-    db = open_database(str(path))
+    db = open_database(str(path), create=True)
     db_fingerprint(db)  # checkpoint: the file alone holds everything
     db.dispose()
     return path
@@ -47,7 +47,7 @@ def template(corpus, tmp_path_factory):
 def _fresh_db(template, tmp_path, name):
     path = tmp_path / f"{name}.sqlite"
     shutil.copyfile(template, path)
-    db = open_database(str(path))
+    db = open_database(str(path), create=True)
     return path, db
 
 
@@ -191,7 +191,7 @@ class TestCorpus:
         assert main(["import", "--machine", str(root / machine), "--db", str(db_path),
                      "--quiet", "--", str(root / name)]) == 0
         assert capsys.readouterr().err == ""
-        db = open_database(str(db_path))
+        db = open_database(str(db_path), create=True)
         with db.read() as conn:
             (run,) = q.list_runs(conn)
             assert q.run_warnings(conn, run.id) == [] and run.state == "complete"

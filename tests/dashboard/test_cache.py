@@ -44,7 +44,7 @@ def test_processing_again_changes_the_key(tmp_path):
 
     folder = sample_runs_dir()
     desc, text = load_machine_description(folder / "tarnwick-k410.toml")
-    db = open_database(str(tmp_path / "c.sqlite"))
+    db = open_database(str(tmp_path / "c.sqlite"), create=True)
     try:
         run = import_run(db, folder / "k410_2023_up.wav", desc, description_text=text,
                          label="cache test", kind="run-up").run_id

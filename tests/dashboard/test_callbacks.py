@@ -226,7 +226,7 @@ class TestImport:
         from rundash.storage import queries as q
         from rundash.storage.engine import open_database
 
-        db = open_database(str(tmp_path / "imp.sqlite"))
+        db = open_database(str(tmp_path / "imp.sqlite"), create=True)
         try:
             jobs = importer.ImportJobs(db)
             data = (demo_db.folder / "k410_2025_trip.wav").read_bytes()

@@ -31,7 +31,7 @@ def live_db(tmp_path):
     mfile = tmp_path / "machine.toml"
     mfile.write_text(live_synth.MACHINE, encoding="utf-8")
     desc, text = load_machine_description(mfile)
-    db = open_database(str(tmp_path / "live.sqlite"))
+    db = open_database(str(tmp_path / "live.sqlite"), create=True)
     earlier = tmp_path / "earlier.wav"
     live_synth.write_run(earlier, [0, 50], [600, 5600], seed=11)
     res = record_live(db, desc, ReplaySource(earlier, desc.data, speed=0), description_text=text)

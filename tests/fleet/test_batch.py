@@ -44,7 +44,7 @@ def store(tmp_path_factory):
     """20 distinct 12 s runs plus one with a dead tach, imported, unprocessed (SQLite)."""
     tmp = tmp_path_factory.mktemp("batch")
     path = tmp / "fleet.sqlite"
-    db = open_database(str(path))
+    db = open_database(str(path), create=True)
     desc = parse_machine_description(MACHINE, "m.toml")
     ids = []
     for k, p in enumerate(write_run_wavs(tmp, N_RUNS, n_samples=12 * 2048, seed=4)):
@@ -65,7 +65,7 @@ def sequential(store, tmp_path_factory):
     path, ids, _ = store
     p = tmp_path_factory.mktemp("seq") / "seq.sqlite"
     shutil.copyfile(path, p)
-    db = open_database(str(p))
+    db = open_database(str(p), create=True)
     for rid in ids:
         process_run(db, rid)
     yield db
@@ -76,7 +76,7 @@ def _copy(store, tmp_path):
     path, ids, bad = store
     p = tmp_path / "work.sqlite"
     shutil.copyfile(path, p)
-    return open_database(str(p)), ids, bad
+    return open_database(str(p), create=True), ids, bad
 
 
 class TestReprocess:

@@ -37,7 +37,7 @@ ROOT = Path(__file__).resolve().parents[2]
 def demo_source(tmp_path_factory) -> Path:
     """The four demo runs, imported and processed, in a SQLite file (built once)."""
     path = tmp_path_factory.mktemp("src") / "site.sqlite"
-    db = open_database(str(path))
+    db = open_database(str(path), create=True)
     build_demo(db, process=True)
     with db.engine.connect() as conn:
         conn.exec_driver_sql("PRAGMA wal_checkpoint(TRUNCATE)")
@@ -49,7 +49,7 @@ def demo_source(tmp_path_factory) -> Path:
 def source(demo_source, tmp_path):
     p = tmp_path / "laptop.sqlite"
     shutil.copyfile(demo_source, p)
-    db = open_database(str(p))
+    db = open_database(str(p), create=True)
     yield db
     db.dispose()
 
@@ -76,7 +76,7 @@ class TestRoundTrip:
         assert first.count("copied") == 4 and first.machines_created == [
             "Tarnwick K-410 booster compressor"]
         assert first.n_chunks > 0 and first.n_bytes > 4 * 1_000_000
-        laptop2 = open_database(str(tmp_path / "second-laptop.sqlite"))
+        laptop2 = open_database(str(tmp_path / "second-laptop.sqlite"), create=True)
         back = sync(store, laptop2, machine="Tarnwick K-410 booster compressor")
         assert back.count("copied") == 4
         # chunks, runs, channels and every result table: equal bit for bit
@@ -137,7 +137,7 @@ def many_runs(tmp_path_factory) -> Path:
     """16 small runs of distinct content in a SQLite file (not processed; only read)."""
     tmp_path = tmp_path_factory.mktemp("many")
     path = tmp_path / "many.sqlite"
-    db = open_database(str(path))
+    db = open_database(str(path), create=True)
     desc = parse_machine_description(MACHINE, "m.toml")
     for k, p in enumerate(write_run_wavs(tmp_path, 16, n_samples=400_000, seed=9)):
         import_run(db, p, desc, description_text=MACHINE, label=f"run {k}",
@@ -161,7 +161,7 @@ class TestInterrupted:
                 break
         proc.wait(timeout=60)
         assert proc.returncode == -signal.SIGKILL, proc.stderr.read()
-        src, dst = open_database(str(many_runs)), open_database(db_url)
+        src, dst = open_database(str(many_runs), create=True), open_database(db_url, create=True)
         landed = run_count(dst)
         assert 2 <= landed < 16  # whole runs only: the one in flight rolled back
         for h, rid in runs_by_content(dst).items():  # every landed run complete

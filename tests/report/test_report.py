@@ -36,7 +36,7 @@ def _words(text: str) -> str:
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
     folder = tmp_path_factory.mktemp("report")
-    db = open_database(str(folder / "demo.sqlite"))
+    db = open_database(str(folder / "demo.sqlite"), create=True)
     ids = build_demo(db)
     with db.read() as conn:
         by_file = {q.get_run(conn, i).source_name: i for i in ids}

@@ -18,7 +18,7 @@ def _head():
 
 class TestMigrations:
     def test_empty_file_upgrades_to_head(self, db_url):
-        db = open_database(db_url)
+        db = open_database(db_url, create=True)
         with db.engine.connect() as conn:
             assert MigrationContext.configure(conn).get_current_revision() == _head()
             tables = set(inspect(conn).get_table_names())
@@ -35,11 +35,11 @@ class TestMigrations:
         from rundash.ingest.machine_file import load_machine_description
         from rundash.storage import queries as q
         desc, _ = load_machine_description(machine_file)
-        db = open_database(db_url)
+        db = open_database(db_url, create=True)
         with db.write() as conn:
             q.upsert_machine(conn, desc)
         db.dispose()
-        db = open_database(db_url)
+        db = open_database(db_url, create=True)
         with db.read() as conn:
             assert [m.spec.name for m in q.list_machines(conn)] == ["Test rig T-1"]
         db.dispose()
