@@ -101,7 +101,7 @@ def main() -> None:
     print(f"{x.shape[0]} channels x {FS:g} Hz, {DUR_S:g} s record "
           f"({n_ch_samples / 1e6:.1f} M channel-samples)")
     with tempfile.TemporaryDirectory() as tmp:
-        db = open_database(str(Path(tmp) / "bench.sqlite"))
+        db = open_database(str(Path(tmp) / "bench.sqlite"), create=True)
         t0 = time.perf_counter()
         record(db, desc, MemorySource(x), description_text=text)
         t_rec = time.perf_counter() - t0

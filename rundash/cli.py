@@ -143,7 +143,25 @@ def cmd_machines(*, db: str | None) -> int:
     return 0
 
 
+MAX_CELL = 40
+_CONTROL = {c: "\\x%02x" % c for c in [*range(32), 127]}
+_CONTROL.update({ord("\n"): "\\n", ord("\r"): "\\r", ord("\t"): " ", 0x2028: " ", 0x2029: " ",
+                 0x85: " "})
+
+
+def _cell(text: str, limit: int = MAX_CELL) -> str:
+    """A table cell on one line: control characters shown escaped (a name may hold a line
+    break), at most ``limit`` characters (a longer one ends in '…').
+
+    >>> _cell("K-101\\nrecycle"), _cell("x" * 50, 10)
+    ('K-101\\\\nrecycle', 'xxxxxxxxx…')
+    """
+    text = str(text).translate(_CONTROL)
+    return text if len(text) <= limit else text[: limit - 1] + "…"
+
+
 def _table(rows: list[tuple[str, ...]]) -> None:
+    rows = [tuple(_cell(c) for c in r) for r in rows]
     widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
     for k, r in enumerate(rows):
         print("  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip())

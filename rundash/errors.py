@@ -7,9 +7,56 @@ file, channel, row or parameter and say what was expected.
 
 from __future__ import annotations
 
+import math
+import re
+
+# numpy scalars print as np.float64(1.5) since numpy 2: messages show the plain number
+_NUMPY_REPR = re.compile(r"\bnp\.(?:float|int|uint|complex|bool|str)\w*\(([^()]*(?:\([^()]*\))?"
+                         r"[^()]*)\)")
+
+
+def plain_text(message: str) -> str:
+    """``message`` with numpy scalar reprs (``np.float64(nan)``) written as plain numbers.
+
+    >>> plain_text("got np.float64(nan) and [np.int64(3), np.float32(0.5)]")
+    'got nan and [3, 0.5]'
+    """
+    return _NUMPY_REPR.sub(r"\1", message) if "np." in message else message
+
+
+def plain(value: object) -> str:
+    """A value as a message shows it: numbers plainly (``nan``, ``1e+20``, ``3``), numpy
+    scalars as the Python number they hold, text quoted, sequences element by element.
+
+    >>> plain(float("nan")), plain(1e20), plain(3), plain("up"), plain([1.5, "a"])
+    ('nan', '1e+20', '3', "'up'", "[1.5, 'a']")
+    >>> plain(1e12), plain(3.9e-5), plain(25600.0), plain(123456789012.5)
+    ('1e+12', '3.9e-05', '25600.0', '123456789012.5')
+    """
+    item = getattr(value, "item", None)
+    if callable(item) and type(value).__module__ == "numpy" and getattr(value, "ndim", 1) == 0:
+        value = item()
+    if isinstance(value, bool) or value is None:
+        return repr(value)
+    if isinstance(value, float):
+        if not math.isfinite(value) or value == 0 or 1e-4 <= abs(value) < 1e7:
+            return repr(value)
+        return next(t for t in (f"{value:.{k}g}" for k in range(1, 18)) if float(t) == value)
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, (list, tuple)):
+        inner = ", ".join(plain(v) for v in value)
+        return f"[{inner}]" if isinstance(value, list) else f"({inner}{',' if len(value) == 1 else ''})"
+    return plain_text(repr(value))
+
 
 class RundashError(Exception):
-    """Root of every error rundash raises on purpose."""
+    """Root of every error rundash raises on purpose (numbers in the message plainly)."""
+
+    def __init__(self, *args):
+        if args and isinstance(args[0], str):
+            args = (plain_text(args[0]), *args[1:])
+        super().__init__(*args)
 
 
 class ConfigError(RundashError):
@@ -55,6 +102,11 @@ class AnalysisError(RundashError):
 class RundashWarning(UserWarning):
     """Data is usable but doubtful; the warning is recorded with the run."""
 
+    def __init__(self, *args):
+        if args and isinstance(args[0], str):
+            args = (plain_text(args[0]), *args[1:])
+        super().__init__(*args)
+
 
 class TachQualityWarning(RundashWarning):
     """Tach pulses were repaired (missing or extra pulses) or are irregular."""
@@ -74,4 +126,4 @@ def invalid_value(name: str, got: object, allowed: str) -> str:
     >>> invalid_value("edge", "up", "'rising' or 'falling'")
     "Invalid value for 'edge': allowed 'rising' or 'falling', got 'up'"
     """
-    return f"Invalid value for {name!r}: allowed {allowed}, got {got!r}"
+    return f"Invalid value for {name!r}: allowed {allowed}, got {plain(got)}"

@@ -64,3 +64,29 @@ class TestImportAndList:
         assert main(args) == 0
         assert main(args) == 1
         assert "imported before as run 1" in capsys.readouterr().err
+
+
+class TestTablesStayTables:
+    """Names are the user's text: a line break or 100 000 characters must not break the
+    tables (each row one line, each cell at most 40 characters)."""
+
+    def test_machines_and_runs_with_awkward_names(self, db_path, tmp_path, csv_file, capsys):
+        from tests.conftest import EXAMPLE_MACHINE
+        names = ['K-101\\nsecond line\\r', "L" * 100_000]
+        for i, name in enumerate(names):
+            m = tmp_path / f"m{i}.toml"
+            m.write_text(EXAMPLE_MACHINE.replace('name = "Test rig T-1"', f'name = "{name}"'),
+                         encoding="utf-8")
+            assert main(["import", str(csv_file), "--machine", str(m), "--db", str(db_path),
+                         "--quiet", "--force", "--label", "x\ty\nz"]) == 0
+        capsys.readouterr()
+        for command in ("machines", "runs"):
+            assert main([command, "--db", str(db_path)]) == 0
+            lines = capsys.readouterr().out.splitlines()
+            assert len(lines) == 2 + len(names), lines  # header, rule, one line per row
+            assert max(len(ln) for ln in lines) < 300
+            assert any("K-101\\nsecond line\\r" in ln for ln in lines)
+            assert any(("L" * 39 + "…") in ln and "L" * 40 not in ln for ln in lines)
+        assert main(["runs", "--db", str(db_path), "--json"]) == 0  # JSON keeps the full text
+        runs = json.loads(capsys.readouterr().out)
+        assert {r["machine"] for r in runs} == {"K-101\nsecond line\r", "L" * 100_000}

@@ -43,7 +43,12 @@ def is_loopback(host: str) -> bool:
 
 def resolve_password(password_file: str | None = None, env=None) -> str | None:
     """The dashboard password: the first line of ``password_file``, else ``RUNDASH_PASSWORD``,
-    else None. An empty password counts as none."""
+    else None. An empty password counts as none.
+
+    The file's UTF-8 byte-order mark (editors on Windows write one) and the line ending
+    are not part of the password; a password of only spaces or tabs is refused, from
+    the file or the environment, because it is as good as none.
+    """
     env = os.environ if env is None else env
     if password_file is not None:
         path = Path(password_file)
@@ -56,7 +61,7 @@ def resolve_password(password_file: str | None = None, env=None) -> str | None:
             raise ConfigError(f"{path.name}: the password file is longer than "
                               f"{MAX_PASSWORD_FILE_BYTES} bytes; expected one line")
         try:
-            text = raw.decode("utf-8")
+            text = raw.decode("utf-8-sig")
         except UnicodeDecodeError:
             raise ConfigError(f"{path.name}: the password file is not UTF-8 text") from None
         lines = text.splitlines()
@@ -64,8 +69,15 @@ def resolve_password(password_file: str | None = None, env=None) -> str | None:
         if not pw:
             raise ConfigError(f"{path.name}: the password file is empty; expected the "
                               "password on its first line")
+        if not pw.strip():
+            raise ConfigError(f"{path.name}: the password on the first line is only "
+                              "blanks; expected a real password")
         return pw
-    return env.get(PASSWORD_ENV) or None
+    pw = env.get(PASSWORD_ENV) or None
+    if pw is not None and not pw.strip():
+        raise ConfigError(f"{PASSWORD_ENV} holds only blanks; expected a real password (or "
+                          "unset it to serve on this computer only)")
+    return pw
 
 
 def check_serve_options(host: str, *, password: str | None, debug: bool) -> None:

@@ -188,7 +188,8 @@ def record(db: Database, desc: MachineDescription, source: Source, *,
     ``on_start(run_id, channels, fs)`` is called once the run exists; ``on_block(values,
     start_index)`` with the stored values of every block; ``on_end(state, error)`` before
     the run is closed. A source error (:class:`~rundash.errors.InputError`) or Ctrl-C
-    ends the run as ``'incomplete'`` with what arrived; the error is in the result.
+    ends the run as ``'incomplete'`` with what arrived; the error is in the result. When
+    it comes before the first sample, the empty run is deleted and the error raised.
     """
     rec = Recorder(db, desc, description_text=description_text, label=label, cycle=cycle,
                    notes=notes, started_at=started_at, source_name=source.name,
@@ -208,11 +209,21 @@ def record(db: Database, desc: MachineDescription, source: Source, *,
     except RundashError as exc:
         if rec.run_id is None:
             raise
+        if rec.n_received == 0:  # nothing arrived: no empty run stays behind
+            _drop_empty(db, rec.run_id)
+            raise
         error, state = str(exc), "incomplete"
     except KeyboardInterrupt:
         if rec.run_id is None:
             raise
+        if rec.n_received == 0:
+            _drop_empty(db, rec.run_id)
+            raise
         error, state = "recording stopped by the user", "incomplete"
+    except BaseException:
+        if rec.run_id is not None and rec.n_received == 0:
+            _drop_empty(db, rec.run_id)
+        raise
     finally:
         source.close()
     if on_end is not None:
@@ -220,3 +231,8 @@ def record(db: Database, desc: MachineDescription, source: Source, *,
     rec.finish(state, None if error is None else f"recording ended early: {error}")
     return RecordResult(run_id=rec.run_id, n_samples=rec.n_stored, state=state, error=error,
                         warnings=list(rec.warnings))
+
+
+def _drop_empty(db: Database, run_id: int) -> None:
+    with db.write() as conn:
+        q.delete_empty_run(conn, run_id)

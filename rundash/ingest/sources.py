@@ -74,6 +74,7 @@ from typing import Iterator
 import numpy as np
 
 from rundash.errors import ConfigError, InputError, invalid_value
+from rundash.ingest.bounds import CHANNELS, SAMPLE_RATE_HZ, out_of_range
 from rundash.model import DataSpec
 
 MAGIC = b"RDLS"
@@ -96,9 +97,10 @@ class StreamHeader:
         if not self.channels or len(set(self.channels)) != len(self.channels):
             raise InputError(invalid_value("channels", list(self.channels),
                                            "one or more distinct channel names"))
-        if not (np.isfinite(self.sample_rate_hz) and self.sample_rate_hz > 0):
-            raise InputError(invalid_value("sample_rate_hz", self.sample_rate_hz,
-                                           "a positive sample rate in Hz"))
+        if bad := out_of_range(self.sample_rate_hz, SAMPLE_RATE_HZ):
+            raise InputError(f"stream header: 'sample_rate_hz': {bad}")
+        if bad := out_of_range(len(self.channels), CHANNELS):
+            raise InputError(f"stream header: 'channels': {bad}")
         if self.units and len(self.units) != len(self.channels):
             raise InputError(invalid_value("units", list(self.units),
                                            f"one unit per channel ({len(self.channels)})"))
@@ -285,17 +287,31 @@ def decode_header(body: bytes) -> StreamHeader:
 
 
 class _Reader:
-    def __init__(self, sock: socket.socket):
+    """Exact reads with a deadline: each piece of the stream (the header, each frame) must
+    arrive whole within ``limit_s`` of the moment it is asked for, however the sender
+    splits it (a sender trickling one byte at a time cannot hold the recorder)."""
+
+    def __init__(self, sock: socket.socket, limit_s: float):
         self.sock = sock
+        self.limit_s = float(limit_s)
+        self.deadline = time.monotonic() + self.limit_s
+
+    def start(self) -> None:
+        """Start the clock for the next piece."""
+        self.deadline = time.monotonic() + self.limit_s
 
     def exact(self, n: int, what: str) -> bytes:
         buf = bytearray()
         while len(buf) < n:
+            left = self.deadline - time.monotonic()
             try:
+                if left <= 0:
+                    raise socket.timeout
+                self.sock.settimeout(left)
                 part = self.sock.recv(min(n - len(buf), 1 << 20))
             except socket.timeout:
-                raise InputError(f"stream: {what}: no data for the timeout "
-                                 f"({len(buf)} of {n} bytes came)") from None
+                raise InputError(f"stream: {what} did not arrive whole within "
+                                 f"{self.limit_s:g} s ({len(buf)} of {n} bytes came)") from None
             if not part:
                 if not buf:
                     raise EOFError
@@ -306,7 +322,13 @@ class _Reader:
 
 
 class TcpSource(Source):
-    """Listen on a loopback port and take one sender's stream (framing: module doc)."""
+    """Listen on a loopback port and take one sender's stream (framing: module doc).
+
+    The listener is closed as soon as the first sender is accepted, so a second sender is
+    refused at once (connection refused) instead of queueing data nobody reads. The header
+    and every frame must each arrive whole within ``read_timeout_s`` of the moment the
+    recorder waits for them.
+    """
 
     def __init__(self, host: str, port: int, *, accept_timeout_s: float = 60.0,
                  read_timeout_s: float = 30.0):
@@ -328,6 +350,7 @@ class TcpSource(Source):
         self._server.listen(1)
         self.port = self._server.getsockname()[1]  # the one bound when port 0 was asked
         self._conn: socket.socket | None = None
+        self._rd: _Reader | None = None
         self.header: StreamHeader | None = None
         self.ended_cleanly = False
 
@@ -338,9 +361,11 @@ class TcpSource(Source):
         except socket.timeout:
             raise InputError(f"stream: no sender connected to {self.host}:{self.port} within "
                              f"{self.accept_timeout_s:g} s") from None
-        conn.settimeout(self.read_timeout_s)
+        finally:
+            # one sender per run: a later one is refused, not queued in the backlog
+            self._server.close()
         self._conn = conn
-        rd = _Reader(conn)
+        rd = self._rd = _Reader(conn, self.read_timeout_s)
         try:
             head = rd.exact(12, "header")
         except EOFError:
@@ -361,10 +386,11 @@ class TcpSource(Source):
         return self.header
 
     def blocks(self) -> Iterator[np.ndarray]:
-        rd = _Reader(self._conn)
+        rd = self._rd
         n_ch = len(self.header.channels)
         while True:
             k = self.frames + 1
+            rd.start()
             try:
                 fh = rd.exact(8, f"frame {k} header")
             except EOFError:

@@ -127,6 +127,16 @@ def update_run(conn: Connection, run_id: int, **values: Any) -> None:
     conn.execute(update(R).where(R.c.id == run_id).values(**values))
 
 
+def delete_empty_run(conn: Connection, run_id: int) -> bool:
+    """Delete a run that holds no samples (with its channels and live rows, by cascade);
+    returns whether it was deleted. A run with samples is never deleted here."""
+    n = conn.execute(select(R.c.n_samples).where(R.c.id == run_id)).scalar()
+    if n is None or n > 0:
+        return False
+    conn.execute(delete(R).where(R.c.id == run_id))
+    return True
+
+
 def add_channel(conn: Connection, *, run_id: int, position: int, name: str, role: str,
                 probe_name: str | None, kind: str | None, unit: str, scale: float,
                 sample_rate_hz: float) -> int:

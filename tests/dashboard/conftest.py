@@ -110,7 +110,7 @@ def demo_db(tmp_path_factory):
 
     folder = sample_runs_dir()
     desc, text = load_machine_description(folder / "tarnwick-k410.toml")
-    db = open_database(str(tmp_path_factory.mktemp("dash") / "demo.sqlite"))
+    db = open_database(str(tmp_path_factory.mktemp("dash") / "demo.sqlite"), create=True)
     res = import_run(db, folder / "k410_2023_up.wav", desc, description_text=text,
                      label="First start (test)", cycle="2023 overhaul", kind="run-up")
     process_run(db, res.run_id)

@@ -35,7 +35,7 @@ PROBE = "K410-DE-X"
 @pytest.fixture(scope="module")
 def demo_full(tmp_path_factory):
     """The demo database, all four runs processed; ids by source file."""
-    db = open_database(str(tmp_path_factory.mktemp("cmp-page") / "demo.sqlite"))
+    db = open_database(str(tmp_path_factory.mktemp("cmp-page") / "demo.sqlite"), create=True)
     got = build_demo(db)
     with db.read() as conn:
         by_file = {q.get_run(conn, i).source_name: i for i in got}

@@ -165,3 +165,33 @@ class TestBoundParameters:
         node = next(n for n in ast.walk(ast.parse(code)) if isinstance(n, ast.JoinedStr))
         text = "".join(v.value for v in node.values if isinstance(v, ast.Constant))
         assert re.search(r"SELECT\b.*\bFROM", text)
+
+
+class TestPasswordText:
+    """What counts as the password (issue: a BOM made login impossible; one space was
+    accepted)."""
+
+    def test_byte_order_mark_and_line_ending_are_not_part_of_it(self, tmp_path):
+        f = tmp_path / "pw.txt"
+        f.write_bytes("\ufeffcorrect horse\r\n".encode("utf-8"))
+        pw = security.resolve_password(str(f), env={})
+        assert pw == "correct horse"
+        assert security.authorised(basic("rundash", "correct horse"), pw)
+
+    @pytest.mark.parametrize("content", [" ", "  \t ", "\ufeff \n"])
+    def test_blank_password_file_is_refused(self, tmp_path, content):
+        f = tmp_path / "pw.txt"
+        f.write_bytes(content.encode("utf-8"))
+        with pytest.raises(ConfigError, match=r"^pw\.txt: the password on the first line is "
+                                              r"only blanks; expected a real password$"):
+            security.resolve_password(str(f), env={})
+
+    def test_blank_password_in_the_environment_is_refused(self):
+        with pytest.raises(ConfigError, match="RUNDASH_PASSWORD holds only blanks"):
+            security.resolve_password(None, env={"RUNDASH_PASSWORD": " "})
+
+    def test_cli_refuses_a_blank_password_in_one_line(self, tmp_path, capsys, monkeypatch):
+        monkeypatch.setenv("RUNDASH_PASSWORD", " ")
+        rc = main(["serve", "--host", "0.0.0.0", "--db", str(tmp_path / "x.sqlite")])
+        err = capsys.readouterr().err.strip().splitlines()
+        assert rc == 1 and len(err) == 1 and "only blanks" in err[0]

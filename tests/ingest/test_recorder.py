@@ -3,6 +3,8 @@ framing and its errors, the folder watch and a driver of one's own."""
 
 from __future__ import annotations
 
+import json
+import re
 import socket
 import struct
 import threading
@@ -13,7 +15,7 @@ import pytest
 from numpy.testing import assert_array_equal
 from scipy.io import wavfile
 
-from rundash.errors import ConfigError
+from rundash.errors import ConfigError, InputError
 from rundash.ingest.machine_file import load_machine_description
 from rundash.ingest.recorder import record
 from rundash.ingest.sources import (
@@ -247,3 +249,114 @@ class TestParseSource:
 
 def make_source(n="10"):
     return ArraySource(np.zeros((3, int(n)), np.float32), 1024.0)
+
+
+class TestStreamRobustness:
+    """A sender cannot hold the recorder, a second sender is refused, and a stream header
+    outside physical ranges is refused before a run exists."""
+
+    def _header(self, fs=4096.0):
+        return encode_header(StreamHeader(channels=CHANNELS, sample_rate_hz=fs,
+                                          units=("V",) * 3))
+
+    def test_a_trickling_sender_meets_a_per_frame_deadline(self, db, machine):
+        desc, text = machine
+        x = np.ones((3, 500), np.float32)
+        frame = encode_frame(x)
+        src = TcpSource("127.0.0.1", 0, accept_timeout_s=10, read_timeout_s=1.5)
+        stop = threading.Event()
+
+        def trickle():  # a whole frame, then the next one byte every 0.3 s: each read
+            # arrives well inside the timeout, the frame never does
+            s = socket.create_connection(("127.0.0.1", src.port), timeout=10)
+            s.sendall(self._header() + frame)
+            for b in frame:
+                if stop.wait(0.3):
+                    break
+                try:
+                    s.sendall(bytes([b]))
+                except OSError:
+                    break
+            s.close()
+
+        th = threading.Thread(target=trickle)
+        th.start()
+        t0 = time.monotonic()
+        res = record(db, desc, src, description_text=text)
+        took = time.monotonic() - t0
+        stop.set()
+        th.join()
+        assert res.state == "incomplete" and res.n_samples == 500
+        assert re.fullmatch(r"stream: frame 2 (header )?did not arrive whole within 1\.5 s "
+                            r"\(\d+ of \d+ bytes came\)", res.error), res.error
+        assert took < 6.0  # one deadline (1.5 s) after the first frame, not one per byte
+
+    def test_a_second_sender_is_refused_not_queued(self, db, machine):
+        desc, text = machine
+        src = TcpSource("127.0.0.1", 0, accept_timeout_s=10, read_timeout_s=10)
+        port = src.port
+        x = np.ones((3, 200), np.float32)
+        first_in = threading.Event()
+        second = {}
+
+        def first():
+            s = socket.create_connection(("127.0.0.1", port), timeout=10)
+            s.sendall(self._header())
+            first_in.set()
+            time.sleep(0.5)  # the recorder has accepted by now; a second sender tries
+            try:
+                s2 = socket.create_connection(("127.0.0.1", port), timeout=5)
+                s2.close()
+                second["result"] = "connected"
+            except ConnectionRefusedError:
+                second["result"] = "refused"
+            s.sendall(encode_frame(x) + end_frame(3))
+            s.close()
+
+        th = threading.Thread(target=first)
+        th.start()
+        res = record(db, desc, src, description_text=text)
+        th.join()
+        assert res.state == "complete" and res.n_samples == 200
+        assert second["result"] == "refused"
+
+    @pytest.mark.parametrize("fs, shown", [(3.9e-5, "3.9e-05"), (1e12, "1e+12"),
+                                           (1e-300, "1e-300"), (0.0, "0.0")])
+    def test_a_sample_rate_outside_physical_range_is_refused_before_a_run(
+            self, db, machine, fs, shown):
+        desc, text = machine
+        body = json.dumps({"sample_rate_hz": fs, "channels": [{"name": c, "units": "V"}
+                                                               for c in CHANNELS]}).encode()
+        head = b"RDLS" + bytes([1, 0, 0, 0]) + struct.pack("<I", len(body)) + body
+        src = TcpSource("127.0.0.1", 0, accept_timeout_s=10, read_timeout_s=10)
+        th = threading.Thread(target=_send, args=(src.port, [head]))
+        th.start()
+        with pytest.raises(InputError) as ei:
+            record(db, desc, src, description_text=text)
+        th.join()
+        assert str(ei.value) == ("stream header: 'sample_rate_hz': expected a sample rate "
+                                 f"from 10 to 1e+07 Hz, got {shown}")
+        with db.read() as conn:
+            assert q.list_runs(conn) == []
+
+    def test_a_stream_broken_before_its_first_sample_leaves_no_run(self, db, machine):
+        desc, text = machine
+        src = TcpSource("127.0.0.1", 0, accept_timeout_s=10, read_timeout_s=10)
+        th = threading.Thread(target=_send, args=(src.port, [self._header(), b"XX" + bytes(6)]))
+        th.start()
+        with pytest.raises(InputError, match="frame 1 starts with b'XX'"):
+            record(db, desc, src, description_text=text)
+        th.join()
+        with db.read() as conn:
+            assert q.list_runs(conn) == []
+
+    def test_a_non_finite_sample_is_named_plainly(self, db, machine):
+        desc, text = machine
+        x = np.ones((3, 300), np.float32)
+        x[1, 17] = np.nan
+        res = TestTcpSource()._run(db, machine, [self._header(), encode_frame(np.ones((3, 10),
+                                                                                  np.float32)),
+                                                 encode_frame(x), end_frame(3)])
+        assert res.state == "incomplete"
+        assert "channel 'ch2', sample 27: value nan is not a finite number" in res.error
+        assert "np." not in res.error

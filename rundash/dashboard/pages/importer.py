@@ -12,9 +12,11 @@ from __future__ import annotations
 import base64
 import binascii
 import re
+import sys
 import tempfile
 import threading
 import time
+import traceback
 import uuid
 from dataclasses import dataclass, field, replace
 from datetime import datetime, timezone
@@ -22,7 +24,7 @@ from pathlib import Path
 from typing import Any
 
 from rundash.dashboard import ids
-from rundash.errors import DuplicateRunError, RundashError
+from rundash.errors import DuplicateRunError, InputError, RundashError, plain_text
 
 PATH = "/import"
 TITLE = "Import a run"
@@ -99,11 +101,15 @@ def machine_description_text(db, source: str | None, upload: str | None) -> tupl
     ``source`` is ``'upload'`` or ``'machine:<id>'`` (reuse the description stored with
     that machine's newest run).
     """
-    from rundash.errors import InputError
+    from rundash.errors import invalid_value
     from rundash.storage import queries as q
 
     if source and source.startswith("machine:"):
-        mid = int(source.split(":", 1)[1])
+        try:
+            mid = int(source.split(":", 1)[1])
+        except ValueError:
+            raise InputError(invalid_value("machine description source", source,
+                                           "'upload' or 'machine:<id>'")) from None
         with db.read() as conn:
             runs = q.list_runs(conn, mid)
             text = q.run_description_toml(conn, runs[0].id) if runs else ""
@@ -138,10 +144,21 @@ class ImportJobs:
         self._db = db
         self._lock = threading.Lock()
         self._jobs: dict[str, JobState] = {}
+        self._threads: dict[str, threading.Thread] = {}
 
     def get(self, job_id: str | None) -> JobState | None:
+        """The job's state; a worker thread gone without a result counts as failed."""
+        if not isinstance(job_id, str):
+            return None
         with self._lock:
-            return self._jobs.get(job_id or "")
+            st = self._jobs.get(job_id)
+            t = self._threads.get(job_id)
+            if st is not None and not st.done and t is not None and not t.is_alive():
+                st = self._jobs[job_id] = replace(
+                    st, done=True, stage="failed",
+                    error=f"the import stopped at '{st.stage}' without a result (see the "
+                          "server's log)")
+            return st
 
     def _set(self, job_id: str, **changes) -> None:
         with self._lock:
@@ -158,6 +175,8 @@ class ImportJobs:
                                          description_text=description_text, label=label,
                                          cycle=cycle, kind=kind, started_at=started_at,
                                          process=process))
+        with self._lock:
+            self._threads[job_id] = t
         t.start()
         return job_id
 
@@ -199,10 +218,26 @@ class ImportJobs:
         except DuplicateRunError as exc:
             self._set(job_id, done=True, stage="refused", error=f"{exc}")
         except RundashError as exc:
-            self._set(job_id, done=True, stage="failed", error=str(exc))
+            self._set(job_id, done=True, stage="failed", error=self._where(job_id, str(exc)))
         except (OSError, ValueError) as exc:  # a file the readers could not make sense of
             self._set(job_id, done=True, stage="failed",
-                      error=f"{type(exc).__name__}: {exc}")
+                      error=self._where(job_id, f"{type(exc).__name__}: {exc}"))
+        except Exception as exc:  # noqa: BLE001 - the job's last word: never a silent death
+            # Whatever went wrong, the job ends with a visible error (else the status line
+            # polls forever); the traceback goes to the server's log for the bug report.
+            traceback.print_exc(file=sys.stderr)
+            self._set(job_id, done=True, stage="failed", error=self._where(
+                job_id, f"unexpected {type(exc).__name__}: {plain_text(str(exc))[:300]} "
+                        "(a fault in rundash, not in your file alone: the details are in the "
+                        "server's log)"))
+
+    def _where(self, job_id: str, error: str) -> str:
+        """The error, saying which run stays imported when processing failed."""
+        st = self.get(job_id)
+        if st is not None and st.run_id is not None:
+            return (f"imported as run {st.run_id} but not processed: {error}; fix the cause "
+                    f"and run 'rundash process {st.run_id}'")
+        return error
 
 
 def status_view(state: JobState | None):
@@ -224,12 +259,30 @@ def status_view(state: JobState | None):
     return f"{state.stage}: {pct} ({elapsed:.1f} s)", pct, "", True
 
 
+def form_text(value: Any, what: str, *, max_chars: int | None = 10_000) -> str | None:
+    """A form field as text (None when empty); a field that arrives as anything else (a
+    crafted request) or longer than ``max_chars`` is an :class:`InputError`."""
+    if value is None:
+        return None
+    if not isinstance(value, str):
+        raise InputError(f"the form field {what!r} did not arrive as text")
+    if max_chars is not None and len(value) > max_chars:
+        raise InputError(f"the form field {what!r} is longer than {max_chars} characters")
+    return value
+
+
 def start_import(jobs: ImportJobs, db, *, data_contents, data_name, machine_source,
                  machine_contents, label, cycle, kind, started) -> tuple[str | None, str | None]:
     """Check the form and start a job: (job id, None) or (None, error message)."""
-    from rundash.errors import InputError
-
     try:
+        data_contents = form_text(data_contents, "data file", max_chars=None)
+        data_name = form_text(data_name, "data file name", max_chars=1000)
+        machine_source = form_text(machine_source, "machine description source", max_chars=100)
+        machine_contents = form_text(machine_contents, "machine description", max_chars=None)
+        label = form_text(label, "label", max_chars=500)
+        cycle = form_text(cycle, "overhaul cycle", max_chars=500)
+        kind = form_text(kind, "kind", max_chars=100)
+        started = form_text(started, "started", max_chars=100)
         if not data_name:
             raise InputError("choose a data file first")
         safe = sanitise_filename(data_name)
@@ -325,6 +378,8 @@ def register_callbacks(app, db) -> None:
     def _data_name(name, contents):
         if not name:
             return ""
+        if not isinstance(name, str) or not isinstance(contents, (str, type(None))):
+            return "That upload did not arrive as a file."
         size = len(contents or "") * 3 / 4 / 2**20
         return f"Chosen: {name} ({size:.1f} MB), saved as {sanitise_filename(name)}"
 
@@ -332,6 +387,8 @@ def register_callbacks(app, db) -> None:
                   Output(ids.MACHINE_SOURCE, "value"),
                   Input(ids.UPLOAD_MACHINE, "filename"), prevent_initial_call=True)
     def _machine_name(name):
+        if name and not isinstance(name, str):
+            return "That upload did not arrive as a file.", no_update
         return (f"Chosen: {name}", "upload") if name else ("", no_update)
 
     @app.callback(Output(ids.JOB, "data"), Output(ids.POLL, "disabled"),

@@ -1,0 +1,164 @@
+"""The dashboard's import jobs end, whatever happens: every failure becomes a visible error
+(before this, an exception of a type the job did not expect killed its worker thread and
+the status line polled forever), and a crafted form field is a message, not HTTP 500."""
+
+from __future__ import annotations
+
+import base64
+import csv
+import time
+
+import numpy as np
+import pytest
+
+from rundash.dashboard import ids
+from rundash.dashboard.pages import importer
+from rundash.storage import queries as q
+from rundash.storage.engine import open_database
+from tests.badinput.make_corpus import machine_text, signals
+
+
+def _wait(jobs, job_id, limit_s=120.0):
+    """Poll like the status line does, until the job says it is done."""
+    t0 = time.monotonic()
+    while time.monotonic() - t0 < limit_s:
+        st = jobs.get(job_id)
+        line, _, _, more = importer.status_view(st)
+        if not more:
+            return st, line
+        time.sleep(0.2)
+    pytest.fail(f"the job still runs after {limit_s} s: {jobs.get(job_id)}")
+
+
+@pytest.fixture
+def db(tmp_path):
+    d = open_database(str(tmp_path / "jobs.sqlite"), create=True)
+    yield d
+    d.dispose()
+
+
+def _spaces_csv(path):
+    """A CSV written by the standard csv module whose header has a space after each name
+    (a KeyError inside the reader killed the job's thread)."""
+    cols = signals()
+    names = ["time_s", "tach", "x1", "y1", "v1"]
+    with open(path, "w", newline="", encoding="utf-8") as f:
+        w = csv.writer(f)
+        w.writerow([n + " " for n in names])
+        for row in np.column_stack([cols[n] for n in names])[:4000]:
+            w.writerow([f"{v:.9g}" for v in row])
+    return path
+
+
+class TestJobsAlwaysEnd:
+    def test_header_with_spaces_ends_with_a_result_or_a_visible_error(self, db, tmp_path):
+        data = _spaces_csv(tmp_path / "spaces.csv").read_bytes()
+        jobs = importer.ImportJobs(db)
+        job = jobs.start(filename="spaces.csv", data=data, description_text=machine_text(),
+                         label="", cycle="", kind="mixed", started_at=None)
+        st, line = _wait(jobs, job)
+        assert st.done
+        if st.error is not None:  # refused: one visible line, nothing stored
+            assert line.startswith("Stopped at ") and "\n" not in st.error
+            with db.read() as conn:
+                assert [r for r in q.list_runs(conn) if r.state != "complete"] == []
+        else:
+            assert st.run_id is not None and line.startswith("Done in ")
+
+    def test_an_unexpected_exception_type_ends_the_job_with_an_error(self, db, capsys):
+        # data that is not bytes makes the job's own file write raise TypeError, a type no
+        # reader raises on purpose: the catch-all must turn it into the job's error
+        jobs = importer.ImportJobs(db)
+        job = jobs.start(filename="x.csv", data=None, description_text=machine_text(),
+                         label="", cycle="", kind="mixed", started_at=None)
+        st, line = _wait(jobs, job, limit_s=30)
+        assert st.done and st.stage == "failed" and line.startswith("Stopped at ")
+        assert st.error.startswith("unexpected TypeError: ")
+        assert "server's log" in st.error
+        assert "Traceback" in capsys.readouterr().err  # the details for the bug report
+
+    def test_a_processing_failure_names_the_run_left_imported(self, db, tmp_path):
+        # no tach pulses at all: imported whole, processing refuses
+        from tests.badinput.make_corpus import csv_text
+        data = csv_text(signals(tach="flat")).encode()
+        jobs = importer.ImportJobs(db)
+        st = jobs.run_sync(filename="flat.csv", data=data, description_text=machine_text(),
+                           label="", cycle="", kind="mixed", started_at=None)
+        assert st.done and st.run_id is not None
+        assert st.error.startswith(f"imported as run {st.run_id} but not processed: ")
+        assert f"rundash process {st.run_id}" in st.error
+
+
+def _dash_post(client, callback_output, inputs, state=()):
+    body = {"output": callback_output, "outputs": [], "inputs": list(inputs),
+            "state": list(state), "changedPropIds": [f"{inputs[0]['id']}.{inputs[0]['property']}"]}
+    return client.post("/_dash-update-component", json=body)
+
+
+class TestCraftedForm:
+    @pytest.fixture
+    def client(self, demo_db):
+        from rundash.dashboard.app import create_app
+        app = create_app(demo_db.db)
+        c = app.server.test_client()
+        deps = c.get("/_dash-dependencies").get_json()
+        return c, deps
+
+    def _callback(self, deps, input_id):
+        (cb,) = [d for d in deps if any(i["id"] == input_id for i in d["inputs"])
+                 and d["inputs"][0]["id"] == input_id]
+        outputs = []
+        for part in cb["output"].strip(".").split("..."):
+            oid, prop = part.rsplit(".", 1)
+            outputs.append({"id": oid, "property": prop.split("@")[0]})
+        return cb, outputs
+
+    @pytest.mark.parametrize("field, value", [
+        ("filename", {"a": 1}), ("filename", ["x.wav", "y.wav"]), ("contents", 12345),
+        ("label", ["a"]), ("machine_source", "machine:abc"), ("machine_source", 7),
+        ("kind", {"k": "mixed"}), ("started", 3.5)])
+    def test_start_with_a_crafted_field_answers_with_a_message(self, client, field, value,
+                                                               demo_db):
+        c, deps = client
+        cb, outputs = self._callback(deps, ids.START)
+        good = base64.b64encode((demo_db.folder / "k410_2025_trip.wav").read_bytes()[:4000])
+        form = {"contents": "data:audio/wav;base64," + good.decode(), "filename": "t.wav",
+                "machine_source": "machine:1", "machine": None, "label": "", "cycle": "",
+                "kind": "mixed", "started": ""}
+        form[field] = value
+        order = [("contents", ids.UPLOAD_DATA, "contents"), ("filename", ids.UPLOAD_DATA, "filename"),
+                 ("machine_source", ids.MACHINE_SOURCE, "value"),
+                 ("machine", ids.UPLOAD_MACHINE, "contents"), ("label", ids.LABEL, "value"),
+                 ("cycle", ids.CYCLE, "value"), ("kind", ids.KIND, "value"),
+                 ("started", ids.STARTED, "value")]
+        body = {"output": cb["output"], "outputs": outputs,
+                "inputs": [{"id": ids.START, "property": "n_clicks", "value": 1}],
+                "state": [{"id": i, "property": p, "value": form[k]} for k, i, p in order],
+                "changedPropIds": [f"{ids.START}.n_clicks"]}
+        r = c.post("/_dash-update-component", json=body)
+        assert r.status_code == 200, r.get_data(as_text=True)[:500]
+        text = r.get_data(as_text=True)
+        assert "Not started." in text and "error" in text
+
+    @pytest.mark.parametrize("name, contents", [(["a.wav"], None), ({"x": 1}, "data:,"),
+                                                ("a.wav", 17)])
+    def test_crafted_upload_name_answers_with_a_message(self, client, name, contents):
+        c, deps = client
+        cb, outputs = self._callback(deps, ids.UPLOAD_DATA)
+        body = {"output": cb["output"], "outputs": outputs[0] if len(outputs) == 1 else outputs,
+                "inputs": [{"id": ids.UPLOAD_DATA, "property": "filename", "value": name},
+                           {"id": ids.UPLOAD_DATA, "property": "contents", "value": contents}],
+                "state": [], "changedPropIds": [f"{ids.UPLOAD_DATA}.filename"]}
+        r = c.post("/_dash-update-component", json=body)
+        assert r.status_code == 200, r.get_data(as_text=True)[:500]
+        assert "did not arrive as a file" in r.get_data(as_text=True)
+
+    def test_poll_with_a_crafted_job_id(self, client):
+        c, deps = client
+        cb, outputs = self._callback(deps, ids.POLL)
+        body = {"output": cb["output"], "outputs": outputs,
+                "inputs": [{"id": ids.POLL, "property": "n_intervals", "value": 3}],
+                "state": [{"id": ids.JOB, "property": "data", "value": {"not": "an id"}}],
+                "changedPropIds": [f"{ids.POLL}.n_intervals"]}
+        r = c.post("/_dash-update-component", json=body)
+        assert r.status_code == 200, r.get_data(as_text=True)[:500]
