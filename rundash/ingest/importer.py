@@ -11,6 +11,7 @@ import numpy as np
 
 from rundash.errors import DuplicateRunError, InputError
 from rundash.ingest import open_reader
+from rundash.ingest.bounds import SAMPLE_RATE_HZ, out_of_range
 from rundash.model import RUN_KINDS, MachineDescription
 from rundash.progress import Progress, no_progress
 from rundash.storage import queries as q
@@ -113,6 +114,9 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
                          f"(e.g. 2026-05-01T06:00:00Z), got {started_at.isoformat()!r}")
     reader = open_reader(path, desc.data)
     try:
+        if bad := out_of_range(reader.sample_rate_hz, SAMPLE_RATE_HZ):
+            raise InputError(f"{path.name}: sample rate: {bad} (from the file's header or "
+                             "time column, or [data].sample_rate_hz: check its unit)")
         plan = _channel_plan(desc, reader.channels, path.name)
         hasher = _BackgroundHash(path)
         warnings: list[str] = []

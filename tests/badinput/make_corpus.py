@@ -558,6 +558,9 @@ def build(folder: str | Path) -> list[Case]:
     clip["x1"] = np.clip(base["x1"], -lim, lim)
     case("probe_clipped_csv", write_csv(root / "probe_clipped.csv", clip).name, "warned",
          [r"'x1'", "C1-X", "clipped"], "a probe clipped at +-40 % of its peak")
+
+    from tests.badinput import bounds_cases  # numbers outside physical ranges
+    cases += bounds_cases.cases(root)
     return cases
 
 
