@@ -32,6 +32,7 @@ import os
 import sqlite3
 import time
 from contextlib import contextmanager
+from contextvars import ContextVar
 from dataclasses import dataclass
 from importlib import resources
 from pathlib import Path
@@ -49,6 +50,8 @@ BUSY_TIMEOUT_MS = 15000
 WRITE_LOCK_WAIT_S = 600.0
 LOCK_WAIT_ENV = "RUNDASH_LOCK_WAIT_S"
 _LOCK_STEP_MS = 500
+_LOCK_WAIT_LISTENER: ContextVar[Callable[[float, float], None] | None] = ContextVar(
+    "rundash_lock_wait_listener", default=None)
 #: Tables every rundash schema has: a database with these and an unknown revision was
 #: made by a newer rundash, one without them belongs to another program.
 _RUNDASH_TABLES = {"machine", "run", "channel"}
@@ -173,8 +176,9 @@ class Database:
     def write(self) -> Iterator[Connection]:
         """A write transaction (BEGIN IMMEDIATE on SQLite, waiting up to ``lock_wait_s`` for
         another writer): commits whole or not at all."""
+        report = _LOCK_WAIT_LISTENER.get() or self.on_lock_wait
         opts = dict(rundash_write=True,
-                    rundash_lock_wait=(self.lock_wait_s, self.on_lock_wait, self.shown))
+                    rundash_lock_wait=(self.lock_wait_s, report, self.shown))
         with _said(self.shown):
             with self.engine.connect().execution_options(**opts) as conn:
                 with conn.begin():
@@ -182,6 +186,18 @@ class Database:
 
     def dispose(self) -> None:
         self.engine.dispose()
+
+
+@contextmanager
+def hearing_lock_waits(report: Callable[[float, float], None]) -> Iterator[None]:
+    """Within the block (in this thread), write transactions tell ``report(waited_s,
+    limit_s)`` while they wait for another writer's lock, instead of the database's own
+    ``on_lock_wait`` (a dashboard job shows it in its status line)."""
+    token = _LOCK_WAIT_LISTENER.set(report)
+    try:
+        yield
+    finally:
+        _LOCK_WAIT_LISTENER.reset(token)
 
 
 def _shown(url: str) -> str:

@@ -162,3 +162,32 @@ class TestCraftedForm:
                 "changedPropIds": [f"{ids.POLL}.n_intervals"]}
         r = c.post("/_dash-update-component", json=body)
         assert r.status_code == 200, r.get_data(as_text=True)[:500]
+
+
+class TestWaitingForTheDatabase:
+    def test_the_status_line_says_the_job_waits_for_another_writer(self, db, tmp_path):
+        import subprocess
+        import sys
+
+        from tests.badinput.make_corpus import csv_text
+        from tests.storage.test_engine import LOCK_HOLDER
+
+        holder = subprocess.Popen([sys.executable, "-c", LOCK_HOLDER,
+                                   db.engine.url.database, "3"],
+                                  stdout=subprocess.PIPE, text=True)
+        assert holder.stdout.readline().strip() == "locked"
+        jobs = importer.ImportJobs(db)
+        job = jobs.start(filename="good.csv", data=csv_text(signals()).encode(),
+                         description_text=machine_text(), label="", cycle="", kind="mixed",
+                         started_at=None, process=False)
+        lines = []
+        t0 = time.monotonic()
+        while time.monotonic() - t0 < 60:
+            line, _, _, more = importer.status_view(jobs.get(job))
+            lines.append(line)
+            if not more:
+                break
+            time.sleep(0.1)
+        holder.wait(10)
+        assert any("for another writer to finish with the database" in ln for ln in lines)
+        assert lines[-1].startswith("Done in "), lines[-1]

@@ -190,11 +190,24 @@ class ImportJobs:
 
     def _run(self, *, job_id, filename, data, description_text, label, cycle, kind,
              started_at, process=True) -> None:
-        from rundash.ingest.importer import import_run
-        from rundash.ingest.machine_file import parse_machine_description
+        from rundash.storage.engine import hearing_lock_waits
 
         def progress(fraction: float, stage: str) -> None:
             self._set(job_id, stage=stage, fraction=float(min(max(fraction, 0.0), 1.0)))
+
+        def lock_wait(waited_s: float, limit_s: float) -> None:
+            self._set(job_id, stage=f"waiting {waited_s:.0f} s (at most {limit_s:.0f} s) for "
+                                    "another writer to finish with the database")
+
+        with hearing_lock_waits(lock_wait):
+            self._work(job_id, progress, filename=filename, data=data,
+                       description_text=description_text, label=label, cycle=cycle,
+                       kind=kind, started_at=started_at, process=process)
+
+    def _work(self, job_id, progress, *, filename, data, description_text, label, cycle, kind,
+              started_at, process) -> None:
+        from rundash.ingest.importer import import_run
+        from rundash.ingest.machine_file import parse_machine_description
 
         try:
             desc = parse_machine_description(description_text, "machine description")
