@@ -72,7 +72,8 @@ class TestJobsAlwaysEnd:
         job = jobs.start(filename="x.csv", data=None, description_text=machine_text(),
                          label="", cycle="", kind="mixed", started_at=None)
         st, line = _wait(jobs, job, limit_s=30)
-        assert st.done and st.stage == "failed" and line.startswith("Stopped at ")
+        assert st.done and st.stage == "saving upload"  # where it stopped, said
+        assert line.startswith("Stopped at 'saving upload' after ")
         assert st.error.startswith("unexpected TypeError: ")
         assert "server's log" in st.error
         assert "Traceback" in capsys.readouterr().err  # the details for the bug report
@@ -191,3 +192,40 @@ class TestWaitingForTheDatabase:
         holder.wait(10)
         assert any("for another writer to finish with the database" in ln for ln in lines)
         assert lines[-1].startswith("Done in "), lines[-1]
+
+
+@pytest.mark.skipif(__import__("shutil").which("chromedriver") is None,
+                    reason="chromedriver is not installed (see .ci/run)")
+def test_a_failing_upload_ends_with_a_visible_error_in_the_browser(dash_duo, demo_db, tmp_path):
+    """The real server in headless Chromium: a file whose processing fails (no tach pulses)
+    ends the status line with the error, and the page stops polling."""
+    from rundash.dashboard.app import create_app
+    from tests.badinput.make_corpus import csv_text
+    from tests.dashboard.conftest import ARTIFACTS
+
+    data = tmp_path / "flat_tach.csv"
+    data.write_text(csv_text(signals(tach="flat")), encoding="utf-8")
+    machine = tmp_path / "rig.toml"
+    machine.write_text(machine_text(), encoding="utf-8")
+    dash_duo.start_server(create_app(demo_db.db))
+    dash_duo.driver.get(dash_duo.server_url + "/import")
+    dash_duo.wait_for_element(f"#{ids.UPLOAD_DATA} input[type=file]", timeout=10)
+    dash_duo.find_element(f"#{ids.UPLOAD_DATA} input[type=file]").send_keys(str(data))
+    dash_duo.wait_for_contains_text(f"#{ids.UPLOAD_DATA_NAME}", "flat_tach.csv", timeout=10)
+    dash_duo.find_element(f"#{ids.UPLOAD_MACHINE} input[type=file]").send_keys(str(machine))
+    dash_duo.wait_for_contains_text(f"#{ids.UPLOAD_MACHINE_NAME}", "rig.toml", timeout=10)
+    el = dash_duo.find_element(f"#{ids.START}")
+    dash_duo.driver.execute_script("arguments[0].scrollIntoView({block: 'center'});", el)
+    el.click()
+    dash_duo.wait_for_contains_text(f"#{ids.RESULT}", "but not processed", timeout=60)
+    dash_duo.wait_for_contains_text(f"#{ids.STATUS}", "Stopped at 'tach", timeout=5)
+    assert "Too few tach pulses" in dash_duo.find_element(f"#{ids.RESULT}").text
+    ARTIFACTS.mkdir(exist_ok=True)
+    dash_duo.driver.save_screenshot(str(ARTIFACTS / "import-failed.png"))
+    assert dash_duo.driver.execute_script(
+        f"return document.getElementById('{ids.POLL}') !== null") is not None
+    time.sleep(1.5)  # stopped polling: the status line does not change any more
+    first = dash_duo.find_element(f"#{ids.STATUS}").text
+    time.sleep(1.0)
+    assert dash_duo.find_element(f"#{ids.STATUS}").text == first
+    assert [e for e in dash_duo.get_logs() or [] if e.get("level") == "SEVERE"] == []

@@ -155,7 +155,7 @@ class ImportJobs:
             t = self._threads.get(job_id)
             if st is not None and not st.done and t is not None and not t.is_alive():
                 st = self._jobs[job_id] = replace(
-                    st, done=True, stage="failed",
+                    st, done=True,
                     error=f"the import stopped at '{st.stage}' without a result (see the "
                           "server's log)")
             return st
@@ -231,15 +231,15 @@ class ImportJobs:
         except DuplicateRunError as exc:
             self._set(job_id, done=True, stage="refused", error=f"{exc}")
         except RundashError as exc:
-            self._set(job_id, done=True, stage="failed", error=self._where(job_id, str(exc)))
+            self._set(job_id, done=True, error=self._where(job_id, str(exc)))
         except (OSError, ValueError) as exc:  # a file the readers could not make sense of
-            self._set(job_id, done=True, stage="failed",
+            self._set(job_id, done=True,
                       error=self._where(job_id, f"{type(exc).__name__}: {exc}"))
         except Exception as exc:  # noqa: BLE001 - the job's last word: never a silent death
             # Whatever went wrong, the job ends with a visible error (else the status line
             # polls forever); the traceback goes to the server's log for the bug report.
             traceback.print_exc(file=sys.stderr)
-            self._set(job_id, done=True, stage="failed", error=self._where(
+            self._set(job_id, done=True, error=self._where(
                 job_id, f"unexpected {type(exc).__name__}: {plain_text(str(exc))[:300]} "
                         "(a fault in rundash, not in your file alone: the details are in the "
                         "server's log)"))
