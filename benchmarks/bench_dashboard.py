@@ -71,7 +71,7 @@ pair = "{other}"
 def build(folder: Path, minutes: float, n_probes: int, fs: float):
     from rundash.ingest.importer import import_run
     from rundash.ingest.machine_file import parse_machine_description
-    from rundash.pipeline import process_run
+    from rundash.workflows.pipeline import process_run
 
     dur = 60.0 * minutes
     sweep = synth.smooth_sweep(300.0, 5300.0, dur)

@@ -25,7 +25,7 @@ import numpy as np
 from rundash.ingest.machine_file import parse_machine_description
 from rundash.ingest.recorder import record
 from rundash.ingest.sources import Source, StreamHeader
-from rundash.live import LiveParams, record_live
+from rundash.workflows.live import LiveParams, record_live
 from rundash.storage.engine import open_database
 
 FS = 25600.0

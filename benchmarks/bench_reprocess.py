@@ -3,7 +3,7 @@
     python benchmarks/bench_reprocess.py
 
 Imports synthetic runs into a SQLite file, starts a local cluster (single-threaded
-worker processes) before the clock starts, and times rundash.batch.reprocess over all
+worker processes) before the clock starts, and times rundash.workflows.batch.reprocess over all
 runs with 1 and then 2 workers; prints runs/s and the ratio (one run, not asserted).
 """
 
@@ -19,7 +19,7 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from rundash.batch import local_cluster, reprocess  # noqa: E402
+from rundash.workflows.batch import local_cluster, reprocess  # noqa: E402
 from rundash.ingest.importer import import_run  # noqa: E402
 from rundash.ingest.machine_file import parse_machine_description  # noqa: E402
 from rundash.storage.engine import open_database  # noqa: E402
@@ -29,8 +29,8 @@ N_RUNS, SECONDS, FS = 12, 120, 8192
 
 
 def _warm_up(path: str) -> None:
-    from rundash.batch import _database
-    import rundash.findings, rundash.pipeline  # noqa: F401
+    from rundash.workflows.batch import _database
+    import rundash.workflows.findings, rundash.workflows.pipeline  # noqa: F401
     _database(path)
 
 

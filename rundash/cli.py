@@ -86,7 +86,7 @@ def cmd_import(*, db: str | None, data: str, machine: str, label: str, cycle: st
     for w in res.warnings:
         print(f"warning: {w}", file=sys.stderr)
     if process:
-        from rundash.pipeline import process_run
+        from rundash.workflows.pipeline import process_run
         try:
             process_run(database, res.run_id, progress=bar)
         except RundashError as exc:  # the import stands: say which run is left unprocessed
@@ -195,7 +195,7 @@ def _parse_window(text: str | None) -> tuple[float, float] | None:
 
 def cmd_process(*, db: str | None, run: int, orders: str, revs_per_block: int,
                 slow_roll: str | None, quiet: bool) -> int:
-    from rundash.pipeline import ProcessingParams, process_run
+    from rundash.workflows.pipeline import ProcessingParams, process_run
 
     params = ProcessingParams(orders=_parse_orders(orders), revs_per_block=revs_per_block,
                               slow_roll_rpm=_parse_window(slow_roll))
@@ -281,7 +281,7 @@ def cmd_serve(*, db: str | None, host: str, port: int, debug: bool,
 
 
 def cmd_demo(*, db: str | None, host: str, port: int, serve: bool, quiet: bool) -> int:
-    from rundash.demo import build_demo
+    from rundash.workflows.demo import build_demo
 
     database = _open(db or DEMO_DB, create=True)
     ids = build_demo(database, progress=_bar(quiet), log=print)
@@ -332,7 +332,7 @@ def _pm(value, sigma, spec=".1f", unit=""):
 
 def cmd_compare(*, db: str | None, runs: list[int], as_json: bool, boot: int,
                 speeds: str | None) -> int:
-    from rundash.comparison import compare_runs
+    from rundash.workflows.comparison import compare_runs
 
     phase_speeds = None
     if speeds:
@@ -439,7 +439,7 @@ def cmd_record(*, db: str | None, machine: str, source: str, label: str, cycle: 
 
     from rundash.ingest.machine_file import load_machine_description
     from rundash.ingest.sources import parse_source
-    from rundash.live import LiveParams, WarningSettings, record_live
+    from rundash.workflows.live import LiveParams, WarningSettings, record_live
 
     desc, text = load_machine_description(machine)
     database = _open(db, create=True)
@@ -467,7 +467,7 @@ def cmd_record(*, db: str | None, machine: str, source: str, label: str, cycle: 
 
 def cmd_reprocess(*, db: str | None, machine: str | None, all_runs: bool, workers: int,
                   scheduler: str | None, orders: str, quiet: bool) -> int:
-    from rundash.batch import reprocess
+    from rundash.workflows.batch import reprocess
     from rundash.errors import NotFoundError
     from rundash.storage import queries as q
 

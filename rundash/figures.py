@@ -907,9 +907,8 @@ def guidance_lines(profile, *, kind: str, max_continuous_speed_rpm: float,
 
     Parameters
     ----------
-    profile : str or Profile
-        A shipped profile name, a path, or a loaded :class:`~rundash.analysis.profiles.
-        Profile`.
+    profile : Profile
+        A loaded profile (:func:`rundash.ingest.profile_file.load_profile`).
     kind : str
         Transducer kind of the probe shown.
     max_continuous_speed_rpm : float
@@ -926,9 +925,10 @@ def guidance_lines(profile, *, kind: str, max_continuous_speed_rpm: float,
         reference lines (``verdict_line`` False): they are meant for steady operation.
     """
     from rundash.analysis.limits import shaft_zone_boundaries_um_pp
-    from rundash.analysis.profiles import load_profile, reference_zones
+    from rundash.analysis.profiles import as_profile
+    from rundash.analysis.zones import SHAFT_DISPLACEMENT, cite as zone_cite
 
-    prof = load_profile(profile)
+    prof = as_profile(profile)
     out: list[dict[str, Any]] = []
     for lim in prof.limits:
         if lim.transducer != kind:
@@ -946,8 +946,7 @@ def guidance_lines(profile, *, kind: str, max_continuous_speed_rpm: float,
     if include_reference_zones and kind == "proximity":
         lo = max(speed_range_rpm[0], 1.0)
         n = np.linspace(max(lo, 0.25 * speed_range_rpm[1]), speed_range_rpm[1], 60)
-        z = reference_zones()["shaft_displacement"]
-        cite = f"{z['document']}, {z['edition']}, {z['clause']} ({z['confidence']})"
+        cite = zone_cite(SHAFT_DISPLACEMENT)
         for name, curve in zip(("A/B", "B/C", "C/D"), shaft_zone_boundaries_um_pp(n)):
             out.append({"label": f"ISO zone {name} (reference, steady operation)",
                         "measure": "direct", "speed_rpm": n.tolist(), "values": curve.tolist(),
@@ -1213,7 +1212,7 @@ def comparison_trend(comparison: Mapping[str, Any], *, probe: str,
     ----------
     comparison : dict
         A comparison of schema ``rundash.comparison/1``
-        (:func:`rundash.comparison.compare_runs`). Each run's ``estimates`` of ``probe``
+        (:func:`rundash.workflows.comparison.compare_runs`). Each run's ``estimates`` of ``probe``
         give the points: ``speed_rpm`` ± ``speed_std_rpm`` and ``af`` ± ``af_std``
         (one-sigma bootstrap spreads; a missing spread draws no bar).
     probe : str

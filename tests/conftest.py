@@ -23,7 +23,7 @@ from rundash.storage.engine import open_database
 DB_KINDS = ("sqlite", "postgresql")
 PG_ENV = "RUNDASH_TEST_PG_URL"
 # test paths (relative to tests/) whose database tests run on both databases
-BOTH_DATABASES = ("storage/", "pipeline/", "fleet/", "test_pipeline.py")
+BOTH_DATABASES = ("storage/", "pipeline/", "fleet/", "workflows/test_pipeline.py")
 
 
 def pytest_addoption(parser):

@@ -16,8 +16,8 @@ import pytest
 
 from rundash import CAUTION
 from rundash.cli import main
-from rundash.comparison import SCHEMA, compare_runs
-from rundash.demo import build_demo, sample_runs_dir
+from rundash.workflows.comparison import SCHEMA, compare_runs
+from rundash.workflows.demo import build_demo, sample_runs_dir
 from rundash.storage import queries as q
 from rundash.storage.engine import open_database
 

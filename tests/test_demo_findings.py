@@ -16,7 +16,7 @@ import json
 import pytest
 
 from rundash.cli import main
-from rundash.demo import build_demo, sample_runs_dir
+from rundash.workflows.demo import build_demo, sample_runs_dir
 from rundash.storage import queries as q
 from rundash.storage.engine import open_database
 

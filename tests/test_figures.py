@@ -9,7 +9,8 @@ import pytest
 from numpy.testing import assert_allclose
 
 from rundash import figures
-from rundash.analysis.profiles import load_profile, required_margin_pct
+from rundash.analysis.profiles import required_margin_pct
+from rundash.ingest.profile_file import load_profile
 from rundash.units import UM_PER_MIL
 
 OPERATING = {"min_operating_speed_rpm": 4400.0, "max_continuous_speed_rpm": 5460.0,
@@ -89,8 +90,8 @@ class TestBode:
         assert {s["x0"] for s in vlines} >= {3000.0, 4100.0}
 
     def test_half_power_band_and_margin_zone(self):
-        # required margin for AF 5 below N_min: 12.143 % (DESIGN check value derived from
-        # the API 617-style rule min(16, 17 (1 - 1/(AF - 1.5))), from memory)
+        # required margin for AF 5 below N_min: 12.143 % (DEVELOPERS.md "Reference values":
+        # derived from the API 617-style rule min(16, 17 (1 - 1/(AF - 1.5))), from memory)
         req = required_margin_pct(load_profile("api617"), 5.0, "below")
         assert_allclose(req, 12.143, atol=5e-4)
         d = figures.bode([track()], criticals=[critical(required_margin_pct=req)],
@@ -171,12 +172,12 @@ class TestLimits:
     def test_api617_direct_limit_value(self):
         # API 617-style unfiltered limit min(25.4, 25.4 sqrt(12000/N_mc)) um p-p
         # (API 617 8th ed., mechanical running test; from memory)
-        lines = figures.guidance_lines("api617", kind="proximity", max_continuous_speed_rpm=15000.0,
+        lines = figures.guidance_lines(load_profile("api617"), kind="proximity", max_continuous_speed_rpm=15000.0,
                                        speed_range_rpm=(0.0, 15000.0))
         api = [ln for ln in lines if ln.get("verdict_line")]
         assert len(api) == 1
         assert_allclose(api[0]["value"], 25.4 * np.sqrt(12000.0 / 15000.0), rtol=1e-12)
-        capped = figures.guidance_lines("api617", kind="proximity",
+        capped = figures.guidance_lines(load_profile("api617"), kind="proximity",
                                         max_continuous_speed_rpm=5460.0,
                                         speed_range_rpm=(0.0, 5460.0))
         assert_allclose([ln["value"] for ln in capped if ln.get("verdict_line")], [25.4])
@@ -184,18 +185,18 @@ class TestLimits:
     def test_iso_shaft_zones_as_reference_curves(self):
         # ISO 7919-3 zone boundaries 4800/sqrt(n), 9000/sqrt(n), 13200/sqrt(n) um p-p:
         # 80 / 150 / 220 at 3600 rpm (ISO 7919-3:2009 Annex A, from memory)
-        lines = figures.guidance_lines("api617", kind="proximity", max_continuous_speed_rpm=5460.0,
+        lines = figures.guidance_lines(load_profile("api617"), kind="proximity", max_continuous_speed_rpm=5460.0,
                                        speed_range_rpm=(0.0, 3600.0))
         zones = [ln for ln in lines if not ln.get("verdict_line")]
         assert [z["label"][:12] for z in zones] == ["ISO zone A/B", "ISO zone B/C",
                                                      "ISO zone C/D"]
         assert_allclose([arr(z["values"])[-1] for z in zones], [80.0, 150.0, 220.0])
-        assert not figures.guidance_lines("api617", kind="velocity",
+        assert not figures.guidance_lines(load_profile("api617"), kind="velocity",
                                           max_continuous_speed_rpm=5460.0,
                                           speed_range_rpm=(0.0, 3600.0))
 
     def test_direct_figure_draws_limit_at_profile_value(self):
-        lines = figures.guidance_lines("api617", kind="proximity", max_continuous_speed_rpm=15000.0,
+        lines = figures.guidance_lines(load_profile("api617"), kind="proximity", max_continuous_speed_rpm=15000.0,
                                        speed_range_rpm=(0.0, 5500.0))
         d = figures.direct_vs_filtered([track()], limit_lines=lines).to_dict()
         lim = [t for t in d["data"] if t.get("meta") == "limit" and
@@ -319,7 +320,7 @@ class TestValidFigures:
         lambda: figures.polar([track()], criticals=[critical()], cursor_rpm=3000.0),
         lambda: figures.direct_vs_filtered(
             [track()], operating=OPERATING, limit_lines=figures.guidance_lines(
-                "api617", kind="proximity", max_continuous_speed_rpm=5460.0,
+                load_profile("api617"), kind="proximity", max_continuous_speed_rpm=5460.0,
                 speed_range_rpm=(0.0, 5500.0))),
         lambda: figures.speed_time(np.linspace(0, 40, 401), np.linspace(300, 5900, 401),
                                    criticals=[critical()], operating=OPERATING),

@@ -1,5 +1,11 @@
-"""Imports follow the layer map (DEVELOPERS.md, "Layers"): parse every module and fail
-on an import that runs the wrong way, naming the file and line."""
+"""Imports follow the layer map of DEVELOPERS.md ("Layers"), keyed by folder: parse every
+module and fail on an import that runs the wrong way, naming the file and line.
+
+A module's layer is the folder (or top-level module) it sits in under ``rundash/``:
+``rundash/workflows/live.py`` is in ``workflows``, ``rundash/cli.py`` in ``cli``. The
+migrations (``migrations/``, installed as ``rundash.migrations``) are the ``migrations``
+layer. There are no passes by module name.
+"""
 
 from __future__ import annotations
 
@@ -8,10 +14,13 @@ import subprocess
 import sys
 from pathlib import Path
 
-ROOT = Path(__file__).resolve().parents[1]
-LEAVES = {"rundash", "rundash.errors", "rundash.units", "rundash.conventions", "rundash.progress"}
+import pytest
 
-# layer -> layers it may import (besides itself and the leaves)
+ROOT = Path(__file__).resolve().parents[1]
+# leaves: anyone may import them; they import only each other
+LEAVES = {"", "errors", "units", "conventions", "progress"}
+
+# layer -> layers it may import (besides itself and the leaves); DEVELOPERS.md, "Layers"
 ALLOWED = {
     "leaf": set(),
     "model": set(),
@@ -19,36 +28,24 @@ ALLOWED = {
     "analysis": {"dsp"},
     "storage": {"model"},
     "migrations": {"storage"},
-    "ingest": {"storage", "model"},
-    "pipeline": {"storage", "ingest", "dsp", "analysis", "model", "findings"},
-    "batch": {"pipeline", "storage", "model"},  # pipeline level: process_run on Dask
-    "live": {"pipeline", "storage", "ingest", "dsp", "analysis", "model"},
-    "findings": {"analysis", "dsp", "model"},
+    "ingest": {"storage", "model", "analysis"},
+    "workflows": {"storage", "ingest", "dsp", "analysis", "model"},
     "figures": {"analysis", "dsp", "model"},
-    "face": {"pipeline", "batch", "live", "figures", "model", "storage", "ingest", "demo", "face",
-             "analysis.profiles"},
-    "demo": {"pipeline", "ingest", "storage", "model"},
+    "report": {"workflows", "figures", "model", "storage", "ingest"},
+    "dashboard": {"workflows", "figures", "model", "storage", "ingest", "report"},
+    "cli": {"workflows", "figures", "model", "storage", "ingest", "report", "dashboard"},
 }
+# the pure layers: no I/O, no tables, no plots (DEVELOPERS.md, "Layers")
+PURE = ("dsp", "analysis")
+NO_IO = {"sqlalchemy", "pandas", "plotly", "dash", "flask", "h5py", "pyarrow", "alembic",
+         "tomllib", "pathlib", "io", "json", "csv", "sqlite3", "socket", "shutil",
+         "tempfile", "importlib", "pickle", "subprocess"}
 
 
 def layer_of(module: str) -> str:
-    if module in LEAVES:
-        return "leaf"
-    if module.startswith("rundash.migrations"):
-        return "migrations"
     parts = module.split(".")
-    second = parts[1] if len(parts) > 1 else ""
-    if second in ("dashboard", "report", "cli"):
-        return "face"
-    if second == "comparison":  # pipeline-level glue: storage reads + analysis
-        return "pipeline"
-    return second
-
-
-def target_layer(name: str) -> str:
-    if name.startswith("rundash.analysis.profiles"):
-        return "analysis.profiles"
-    return layer_of(name)
+    key = parts[1] if len(parts) > 1 else ""
+    return "leaf" if key in LEAVES else key
 
 
 def modules():
@@ -62,14 +59,15 @@ def modules():
         yield name, path
 
 
-def imported(tree: ast.AST, module: str):
+def imported(tree: ast.AST, module: str, is_package: bool):
     for node in ast.walk(tree):
         if isinstance(node, ast.Import):
             for a in node.names:
                 yield a.name, node.lineno
         elif isinstance(node, ast.ImportFrom):
             if node.level:
-                base = module.split(".")[: -node.level]
+                base = module.split(".")
+                base = base[: len(base) - node.level + (1 if is_package else 0)]
                 name = ".".join(base + ([node.module] if node.module else []))
             else:
                 name = node.module or ""
@@ -80,34 +78,57 @@ def imported(tree: ast.AST, module: str):
                     yield f"rundash.{a.name}", node.lineno
 
 
+def _tree(path: Path) -> ast.AST:
+    return ast.parse(path.read_text(encoding="utf-8"), filename=str(path))
+
+
+def test_every_folder_has_a_layer():
+    unknown = sorted({layer_of(m) for m, _ in modules()} - set(ALLOWED))
+    assert not unknown, (f"folders of rundash/ without a layer in the map: {unknown} "
+                         "(add them to ALLOWED here and to DEVELOPERS.md)")
+
+
 def test_imports_follow_the_layer_map():
     bad = []
     for module, path in modules():
         src = layer_of(module)
-        allowed = ALLOWED[src] | {src}
-        tree = ast.parse(path.read_text(encoding="utf-8"))
-        for name, line in imported(tree, module):
-            if not name.startswith("rundash") or name in LEAVES:
+        allowed = ALLOWED.get(src, set()) | {src, "leaf"}
+        for name, line in imported(_tree(path), module, path.name == "__init__.py"):
+            if name.split(".")[0] != "rundash":
                 continue
-            if name.startswith("rundash.sample_runs"):
-                continue
-            dst = target_layer(name)
-            if dst == "leaf" or dst in allowed or (dst == "analysis.profiles" and
-                                                   "analysis" in allowed):
-                continue
-            bad.append(f"{path.relative_to(ROOT)}:{line}: {src} imports {name} ({dst})")
+            dst = layer_of(name)
+            if dst not in allowed:
+                bad.append(f"{path.relative_to(ROOT)}:{line}: {src} imports {name} ({dst})")
     assert not bad, "imports against the layer map:\n" + "\n".join(bad)
 
 
-def test_pure_layers_import_no_io_libraries():
-    forbidden = {"sqlalchemy", "pandas", "plotly", "dash", "h5py", "pyarrow", "alembic"}
+def test_no_private_names_across_modules():
+    """``from rundash.x import _name`` reaches into another module's insides."""
     bad = []
     for module, path in modules():
-        if layer_of(module) not in ("dsp", "analysis"):
+        for node in ast.walk(_tree(path)):
+            if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("rundash"):
+                for a in node.names:
+                    if a.name.startswith("_") and not a.name.startswith("__"):
+                        bad.append(f"{path.relative_to(ROOT)}:{node.lineno}: imports "
+                                   f"{node.module}.{a.name}")
+    assert not bad, "\n".join(bad)
+
+
+@pytest.mark.parametrize("layer", PURE)
+def test_pure_layers_do_no_io(layer):
+    bad = []
+    for module, path in modules():
+        if layer_of(module) != layer:
             continue
-        for name, line in imported(ast.parse(path.read_text(encoding="utf-8")), module):
-            if name.split(".")[0] in forbidden:
+        tree = _tree(path)
+        for name, line in imported(tree, module, path.name == "__init__.py"):
+            if name.split(".")[0] in NO_IO:
                 bad.append(f"{path.relative_to(ROOT)}:{line}: imports {name}")
+        for node in ast.walk(tree):
+            if (isinstance(node, ast.Call) and isinstance(node.func, ast.Name)
+                    and node.func.id in ("open", "print", "input")):
+                bad.append(f"{path.relative_to(ROOT)}:{node.lineno}: calls {node.func.id}()")
     assert not bad, "\n".join(bad)
 
 

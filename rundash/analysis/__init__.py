@@ -22,11 +22,14 @@ Mode-shape hints (:mod:`rundash.analysis.modes`)
     mode_hint           -- cylindrical / conical / unclear from the lags at two bearings
     ModeHint            -- its result
 
-Guidance profiles (:mod:`rundash.analysis.profiles`, data in ``profiles/*.toml``)
-    list_profiles       -- names of the shipped profiles
-    load_profile        -- a shipped profile by name or a user's TOML file, validated
+Guidance profiles (:mod:`rundash.analysis.profiles`; files in ``profiles/*.toml`` are
+read by :func:`rundash.ingest.profile_file.load_profile`)
     required_margin_pct -- margin a critical needs below N_min or above N_mc
     Profile             -- a loaded profile (rules carry document, edition, clause, confidence)
+    as_profile          -- the profile itself, or a clear error for anything else
+
+Reference zones (:mod:`rundash.analysis.zones`): ISO shaft displacement and bearing
+velocity zone tables (from memory)
 
 Limits (:mod:`rundash.analysis.limits`)
     check_levels        -- highest direct/1X level per critical band and at top speed
@@ -63,13 +66,13 @@ from rundash.analysis.limits import (
     zone_of,
 )
 from rundash.analysis.modes import ModeHint, mode_hint
-from rundash.analysis.profiles import Profile, list_profiles, load_profile, required_margin_pct
+from rundash.analysis.profiles import Profile, as_profile, required_margin_pct
 from rundash.analysis.verdicts import MarginVerdict, RunVerdict, judge, summarize
 
 __all__ = [
     "Critical", "CriticalPair", "HalfPower", "LevelCheck", "MarginVerdict", "ModalFit", "Mode",
     "ModeHint", "PhaseAF", "Profile", "RunVerdict", "check_levels", "combine_bearing",
-    "compare_directions", "find_criticals", "fit_modes", "half_power", "judge", "list_profiles",
-    "load_profile", "mode_hint", "phase_af", "required_margin_pct", "shaft_zone_boundaries_um_pp",
+    "compare_directions", "find_criticals", "fit_modes", "half_power", "judge", "as_profile",
+    "mode_hint", "phase_af", "required_margin_pct", "shaft_zone_boundaries_um_pp",
     "summarize", "velocity_zone_boundaries_mm_s", "zone_of",
 ]

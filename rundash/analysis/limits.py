@@ -2,7 +2,7 @@
 
 Limits are data: a profile's ``[[limits]]`` (e.g. the API 617-style unfiltered shaft
 limit ``min(25.4, 25.4 sqrt(12000/N_mc))`` um p-p, from memory) and the shared reference
-zones in ``profiles/_reference-zones.toml`` (ISO 7919-3 shaft displacement zones
+zones in :mod:`rundash.analysis.zones` (ISO 7919-3 shaft displacement zones
 ``4800/sqrt(n)``, ``9000/sqrt(n)``, ``13200/sqrt(n)`` um p-p, n in rpm, carried into
 ISO 20816-3; ISO 10816-3 bearing-housing velocity zones in mm/s rms). The ISO zones are
 meant for steady operation: during run-up and coast-down they are shown as a reference,
@@ -20,7 +20,9 @@ from typing import Literal
 
 import numpy as np
 
-from rundash.analysis.profiles import load_profile, reference_zones
+from rundash.analysis.profiles import as_profile
+from rundash.analysis.zones import BEARING_VELOCITY, SHAFT_DISPLACEMENT
+from rundash.analysis.zones import cite as _cite
 from rundash.errors import AnalysisError, invalid_value
 
 ZONES = ("A", "B", "C", "D")
@@ -61,7 +63,7 @@ def shaft_zone_boundaries_um_pp(speed_rpm) -> tuple:
     >>> [round(b) for b in shaft_zone_boundaries_um_pp(3600.0)]
     [80, 150, 220]
     """
-    z = reference_zones()["shaft_displacement"]
+    z = SHAFT_DISPLACEMENT
     n = np.asarray(speed_rpm, dtype=float)
     if np.any(n <= 0):
         raise AnalysisError(invalid_value("speed_rpm", speed_rpm, "positive speeds in rpm"))
@@ -72,7 +74,7 @@ def shaft_zone_boundaries_um_pp(speed_rpm) -> tuple:
 def velocity_zone_boundaries_mm_s(group: Literal["group1", "group2"],
                                   support: Literal["rigid", "flexible"]) -> tuple[float, float, float]:
     """ISO 10816-3 zone boundaries A/B, B/C, C/D in mm/s rms (from memory)."""
-    for row in reference_zones()["bearing_velocity"]:
+    for row in BEARING_VELOCITY:
         if row["group"] == group and row["support"] == support:
             return float(row["ab"]), float(row["bc"]), float(row["cd"])
     raise AnalysisError(invalid_value("group/support", (group, support),
@@ -83,10 +85,6 @@ def zone_of(level: float, boundaries) -> str:
     """Zone letter of a level given the A/B, B/C, C/D boundaries."""
     ab, bc, cd = boundaries
     return "A" if level < ab else "B" if level < bc else "C" if level < cd else "D"
-
-
-def _cite(t: dict) -> str:
-    return f"{t['document']}, {t['edition']}, {t['clause']} ({t['confidence']})"
 
 
 def check_levels(speed_rpm, *, vector=None, direct=None, criticals=(), kind: Literal["proximity", "velocity"] = "proximity",
@@ -116,7 +114,7 @@ def check_levels(speed_rpm, *, vector=None, direct=None, criticals=(), kind: Lit
         1X amplitude reported = ``amplitude_factor * |c|`` (2.0 p-p for proximity).
     max_continuous_speed_rpm : float
         N_mc for speed-dependent limits.
-    profile : str, Profile or None
+    profile : Profile or None
         Profile whose ``[[limits]]`` apply, in addition to the ISO reference zones.
     machine_group, support :
         ISO 10816-3 machine group and support class for velocity zones.
@@ -149,8 +147,8 @@ def check_levels(speed_rpm, *, vector=None, direct=None, criticals=(), kind: Lit
         lvl = amplitude_factor * np.abs(v) if kind == "proximity" else np.abs(v) / math.sqrt(2.0)
         series.append(("1x", lvl))
     units = "um pp" if kind == "proximity" else "mm/s rms"
-    prof = load_profile(profile) if profile is not None else None
-    zones = reference_zones()
+    prof = as_profile(profile) if profile is not None else None
+    zones = {"shaft_displacement": SHAFT_DISPLACEMENT, "bearing_velocity": BEARING_VELOCITY}
     windows = []
     for c in criticals:
         hp = c.half_power

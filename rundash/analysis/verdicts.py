@@ -18,7 +18,7 @@ from dataclasses import dataclass, field
 from rundash import CAUTION
 from rundash.analysis.criticals import Critical
 from rundash.analysis.limits import LevelCheck
-from rundash.analysis.profiles import Profile, load_profile, required_margin_pct
+from rundash.analysis.profiles import Profile, as_profile, required_margin_pct
 from rundash.errors import ConfigError, invalid_value
 
 SCHEMA = "rundash.run-verdict/1"
@@ -149,8 +149,8 @@ def judge(criticals, *, min_operating_speed_rpm: float, max_continuous_speed_rpm
         From :func:`rundash.analysis.find_criticals` (one probe, one direction).
     min_operating_speed_rpm, max_continuous_speed_rpm : float
         Operating range N_min..N_mc in rpm.
-    profile : str, path or Profile
-        Guidance profile (see :mod:`rundash.analysis.profiles`).
+    profile : Profile
+        Guidance profile (:func:`rundash.ingest.profile_file.load_profile`).
     rated_speed_rpm : float, optional
         Needed only when the profile measures a margin from the rated speed.
     probe, amplitude_units : str
@@ -162,7 +162,7 @@ def judge(criticals, *, min_operating_speed_rpm: float, max_continuous_speed_rpm
     -------
     tuple of MarginVerdict
     """
-    prof = load_profile(profile)
+    prof = as_profile(profile)
     n_min, n_mc = float(min_operating_speed_rpm), float(max_continuous_speed_rpm)
     if not (n_min > 0 and n_mc >= n_min):
         raise ConfigError(invalid_value("min_operating_speed_rpm/max_continuous_speed_rpm",
@@ -229,7 +229,7 @@ def judge(criticals, *, min_operating_speed_rpm: float, max_continuous_speed_rpm
 def summarize(margins, *, profile, min_operating_speed_rpm: float, max_continuous_speed_rpm: float,
               level_checks=()) -> RunVerdict:
     """Run summary of margin verdicts and level checks; carries :data:`rundash.CAUTION`."""
-    prof = load_profile(profile)
+    prof = as_profile(profile)
     margins, checks = tuple(margins), tuple(level_checks)
     notes = []
     if prof.needs_confirmation:

@@ -134,11 +134,12 @@ class ResultCache:
 
     def guidance_lines(self, key: tuple, profile, **kw):
         from rundash import figures
+        from rundash.ingest.profile_file import load_profile
 
         items = tuple(sorted((k, tuple(v) if isinstance(v, (list, tuple)) else v)
                              for k, v in kw.items()))
         return self._get(("guidance", str(profile), items) + key,
-                         lambda: figures.guidance_lines(profile, **kw))
+                         lambda: figures.guidance_lines(load_profile(profile), **kw))
 
 
 def cache_of(app, db) -> ResultCache:

@@ -18,6 +18,10 @@ Order tracking (:mod:`rundash.dsp.orders`)
     OrderTrack          -- its result (vectors, direct levels, speed, time)
     concat_tracks       -- join tracks of consecutive chunks
 
+Incremental processing (:mod:`rundash.dsp.incremental`, a record arriving in pieces)
+    IncrementalTach     -- once-per-rev events of a tach fed block by block
+    IncrementalOrders   -- order tracking of revolutions as they complete
+
 Vold–Kalman filter (:mod:`rundash.dsp.vold_kalman`)
     vold_kalman         -- second-generation multi-order Vold–Kalman envelopes
     VoldKalmanResult    -- its result
@@ -34,6 +38,7 @@ Spectra (:mod:`rundash.dsp.spectra`)
     Cascade             -- its result
 """
 
+from rundash.dsp.incremental import IncrementalOrders, IncrementalTach
 from rundash.dsp.orders import OrderTrack, OrderTracker, concat_tracks, track_orders
 from rundash.dsp.slowroll import auto_slow_roll_window, compensate, slow_roll_vector
 from rundash.dsp.spectra import Cascade, cascade, cascade_plan, cascade_rows
@@ -45,6 +50,7 @@ __all__ = [
     "detect_edges", "once_per_rev", "OncePerRev",
     "speed_profile", "SpeedProfile", "segment", "Segment", "run_kind",
     "track_orders", "OrderTracker", "OrderTrack", "concat_tracks",
+    "IncrementalTach", "IncrementalOrders",
     "vold_kalman", "VoldKalmanResult",
     "auto_slow_roll_window", "slow_roll_vector", "compensate",
     "cascade", "cascade_plan", "cascade_rows", "Cascade",

@@ -11,8 +11,8 @@ from rundash.errors import InputError, invalid_value
 from rundash.ingest.base import Reader
 from rundash.model import DataSpec
 
-_BY_SUFFIX = {".csv": "csv", ".txt": "csv", ".wav": "wav", ".h5": "hdf5", ".hdf5": "hdf5",
-              ".hdf": "hdf5", ".parquet": "parquet", ".pq": "parquet"}
+FORMAT_BY_SUFFIX = {".csv": "csv", ".txt": "csv", ".wav": "wav", ".h5": "hdf5", ".hdf5": "hdf5",
+                    ".hdf": "hdf5", ".parquet": "parquet", ".pq": "parquet"}
 
 
 def reader_class(fmt: str) -> type[Reader]:
@@ -37,9 +37,9 @@ def open_reader(path: str | Path, data: DataSpec | None = None) -> Reader:
     path = Path(path)
     fmt = data.format
     if fmt == "auto":
-        fmt = _BY_SUFFIX.get(path.suffix.lower())
+        fmt = FORMAT_BY_SUFFIX.get(path.suffix.lower())
         if fmt is None:
             raise InputError(f"{path.name}: cannot tell the format from the ending "
-                             f"{path.suffix!r}; expected one of {', '.join(sorted(_BY_SUFFIX))} "
+                             f"{path.suffix!r}; expected one of {', '.join(sorted(FORMAT_BY_SUFFIX))} "
                              "or set [data].format")
     return reader_class(fmt)(path, data)

@@ -75,7 +75,7 @@ class _BackgroundHash:
         return self._digest
 
 
-def _channel_plan(desc: MachineDescription, channels: tuple[str, ...], name: str):
+def channel_plan(desc: MachineDescription, channels: tuple[str, ...], name: str):
     """(file column index, role, probe, unit, scale) for the tach and every probe."""
     index = {c: i for i, c in enumerate(channels)}
     plan = []
@@ -117,7 +117,7 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
         if bad := out_of_range(reader.sample_rate_hz, SAMPLE_RATE_HZ):
             raise InputError(f"{path.name}: sample rate: {bad} (from the file's header or "
                              "time column, or [data].sample_rate_hz: check its unit)")
-        plan = _channel_plan(desc, reader.channels, path.name)
+        plan = channel_plan(desc, reader.channels, path.name)
         hasher = _BackgroundHash(path)
         warnings: list[str] = []
         unused = sorted(set(reader.channels) - {reader.channels[i] for i, *_ in plan})

@@ -2,17 +2,17 @@
 
 Every key is documented in the README. Validation is complete: an unknown key, a missing
 key or an impossible value gives one :class:`~rundash.errors.ConfigError` naming the file
-and the key (``[machine].min_operating_speed_rpm``, ``[[probes]] #2 .units``, ...).
+and the key (``[machine].min_operating_speed_rpm``, ``[[probes]] #2 .units``, ...), worded
+as every TOML check is (:mod:`rundash.ingest.toml_check`).
 """
 
 from __future__ import annotations
 
-import math
 import tomllib
 from pathlib import Path
-from typing import Any
 
 from rundash.errors import ConfigError, invalid_value
+from rundash.ingest.toml_check import TomlChecker
 from rundash.model import (
     MACHINE_KINDS, TRANSDUCER_KINDS, DataSpec, MachineDescription, MachineSpec, ProbeSpec,
     TachSpec,
@@ -41,55 +41,9 @@ _DATA_KEYS = {
 FORMATS = ("auto", "csv", "wav", "hdf5", "parquet")
 
 
-class _Checker:
-    def __init__(self, source: str):
-        self.source = source
-
-    def fail(self, where: str, msg: str) -> None:
-        raise ConfigError(f"{self.source}: {where}: {msg}")
-
-    def table(self, raw: Any, where: str, spec: dict[str, tuple[type, bool]]) -> dict[str, Any]:
-        if not isinstance(raw, dict):
-            self.fail(where, "expected a table")
-        unknown = sorted(set(raw) - set(spec))
-        if unknown:
-            self.fail(f"{where}.{unknown[0]}",
-                      f"unknown key; allowed keys: {', '.join(sorted(spec))}")
-        out: dict[str, Any] = {}
-        for key, (typ, required) in spec.items():
-            if key not in raw:
-                if required:
-                    self.fail(f"{where}.{key}", "missing required key")
-                continue
-            val = raw[key]
-            if typ is float:
-                if isinstance(val, bool) or not isinstance(val, (int, float)):
-                    self.fail(f"{where}.{key}", f"expected a number, got {val!r}")
-                val = float(val)
-                if not math.isfinite(val):
-                    self.fail(f"{where}.{key}", f"expected a finite number, got {val!r}")
-            elif typ is int:
-                if isinstance(val, bool) or not isinstance(val, int):
-                    self.fail(f"{where}.{key}", f"expected a whole number, got {val!r}")
-            elif typ is str:
-                if not isinstance(val, str):
-                    self.fail(f"{where}.{key}", f"expected a string, got {val!r}")
-            out[key] = val
-        return out
-
-    def choice(self, where: str, val: str, allowed: tuple[str, ...]) -> None:
-        if val not in allowed:
-            self.fail(where, invalid_value(where.rsplit(".", 1)[-1], val,
-                                           ", ".join(repr(a) for a in allowed)))
-
-    def positive(self, where: str, val: float | None) -> None:
-        if val is not None and not val > 0:
-            self.fail(where, f"expected a positive value, got {val!r}")
-
-
 def parse_machine_description(text: str, source: str = "<machine file>") -> MachineDescription:
     """Parse and validate the text of a machine description file."""
-    ck = _Checker(source)
+    ck = TomlChecker(source)
     try:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -121,8 +75,7 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
                 f"{m['max_continuous_speed_rpm']:g} rpm")
     if "rotation" in m:
         ck.choice("[machine].rotation", m["rotation"], ("cw", "ccw"))
-    if not m["name"].strip():
-        ck.fail("[machine].name", "expected a non-empty name")
+    ck.non_empty("[machine].name", m["name"])
     machine = MachineSpec(**m)
 
     t = ck.table(raw["tach"], "[tach]", _TACH_KEYS)

@@ -11,7 +11,7 @@ whole chunks (at most the unwritten part of one chunk, 2.56 s at 25.6 kHz, is lo
 A restarted recorder always starts a new run.
 
 :func:`record` runs the loop; ``on_start`` and ``on_block`` hooks let the pipeline
-level (:mod:`rundash.live`) process the stored values as they arrive.
+level (:mod:`rundash.workflows.live`) process the stored values as they arrive.
 """
 
 from __future__ import annotations
@@ -24,7 +24,7 @@ from typing import Callable
 import numpy as np
 
 from rundash.errors import InputError, RundashError
-from rundash.ingest.importer import _channel_plan
+from rundash.ingest.importer import channel_plan
 from rundash.ingest.sources import Source, StreamHeader
 from rundash.model import MachineDescription
 from rundash.storage import queries as q
@@ -82,7 +82,7 @@ class Recorder:
 
     def start(self, header: StreamHeader) -> int:
         """Create the machine (or update it), the run and its channels; return the run id."""
-        plan = _channel_plan(self.desc, header.channels, self.source_name)
+        plan = channel_plan(self.desc, header.channels, self.source_name)
         if header.units:
             for col, role, probe, *_ in plan:
                 u = header.units[col]

@@ -190,12 +190,12 @@ class FolderSource(Source):
         self.files_taken: list[str] = []
 
     def _candidates(self) -> list[Path]:
-        from rundash.ingest import _BY_SUFFIX
+        from rundash.ingest import FORMAT_BY_SUFFIX
         out = []
         for p in sorted(self.folder.iterdir()):
             if p.name in self._taken or not p.is_file():
                 continue
-            fmt = _BY_SUFFIX.get(p.suffix.lower())
+            fmt = FORMAT_BY_SUFFIX.get(p.suffix.lower())
             if fmt is None or (self.data.format != "auto" and fmt != self.data.format):
                 continue  # not a data file of the format read (partial, notes, ...)
             out.append(p)

@@ -1,7 +1,7 @@
 """The sign-off report of one run as one self-contained HTML page.
 
 Reads stored results through the storage read functions and (optionally) the run
-comparison (:func:`rundash.comparison.compare_runs`); draws the plots with
+comparison (:func:`rundash.workflows.comparison.compare_runs`); draws the plots with
 :mod:`rundash.figures`. Two flavours of the same page:
 
 ``interactive``
@@ -82,7 +82,7 @@ def load_report_data(db, run_id: int, compare: Sequence[int] = (), *, n_boot: in
                                tracks=q.load_tracks(conn, rid, order=1.0))
     comparison = None
     if compare:
-        from rundash.comparison import compare_runs
+        from rundash.workflows.comparison import compare_runs
         # the earliest run is the reference, so shifts read forward in time
         ids = [run_id, *[r for r in compare if r != run_id]]
         infos = {run_id: run, **{r: o["run"] for r, o in others.items()}}

@@ -12,6 +12,7 @@ from rundash.analysis.limits import (
     zone_of,
 )
 from rundash.errors import AnalysisError
+from rundash.ingest.profile_file import load_profile
 from tests.analysis.closed_form import sdof_unbalance
 
 
@@ -47,7 +48,7 @@ def test_check_levels_bands_and_top_speed():
     speed, vec, direct = _run()
     crit = find_criticals(speed, vec)
     checks = check_levels(speed, vector=vec, direct=direct, criticals=crit,
-                          max_continuous_speed_rpm=10000.0, profile="api617")
+                          max_continuous_speed_rpm=10000.0, profile=load_profile("api617"))
     band = [c for c in checks if c.where == "critical band"]
     top = [c for c in checks if c.where == "top speed"]
     # through the critical: ISO zones and the API-style limit are references only

@@ -3,7 +3,8 @@
 import pytest
 from numpy.testing import assert_allclose
 
-from rundash.analysis.profiles import list_profiles, load_profile, required_margin_pct
+from rundash.analysis.profiles import required_margin_pct
+from rundash.ingest.profile_file import list_profiles, load_profile
 from rundash.errors import ConfigError
 
 
@@ -20,7 +21,7 @@ def test_shipped_profiles():
 
 
 @pytest.mark.parametrize("af, below, above", [
-    # check values derived from the API 617-style rule (DESIGN, from memory):
+    # check values derived from the API 617-style rule (DEVELOPERS.md "Reference values", from memory):
     # below min(16, 17(1 - 1/(AF-1.5))), above min(26, 10 + 17(1 - 1/(AF-1.5)))
     (3.0, 5.667, 15.667), (5.0, 12.143, 22.143), (10.0, 15.000, 25.000),
     (18.5, 16.0, 26.0), (40.0, 16.0, 26.0),

@@ -18,6 +18,7 @@ from numpy.testing import assert_allclose
 
 from rundash.analysis import find_criticals, judge
 from rundash.conventions import phasor_from_lag
+from rundash.ingest.profile_file import load_profile
 from tests.analysis.closed_form import per_rev_run
 
 DATA = Path(__file__).resolve().parent.parent / "data" / "rotor-models"
@@ -84,7 +85,7 @@ def test_heavily_damped_needs_no_margin():
         (c,) = find_criticals(curves["speed_rpm"], _vector(curves, probe))
         assert c.critically_damped
         (v,) = judge([c], min_operating_speed_rpm=3000.0, max_continuous_speed_rpm=4000.0,
-                     profile="api617")
+                     profile=load_profile("api617"))
         assert v.verdict == "pass" and "no separation margin required" in v.reason
 
 

@@ -9,6 +9,7 @@ from numpy.testing import assert_allclose
 import rundash
 from rundash.analysis import check_levels, find_criticals, judge, summarize
 from rundash.errors import ConfigError
+from rundash.ingest.profile_file import load_profile
 from tests.analysis.closed_form import sdof_unbalance
 
 SPEED = np.linspace(300.0, 9000.0, 3000)
@@ -22,9 +23,9 @@ def _crit(fn, zeta):
 def test_margin_below_and_above():
     low, high, near = _crit(3000.0, 0.05), _crit(8000.0, 0.05), _crit(6800.0, 0.05)
     vs = judge([low, high, near], min_operating_speed_rpm=4000.0, max_continuous_speed_rpm=6000.0,
-               profile="api617", probe="brg1-X", amplitude_units="um pp")
+               profile=load_profile("api617"), probe="brg1-X", amplitude_units="um pp")
     v_low, v_high, v_near = vs
-    # actual margins: 100 (N_min - Nc)/N_min below, 100 (Nc - N_mc)/N_mc above (DESIGN 6)
+    # actual margins: 100 (N_min - Nc)/N_min below, 100 (Nc - N_mc)/N_mc above (DEVELOPERS.md "Reference values")
     assert_allclose(v_low.separation_margin_pct, 100 * (4000 - low.speed_rpm) / 4000)
     assert_allclose(v_high.separation_margin_pct, 100 * (high.speed_rpm - 6000) / 6000)
     # required from the API 617-style rule with the measured AF (about 9.9)
@@ -41,7 +42,7 @@ def test_inside_range_fails_and_critically_damped_passes():
     inside = _crit(5000.0, 0.05)
     damped = _crit(5000.0, 0.3)
     v_in, v_cd = judge([inside, damped], min_operating_speed_rpm=4000.0,
-                       max_continuous_speed_rpm=6000.0, profile="api617")
+                       max_continuous_speed_rpm=6000.0, profile=load_profile("api617"))
     assert v_in.verdict == "fail" and "inside the operating range" in v_in.reason
     assert damped.af_governing < 2.5
     assert v_cd.verdict == "pass" and "no separation margin required" in v_cd.reason
@@ -53,9 +54,9 @@ def test_amplitude_only_not_judged():
     crits = find_criticals(SPEED, v)
     assert crits[1].classification == "amplitude-only"
     verdicts = judge(crits, min_operating_speed_rpm=6000.0, max_continuous_speed_rpm=7000.0,
-                     profile="fixed-margin")
+                     profile=load_profile("fixed-margin"))
     assert verdicts[1].verdict == "not judged"
-    run = summarize(verdicts, profile="fixed-margin", min_operating_speed_rpm=6000.0,
+    run = summarize(verdicts, profile=load_profile("fixed-margin"), min_operating_speed_rpm=6000.0,
                     max_continuous_speed_rpm=7000.0)
     assert run.overall in ("not judged", "fail")
 
@@ -63,11 +64,11 @@ def test_amplitude_only_not_judged():
 def test_json_schema_and_caution():
     c = _crit(3000.0, 0.05)
     vs = judge([c], min_operating_speed_rpm=4000.0, max_continuous_speed_rpm=6000.0,
-               profile="api610", probe="brg1-X", amplitude_units="um pp",
+               profile=load_profile("api610"), probe="brg1-X", amplitude_units="um pp",
                mode_hints=["cylindrical (translational)"])
     checks = check_levels(SPEED, vector=10.0 * sdof_unbalance(SPEED, 3000.0, 0.05), criticals=[c],
-                          max_continuous_speed_rpm=6000.0, profile="api610")
-    run = summarize(vs, profile="api610", min_operating_speed_rpm=4000.0,
+                          max_continuous_speed_rpm=6000.0, profile=load_profile("api610"))
+    run = summarize(vs, profile=load_profile("api610"), min_operating_speed_rpm=4000.0,
                     max_continuous_speed_rpm=6000.0, level_checks=checks)
     d = json.loads(json.dumps(run.to_json_dict()))  # plain JSON
     assert d["schema"] == "rundash.run-verdict/1"
@@ -88,7 +89,7 @@ def test_json_schema_and_caution():
 def test_validation():
     c = _crit(3000.0, 0.05)
     with pytest.raises(ConfigError, match="Invalid value for 'min_operating_speed_rpm/max_continuous_speed_rpm'"):
-        judge([c], min_operating_speed_rpm=5000.0, max_continuous_speed_rpm=4000.0, profile="api617")
+        judge([c], min_operating_speed_rpm=5000.0, max_continuous_speed_rpm=4000.0, profile=load_profile("api617"))
     with pytest.raises(ConfigError, match="Invalid value for 'mode_hints'"):
         judge([c], min_operating_speed_rpm=4000.0, max_continuous_speed_rpm=5000.0,
-              profile="api617", mode_hints=[])
+              profile=load_profile("api617"), mode_hints=[])

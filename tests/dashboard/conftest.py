@@ -102,10 +102,10 @@ def make_findings(run_id: int, machine: str) -> dict:
 @pytest.fixture(scope="session")
 def demo_db(tmp_path_factory):
     """A database with the 2023 run-up of the demo, processed, with known findings."""
-    from rundash.demo import sample_runs_dir
+    from rundash.workflows.demo import sample_runs_dir
     from rundash.ingest.importer import import_run
     from rundash.ingest.machine_file import load_machine_description
-    from rundash.pipeline import process_run
+    from rundash.workflows.pipeline import process_run
     from rundash.storage import queries as q
 
     folder = sample_runs_dir()

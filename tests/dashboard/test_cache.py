@@ -36,10 +36,10 @@ def test_lru_bound_and_disabled_cache():
 
 
 def test_processing_again_changes_the_key(tmp_path):
-    from rundash.demo import sample_runs_dir
+    from rundash.workflows.demo import sample_runs_dir
     from rundash.ingest.importer import import_run
     from rundash.ingest.machine_file import load_machine_description
-    from rundash.pipeline import ProcessingParams, process_run
+    from rundash.workflows.pipeline import ProcessingParams, process_run
     from rundash.storage.engine import open_database
 
     folder = sample_runs_dir()

@@ -1,6 +1,6 @@
 """The compare page and the report download in headless Chromium (dash's ``dash_duo``).
 
-Demo database (rundash.demo.build_demo); the later cycle's first critical is about 3.3 %
+Demo database (rundash.workflows.demo.build_demo); the later cycle's first critical is about 3.3 %
 lower on DE-X (sample_runs/scenario.json: -3.4 % at steady state). Screenshots go to
 artifacts/ (ignored by git). The console must log no errors.
 """

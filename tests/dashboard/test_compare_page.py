@@ -1,6 +1,6 @@
 """The compare page and the report downloads, called directly with plain values.
 
-Database: the demo (rundash.demo.build_demo, four runs of an invented compressor over two
+Database: the demo (rundash.workflows.demo.build_demo, four runs of an invented compressor over two
 overhaul cycles; runs 1 and 3 are the two run-ups). Ground truth of the demo is
 sample_runs/scenario.json, written by sample_runs/generate.py, which does not import
 rundash: between the cycles the first critical comes down about 3.4 % and its AF rises
@@ -23,7 +23,7 @@ from rundash.dashboard import ids, reports
 from rundash.dashboard.cache import ResultCache
 from rundash.dashboard.pages import compare as cp
 from rundash.dashboard.pages import review, runs
-from rundash.demo import build_demo, sample_runs_dir
+from rundash.workflows.demo import build_demo, sample_runs_dir
 from rundash.storage import queries as q
 from rundash.storage.engine import open_database
 from tests.dashboard.test_callbacks import _arr, _find, _text

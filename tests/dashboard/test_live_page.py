@@ -17,7 +17,7 @@ from rundash.dashboard.app import create_app
 from rundash.dashboard.pages import live as live_page
 from rundash.ingest.machine_file import load_machine_description
 from rundash.ingest.sources import ReplaySource
-from rundash.live import LiveParams, WarningSettings, record_live
+from rundash.workflows.live import LiveParams, WarningSettings, record_live
 from rundash.storage import live_queries as lq
 from rundash.storage.engine import open_database
 from tests import live_synth

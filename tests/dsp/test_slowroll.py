@@ -1,6 +1,6 @@
 """Tests of rundash.dsp.slowroll.
 
-Reference: the definition of slow-roll compensation (DESIGN.md section 4; common
+Reference: the definition of slow-roll compensation (DEVELOPERS.md "Reference values"; common
 practice, no source): subtracting, as complex vectors, a constant runout vector that was
 added to a known dynamic response must give back the dynamic response.
 """

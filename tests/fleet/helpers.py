@@ -12,7 +12,7 @@ from sqlalchemy import select
 
 from rundash.storage import orm
 from rundash.storage.sync import run_content_hash
-from tests.test_pipeline import MACHINE as PIPELINE_MACHINE
+from tests.workflows.test_pipeline import MACHINE as PIPELINE_MACHINE
 
 # the pipeline test's two-probe rig, under a name of its own
 MACHINE = PIPELINE_MACHINE.replace('name = "Synthetic rig"', 'name = "Fleet rig F-1"')

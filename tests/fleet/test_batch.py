@@ -1,8 +1,8 @@
-"""rundash.batch: 20 small runs re-processed on a local Dask cluster of 2 worker
+"""rundash.workflows.batch: 20 small runs re-processed on a local Dask cluster of 2 worker
 processes must give what one sequential process_run per run gives (the pipeline's own
 results are the reference), a run that cannot be processed is reported without stopping
 the others, and a worker killed mid-task leaves no half-written results (one write
-transaction per run, DESIGN.md section 5) with the run retried or reported."""
+transaction per run, DEVELOPERS.md "Conventions") with the run retried or reported."""
 
 from __future__ import annotations
 
@@ -18,11 +18,11 @@ import numpy as np
 import pytest
 from scipy.io import wavfile
 
-from rundash.batch import local_cluster, reprocess
+from rundash.workflows.batch import local_cluster, reprocess
 from rundash.cli import main
 from rundash.ingest.importer import import_run
 from rundash.ingest.machine_file import parse_machine_description
-from rundash.pipeline import process_run
+from rundash.workflows.pipeline import process_run
 from rundash.storage.engine import open_database
 from tests.fleet.helpers import MACHINE, dump_run, write_run_wavs
 

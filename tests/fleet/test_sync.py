@@ -4,7 +4,7 @@ The store is SQLite and PostgreSQL in turn (``db_kind``). What must hold is chec
 against the source database itself: every waveform chunk and every result byte for byte
 (bit-identical floats and blobs), a second sync copying nothing, and a sync killed with
 SIGKILL midway that, run again, completes without duplicates (the one-transaction-per-run
-rule of DESIGN.md section 5; no outside reference applies to a copy).
+rule of DEVELOPERS.md "Conventions"; no outside reference applies to a copy).
 """
 
 from __future__ import annotations
@@ -20,11 +20,11 @@ from pathlib import Path
 import pytest
 
 from rundash.cli import main
-from rundash.demo import build_demo, sample_runs_dir
+from rundash.workflows.demo import build_demo, sample_runs_dir
 from rundash.errors import NotFoundError, StorageError
 from rundash.ingest.importer import import_run
 from rundash.ingest.machine_file import load_machine_description, parse_machine_description
-from rundash.pipeline import ProcessingParams, process_run
+from rundash.workflows.pipeline import ProcessingParams, process_run
 from rundash.storage import queries as q
 from rundash.storage.engine import open_database
 from rundash.storage.sync import sync

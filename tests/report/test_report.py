@@ -17,7 +17,7 @@ import pytest
 
 from rundash import CAUTION
 from rundash.cli import main
-from rundash.demo import build_demo
+from rundash.workflows.demo import build_demo
 from rundash.report import load_report_data, write_report
 from rundash.report.html import figure_count
 from rundash.storage import queries as q

@@ -1,6 +1,6 @@
 """Run comparison: overlaid Bode and polar plots of chosen runs of one machine, the trend
 of critical speed and AF across runs and overhaul cycles with their uncertainties, and
-the table of what changed (:func:`rundash.comparison.compare_runs`).
+the table of what changed (:func:`rundash.workflows.comparison.compare_runs`).
 
 Routes: ``/compare`` (the first machine), ``/compare/machine/<id>`` and
 ``/compare/<run>,<run>,...`` (those runs ticked, their machine shown).
@@ -165,7 +165,7 @@ def comparison_of(db, run_ids: Sequence[int], *, cache=None, n_boot: int = N_BOO
                   ) -> dict[str, Any]:
     """The comparison of the chosen runs (earliest first), cached per runs and their
     processing times."""
-    from rundash.comparison import compare_runs
+    from rundash.workflows.comparison import compare_runs
 
     src = _cache(db, cache)
     ctxs = _ordered(db, run_ids, src)

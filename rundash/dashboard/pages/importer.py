@@ -2,7 +2,7 @@
 
 The upload is saved under a sanitised name in a temporary folder, imported with
 :func:`rundash.ingest.importer.import_run` and processed with
-:func:`rundash.pipeline.process_run` in a worker thread; a status line polls its progress.
+:func:`rundash.workflows.pipeline.process_run` in a worker thread; a status line polls its progress.
 The jobs live in an :class:`ImportJobs` owned by the app (made in ``register_callbacks``),
 never in module state.
 """
@@ -222,7 +222,7 @@ class ImportJobs:
                     *res.warnings]
             self._set(job_id, run_id=res.run_id, messages=tuple(msgs))
             if process:
-                from rundash.pipeline import process_run
+                from rundash.workflows.pipeline import process_run
 
                 pr = process_run(self._db, res.run_id, progress=progress)
                 msgs.append(f"processed: {pr.run_kind}, {pr.n_revs} revolutions")

@@ -1,4 +1,4 @@
-"""Findings of runs with nothing to judge, and what the vectors rest on (rundash.findings
+"""Findings of runs with nothing to judge, and what the vectors rest on (rundash.workflows.findings
 through the real pipeline on small WAVs written by scipy.io.wavfile)."""
 
 from __future__ import annotations
@@ -8,9 +8,9 @@ from scipy.io import wavfile
 
 from rundash.ingest.importer import import_run
 from rundash.ingest.machine_file import parse_machine_description
-from rundash.pipeline import process_run
+from rundash.workflows.pipeline import process_run
 from tests.synth import corrupt_events, linear_sweep, probe_signal, tach_waveform
-from tests.test_pipeline import FS, MACHINE
+from tests.workflows.test_pipeline import FS, MACHINE
 
 
 def _run(db, tmp_path, name, theta, tach=None):

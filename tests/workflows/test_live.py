@@ -1,4 +1,4 @@
-"""rundash.live: incremental processing equals the offline pipeline; warnings come in the
+"""rundash.workflows.live: incremental processing equals the offline pipeline; warnings come in the
 right order at the right speeds; a killed recorder leaves a valid, processable run."""
 
 from __future__ import annotations
@@ -18,8 +18,8 @@ from scipy.optimize import brentq
 
 from rundash.ingest.machine_file import load_machine_description
 from rundash.ingest.sources import ReplaySource
-from rundash.live import LiveParams, WarningSettings, record_live
-from rundash.pipeline import process_run
+from rundash.workflows.live import LiveParams, WarningSettings, record_live
+from rundash.workflows.pipeline import process_run
 from rundash.storage import live_queries as lq
 from rundash.storage import queries as q
 from rundash.storage.engine import open_database
@@ -120,7 +120,7 @@ class TestWarnings:
         assert len(band) == 1
         lo, crit, hi = band[0]
         # the earlier run's critical: the unbalance peak at wn / sqrt(1 - 2 zeta^2)
-        # = 3007.5 rpm (DESIGN closed-form check values), half-power band ~ +-5 %
+        # = 3007.5 rpm (DEVELOPERS.md "Reference values", closed form), half-power band ~ +-5 %
         assert abs(crit - 3007.5) < 0.01 * 3007.5
         assert lo < 3000 < hi
         order = [k for k in kinds if k in ("approaching", "entered-band", "level-alarm",

@@ -12,7 +12,7 @@ from scipy.io import wavfile
 from rundash.conventions import wrap_deg
 from rundash.ingest.importer import import_run
 from rundash.ingest.machine_file import parse_machine_description
-from rundash.pipeline import ProcessingParams, process_run
+from rundash.workflows.pipeline import ProcessingParams, process_run
 from rundash.storage import queries as q
 from tests.conftest import DB_KINDS, fresh_database_url
 from tests.synth import linear_sweep, probe_signal, tach_waveform

@@ -60,7 +60,7 @@ def build_demo(db: Database, *, progress: Progress = no_progress,
             with db.read() as conn:
                 done = q.load_processing(conn, run_id) is not None
             if not done:
-                from rundash.pipeline import process_run
+                from rundash.workflows.pipeline import process_run
                 process_run(db, run_id, progress=progress)
                 log(f"processed run {run_id}")
     close = getattr(progress, "close", None)

@@ -1,4 +1,4 @@
-"""Batch re-processing: :func:`rundash.pipeline.process_run` over many runs on Dask.
+"""Batch re-processing: :func:`rundash.workflows.pipeline.process_run` over many runs on Dask.
 
 ``reprocess(url, run_ids)`` sends one task per run to a Dask cluster — a local one of
 worker processes by default (``dask.distributed.LocalCluster``, one single-threaded
@@ -86,7 +86,7 @@ def _database(url: str):
 
 def process_one(url: str, run_id: int, params: dict[str, Any] | None = None) -> RunOutcome:
     """The task a worker runs: process one run, its results saved in one transaction."""
-    from rundash.pipeline import ProcessingParams, process_run
+    from rundash.workflows.pipeline import ProcessingParams, process_run
 
     t0 = time.monotonic()
     try:
@@ -124,7 +124,7 @@ def reprocess(url: str, run_ids: Sequence[int], *, workers: int = 2,
 
     ``workers`` sizes the local cluster (ignored with ``scheduler``, a running Dask
     scheduler's address such as ``tcp://10.0.0.5:8786``). ``params`` are
-    :class:`~rundash.pipeline.ProcessingParams` fields as a dict. Returns a
+    :class:`~rundash.workflows.pipeline.ProcessingParams` fields as a dict. Returns a
     :class:`BatchReport` with one outcome per run, in the order given.
     """
     if workers < 1:

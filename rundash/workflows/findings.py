@@ -20,9 +20,9 @@ from rundash import CAUTION
 from rundash.analysis import criticals as crit_mod
 from rundash.analysis.limits import check_levels
 from rundash.analysis.modes import mode_hint
-from rundash.analysis.profiles import load_profile
 from rundash.analysis.verdicts import judge, summarize
 from rundash.conventions import lag_deg_from_phasor
+from rundash.ingest.profile_file import load_profile
 from rundash.model import ChannelInfo, MachineDescription, RunInfo
 from rundash.units import VECTOR_AMPLITUDE_CONVENTION, amplitude_label
 
@@ -30,7 +30,8 @@ SCHEMA = "rundash.findings/1"
 MIN_BLOCKS = 20  # fewer revolutions in a direction than this: nothing to judge there
 
 
-def _num(x):
+def json_number(x):
+    """A finite float for the JSON, or None (NaN, inf, None and non-numbers)."""
     if x is None:
         return None
     try:
@@ -145,9 +146,9 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
             c = verdict.critical
             hp = c.half_power
             j.update(bearing=sp.bearing if sp else "", axis=sp.axis if sp else "none",
-                     band_rpm=[_num(c.band_rpm[0]), _num(c.band_rpm[1])],
-                     n1_rpm=_num(hp.n1_rpm) if hp is not None else None,
-                     n2_rpm=_num(hp.n2_rpm) if hp is not None else None)
+                     band_rpm=[json_number(c.band_rpm[0]), json_number(c.band_rpm[1])],
+                     n1_rpm=json_number(hp.n1_rpm) if hp is not None else None,
+                     n2_rpm=json_number(hp.n2_rpm) if hp is not None else None)
             crit_json.append(j)
         if ch.kind in ("proximity", "velocity"):
             direct = track.direct_pp[i] if ch.kind == "proximity" else track.direct_rms[i]
@@ -161,8 +162,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                 lj = lc.to_json_dict()
                 limits_json.append(dict(
                     probe=name, direction=d, measure=lj["quantity"], where=lj["where"],
-                    band_rpm=lj["band_rpm"], speed_rpm=_num(lj["speed_rpm"]),
-                    value=_num(lj["level"]), units=lj["units"], limit=_num(lj["limit_value"]),
+                    band_rpm=lj["band_rpm"], speed_rpm=json_number(lj["speed_rpm"]),
+                    value=json_number(lj["level"]), units=lj["units"], limit=json_number(lj["limit_value"]),
                     limit_id=lj["limit"], zone=lj["zone"], verdict=lj["status"],
                     basis=lj["note"], source=lj["source"]))
 
@@ -180,20 +181,20 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
             ref = pair.a or pair.b
             bearings.append(dict(
                 bearing=bearing, direction=d, probes=[axes["X"][0], axes["Y"][0]],
-                speed_rpm=_num(ref.speed_rpm) if ref else None,
-                x_speed_rpm=_num(pair.a.speed_rpm) if pair.a else None,
-                y_speed_rpm=_num(pair.b.speed_rpm) if pair.b else None,
-                speed_difference_pct=_num(pair.speed_difference_pct),
-                af_difference=_num(pair.af_difference), agreement=pair.agreement,
+                speed_rpm=json_number(ref.speed_rpm) if ref else None,
+                x_speed_rpm=json_number(pair.a.speed_rpm) if pair.a else None,
+                y_speed_rpm=json_number(pair.b.speed_rpm) if pair.b else None,
+                speed_difference_pct=json_number(pair.speed_difference_pct),
+                af_difference=json_number(pair.af_difference), agreement=pair.agreement,
                 note=pair.note))
 
     open_top = []
     for (name, d), (crits, s, v, t, afac, i) in per_probe.items():
         r = crit_mod.rising_at_top(s, v, amplitude_factor=afac)
         if r is not None:
-            open_top.append(dict(probe=name, direction=d, from_rpm=_num(r.from_rpm),
-                                 to_rpm=_num(r.to_rpm), rise_pct=_num(r.rise_pct),
-                                 lag_change_deg=_num(r.lag_change_deg), note=r.note))
+            open_top.append(dict(probe=name, direction=d, from_rpm=json_number(r.from_rpm),
+                                 to_rpm=json_number(r.to_rpm), rise_pct=json_number(r.rise_pct),
+                                 lag_change_deg=json_number(r.lag_change_deg), note=r.note))
             notes.append(f"{name} {d}: {r.note}")
 
     direction_cmp = []
@@ -204,10 +205,10 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                                                     per_probe[(name, "coast-down")][0]):
                 direction_cmp.append(dict(
                     probe=name,
-                    run_up_speed_rpm=_num(pair.a.speed_rpm) if pair.a else None,
-                    coast_down_speed_rpm=_num(pair.b.speed_rpm) if pair.b else None,
-                    speed_difference_pct=_num(pair.speed_difference_pct),
-                    af_difference=_num(pair.af_difference), agreement=pair.agreement,
+                    run_up_speed_rpm=json_number(pair.a.speed_rpm) if pair.a else None,
+                    coast_down_speed_rpm=json_number(pair.b.speed_rpm) if pair.b else None,
+                    speed_difference_pct=json_number(pair.speed_difference_pct),
+                    af_difference=json_number(pair.af_difference), agreement=pair.agreement,
                     note=pair.note))
 
     summary = summarize(margins, profile=profile,
@@ -226,8 +227,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                         trip_speed_rpm=m.trip_speed_rpm, kind=m.kind),
         "profile": dict(sj["profile"], rules=_profile_rules(profile)),
         "processing": dict(slow_roll_rpm=list(slow_roll_rpm) if slow_roll_rpm else None,
-                           speed_range_rpm=[_num(track.speed_rpm.min()),
-                                            _num(track.speed_rpm.max())]),
+                           speed_range_rpm=[json_number(track.speed_rpm.min()),
+                                            json_number(track.speed_rpm.max())]),
         "criticals": sorted(crit_json, key=lambda c: (c["direction"], c["speed_rpm"] or 0,
                                                       c["probe"])),
         "bearings": bearings,

@@ -26,6 +26,7 @@ from rundash.progress import Progress, no_progress
 from rundash.storage import queries as q
 from rundash.storage.engine import Database
 from rundash.units import VECTOR_AMPLITUDE_CONVENTION
+from rundash.workflows import findings as findings_mod
 
 
 @dataclass(frozen=True)
@@ -162,16 +163,10 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
     result = ProcessResult(run_id=run_id, run_kind=kind, n_revs=opr.n_revs,
                            n_blocks=track.n_blocks, slow_roll_rpm=window, warnings=notes)
 
-    findings = None
-    try:
-        from rundash import findings as findings_mod
-    except ImportError:  # pragma: no cover - until the analysis glue lands
-        findings_mod = None
-    if findings_mod is not None:
-        findings = findings_mod.build_findings(
-            desc=desc, run=run, probes=probes, track=track, compensated=comp,
-            segments=segments, slow_roll_rpm=window, processing_notes=notes)
-        result.findings = findings
+    findings = findings_mod.build_findings(
+        desc=desc, run=run, probes=probes, track=track, compensated=comp,
+        segments=segments, slow_roll_rpm=window, processing_notes=notes)
+    result.findings = findings
 
     tach_report = dict(
         pulses_per_rev=opr.pulses_per_rev, n_edges=int(edges.size), n_revs=opr.n_revs,
@@ -203,9 +198,8 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
             if casc_amp[i] is not None and casc_done.any():
                 q.save_cascade(conn, run_id, ch.id, row_rpm[casc_done], row_t[casc_done],
                                freq_hz, casc_amp[i][casc_done])
-        if findings is not None:
-            q.save_findings_json(conn, run_id, findings)
-            q.save_finding_rows(conn, run_id, findings_mod.finding_rows(findings))
+        q.save_findings_json(conn, run_id, findings)
+        q.save_finding_rows(conn, run_id, findings_mod.finding_rows(findings))
         q.update_run(conn, run_id, kind=kind)
     progress(1.0, "saving")
     return result

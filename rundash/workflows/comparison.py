@@ -22,7 +22,7 @@ from rundash import CAUTION
 from rundash.analysis import compare as cmp
 from rundash.conventions import phasor_from_lag
 from rundash.errors import AnalysisError, InputError, NotFoundError
-from rundash.findings import _num  # finite float or None, as in the findings JSON
+from rundash.workflows.findings import json_number
 from rundash.storage import queries as q
 from rundash.storage.engine import Database
 from rundash.units import VECTOR_AMPLITUDE_CONVENTION, amplitude_label
@@ -94,18 +94,18 @@ def _curves(data: dict[str, Any]) -> dict[tuple[str, str], dict[str, Any]]:
 def _shift_json(s: cmp.Shift | None) -> dict[str, Any] | None:
     if s is None:
         return None
-    return {k: (_num(v) if isinstance(v, float) else v) for k, v in s.to_json_dict().items()}
+    return {k: (json_number(v) if isinstance(v, float) else v) for k, v in s.to_json_dict().items()}
 
 
 def _estimate_json(c: cmp.CriticalEstimate) -> dict[str, Any]:
-    return dict(speed_rpm=_num(c.speed_rpm), speed_std_rpm=_num(c.speed_std_rpm),
-                af=_num(c.af), af_std=_num(c.af_std), af_method=c.af_method,
-                af_half_power=_num(c.af_half_power),
-                af_half_power_std=_num(c.af_half_power_std), af_fit_std=_num(c.af_fit_std),
-                peak_amplitude=_num(c.peak_amplitude),
-                peak_amplitude_std=_num(c.peak_amplitude_std),
+    return dict(speed_rpm=json_number(c.speed_rpm), speed_std_rpm=json_number(c.speed_std_rpm),
+                af=json_number(c.af), af_std=json_number(c.af_std), af_method=c.af_method,
+                af_half_power=json_number(c.af_half_power),
+                af_half_power_std=json_number(c.af_half_power_std), af_fit_std=json_number(c.af_fit_std),
+                peak_amplitude=json_number(c.peak_amplitude),
+                peak_amplitude_std=json_number(c.peak_amplitude_std),
                 classification=c.classification, confidence=c.confidence,
-                sweep_rate_rpm_s=_num(c.sweep_rate_rpm_s), n_found=c.n_found, n_af=c.n_af,
+                sweep_rate_rpm_s=json_number(c.sweep_rate_rpm_s), n_found=c.n_found, n_af=c.n_af,
                 n_boot=c.n_boot, reproducible=c.reproducible)
 
 
@@ -170,8 +170,8 @@ def compare_runs(db: Database, run_ids: Sequence[int], *,
         for (name, direction), est in sorted(estimates[rid].items()):
             kind = curves[rid][(name, direction)]["kind"]
             per.append(dict(probe=name, direction=direction, units=amplitude_label(kind),
-                            sweep_rate_rpm_s=_num(est.sweep_rate_rpm_s),
-                            speed_range_rpm=[_num(x) for x in est.speed_range_rpm],
+                            sweep_rate_rpm_s=json_number(est.sweep_rate_rpm_s),
+                            speed_range_rpm=[json_number(x) for x in est.speed_range_rpm],
                             criticals=[_estimate_json(c) for c in est.criticals]))
         j = _run_json(d["run"])
         j.update(slow_roll_rpm=list(d["proc"].slow_roll_rpm) if d["proc"].slow_roll_rpm
@@ -226,9 +226,9 @@ def compare_runs(db: Database, run_ids: Sequence[int], *,
             ch = cmp.compare_vectors(scaled(ca["slow"]), scaled(cb["slow"]), k=k)
             slow.append(dict(
                 probe=name, units=amplitude_label(ca["kind"]),
-                a_amplitude=_num(ch.a.amplitude), a_lag_deg=_num(ch.a.lag_deg),
-                b_amplitude=_num(ch.b.amplitude), b_lag_deg=_num(ch.b.lag_deg),
-                change=_num(ch.delta_amplitude), sigma=_num(ch.sigma),
+                a_amplitude=json_number(ch.a.amplitude), a_lag_deg=json_number(ch.a.lag_deg),
+                b_amplitude=json_number(ch.b.amplitude), b_lag_deg=json_number(ch.b.lag_deg),
+                change=json_number(ch.delta_amplitude), sigma=json_number(ch.sigma),
                 significant=ch.significant, material=ch.material, hint=ch.hint))
             if ch.material:
                 all_hints.append(f"{name}: {slow[-1]['hint']}")
