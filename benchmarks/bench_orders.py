@@ -12,8 +12,11 @@ an invented run-up 1200 -> 9000 rpm. Prints samples/s of:
   *coarse*: 64 points per revolution (4X at 16 points a cycle; cheaper, but it drops
   samples at low speed and aliases the noise above 32X into the orders);
 
-with the ratios (targets: tracker / memory >= 0.05, speed-up over the baseline >= 5)
-and the 1X amplitude and phase errors of all against the known signal.
+with the ratios (targets: tracker / memory read >= 0.1; tracker at least as fast as the
+coarse baseline, with the lossless baseline's accuracy or better) and the 1X amplitude
+and phase errors of all against the known signal. The candidates are timed in turn,
+round after round, and each keeps its best round: on a shared machine every candidate
+sees the same load, so read the ratios, not the times.
 
 Run from the repository root: ``python benchmarks/bench_orders.py [duration_s]``.
 On machines where OPENBLAS_CORETYPE is set for old OpenBLAS builds, unset it together
@@ -37,7 +40,7 @@ from tests import synth  # noqa: E402
 FS = 25600.0
 N_CH = 16
 ORDERS = (1, 2, 3, 4)
-REPEATS = 7  # best of 7: the machine may be shared, the minimum is the least disturbed
+REPEATS = 9  # best of 9 rounds: the machine may be shared, the minimum is the least disturbed
 
 
 def baseline(x: np.ndarray, fs: float, rev_times: np.ndarray, points_per_rev: int) -> np.ndarray:
@@ -73,28 +76,30 @@ def main(duration_s: float = 20.0) -> None:
           f"({duration_s:.0f} s, {rpm0:.0f}-{rpm1:.0f} rpm, {rev_times.size - 1} revs)")
 
     lossless = int(2 ** np.ceil(np.log2(FS * np.max(np.diff(rev_times)))))
-    best = {}
-    for name, fn in [
+    candidates = [
         ("memory read (np.sum)", lambda: np.sum(x, axis=1)),
         ("rundash track_orders", lambda: track_orders(x, FS, speed_profile(rev_times),
                                                        orders=ORDERS)),
         (f"baseline lossless {lossless}/rev", lambda: baseline(x, FS, rev_times, lossless)),
         ("baseline coarse 64/rev", lambda: baseline(x, FS, rev_times, 64)),
-    ]:
-        times = []
-        for _ in range(REPEATS):
+    ]
+    times = {name: [] for name, _ in candidates}
+    results = {}
+    for _ in range(REPEATS):
+        for name, fn in candidates:
             t0 = time.perf_counter()
-            res = fn()
-            times.append(time.perf_counter() - t0)
-        best[name] = (min(times), res)
-        print(f"{name:28s} {min(times) * 1e3:9.1f} ms  {n_samples / min(times) / 1e6:9.1f} M samples/s")
+            results[name] = fn()
+            times[name].append(time.perf_counter() - t0)
+    best = {name: (min(times[name]), results[name]) for name, _ in candidates}
+    for name, (t_best, _) in best.items():
+        print(f"{name:28s} {t_best * 1e3:9.1f} ms  {n_samples / t_best / 1e6:9.1f} M samples/s")
     t_mem = best["memory read (np.sum)"][0]
     t_ours, track = best["rundash track_orders"]
     t_base, base = best[f"baseline lossless {lossless}/rev"]
     t_coarse, coarse = best["baseline coarse 64/rev"]
-    print(f"ratio tracker / memory read: {t_mem / t_ours:.3f}  (target >= 0.05)")
-    print(f"speed-up tracker vs lossless baseline: {t_base / t_ours:.1f} x  (target >= 5)")
-    print(f"speed-up tracker vs coarse baseline:   {t_coarse / t_ours:.2f} x")
+    print(f"ratio tracker / memory read: {t_mem / t_ours:.3f}  (target >= 0.1)")
+    print(f"speed-up tracker vs coarse baseline:   {t_coarse / t_ours:.2f} x  (target >= 1)")
+    print(f"speed-up tracker vs lossless baseline: {t_base / t_ours:.1f} x")
 
     # accuracy of 1X on the same signal, all channels, all revolutions both have
     def errors(vec, rev_index):

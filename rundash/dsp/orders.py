@@ -18,22 +18,44 @@ the non-integer number of samples per revolution). With this normalisation ``|c|
 the peak amplitude and the phasor follows :mod:`rundash.conventions`
 (``lag = lag_deg_from_phasor(c)``); the probe's mounting angle is not applied.
 
-The angle and the weighted complex exponentials ``w_n exp(-j 2 pi m theta_n)`` are
-computed once per sample time and shared by every channel; the per-block work is one
-small matrix product ``X[:, block] @ V[block]`` (channels x samples times samples x
-2 (orders + 1): real and imaginary parts, and the order-0 weights) plus a four-sample correction at the block ends, vectorised over all blocks.
+How it is computed. Per revolution ``k`` the tracker takes the window of samples from
+the one before the reference event ``t_k`` to the first at or after ``t_(k+1)`` and
+evaluates, in the working precision and shared by every channel:
 
-Why this method (measured with benchmarks/bench_orders.py on the 2-core development
-machine, 16 channels x 4 orders, float32 at 25.6 kHz, 20 s run-up 1200-9000 rpm): it
-reads the data once and needs no resampled copy. It ran at 150-200 M channel-samples/s,
-10-12 x faster than resampling each channel with ``np.interp`` to a uniform angle grid
-fine enough to keep every sample (2048 points per revolution here) followed by an FFT
-per revolution, with equal amplitude and lower phase error (the resampling's linear
-interpolation and the piecewise-linear angle it needs cost accuracy). A coarse 64-point
-grid is about as fast as this tracker or faster, but drops samples at low speed and
-aliases the noise into the orders (1.6 x our amplitude error in the same run). Float32
-data are tracked in float32 (angle fractions in float64): the products and sums then
-carry float32 rounding, about 1e-7 of the largest sample per block.
+- the local angle ``u = theta - k`` at window position ``i`` from the speed profile's
+  own cubic of that revolution, rewritten as a cubic in ``i``: the angle is anchored
+  afresh at every reference event, so its float32 rounding (about 1e-7 rev) does not
+  grow with the number of revolutions since the record's start;
+- the trapezoid weights ``W_i``: in the interior ``(u(i+1) - u(i-1)) / 2``, a quadratic
+  in ``i`` exact for the cubic, and at the window's two ends the weights of the linear
+  interpolation to the exact limits ``u = 0`` and ``u = 1``;
+- ``W cos`` and ``W sin`` of ``2 pi p u`` for every order: one cosine and sine of the
+  base order (1X, or 0.5X with half orders) per sample, the higher multiples ``p`` by
+  the complex recurrence ``e_(p+1) = e_p e_1`` (error about ``p (eta + 1.4 gamma_2)``
+  of ``W``, linear in ``p``, never in the number of samples: every sample starts from
+  its own base phase; bound tested against direct cos/sin in
+  tests/dsp/test_orders_kernels.py). Orders that are not such multiples use a direct
+  cosine and sine each.
+
+The per-revolution work is then one small matrix product ``VT @ X[:, window].T`` (rows
+``W cos``, ``W sin`` per order and ``W`` itself, times the channels and a row of ones
+whose column is the quadrature of each row alone), blocks of ``R`` revolutions are sums
+of their revolutions, and the direct levels are reductions over each block's samples.
+Revolutions are computed in groups of about ``GROUP_SAMPLES`` samples so the work
+arrays stay in cache; each revolution's result depends only on its own samples (to the
+last bit), whatever the grouping or the chunks fed.
+
+Speed: see the module's benchmark, benchmarks/bench_orders.py (16 channels x 4 orders,
+float32 at 25.6 kHz, 20 s run-up 1200-9000 rpm), which prints the rate against the
+memory-read limit and against resampling baselines in the same run (README,
+Performance). The method reads the data once and needs no resampled copy; against
+resampling each channel with ``np.interp`` to a uniform angle grid fine enough to keep
+every sample (2048 points per revolution here) and an FFT per revolution it has equal
+amplitude and lower phase error (the resampling's linear interpolation and the
+piecewise-linear angle it needs cost accuracy); a coarse 64-point grid drops samples at
+low speed and aliases the noise into the orders (1.6 x our amplitude error in the same
+run). Float32 data are tracked in float32: the products and sums then carry float32
+rounding, about 1e-7 of the largest sample per block.
 
 The rule's own error on a constant (the quadrature of ``exp(-j 2 pi m theta)`` alone,
 zero exactly) is removed with the block's mean, so a large DC gap voltage does not leak
@@ -64,8 +86,12 @@ __all__ = ["OrderTrack", "OrderTracker", "track_orders", "concat_tracks"]
 
 #: Samples per chunk when a whole record is tracked in one call (bounds the memory).
 CHUNK_SAMPLES = 1 << 18
-#: Samples per piece inside :meth:`OrderTracker.feed` (keeps the work arrays in cache).
+#: Samples per piece inside :meth:`OrderTracker.feed`.
 SUB_SAMPLES = 1 << 16
+#: Samples per group of blocks computed together (keeps the work arrays in cache).
+GROUP_SAMPLES = 1 << 14
+#: Highest multiple of the base order built by recurrence (see ``_exponentials``).
+MAX_POWER = 8
 
 
 @dataclass(frozen=True)
@@ -206,16 +232,22 @@ class OrderTracker:
         self._tail = np.empty((self.n_channels, 0))
         self._tail_start: int | None = None
         # samples of the longest block, to size the joined head of each chunk
-        self._sq = np.empty((self.n_channels, 0))  # work buffer for squares
         self._head_samples = max(4096, int(2 * self.revs_per_block * np.max(np.diff(rev_t)) * fs) + 8)
+        self._bufs: dict[str, np.ndarray] = {}
+        self._ii = np.empty(0)
+        # exponentials: orders that are whole multiples (<= MAX_POWER) of a base order
+        # (1X, or 0.5X with half orders) by recurrence from the base, others directly
         o2 = np.round(self.orders * 2).astype(np.int64)
-        if np.all(np.abs(self.orders * 2 - o2) < 1e-12) and o2.max() <= 64:
-            if np.all(o2 % 2 == 0):
-                self._base, self._powers = 1.0, o2 // 2  # integer orders: powers of 1X
-            else:
-                self._base, self._powers = 0.5, o2  # half orders: powers of 0.5X
+        halves = np.all(np.abs(self.orders * 2 - o2) < 1e-12)
+        if halves and np.all(o2 % 2 == 0) and o2.max() // 2 <= MAX_POWER:
+            self._base_order, self._powers = 1.0, o2 // 2
+        elif halves and o2.max() <= MAX_POWER:
+            self._base_order, self._powers = 0.5, o2
         else:
-            self._base, self._powers = None, None  # general orders: one exp each
+            self._base_order, self._powers = 1.0, None
+        # per-revolution phase exp(-j 2 pi m k) of orders m not whole (m k not whole)
+        whole = np.abs(self.orders - np.round(self.orders)) < 1e-12
+        self._rev_phase = None if np.all(whole) else np.where(whole, 0.0, self.orders)
 
     # -- public ---------------------------------------------------------------------
     def feed(self, block, start_index: int) -> OrderTrack:
@@ -244,8 +276,8 @@ class OrderTracker:
         if self._tail.dtype != work:
             self._tail = self._tail.astype(work)
         if x.shape[1] > SUB_SAMPLES:
-            # work through long chunks in cache-sized pieces (measured ~20 % faster
-            # than 2^18-sample pieces for 16 channels); results do not depend on it
+            # work through long chunks in pieces (bounds the per-piece arrays); the
+            # results do not depend on it
             parts = [self._feed(x[:, a:a + SUB_SAMPLES], start_index + a)
                      for a in range(0, x.shape[1], SUB_SAMPLES)]
             return self._joined([p for p in parts if p.n_blocks])
@@ -292,158 +324,261 @@ class OrderTracker:
             return OrderTrack.empty(self.n_channels, self.orders)
         return parts[0] if len(parts) == 1 else concat_tracks(parts)
 
-    def _exponentials(self, theta: np.ndarray) -> np.ndarray:
-        """exp(-j 2 pi m theta) in complex128 for every order, shape (n, n_orders)."""
-        cyc = np.multiply.outer(theta, self.orders)
-        cyc -= np.floor(cyc)
-        return np.exp(-2j * np.pi * cyc)
+    def _work(self, name: str, shape, dtype) -> np.ndarray:
+        """A reused work array of ``shape`` (a view of a buffer that only grows)."""
+        size = int(np.prod(shape))
+        buf = self._bufs.get(name)
+        if buf is None or buf.size < size or buf.dtype != dtype:
+            buf = np.empty(max(size, 1), dtype)
+            self._bufs[name] = buf
+        return buf[:size].reshape(shape)
 
-    def _weighted_exponentials(self, theta: np.ndarray, w: np.ndarray, VT: np.ndarray) -> None:
-        """Fill the rows of ``VT`` (2 (n_orders + 1), n) with ``w cos`` and ``-w sin`` of
-        ``2 pi m theta`` for each order m, then ``w`` and 0 for order 0: the real and
-        imaginary parts of ``w exp(-j 2 pi m theta)``, interleaved so that a product with
-        ``VT.T`` views as complex.
-
-        The angle's fraction of a cycle is taken in float64 before the cosine and sine,
-        so the precision does not depend on how many revolutions have passed; the
-        cosine and sine are evaluated in the working precision (``VT.dtype``). Orders up
-        to 8 x the base (1X, or 0.5X with half orders) scale the base angle in that
-        precision (argument error <= 8 ulp of 2 pi: 4e-6 rad in float32).
-        """
-        real = VT.dtype
-        n_o = self.orders.size
-        w = w.astype(real, copy=False)
-        nw = -w
-        base = None
-        if self._powers is not None:
-            base_cyc = self._base * theta
-            base_cyc -= np.floor(base_cyc)
-            base = (2.0 * np.pi * base_cyc).astype(real, copy=False)
-        for i, m in enumerate(self.orders):
-            if base is not None and self._powers[i] <= 8:
-                a = base if self._powers[i] == 1 else base * real.type(self._powers[i])
-            else:
-                cyc = m * theta
-                cyc -= np.floor(cyc)
-                a = (2.0 * np.pi * cyc).astype(real, copy=False)
-            np.multiply(np.cos(a), w, out=VT[2 * i])
-            np.multiply(np.sin(a), nw, out=VT[2 * i + 1])
-        VT[2 * n_o] = w
-        VT[2 * n_o + 1] = 0.0
+    def _first_samples(self, t_k: np.ndarray) -> np.ndarray:
+        """Record index of the first sample at or after each time ``t_k`` (sample n is
+        at time ``n / fs``), exact in the float64 arithmetic used for sample times."""
+        fs = self.fs
+        n = np.ceil(t_k * fs)
+        n -= (n - 1.0) / fs >= t_k
+        n += n / fs < t_k
+        return n.astype(np.int64)
 
     def _process(self, data: np.ndarray, base: int) -> tuple[OrderTrack, int]:
+        """Blocks whose samples (one more on each side) all lie in ``data`` (whose
+        first sample is record index ``base``); returns them and the first record index
+        still needed."""
         n_ch, n = data.shape
         R = self.revs_per_block
         prof = self.profile
-        K = prof.n_revs
-        fs = self.fs
+        n_blocks_max = prof.n_revs // R
         empty = OrderTrack.empty(n_ch, self.orders)
         if n == 0:
             return empty, base
-        # samples whose angle can be evaluated (profile range, half a rev beyond)
+        if self._j_next >= n_blocks_max:
+            return empty, base + n  # past the profile's last whole block
         rev_t = prof._t
-        first_dt = rev_t[1] - rev_t[0]
-        last_dt = rev_t[-1] - rev_t[-2]
-        i_lo = max(0, int(np.ceil((rev_t[0] - 0.5 * first_dt) * fs)) - base)
-        i_hi = min(n, int(np.floor((rev_t[-1] + 0.5 * last_dt) * fs)) - base + 1)
-        if i_hi - i_lo < 2:
-            # nothing evaluable: before the profile keep the last sample, after it nothing
-            return empty, (base + n - 1 if i_lo >= n else base + n)
-        t = (base + np.arange(i_lo, i_hi)) / fs
-        theta = prof._angle(t, extrapolate=True, sorted_t=True)
-        finite = np.isfinite(theta)
-        if not finite.all():
-            idx = np.flatnonzero(finite)
-            if idx.size < 2:
-                return empty, base + n - 1
-            a, b = idx[0], idx[-1] + 1
-            theta = theta[a:b]
-            i_lo, i_hi = i_lo + a, i_lo + b
-        j0 = max(self._j_next, int(np.floor(theta[0] / R)) + 1)
-        j1 = min(int(np.floor(theta[-1] / R)) - 1, K // R - 1)  # last complete block
-        if j1 < j0:
-            # no complete block: keep from the sample before block j0's start
-            if j0 * R > K:
-                return empty, base + n  # past the profile's end: nothing more to do
-            pos = int(np.searchsorted(theta, j0 * R, side="left"))
-            keep = i_lo + max(pos - 1, 0)
-            return empty, base + keep
-        bounds = np.arange(j0, j1 + 2) * R  # block limits in revolutions
-        pos = np.searchsorted(theta, bounds, side="left")  # first sample >= limit
-        na = pos[:-1]  # first sample of each block (local to theta)
-        nb = pos[1:] - 1  # last sample of each block
-        if np.any(nb < na + 1):
-            raise DspError("A block holds fewer than 2 samples: the sample rate is too low "
-                           "for the speed (or the speed profile is wrong)")
-        s0, s1 = na[0] - 1, nb[-1] + 1  # sample range needed, inclusive (local)
-        th = theta[s0:s1 + 1]
-        xs = data[:, i_lo + s0:i_lo + s1 + 1]
-        d = np.diff(th)  # d[i] = th[i+1] - th[i]
-        w = np.empty_like(th)
-        w[1:-1] = 0.5 * (d[:-1] + d[1:])
-        w[0] = 0.5 * d[0]
-        w[-1] = 0.5 * d[-1]
+        fs = self.fs
+        # revolution k starts at the first sample at or after rev_t[k]; a block needs the
+        # sample before its first revolution's start and the first sample of the next
+        k_first = int(np.searchsorted(rev_t, base / fs, side="right"))  # t_k > t(base)
+        k_last = int(np.searchsorted(rev_t, (base + n - 1) / fs, side="right")) - 1
+        j0 = max(self._j_next, -(-k_first // R))
+        j1 = min(k_last // R - 1, n_blocks_max - 1)
+        if j0 >= n_blocks_max:
+            return empty, base + n
+        if j1 < j0:  # no complete block: keep from the sample before block j0's start
+            start = int(self._first_samples(rev_t[j0 * R:j0 * R + 1])[0])
+            return empty, min(start - 1, base + n)
+        k0, k1 = j0 * R, (j1 + 1) * R  # revolutions k0 .. k1 - 1
+        na = self._first_samples(rev_t[k0:k1 + 1])  # first sample of each revolution
+        if np.any(np.diff(na) < 2):
+            raise DspError("A revolution holds fewer than 2 samples: the sample rate is too "
+                           "low for the speed (or the speed profile is wrong)")
+        nblk = j1 - j0 + 1
         n_o = self.orders.size
-        work = data.dtype  # float32 data is tracked in float32, float64 in float64
-        cwork = np.complex64 if work == np.float32 else np.complex128
-        # V: re and im of w exp(-j 2 pi m theta) per sample and order, then w (order 0)
-        VT = np.empty((2 * (n_o + 1), th.size), work)  # rows written contiguously
-        self._weighted_exponentials(th, w, VT)
-        V = VT.T  # (L, 2 (n_o + 1)), a transposed view BLAS takes as it is
-        na_l, nb_l = na - s0, nb - s0  # indices into th / xs
-        nblk = na.size
-        core = np.empty((nblk, n_ch, 2 * (n_o + 1)), work)
-        for i in range(nblk):  # one small matrix product per block
-            a, b = na_l[i], nb_l[i] + 1
-            np.matmul(xs[:, a:b], V[a:b], out=core[i])
-        Q = core.view(cwork).astype(np.complex128)  # (nblk, n_ch, n_o + 1)
-        # end corrections (exact block limits between samples)
-        k_lo = bounds[:-1].astype(np.float64)
-        k_hi = bounds[1:].astype(np.float64)
-        dl = d[na_l - 1]  # interval straddling the left limit
-        dr = d[nb_l]  # interval straddling the right limit
-        hL = th[na_l] - k_lo
-        lam = (k_lo - th[na_l - 1]) / dl
-        hR = k_hi - th[nb_l]
-        mu = hR / dr
-        idx4 = np.stack([na_l - 1, na_l, nb_l, nb_l + 1], axis=1)  # (nblk, 4)
-        coef = np.stack([0.5 * hL * (1 - lam), 0.5 * hL * (1 + lam) - 0.5 * dl,
-                         0.5 * hR * (2 - mu) - 0.5 * dr, 0.5 * hR * mu], axis=1)
-        E4 = np.ones(idx4.shape + (n_o + 1,), np.complex128)  # exponentials at the ends
-        E4[:, :, :n_o] = self._exponentials(th[idx4].ravel()).reshape(idx4.shape + (n_o,))
-        Ec = E4 * coef[:, :, None]  # (nblk, 4, n_o + 1)
-        Q += np.einsum("cbi,bio->bco", xs[:, idx4].astype(np.float64), Ec)
-        # The rule's own error on a constant: L = quadrature of exp(-j 2 pi m theta) alone
-        # (zero exactly); removing D * L, D the block mean, cancels the leakage of a large
-        # DC offset (a probe's gap) into the orders.
-        # (accumulated in the working precision, like the products above)
-        sums = np.add.reduceat(VT[:, na_l[0]:nb_l[-1] + 1], na_l - na_l[0], axis=1)
-        sums = np.ascontiguousarray(sums.T)  # (nblk, 2 (n_o + 1))
-        L = sums.view(cwork)[:, :n_o] + Ec[:, :, :n_o].sum(axis=1)  # (nblk, n_o)
-        D = Q[:, :, n_o].real / R  # (nblk, n_ch)
-        vec = (Q[:, :, :n_o] - D[:, :, None] * L[:, None, :]) * (2.0 / R)  # (nblk, n_ch, n_o)
-        vectors = np.ascontiguousarray(vec.transpose(1, 2, 0))
-        # direct levels over the block's own samples
-        seg = xs[:, na_l[0]:nb_l[-1] + 1]
-        offs = na_l - na_l[0]
-        cnt = (nb_l - na_l + 1).astype(np.float64)
-        pp = (np.maximum.reduceat(seg, offs, axis=1)
-              - np.minimum.reduceat(seg, offs, axis=1)).astype(np.float64)
-        if self._sq.shape[1] < seg.shape[1] or self._sq.dtype != work:
-            self._sq = np.empty((n_ch, max(seg.shape[1], SUB_SAMPLES + self._head_samples)), work)
-        sq = np.square(seg, out=self._sq[:, :seg.shape[1]])  # reused buffer
-        rms = np.sqrt(np.add.reduceat(sq, offs, axis=1).astype(np.float64) / cnt)
-        ks = bounds[:-1]
+        n_rows = 2 * n_o + 1
+        nr = k1 - k0
+        work = data.dtype.type
+        coef, ends = self._revolutions(k0, na)
+        # per revolution: rows x (channels, then a channel of ones: the quadrature of
+        # each row alone, summed in the same product, so it does not depend on how the
+        # revolutions are grouped)
+        core = np.empty((nr, n_rows, n_ch + 1), work)
+        pp = np.empty((n_ch, nblk))
+        rms = np.empty((n_ch, nblk))
+        # groups of whole blocks of about GROUP_SAMPLES samples (work arrays in cache)
+        b = 0
+        starts = na[::R]  # first sample of each block, and the one after the last
+        while b < nblk:
+            e = int(np.searchsorted(starts, starts[b] + GROUP_SAMPLES, side="right")) - 1
+            e = min(max(e, b + 1), nblk)
+            r, re = b * R, e * R
+            X = self._products(data, base, na[r:re + 1], coef[:, r:re], ends[:, r:re],
+                               core[r:re])
+            self._direct(X[:n_ch, 1:-1], starts[b:e + 1], pp[:, b:e], rms[:, b:e])
+            b = e
+        # rows hold W cos and W sin: W exp(-j m ph) = W cos - j W sin
+        Q = core[:, 0:2 * n_o:2, :n_ch] - 1j * core[:, 1:2 * n_o:2, :n_ch]  # (nr, n_o, n_ch)
+        Lq = core[:, 0:2 * n_o:2, n_ch] - 1j * core[:, 1:2 * n_o:2, n_ch]  # (nr, n_o)
+        if self._rev_phase is not None:  # exp(-j 2 pi m k) for orders m k not whole
+            f = np.exp(-2j * np.pi * np.mod(np.multiply.outer(np.arange(k0, k1),
+                                                              self._rev_phase), 1.0))
+            Q *= f[:, :, None]
+            Lq *= f
+        if R > 1:
+            Q = Q.reshape(nblk, R, n_o, n_ch).sum(axis=1)
+            Lq = Lq.reshape(nblk, R, n_o).sum(axis=1)
+        D = core[:, 2 * n_o, :n_ch].astype(np.float64)
+        if R > 1:
+            D = D.reshape(nblk, R, n_ch).sum(axis=1) / R
+        # The rule's own error on a constant: Lq = quadrature of exp(-j 2 pi m theta)
+        # alone (zero exactly); removing D * Lq, D the block mean, cancels the leakage
+        # of a large DC offset (a probe's gap) into the orders.
+        vec = (Q - D[:, None, :] * Lq[:, :, None]) * (2.0 / R)  # (nblk, n_o, n_ch)
+        vectors = np.ascontiguousarray(vec.transpose(2, 1, 0))
+        ks = np.arange(j0, j1 + 1) * R
         t_a, t_b = rev_t[ks], rev_t[ks + R]
         track = OrderTrack(time_s=0.5 * (t_a + t_b), speed_rpm=60.0 * R / (t_b - t_a),
                            orders=self.orders.copy(), vectors=vectors, direct_pp=pp,
                            direct_rms=rms, rev_index=ks.astype(np.int64))
         self._j_next = j1 + 1
-        # keep from the sample before the next block's start
-        if self._j_next * R > K:
+        if self._j_next >= n_blocks_max:
             return track, base + n
-        p_next = int(np.searchsorted(theta, self._j_next * R, side="left"))
-        return track, base + i_lo + max(p_next - 1, 0)
+        start = int(self._first_samples(rev_t[self._j_next * R:self._j_next * R + 1])[0])
+        return track, min(start - 1, base + n)
+
+    def _revolutions(self, k0: int, na: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Per revolution k0, k0 + 1, ... (first samples ``na``, the last entry the first
+        sample after them): the local angle ``u = theta - k`` at window position ``i``
+        (sample ``na_k - 1 + i``) as a cubic in ``i``, coefficients ``(A3, A2, A1, A0)``
+        (shape (4, n_revs), float64), and the trapezoid weights of the window's first
+        two and last two samples (shape (4, n_revs))."""
+        nr = na.size - 1
+        # the profile's cubic of revolution k: c0 s^3 + c1 s^2 + c2 s with
+        # s = (i - sigma) / fs, sigma = t_k fs - (na_k - 1)
+        ks = np.arange(k0, k0 + nr)
+        c = self.profile._c[:, ks]
+        sigma = self.profile._t[ks] * self.fs - (na[:-1] - 1)
+        h = 1.0 / self.fs
+        B3, B2, B1 = c[0] * h ** 3, c[1] * h ** 2, c[2] * h
+        A = np.empty((4, nr))
+        A[0] = B3
+        A[1] = B2 - 3.0 * B3 * sigma
+        A[2] = B1 - (2.0 * B2 - 3.0 * B3 * sigma) * sigma
+        A[3] = -(B1 - (B2 - B3 * sigma) * sigma) * sigma
+
+        def u(i):
+            return ((A[0] * i + A[1]) * i + A[2]) * i + A[3]
+
+        # Trapezoid rule of the linear interpolant of the integrand over u in [0, 1]:
+        # interior weights 0.5 (u(i+1) - u(i-1)); the limits u = 0 and u = 1 fall
+        # between the window's first two and last two samples (linear interpolation).
+        L = np.diff(na).astype(np.float64)
+        u0, u1, u2 = u(0.0), u(1.0), u(2.0)
+        uLm, uL, uL1 = u(L - 1.0), u(L), u(L + 1.0)
+        ends = np.empty((4, nr))
+        ends[0] = 0.5 * u1 * u1 / (u1 - u0)
+        ends[1] = 0.5 * u1 * (u1 - 2.0 * u0) / (u1 - u0) + 0.5 * (u2 - u1)
+        hR = 1.0 - uL
+        mu = hR / (uL1 - uL)
+        ends[2] = 0.5 * (uL - uLm) + 0.5 * hR * (2.0 - mu)
+        ends[3] = 0.5 * hR * mu
+        return A, ends
+
+    def _direct(self, seg, starts, pp, rms) -> None:
+        """Direct p-p and rms of the blocks with first samples ``starts`` (record
+        indices; the last entry is the first sample after them) over their own samples,
+        ``seg`` the samples from ``starts[0]`` on."""
+        offs = starts[:-1] - starts[0]
+        pp[...] = np.maximum.reduceat(seg, offs, axis=1)
+        pp -= np.minimum.reduceat(seg, offs, axis=1)
+        sq = np.square(seg, out=self._work("sq", seg.shape, seg.dtype))
+        rms[...] = np.add.reduceat(sq, offs, axis=1)
+        rms /= np.diff(starts)
+        np.sqrt(rms, out=rms)
+
+    def _products(self, data, base, na, A, ends, core) -> np.ndarray:
+        """For the revolutions with first samples ``na`` (the last entry the first
+        sample after them), local-angle coefficients ``A`` and end weights ``ends``
+        (:meth:`_revolutions`): ``core[r] = VT_r @ window_r.T`` (rows x channels + 1),
+        where the rows of ``VT_r`` are ``W cos`` and ``W sin`` of each order's phase and
+        ``W`` itself, ``W`` the quadrature weights over the revolution's window, and
+        the window holds the channels and a row of ones. Returns that copy of the
+        samples (channels + 1, from the sample before ``na[0]`` to ``na[-1]``)."""
+        work = data.dtype.type
+        n_ch = data.shape[0]
+        span = int(na[-1] - na[0]) + 2
+        X = self._work("X", (n_ch + 1, span), work)
+        a = int(na[0]) - 1 - base
+        X[:n_ch] = data[:, a:a + span]
+        X[n_ch] = 1.0
+        nr = na.size - 1
+        n_o = self.orders.size
+        L = np.diff(na)
+        Lw = L + 2  # the window: one sample before and the first sample after
+        Lmax = int(Lw.max())
+        if self._ii.size < Lmax or self._ii.dtype != work:
+            self._ii = np.arange(max(Lmax, 2 * self._ii.size), dtype=work)
+        ii = self._ii[:Lmax]  # window positions 0, 1, ...
+        Aw = A.astype(work)
+        # rows x revolutions x window: each row's grid is contiguous (fast element-wise
+        # work); VT[:, r, :lw] is revolution r's (rows x window) matrix for BLAS
+        VT = self._work("VT", (2 * n_o + 1, nr, Lmax), work)
+        W = VT[2 * n_o]  # order 0: the weights themselves
+        # interior 0.5 (u(i+1) - u(i-1)) = 3 A3 i^2 + 2 A2 i + A1 + A3, exact for a cubic
+        np.multiply((3.0 * A[0]).astype(work)[:, None], ii, out=W)
+        W += (2.0 * Aw[1])[:, None]
+        W *= ii
+        W += (A[2] + A[0]).astype(work)[:, None]
+        rows = np.arange(nr)
+        W[rows, 0] = ends[0]
+        W[rows, 1] = ends[1]
+        W[rows, L] = ends[2]
+        W[rows, L + 1] = ends[3]
+        pad = self._work("pad", (nr, Lmax), np.bool_)
+        np.greater_equal(ii, Lw.astype(work)[:, None], out=pad)
+        np.copyto(W, 0, where=pad)
+        # phase of the base order, 2 pi base u, in the working precision
+        P = ((2.0 * np.pi * self._base_order) * A).astype(work)
+        ph = self._work("ph", (nr, Lmax), work)
+        np.multiply(P[0][:, None], ii, out=ph)
+        ph += P[1][:, None]
+        ph *= ii
+        ph += P[2][:, None]
+        ph *= ii
+        ph += P[3][:, None]
+        self._exponentials(ph, W, VT)
+        # one small matrix product per revolution: (rows x window) @ (window x channels)
+        for r, (p, lw) in enumerate(zip((na[:-1] - na[0]).tolist(), Lw.tolist())):
+            np.matmul(VT[:, r, :lw], X[:, p:p + lw].T, out=core[r])
+        return X
+
+    def _exponentials(self, ph: np.ndarray, W: np.ndarray, VT: np.ndarray) -> None:
+        """Rows ``2 i`` and ``2 i + 1`` of ``VT`` (rows, n_revs, window): ``W cos`` and
+        ``W sin`` of ``m_i ph / base`` for each order ``m_i``, ``ph`` the phase of the base
+        order (the real part and minus the imaginary part of ``W exp(-j m_i ph / base)``).
+
+        Orders that are whole multiples p <= MAX_POWER of the base order are built by
+        the recurrence ``e_(p+1) = e_p e_1`` from one cosine and sine of the base phase
+        per sample (the error bound is tested against direct cos/sin); others directly.
+        """
+        work = VT.dtype.type
+        if self._powers is None:
+            for i, m in enumerate(self.orders):
+                a = self._work("a", W.shape, work)
+                np.multiply(ph, work(m / self._base_order), out=a)
+                np.cos(a, out=VT[2 * i])
+                VT[2 * i] *= W
+                np.sin(a, out=VT[2 * i + 1])
+                VT[2 * i + 1] *= W
+            return
+        cs = self._work("cos", W.shape, work)
+        sn = self._work("sin", W.shape, work)
+        tmp = self._work("tmp", W.shape, work)
+        np.cos(ph, out=cs)
+        np.sin(ph, out=sn)
+        # p = 1: W (cos, -sin)
+        slot = {int(p): i for i, p in enumerate(self._powers)}
+        pmax = int(max(self._powers))
+        re = self._work("re1", W.shape, work) if 1 not in slot else VT[2 * slot[1]]
+        im = self._work("im1", W.shape, work) if 1 not in slot else VT[2 * slot[1] + 1]
+        np.multiply(cs, W, out=re)
+        np.multiply(sn, W, out=im)
+        spare = 0
+        for p in range(2, pmax + 1):
+            if p in slot:
+                re2, im2 = VT[2 * slot[p]], VT[2 * slot[p] + 1]
+            else:
+                re2 = self._work(f"re_s{spare}", W.shape, work)
+                im2 = self._work(f"im_s{spare}", W.shape, work)
+                spare ^= 1
+            # W (cos + j sin) of p + 1 times the base: (re + j im)(cos + j sin)
+            np.multiply(re, cs, out=re2)
+            np.multiply(im, sn, out=tmp)
+            re2 -= tmp
+            np.multiply(im, cs, out=im2)
+            np.multiply(re, sn, out=tmp)
+            im2 += tmp
+            re, im = re2, im2
 
 
 def track_orders(x, fs: float, profile: SpeedProfile, *, orders=(1, 2, 3, 4),
