@@ -194,7 +194,7 @@ def _parse_window(text: str | None) -> tuple[float, float] | None:
 
 
 def cmd_process(*, db: str | None, run: int, orders: str, revs_per_block: int,
-                slow_roll: str | None, quiet: bool) -> int:
+                slow_roll: str | None, quiet: bool, timings: bool = False) -> int:
     from rundash.workflows.pipeline import ProcessingParams, process_run
 
     params = ProcessingParams(orders=_parse_orders(orders), revs_per_block=revs_per_block,
@@ -213,6 +213,11 @@ def cmd_process(*, db: str | None, run: int, orders: str, revs_per_block: int,
     if res.findings is not None:
         print(f"verdict: {res.findings.get('run_verdict')} "
               f"({len(res.findings.get('criticals', []))} critical-speed findings)")
+    if timings:
+        print(f"stage times (s; 'read' runs beside 'tracking' in a second thread), "
+              f"wall {res.wall_s:.2f} s:")
+        for stage, sec in res.stage_s.items():
+            print(f"  {stage:<12} {sec:7.2f}")
     return 0
 
 
@@ -539,6 +544,8 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--slow-roll", metavar="LOW:HIGH",
                    help="slow-roll speed window in rpm (default: chosen automatically)")
     s.add_argument("--quiet", action="store_true", help="no progress bar")
+    s.add_argument("--timings", action="store_true",
+                   help="print the seconds spent per stage (read, tach, speed, tracking, ...)")
 
     s = with_db(sub.add_parser("findings", help="critical speeds, AFs, margins and limit "
                                                 "checks of a processed run"))

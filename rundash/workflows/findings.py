@@ -86,7 +86,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                 continue
             afac = 2.0 if VECTOR_AMPLITUDE_CONVENTION[ch.kind] == "pp" else 1.0
             for d, sel in directions.items():
-                s, v, t = track.speed_rpm[sel], compensated[i, k1, sel], track.time_s[sel]
+                s, t = track.speed_rpm[sel], track.time_s[sel]
+                v = np.asarray(compensated[i, k1, sel], dtype=np.complex128)
                 with warnings.catch_warnings(record=True) as caught:
                     warnings.simplefilter("always")
                     crits = crit_mod.find_criticals(s, v, time_s=t, amplitude_factor=afac,
@@ -153,7 +154,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
         if ch.kind in ("proximity", "velocity"):
             direct = track.direct_pp[i] if ch.kind == "proximity" else track.direct_rms[i]
             sel = directions[d]
-            checks = check_levels(s, vector=v, direct=direct[sel], criticals=crits,
+            checks = check_levels(s, vector=v, direct=np.asarray(direct[sel], np.float64),
+                                  criticals=crits,
                                   kind=ch.kind, amplitude_factor=afac,
                                   max_continuous_speed_rpm=m.max_continuous_speed_rpm,
                                   profile=profile, top_speed_is_steady=steady_top)

@@ -1,17 +1,32 @@
 """The glue: load a run from storage, run dsp and analysis, save the results.
 
-``process_run(db, run_id)`` reads the tach channel whole (one float32 channel), builds
-the once-per-rev reference and the speed profile, then streams every probe channel
-chunk by chunk through the order tracker and the cascade (never the whole record in
-memory), compensates slow roll on proximity probes, finds the critical speeds and judges
-them, and replaces the run's results in one write transaction.
+``process_run(db, run_id)`` streams the tach channel chunk by chunk through the edge
+detector (:class:`rundash.dsp.tach.EdgeDetector`: a level pass, then an edge pass; the
+channel is held in memory between the two only when it is short), builds the
+once-per-rev reference and the speed profile, then streams every probe channel chunk by
+chunk through the order tracker and the cascade (a reader thread decodes the next chunks
+while the current one is tracked), compensates slow roll on proximity probes, finds the
+critical speeds and judges them, and replaces the run's results in one write
+transaction.
+
+Memory: the samples are never held whole (a few chunks of every channel at a time); the
+per-revolution results are (they are the output): about 72 bytes per revolution and
+probe channel (4 orders: the vectors and the slow-roll-compensated vectors as complex64,
+p-p and rms as float32), e.g. about 0.8 GB for a 2-hour run of 15 probes at 6000 rpm.
+
+``ProcessResult.stage_s`` holds the seconds spent per stage (:data:`STAGES`); ``rundash
+process --timings`` prints them.
 """
 
 from __future__ import annotations
 
+import queue
+import threading
+import time
 import warnings
+from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
-from typing import Any, Sequence
+from typing import Any, Iterator, Sequence
 
 import numpy as np
 
@@ -49,6 +64,18 @@ class ProcessingParams:
         return d
 
 
+#: Stages of processing, in order, as reported in ``ProcessResult.stage_s``. "read" is the
+#: storage reads and decoding (in a second thread while the probes are tracked, so the
+#: stages add up to more than the wall time).
+STAGES = ("read", "tach", "speed", "tracking", "cascade", "findings", "modal fits", "save")
+
+#: A tach channel of at most this many samples is kept in memory between the edge
+#: detector's passes (64 MB of float32); a longer one is read again.
+TACH_CACHE_SAMPLES = 1 << 24
+#: Chunks decoded ahead of the tracker by the reader thread.
+PREFETCH_CHUNKS = 2
+
+
 @dataclass
 class ProcessResult:
     run_id: int
@@ -58,6 +85,83 @@ class ProcessResult:
     slow_roll_rpm: tuple[float, float] | None
     warnings: list[str] = field(default_factory=list)
     findings: dict[str, Any] | None = None
+    stage_s: dict[str, float] = field(default_factory=dict)
+    wall_s: float = 0.0
+
+
+class StageTimer:
+    """Seconds spent per stage (``with timer("tracking"): ...``); thread-safe sums."""
+
+    def __init__(self):
+        self.seconds: dict[str, float] = {}
+        self._lock = threading.Lock()
+
+    def add(self, stage: str, seconds: float) -> None:
+        with self._lock:
+            self.seconds[stage] = self.seconds.get(stage, 0.0) + seconds
+
+    @contextmanager
+    def __call__(self, stage: str):
+        t0 = time.perf_counter()
+        try:
+            yield
+        finally:
+            self.add(stage, time.perf_counter() - t0)
+
+    def ordered(self) -> dict[str, float]:
+        known = [s for s in STAGES if s in self.seconds]
+        return {s: self.seconds[s] for s in known + sorted(set(self.seconds) - set(known))}
+
+
+def _timed_chunks(conn, channel_ids, timer: StageTimer) -> Iterator[tuple[int, np.ndarray]]:
+    """``q.iter_run_chunks`` with the time spent reading and decoding added to "read"."""
+    it = q.iter_run_chunks(conn, channel_ids)
+    while True:
+        t0 = time.perf_counter()
+        item = next(it, None)
+        timer.add("read", time.perf_counter() - t0)
+        if item is None:
+            return
+        yield item
+
+
+def _prefetched(db: Database, channel_ids, timer: StageTimer) -> Iterator[tuple[int, np.ndarray]]:
+    """Chunks of the channels, read and decoded by a second thread up to
+    :data:`PREFETCH_CHUNKS` ahead (SQLite and numpy copies run without the GIL, so the
+    reading overlaps the tracking); errors of the reader are raised here."""
+    out: queue.Queue = queue.Queue(maxsize=PREFETCH_CHUNKS)
+    stop = threading.Event()
+    done = object()
+
+    def reader():
+        try:
+            with db.read() as conn:
+                for item in _timed_chunks(conn, channel_ids, timer):
+                    while not stop.is_set():
+                        try:
+                            out.put(item, timeout=0.1)
+                            break
+                        except queue.Full:
+                            continue
+                    if stop.is_set():
+                        return
+            out.put(done)
+        except BaseException as exc:  # handed to the consumer
+            out.put(exc)
+
+    th = threading.Thread(target=reader, name="rundash-reader", daemon=True)
+    th.start()
+    try:
+        while True:
+            item = out.get()
+            if item is done:
+                return
+            if isinstance(item, BaseException):
+                raise item
+            yield item
+    finally:
+        stop.set()
+        th.join()
 
 
 def _description(conn, run_id: int) -> MachineDescription:
@@ -75,10 +179,77 @@ def _n_fft(fs: float) -> int:
     return int(min(max(n, 256), 16384))
 
 
+def _edges(db: Database, tach_ch, desc: MachineDescription, timer: StageTimer) -> np.ndarray:
+    """Tach events of the whole channel, streamed (the channel is held in memory between
+    the detector's passes only up to :data:`TACH_CACHE_SAMPLES`)."""
+    fs = tach_ch.sample_rate_hz
+    det = tach.EdgeDetector(tach_ch.n_samples, fs, edge=desc.tach.edge,
+                            threshold=desc.tach.threshold, hysteresis=desc.tach.hysteresis)
+    cache: list[tuple[int, np.ndarray]] | None = [] if tach_ch.n_samples <= TACH_CACHE_SAMPLES \
+        else None
+
+    def chunks():
+        if cache:
+            yield from cache
+            return
+        with db.read() as conn:
+            for start, block in _timed_chunks(conn, [tach_ch.id], timer):
+                if cache is not None:
+                    cache.append((start, block[0]))
+                yield start, block[0]
+
+    while det.needs_pass:
+        for start, x in chunks():
+            with timer("tach"):
+                det.feed_levels(x, start)
+        with timer("tach"):
+            det.end_pass()
+    parts = []
+    for start, x in chunks():
+        with timer("tach"):
+            parts.append(det.feed(x, start))
+    parts.append(det.finish())
+    return np.concatenate(parts)
+
+
+class _Results:
+    """Per-block results of the tracker gathered into arrays sized once (no copy per
+    chunk, no concatenation at the end): vectors as complex64, direct levels float32."""
+
+    def __init__(self, n_ch: int, orders, n_max: int):
+        self.orders = np.asarray(orders, dtype=np.float64)
+        self.vectors = np.empty((n_ch, self.orders.size, n_max), np.complex64)
+        self.direct_pp = np.empty((n_ch, n_max), np.float32)
+        self.direct_rms = np.empty((n_ch, n_max), np.float32)
+        self.time_s = np.empty(n_max)
+        self.speed_rpm = np.empty(n_max)
+        self.rev_index = np.empty(n_max, np.int64)
+        self.n = 0
+
+    def add(self, tr: dsp_orders.OrderTrack) -> None:
+        a, b = self.n, self.n + tr.n_blocks
+        self.vectors[:, :, a:b] = tr.vectors
+        self.direct_pp[:, a:b] = tr.direct_pp
+        self.direct_rms[:, a:b] = tr.direct_rms
+        self.time_s[a:b] = tr.time_s
+        self.speed_rpm[a:b] = tr.speed_rpm
+        self.rev_index[a:b] = tr.rev_index
+        self.n = b
+
+    def track(self) -> dsp_orders.OrderTrack:
+        n = self.n
+        return dsp_orders.OrderTrack(
+            time_s=self.time_s[:n], speed_rpm=self.speed_rpm[:n], orders=self.orders,
+            vectors=self.vectors[:, :, :n], direct_pp=self.direct_pp[:, :n],
+            direct_rms=self.direct_rms[:, :n], rev_index=self.rev_index[:n])
+
+
 def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = None,
                 progress: Progress = no_progress) -> ProcessResult:
     """Process a stored run and replace its results in one transaction."""
+    t_start = time.perf_counter()
     params = params or ProcessingParams()
+    timer = StageTimer()
     notes: list[str] = []
     with db.read() as conn:
         run = q.get_run(conn, run_id)
@@ -92,114 +263,130 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
             raise StorageError(f"run {run_id} has no tach channel")
         if not probes:
             raise StorageError(f"run {run_id} has no probe channels")
-        progress(0.0, "tach")
-        tach_x = q.read_channel(conn, tach_ch.id)
+    progress(0.0, "tach")
     fs = tach_ch.sample_rate_hz
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        edges = tach.detect_edges(tach_x, fs, edge=desc.tach.edge, threshold=desc.tach.threshold,
-                                  hysteresis=desc.tach.hysteresis)
-        del tach_x
-        opr = tach.once_per_rev(edges, desc.tach.pulses_per_rev)
-        profile = speed.speed_profile(opr.times_s)
-        segments = speed.segment(profile)
-        kind = speed.run_kind(segments)
+        edges = _edges(db, tach_ch, desc, timer)
+        with timer("tach"):
+            opr = tach.once_per_rev(edges, desc.tach.pulses_per_rev)
+        with timer("speed"):
+            profile = speed.speed_profile(opr.times_s)
+            segments = speed.segment(profile)
+            kind = speed.run_kind(segments)
     notes += [f"{w.category.__name__}: {w.message}" for w in caught]
     progress(1.0, "tach")
 
     tracker = dsp_orders.OrderTracker(profile, fs, len(probes), orders=params.orders,
                                       revs_per_block=params.revs_per_block)
-    row_t, row_rpm = spectra.cascade_plan(profile, speed_step_rpm=params.cascade_speed_step_rpm,
-                                          max_rows=params.cascade_max_rows)
+    with timer("cascade"):
+        row_t, row_rpm = spectra.cascade_plan(profile, speed_step_rpm=params.cascade_speed_step_rpm,
+                                              max_rows=params.cascade_max_rows)
     n_fft = params.cascade_n_fft or _n_fft(fs)
     f_max = min(fs / 2, params.cascade_max_order * float(np.max(row_rpm)) / 60.0 * 1.05)
     casc_amp: list[np.ndarray | None] = [None] * len(probes)
     casc_done = np.zeros(row_t.size, dtype=bool)
+    row_first = np.round(row_t * fs).astype(np.int64) - n_fft // 2  # first sample of each row
     freq_hz = None
-    parts = []
+    results = _Results(len(probes), tracker.orders, profile.n_revs // tracker.revs_per_block)
     tail = None
     tail_start = 0
     total = max(tach_ch.n_samples, 1)
-    with db.read() as conn:
-        for start, block in q.iter_run_chunks(conn, [c.id for c in probes]):
-            parts.append(tracker.feed(block, start))
+    for start, block in _prefetched(db, [c.id for c in probes], timer):
+        with timer("tracking"):
+            tr = tracker.feed(block, start)
+            if tr.n_blocks:
+                results.add(tr)
+        with timer("cascade"):
             # cascade rows need n_fft samples around their time: keep an overlap
             if tail is not None:
                 buf = np.concatenate([tail, block], axis=1)
                 buf_start = tail_start
             else:
                 buf, buf_start = block, start
-            todo = ~casc_done
-            if todo.any():
+            todo = np.flatnonzero(~casc_done & (row_first >= buf_start)
+                                  & (row_first + n_fft <= buf_start + buf.shape[1]))
+            if todo.size:  # only the samples the rows due here need
+                a = int(row_first[todo].min()) - buf_start
+                b = int(row_first[todo].max()) + n_fft - buf_start
                 for i in range(len(probes)):
                     done, freq_hz, amp = spectra.cascade_rows(
-                        buf[i], fs, buf_start, row_t[todo], n_fft=n_fft, f_max_hz=f_max,
-                        max_bins=params.cascade_max_bins)
+                        buf[i, a:b], fs, buf_start + a, row_t[todo], n_fft=n_fft,
+                        f_max_hz=f_max, max_bins=params.cascade_max_bins)
                     if casc_amp[i] is None:
                         casc_amp[i] = np.zeros((row_t.size, amp.shape[1]), np.float32)
-                    casc_amp[i][np.flatnonzero(todo)[done]] = amp[done]
-                casc_done[np.flatnonzero(todo)[done]] = True
+                    casc_amp[i][todo[done]] = amp[done]
+                casc_done[todo[done]] = True
             keep = min(n_fft, buf.shape[1])
-            tail, tail_start = buf[:, -keep:], buf_start + buf.shape[1] - keep
-            progress((start + block.shape[1]) / total, "order tracking")
-        parts.append(tracker.finish())
-    track = dsp_orders.concat_tracks(parts)
+            tail, tail_start = buf[:, -keep:].copy(), buf_start + buf.shape[1] - keep
+        progress((start + block.shape[1]) / total, "order tracking")
+    with timer("tracking"):
+        tracker.finish()
+        track = results.track()
     if track.n_blocks < 3:
         raise DspError(f"run {run_id}: only {track.n_blocks} whole revolutions could be tracked")
     progress(1.0, "order tracking")
 
-    # slow-roll compensation: proximity probes only, never seismic channels
-    window = params.slow_roll_rpm or slowroll.auto_slow_roll_window(track.speed_rpm, track.time_s)
-    is_prox = np.array([c.kind == "proximity" for c in probes])
-    comp = track.vectors.copy()
-    if window is not None and is_prox.any():
-        sr = slowroll.slow_roll_vector(track.speed_rpm, track.vectors[is_prox], window)
-        comp[is_prox] = slowroll.compensate(track.vectors[is_prox], sr)
-    elif is_prox.any():
-        notes.append("no slow-roll window found (no low, steady speed band): proximity vectors "
-                     "are not compensated")
+    with timer("findings"):
+        # slow-roll compensation: proximity probes only, never seismic channels
+        window = params.slow_roll_rpm or slowroll.auto_slow_roll_window(track.speed_rpm,
+                                                                        track.time_s)
+        is_prox = np.array([c.kind == "proximity" for c in probes])
+        comp = track.vectors.copy()
+        if window is not None and is_prox.any():
+            for i in np.flatnonzero(is_prox):  # one channel at a time: no full-size temporaries
+                sr = slowroll.slow_roll_vector(track.speed_rpm, track.vectors[i], window)
+                comp[i] = slowroll.compensate(track.vectors[i], sr)
+        elif is_prox.any():
+            notes.append("no slow-roll window found (no low, steady speed band): proximity "
+                         "vectors are not compensated")
 
-    result = ProcessResult(run_id=run_id, run_kind=kind, n_revs=opr.n_revs,
-                           n_blocks=track.n_blocks, slow_roll_rpm=window, warnings=notes)
+        result = ProcessResult(run_id=run_id, run_kind=kind, n_revs=opr.n_revs,
+                               n_blocks=track.n_blocks, slow_roll_rpm=window, warnings=notes)
 
-    findings = findings_mod.build_findings(
-        desc=desc, run=run, probes=probes, track=track, compensated=comp,
-        segments=segments, slow_roll_rpm=window, processing_notes=notes)
-    result.findings = findings
+        findings = findings_mod.build_findings(
+            desc=desc, run=run, probes=probes, track=track, compensated=comp,
+            segments=segments, slow_roll_rpm=window, processing_notes=notes)
+        result.findings = findings
 
-    tach_report = dict(
-        pulses_per_rev=opr.pulses_per_rev, n_edges=int(edges.size), n_revs=opr.n_revs,
-        n_missing_filled=opr.n_missing_filled, n_extra_removed=opr.n_extra_removed,
-        repair_times_s=[round(float(t), 6) for t in opr.repair_times_s[:1000]],
-        notes=list(opr.notes))
-    seg_list = [dict(kind=s.kind, t_start_s=s.t_start_s, t_end_s=s.t_end_s,
-                     rpm_start=s.rpm_start, rpm_end=s.rpm_end) for s in segments]
-    rev_mid = 0.5 * (opr.times_s[:-1] + opr.times_s[1:])
-    with db.write() as conn:
-        q.clear_results(conn, run_id)
-        q.save_tach(conn, run_id, "edges", edges)
-        q.save_tach(conn, run_id, "once_per_rev", opr.times_s)
-        q.save_processing(conn, run_id, version=__version__, params=params.to_dict(),
-                          slow_roll_rpm=window, tach_report=tach_report, segments=seg_list,
-                          warnings=notes)
-        q.save_speed_profile(conn, run_id, rev_mid, profile.rpm(rev_mid))
-        for i, ch in enumerate(probes):
-            afac = 2.0 if VECTOR_AMPLITUDE_CONVENTION[ch.kind] == "pp" else 1.0
-            direct = track.direct_pp[i] if ch.kind == "proximity" else track.direct_rms[i]
-            for k, order in enumerate(track.orders):
-                for compensated, vec in ((False, track.vectors), (True, comp)):
-                    if compensated and not is_prox[i]:
-                        continue
-                    v = vec[i, k]
-                    q.save_track(conn, run_id, ch.id, float(order), compensated, track.time_s,
-                                 track.speed_rpm, afac * np.abs(v), lag_deg_from_phasor(v),
-                                 direct)
-            if casc_amp[i] is not None and casc_done.any():
-                q.save_cascade(conn, run_id, ch.id, row_rpm[casc_done], row_t[casc_done],
-                               freq_hz, casc_amp[i][casc_done])
-        q.save_findings_json(conn, run_id, findings)
-        q.save_finding_rows(conn, run_id, findings_mod.finding_rows(findings))
-        q.update_run(conn, run_id, kind=kind)
+    progress(0.0, "saving")
+    with timer("save"):
+        tach_report = dict(
+            pulses_per_rev=opr.pulses_per_rev, n_edges=int(edges.size), n_revs=opr.n_revs,
+            n_missing_filled=opr.n_missing_filled, n_extra_removed=opr.n_extra_removed,
+            repair_times_s=[round(float(t), 6) for t in opr.repair_times_s[:1000]],
+            notes=list(opr.notes))
+        seg_list = [dict(kind=s.kind, t_start_s=s.t_start_s, t_end_s=s.t_end_s,
+                         rpm_start=s.rpm_start, rpm_end=s.rpm_end) for s in segments]
+        rev_mid = 0.5 * (opr.times_s[:-1] + opr.times_s[1:])
+        with db.write() as conn:
+            q.clear_results(conn, run_id)
+            q.save_tach(conn, run_id, "edges", edges)
+            q.save_tach(conn, run_id, "once_per_rev", opr.times_s)
+            q.save_processing(conn, run_id, version=__version__, params=params.to_dict(),
+                              slow_roll_rpm=window, tach_report=tach_report,
+                              segments=seg_list, warnings=notes)
+            q.save_speed_profile(conn, run_id, rev_mid, profile.rpm(rev_mid))
+            for i, ch in enumerate(probes):
+                afac = 2.0 if VECTOR_AMPLITUDE_CONVENTION[ch.kind] == "pp" else 1.0
+                direct = track.direct_pp[i] if ch.kind == "proximity" else track.direct_rms[i]
+                for k, order in enumerate(track.orders):
+                    for compensated, vec in ((False, track.vectors), (True, comp)):
+                        if compensated and not is_prox[i]:
+                            continue
+                        v = vec[i, k].astype(np.complex128)
+                        q.save_track(conn, run_id, ch.id, float(order), compensated,
+                                     track.time_s, track.speed_rpm, afac * np.abs(v),
+                                     lag_deg_from_phasor(v), direct)
+                if casc_amp[i] is not None and casc_done.any():
+                    q.save_cascade(conn, run_id, ch.id, row_rpm[casc_done], row_t[casc_done],
+                                   freq_hz, casc_amp[i][casc_done])
+                progress((i + 1) / len(probes), "saving")
+            q.save_findings_json(conn, run_id, findings)
+            q.save_finding_rows(conn, run_id, findings_mod.finding_rows(findings))
+            q.update_run(conn, run_id, kind=kind)
     progress(1.0, "saving")
+    result.stage_s = timer.ordered()
+    result.wall_s = time.perf_counter() - t_start
     return result
