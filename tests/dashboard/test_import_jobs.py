@@ -229,3 +229,55 @@ def test_a_failing_upload_ends_with_a_visible_error_in_the_browser(dash_duo, dem
     time.sleep(1.0)
     assert dash_duo.find_element(f"#{ids.STATUS}").text == first
     assert [e for e in dash_duo.get_logs() or [] if e.get("level") == "SEVERE"] == []
+
+
+class TestUploadedProfile:
+    """An uploaded description naming `profile = "<path>"` made the server open that path
+    (a FIFO hung the upload, /dev/zero ran out of memory, the wording told which paths
+    exist). Uploads may name shipped profiles only, and nothing is opened to say so."""
+
+    @pytest.mark.parametrize("profile", ["/dev/zero", "/etc/passwd", "/no/such/file.toml",
+                                         "fifo", "../secret.toml", "API617"])
+    def test_refused_with_the_same_words_whether_the_path_exists_or_not(self, demo_db,
+                                                                       tmp_path, profile):
+        import os
+        if profile == "fifo":
+            profile = str(tmp_path / "hang.toml")
+            os.mkfifo(profile)
+        text = machine_text().replace('profile = "fixed-margin"', f'profile = "{profile}"')
+        url = "data:text/plain;base64," + base64.b64encode(text.encode()).decode()
+        data = "data:text/csv;base64," + base64.b64encode(b"time_s,tach\n0,0\n").decode()
+        jobs = importer.ImportJobs(demo_db.db)
+        t0 = time.monotonic()
+        job, err = importer.start_import(jobs, demo_db.db, data_contents=data,
+                                         data_name="r.csv", machine_source="upload",
+                                         machine_contents=url, label="", cycle="",
+                                         kind="mixed", started="")
+        assert time.monotonic() - t0 < 5
+        assert job is None
+        assert err == ("machine description: [machine].profile: an uploaded description may "
+                       "name only a profile shipped with rundash (api610, api612, api617, "
+                       f"fixed-margin), got {profile!r}; a profile file of your own is used "
+                       "from the command line (rundash import --machine FILE)")
+
+    def test_the_job_itself_refuses_it_too(self, db, tmp_path):
+        import os
+        fifo = tmp_path / "hang.toml"
+        os.mkfifo(fifo)
+        text = machine_text().replace('profile = "fixed-margin"', f'profile = "{fifo}"')
+        from tests.badinput.make_corpus import csv_text
+        jobs = importer.ImportJobs(db)
+        st = jobs.run_sync(filename="r.csv", data=csv_text(signals()).encode(),
+                           description_text=text, label="", cycle="", kind="mixed",
+                           started_at=None)
+        assert st.done and st.run_id is None and "may name only a profile shipped" in st.error
+        with db.read() as conn:
+            assert q.list_runs(conn) == []
+
+    def test_a_shipped_profile_is_accepted(self, db):
+        from tests.badinput.make_corpus import csv_text
+        text = machine_text().replace('profile = "fixed-margin"', 'profile = "api617"')
+        st = importer.ImportJobs(db).run_sync(
+            filename="r.csv", data=csv_text(signals()).encode(), description_text=text,
+            label="", cycle="", kind="mixed", started_at=None, process=False)
+        assert st.done and st.error is None and st.run_id is not None

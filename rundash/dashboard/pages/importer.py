@@ -123,6 +123,23 @@ def machine_description_text(db, source: str | None, upload: str | None) -> tupl
         raise InputError("the machine description is not UTF-8 text (a TOML file)") from None
 
 
+def check_uploaded_profile(desc) -> None:
+    """An uploaded machine description may name only a profile shipped with rundash: a
+    path in it would make the server open a file of its own choosing (a FIFO that never
+    ends, /dev/zero, a probe of which paths exist). Nothing is opened to decide this."""
+    from rundash.analysis.profiles import list_profiles
+    from rundash.errors import ConfigError
+
+    name = desc.machine.profile
+    shipped = list_profiles()
+    if name not in shipped:
+        shown = name if len(name) <= 80 else name[:79] + "…"
+        raise ConfigError(
+            f"machine description: [machine].profile: an uploaded description may name only "
+            f"a profile shipped with rundash ({', '.join(shipped)}), got {shown!r}; a profile "
+            "file of your own is used from the command line (rundash import --machine FILE)")
+
+
 @dataclass(frozen=True)
 class JobState:
     """What a status line shows: stage, fraction done, outcome."""
@@ -165,8 +182,13 @@ class ImportJobs:
             self._jobs[job_id] = replace(self._jobs[job_id], **changes)
 
     def start(self, *, filename: str, data: bytes, description_text: str, label: str,
-              cycle: str, kind: str, started_at: datetime | None, process: bool = True) -> str:
-        """Start one job; returns its id. Errors are reported through :meth:`get`."""
+              cycle: str, kind: str, started_at: datetime | None, process: bool = True,
+              stored_description: bool = False) -> str:
+        """Start one job; returns its id. Errors are reported through :meth:`get`.
+
+        ``stored_description``: the description is one stored with an earlier run (checked
+        when that run was imported), not an upload, so it may name a profile file.
+        """
         job_id = uuid.uuid4().hex
         with self._lock:
             self._jobs[job_id] = JobState(job_id=job_id, stage="saving upload")
@@ -174,7 +196,8 @@ class ImportJobs:
                              kwargs=dict(job_id=job_id, filename=filename, data=data,
                                          description_text=description_text, label=label,
                                          cycle=cycle, kind=kind, started_at=started_at,
-                                         process=process))
+                                         process=process,
+                                         stored_description=stored_description))
         with self._lock:
             self._threads[job_id] = t
         t.start()
@@ -189,7 +212,7 @@ class ImportJobs:
         return self.get(job_id)
 
     def _run(self, *, job_id, filename, data, description_text, label, cycle, kind,
-             started_at, process=True) -> None:
+             started_at, process=True, stored_description=False) -> None:
         from rundash.storage.engine import hearing_lock_waits
 
         def progress(fraction: float, stage: str) -> None:
@@ -202,15 +225,18 @@ class ImportJobs:
         with hearing_lock_waits(lock_wait):
             self._work(job_id, progress, filename=filename, data=data,
                        description_text=description_text, label=label, cycle=cycle,
-                       kind=kind, started_at=started_at, process=process)
+                       kind=kind, started_at=started_at, process=process,
+                       stored_description=stored_description)
 
     def _work(self, job_id, progress, *, filename, data, description_text, label, cycle, kind,
-              started_at, process) -> None:
+              started_at, process, stored_description) -> None:
         from rundash.ingest.importer import import_run
         from rundash.ingest.machine_file import parse_machine_description
 
         try:
             desc = parse_machine_description(description_text, "machine description")
+            if not stored_description:
+                check_uploaded_profile(desc)
             with tempfile.TemporaryDirectory(prefix="rundash-upload-") as tmp:
                 path = Path(tmp) / sanitise_filename(filename)
                 path.write_bytes(data)
@@ -304,15 +330,19 @@ def start_import(jobs: ImportJobs, db, *, data_contents, data_name, machine_sour
                              f", got {data_name!r}")
         data = decode_upload(data_contents, what="data file", max_bytes=MAX_UPLOAD_BYTES)
         text, _ = machine_description_text(db, machine_source, machine_contents)
+        stored = bool(machine_source and machine_source.startswith("machine:"))
         from rundash.ingest.machine_file import parse_machine_description
-        parse_machine_description(text, "machine description")  # fail now, not in the job
+        desc = parse_machine_description(text, "machine description")  # fail now, not in the job
+        if not stored:
+            check_uploaded_profile(desc)
         if kind not in KINDS:
             raise InputError(f"Invalid value for 'kind': allowed {', '.join(KINDS)}, got {kind!r}")
         started_at = parse_started(started)
     except RundashError as exc:
         return None, str(exc)
     job = jobs.start(filename=safe, data=data, description_text=text, label=label or "",
-                     cycle=cycle or "", kind=kind, started_at=started_at)
+                     cycle=cycle or "", kind=kind, started_at=started_at,
+                     stored_description=stored)
     return job, None
 
 
