@@ -12,6 +12,7 @@ import numpy as np
 from rundash.errors import DuplicateRunError, InputError
 from rundash.ingest import open_reader
 from rundash.ingest.bounds import SAMPLE_RATE_HZ, out_of_range
+from rundash.ingest.machine_file import check_profile
 from rundash.model import RUN_KINDS, MachineDescription
 from rundash.progress import Progress, no_progress
 from rundash.storage import queries as q
@@ -107,6 +108,7 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
     ``kind`` may be corrected by processing once the speed profile is known.
     """
     path = Path(data_path)
+    check_profile(desc)
     if kind not in RUN_KINDS:
         raise InputError(f"Invalid value for 'kind': allowed {', '.join(RUN_KINDS)}, got {kind!r}")
     if started_at is not None and started_at.tzinfo is None:

@@ -8,11 +8,11 @@ as every TOML check is (:mod:`rundash.ingest.toml_check`).
 
 from __future__ import annotations
 
-import tomllib
 from pathlib import Path
 
 from rundash.errors import ConfigError, invalid_value
-from rundash.ingest.toml_check import TomlChecker
+from rundash.ingest import bounds
+from rundash.ingest.toml_check import TomlChecker, parse_toml
 from rundash.model import (
     MACHINE_KINDS, TRANSDUCER_KINDS, DataSpec, MachineDescription, MachineSpec, ProbeSpec,
     TachSpec,
@@ -44,10 +44,7 @@ FORMATS = ("auto", "csv", "wav", "hdf5", "parquet")
 def parse_machine_description(text: str, source: str = "<machine file>") -> MachineDescription:
     """Parse and validate the text of a machine description file."""
     ck = TomlChecker(source)
-    try:
-        raw = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"{source}: not valid TOML: {exc}") from exc
+    raw = parse_toml(text, source)
     unknown = sorted(set(raw) - {"machine", "tach", "probes", "data"})
     if unknown:
         ck.fail(unknown[0], "unknown table; allowed: [machine], [tach], [[probes]], [data]")
@@ -60,6 +57,7 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
     for key in ("rated_speed_rpm", "min_operating_speed_rpm", "max_continuous_speed_rpm",
                 "trip_speed_rpm"):
         ck.positive(f"[machine].{key}", m.get(key))
+        ck.within(f"[machine].{key}", m.get(key), bounds.SPEED_RPM)
     if m["min_operating_speed_rpm"] > m["max_continuous_speed_rpm"]:
         ck.fail("[machine].min_operating_speed_rpm",
                 f"minimum operating speed {m['min_operating_speed_rpm']:g} rpm is above the "
@@ -83,7 +81,11 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
         ck.choice("[tach].edge", t["edge"], ("rising", "falling"))
     if "pulses_per_rev" in t and t["pulses_per_rev"] < 1:
         ck.fail("[tach].pulses_per_rev", f"expected a whole number >= 1, got {t['pulses_per_rev']}")
+    ck.within("[tach].pulses_per_rev", t.get("pulses_per_rev"), bounds.PULSES_PER_REV)
     ck.positive("[tach].hysteresis", t.get("hysteresis"))
+    ck.within("[tach].hysteresis", t.get("hysteresis"), bounds.HYSTERESIS)
+    ck.within("[tach].threshold", t.get("threshold"), bounds.LEVEL)
+    ck.within("[tach].angle_deg", t.get("angle_deg"), bounds.ANGLE_DEG)
     tach = TachSpec(**t)
 
     if not isinstance(raw["probes"], list) or not raw["probes"]:
@@ -104,6 +106,9 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
             ck.fail(f"{where}.units", f"unit {p['units']!r} does not fit a {p['kind']} "
                                       f"transducer; allowed: {', '.join(allowed)}")
         ck.positive(f"{where}.sensitivity_mv_per_unit", p.get("sensitivity_mv_per_unit"))
+        ck.within(f"{where}.sensitivity_mv_per_unit", p.get("sensitivity_mv_per_unit"),
+                  bounds.SENSITIVITY_MV_PER_UNIT)
+        ck.within(f"{where}.angle_deg", p.get("angle_deg"), bounds.ANGLE_DEG)
         if "axis" in p:
             ck.choice(f"{where}.axis", p["axis"], ("X", "Y", "none"))
         if p["name"] in names:
@@ -126,6 +131,8 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
         ck.choice("[data].signal_units", d["signal_units"], ("V", "engineering"))
     ck.positive("[data].sample_rate_hz", d.get("sample_rate_hz"))
     ck.positive("[data].full_scale_v", d.get("full_scale_v"))
+    ck.within("[data].sample_rate_hz", d.get("sample_rate_hz"), bounds.SAMPLE_RATE_HZ)
+    ck.within("[data].full_scale_v", d.get("full_scale_v"), bounds.FULL_SCALE_V)
     data = DataSpec(**d)
     if data.signal_units == "V":
         for p in probes:
@@ -137,8 +144,21 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
                               source=source)
 
 
+def check_profile(desc: MachineDescription) -> None:
+    """The guidance profile ``desc`` names exists and is valid: a misspelt name or a broken
+    profile file is refused when the run is imported, not when it is processed. A path is
+    taken as processing takes it (relative to the current folder)."""
+    from rundash.ingest.profile_file import load_profile
+
+    try:
+        load_profile(desc.machine.profile)
+    except ConfigError as exc:
+        raise ConfigError(f"{desc.source}: [machine].profile: {exc}") from None
+
+
 def load_machine_description(path: str | Path) -> tuple[MachineDescription, str]:
-    """Read a machine description file; returns the description and the file's text."""
+    """Read a machine description file (its guidance profile checked too); returns the
+    description and the file's text."""
     path = Path(path)
     try:
         text = path.read_text(encoding="utf-8")
@@ -148,4 +168,6 @@ def load_machine_description(path: str | Path) -> tuple[MachineDescription, str]
         raise ConfigError(f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None
     except OSError as exc:
         raise ConfigError(f"{path}: cannot read machine description: {exc.strerror}") from None
-    return parse_machine_description(text, source=path.name), text
+    desc = parse_machine_description(text, source=path.name)
+    check_profile(desc)
+    return desc, text

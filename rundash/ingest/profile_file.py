@@ -10,7 +10,8 @@ gives one :class:`~rundash.errors.ConfigError` naming the profile and the key
 
 from __future__ import annotations
 
-import tomllib
+import os
+import stat
 from importlib import resources
 from pathlib import Path
 
@@ -18,7 +19,7 @@ from rundash.analysis.profiles import (
     CONFIDENCES, REFERENCE_SPEEDS, LimitRule, MarginRule, Profile, SideRule, Source,
 )
 from rundash.errors import ConfigError, invalid_value
-from rundash.ingest.toml_check import TABLES, TomlChecker
+from rundash.ingest.toml_check import TABLES, TomlChecker, parse_toml
 
 _PACKAGE = "rundash.analysis"
 _FOLDER = "profiles"
@@ -135,12 +136,38 @@ def load_profile(name_or_path) -> Profile:
             raise ConfigError(invalid_value("profile", text, ", ".join(map(repr, sorted(shipped)))
                                             + " or the path of a .toml file"))
         where = f"profile file {p.name!r}"
-        try:
-            raw = p.read_text(encoding="utf-8")
-        except OSError as exc:
-            raise ConfigError(f"{where}: cannot be read ({exc.strerror})") from None
+        raw = read_profile_text(p, where)
+    return parse_profile(parse_toml(raw, where), where)
+
+
+#: A profile file is a page of rules; anything longer is not one.
+MAX_PROFILE_BYTES = 256 * 1024
+
+
+def read_profile_text(path: Path, where: str) -> str:
+    """The text of a user's profile file, read only when it is a regular file of at most
+    :data:`MAX_PROFILE_BYTES` (a FIFO would block for ever, a device never ends).
+
+    The file is opened without blocking and checked on the open descriptor, so a file
+    swapped for a pipe between a check and the read cannot hang the reader.
+    """
     try:
-        data = tomllib.loads(raw)
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"{where}: not valid TOML ({exc})") from None
-    return parse_profile(data, where)
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+    except OSError as exc:
+        raise ConfigError(f"{where}: cannot be read ({exc.strerror})") from None
+    with os.fdopen(fd, "rb") as f:
+        st = os.fstat(f.fileno())
+        if not stat.S_ISREG(st.st_mode):
+            raise ConfigError(f"{where}: not a regular file (a folder, pipe or device cannot "
+                              "be a profile); expected a .toml file")
+        if st.st_size > MAX_PROFILE_BYTES:
+            raise ConfigError(f"{where}: {st.st_size} bytes, more than a profile file holds "
+                              f"(at most {MAX_PROFILE_BYTES // 1024} KiB)")
+        raw = f.read(MAX_PROFILE_BYTES + 1)
+    if len(raw) > MAX_PROFILE_BYTES:
+        raise ConfigError(f"{where}: more than a profile file holds (at most "
+                          f"{MAX_PROFILE_BYTES // 1024} KiB)")
+    try:
+        return raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise ConfigError(f"{where}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None

@@ -25,6 +25,7 @@ import numpy as np
 
 from rundash.errors import InputError, RundashError
 from rundash.ingest.importer import channel_plan
+from rundash.ingest.machine_file import check_profile
 from rundash.ingest.sources import Source, StreamHeader
 from rundash.model import MachineDescription
 from rundash.storage import queries as q
@@ -82,6 +83,7 @@ class Recorder:
 
     def start(self, header: StreamHeader) -> int:
         """Create the machine (or update it), the run and its channels; return the run id."""
+        check_profile(self.desc)
         plan = channel_plan(self.desc, header.channels, self.source_name)
         if header.units:
             for col, role, probe, *_ in plan:

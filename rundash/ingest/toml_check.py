@@ -15,13 +15,28 @@ tables, ``[[name]]``).
 from __future__ import annotations
 
 import math
+import tomllib
 from typing import Any
 
 from rundash.errors import ConfigError, invalid_value
+from rundash.ingest.bounds import Range, out_of_range
 
 TABLES = "array of tables"
 _EXPECTED = {str: "a string", float: "a number", int: "a whole number", bool: "true or false",
              list: "a list of strings", dict: "a table", TABLES: "an array of tables"}
+
+
+def parse_toml(text: str, source: str) -> dict[str, Any]:
+    """The parsed TOML of ``text``; a syntax error, or arrays and tables nested deeper than
+    the standard library's reader can follow, is one :class:`ConfigError` naming
+    ``source``."""
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"{source}: not valid TOML: {exc}") from None
+    except RecursionError:
+        raise ConfigError(f"{source}: not a usable TOML file: arrays or tables are nested "
+                          "hundreds of levels deep; expected plain keys and tables") from None
 
 
 class TomlChecker:
@@ -92,6 +107,12 @@ class TomlChecker:
             rng = " and ".join(([f"{'>' if open_lo else '>='} {lo:g}"] if lo is not None else [])
                                + ([f"<= {hi:g}"] if hi is not None else []))
             self.fail(kp, f"expected a number {rng}, got {val!r}")
+
+    def within(self, kp: str, val: float | None, rng: Range) -> None:
+        """``val`` inside the physical range ``rng`` (:mod:`rundash.ingest.bounds`); None
+        passes."""
+        if val is not None and (bad := out_of_range(val, rng)):
+            self.fail(kp, bad)
 
     def non_empty(self, kp: str, val: str) -> None:
         if not val.strip():

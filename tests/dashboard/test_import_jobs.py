@@ -281,3 +281,17 @@ class TestUploadedProfile:
             filename="r.csv", data=csv_text(signals()).encode(), description_text=text,
             label="", cycle="", kind="mixed", started_at=None, process=False)
         assert st.done and st.error is None and st.run_id is not None
+
+
+def test_an_uploaded_description_of_nested_arrays_is_a_message(demo_db):
+    # a 10 kB machine file of nested arrays ended in RecursionError and HTTP 500
+    text = machine_text() + "\n[extra]\nx = " + "[" * 5000 + "]" * 5000 + "\n"
+    url = "data:text/plain;base64," + base64.b64encode(text.encode()).decode()
+    data = "data:text/csv;base64," + base64.b64encode(b"time_s,tach\n0,0\n").decode()
+    job, err = importer.start_import(importer.ImportJobs(demo_db.db), demo_db.db,
+                                     data_contents=data, data_name="r.csv",
+                                     machine_source="upload", machine_contents=url, label="",
+                                     cycle="", kind="mixed", started="")
+    assert job is None
+    assert err == ("machine description: not a usable TOML file: arrays or tables are nested "
+                   "hundreds of levels deep; expected plain keys and tables")

@@ -127,7 +127,7 @@ def check_uploaded_profile(desc) -> None:
     """An uploaded machine description may name only a profile shipped with rundash: a
     path in it would make the server open a file of its own choosing (a FIFO that never
     ends, /dev/zero, a probe of which paths exist). Nothing is opened to decide this."""
-    from rundash.analysis.profiles import list_profiles
+    from rundash.ingest.profile_file import list_profiles
     from rundash.errors import ConfigError
 
     name = desc.machine.profile
