@@ -3,6 +3,8 @@
 # Source it (". .ci/postgres.sh"): the cluster lives in a temp folder owned by the
 # 'postgres' user, listens only on 127.0.0.1 on a free port, trusts loopback
 # connections, and is stopped (and its folder removed) when the sourcing shell exits.
+# The tests do not need it (they start a cluster of their own when RUNDASH_TEST_PG_URL is
+# unset); it serves commands that want a server by URL, such as benchmarks/bench_sync.py.
 if ! ls /usr/lib/postgresql/*/bin/initdb >/dev/null 2>&1; then
   echo "== installing postgresql (storage tests on PostgreSQL)"
   apt-get update -qq

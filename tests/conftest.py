@@ -2,15 +2,24 @@
 
 Storage and pipeline tests (``BOTH_DATABASES`` below, or any test marked
 ``both_databases``) run once on SQLite and once on PostgreSQL: the ``db`` and ``db_url``
-fixtures are parametrized by ``db_kind``. The PostgreSQL variants need a server named by
-``RUNDASH_TEST_PG_URL`` (``.ci/run`` starts a throwaway one); without it they fail with a
-message saying so. ``--sqlite-only`` deselects them on purpose.
+fixtures are parametrized by ``db_kind``. The PostgreSQL variants use the server named by
+``RUNDASH_TEST_PG_URL`` when it is set; otherwise the first of them starts a throwaway
+cluster on 127.0.0.1 (``tests/pg_cluster.py``), stopped and removed when the session ends.
+Nothing is skipped for want of PostgreSQL: a cluster that cannot start fails those tests
+saying why. ``--sqlite-only`` deselects them on purpose.
+
+Browser tests (any test using dash's ``dash_duo``, or marked ``browser``) fail in one line
+naming what to install when Chromium or its chromedriver is missing.
 """
 
 from __future__ import annotations
 
 import hashlib
 import os
+import shutil
+import signal
+import subprocess
+import threading
 import uuid
 from contextlib import contextmanager
 from pathlib import Path
@@ -34,6 +43,21 @@ def pytest_addoption(parser):
 def pytest_configure(config):
     config.addinivalue_line("markers", "both_databases: run the test on SQLite and PostgreSQL")
     config.addinivalue_line("markers", "sqlite_only: a test of SQLite itself (pragmas, files)")
+    config.addinivalue_line("markers", "browser: drives headless Chromium through chromedriver")
+
+
+def pytest_terminal_summary(terminalreporter):
+    cluster = _CLUSTER["cluster"]
+    if cluster is not None:
+        terminalreporter.write_line(f"PostgreSQL variants: a throwaway PostgreSQL "
+                                    f"{cluster.version} cluster on 127.0.0.1 (tests/pg_cluster.py)")
+
+
+def pytest_unconfigure(config):
+    # runs at the end of every session, also after Ctrl-C or an internal error
+    if _CLUSTER["cluster"] is not None:
+        _CLUSTER["cluster"].stop()
+        _CLUSTER["cluster"] = None
 
 
 def _runs_on_both(definition) -> bool:
@@ -62,16 +86,63 @@ def pytest_collection_modifyitems(config, items):
         items[:] = keep
 
 
+# the session's throwaway cluster, started by the first PostgreSQL variant that runs
+_CLUSTER: dict = {"cluster": None, "error": None}
+
+
 def pg_admin_url() -> str:
-    """The server URL for the PostgreSQL variants; fails the test when none is given."""
+    """The server URL for the PostgreSQL variants: ``RUNDASH_TEST_PG_URL``, else the URL of
+    the session's throwaway cluster (started on first use); fails the test saying why when
+    no server can be had."""
     url = os.environ.get(PG_ENV)
-    if not url:
-        where = "in CI" if os.environ.get("CI") == "true" else "here"
-        pytest.fail(f"{PG_ENV} is not set {where}: the PostgreSQL variant of this test needs "
-                    "a server (source .ci/postgres.sh to start a throwaway one), or run "
-                    "pytest with --sqlite-only to deselect the PostgreSQL variants",
-                    pytrace=False)
-    return url
+    if url:
+        return url
+    if _CLUSTER["cluster"] is None and _CLUSTER["error"] is None:
+        from tests.pg_cluster import Cluster, ClusterError
+
+        try:
+            _CLUSTER["cluster"] = Cluster().start()
+        except (ClusterError, OSError, subprocess.SubprocessError) as exc:
+            _CLUSTER["error"] = str(exc)
+        else:
+            _end_session_on_sigterm()
+    if _CLUSTER["error"] is not None:
+        pytest.fail(f"the PostgreSQL variant of this test needs a server, and the throwaway "
+                    f"one could not start: {_CLUSTER['error']}", pytrace=False)
+    return _CLUSTER["cluster"].url
+
+
+def _end_session_on_sigterm() -> None:
+    """Have SIGTERM end the session as Ctrl-C does, so the cluster's folder goes too (the
+    server itself dies with this process in any case). Forked children keep the default."""
+    if (threading.current_thread() is not threading.main_thread()
+            or signal.getsignal(signal.SIGTERM) is not signal.SIG_DFL):
+        return
+    pid = os.getpid()
+
+    def terminated(signum, frame):
+        if os.getpid() != pid:
+            signal.signal(signal.SIGTERM, signal.SIG_DFL)
+            os.kill(os.getpid(), signal.SIGTERM)
+            return
+        raise KeyboardInterrupt("SIGTERM")
+
+    signal.signal(signal.SIGTERM, terminated)
+
+
+def require_browser() -> None:
+    """Fail the calling test in one line when Chromium or chromedriver is missing."""
+    missing = [name for name in ("chromium", "chromedriver") if not shutil.which(name)]
+    if missing:
+        pytest.fail(f"this browser test needs {' and '.join(missing)} on the PATH: install "
+                    "Debian's chromium and chromium-driver (apt-get install chromium "
+                    "chromium-driver), or run scripts/test, which does", pytrace=False)
+
+
+@pytest.fixture(autouse=True)
+def _browser_present(request):
+    if "dash_duo" in request.fixturenames or request.node.get_closest_marker("browser"):
+        require_browser()
 
 
 @contextmanager

@@ -5,8 +5,6 @@ Screenshots go to artifacts/ (ignored by git). The console must log no errors.
 
 from __future__ import annotations
 
-import shutil
-
 import pytest
 
 from rundash import CAUTION
@@ -14,8 +12,8 @@ from rundash.dashboard import ids
 from rundash.dashboard.app import create_app
 from tests.dashboard.conftest import ARTIFACTS
 
-pytestmark = pytest.mark.skipif(shutil.which("chromedriver") is None,
-                                reason="chromedriver is not installed (see .ci/run)")
+# a missing Chromium or chromedriver fails these tests in one line (tests/conftest.py)
+pytestmark = pytest.mark.browser
 
 _TRACES = "return document.querySelector('#%s .js-plotly-plot').data.map(t => t.name);"
 

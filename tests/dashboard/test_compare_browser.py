@@ -8,7 +8,6 @@ artifacts/ (ignored by git). The console must log no errors.
 from __future__ import annotations
 
 import os
-import shutil
 
 import pytest
 
@@ -18,8 +17,8 @@ from rundash.dashboard.app import create_app
 from tests.dashboard.test_browser import _click, _severe, _shot
 from tests.dashboard.test_compare_page import demo_full, ups  # noqa: F401  (fixtures)
 
-pytestmark = pytest.mark.skipif(shutil.which("chromedriver") is None,
-                                reason="chromedriver is not installed (see .ci/run)")
+# a missing Chromium or chromedriver fails these tests in one line (tests/conftest.py)
+pytestmark = pytest.mark.browser
 
 _TREND = ("const d = document.querySelector('#%s .js-plotly-plot').data"
           ".filter(t => t.meta === 'trend' && t.yaxis === 'y');"

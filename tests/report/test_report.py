@@ -87,6 +87,7 @@ class TestPdf:
 
 
 class TestHtml:
+    @pytest.mark.browser
     def test_self_contained_and_drawn_in_chromium(self, demo):
         from selenium import webdriver
         from selenium.webdriver.chrome.options import Options
