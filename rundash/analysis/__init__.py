@@ -18,6 +18,21 @@ Critical speeds (:mod:`rundash.analysis.criticals`)
     compare_directions  -- run-up against coast-down
     CriticalPair        -- a matched pair and its differences
 
+Sweep-rate-free criticals (:mod:`rundash.analysis.transient`)
+    identify_modes      -- one modal model per run from the quasi-steady readings: clusters,
+                           model order, joint fit, bootstrap, run-direction refits
+    fit_transient       -- unbalance modes shared by every probe, fitted through the
+                           measured speed history (variable projection)
+    mode_response       -- the 1X vectors order tracking reads from one mode along a sweep
+    unbalance_half_power_af, unbalance_peak_ratio -- SDOF closed forms
+    RunModes, Cluster, TransientFit, TransientMode, ProbeReading -- results
+
+X/Y pairs (:mod:`rundash.analysis.whirl`)
+    orbit               -- forward/backward whirl components and ellipse axes of a pair
+    mode_direction      -- direction, ellipticity and whirl of a fitted mode at a bearing
+    major_axis_readings -- peaks and half-power AF of a fitted model's major-axis response
+    pair_shape_hint     -- cylindrical/conical hint from a mode's orbits at two bearings
+
 Mode-shape hints (:mod:`rundash.analysis.modes`)
     mode_hint           -- cylindrical / conical / unclear from the lags at two bearings
     ModeHint            -- its result

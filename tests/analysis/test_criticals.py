@@ -236,3 +236,22 @@ class TestSweepRule:
         assert abs(amp) < 0.02
         fast, _ = self._peak_shift(0.1, 5.0)
         assert fast > 0.25
+
+
+class TestSweepNoteDirection:
+    """The fast-sweep note says which way the apparent reading moves: with the sweep
+    (F. M. Lewis, Trans. ASME 54, 1932): high on a run-up, low on a coast-down."""
+
+    @pytest.mark.parametrize("rate, word", [(1000.0, "above"), (-1000.0, "below")])
+    def test_direction_in_note(self, rate, word):
+        from rundash.analysis.transient import mode_response
+
+        n = np.arange(1500.0, 4500.0, abs(rate) * 60.0 / 3000.0)
+        n = n if rate > 0 else n[::-1]
+        t = np.cumsum(60.0 / n)
+        c = mode_response(t, n, 3000.0, 0.05, 5.0)
+        with pytest.warns(SweepRateWarning, match=f"apparent peak reads {word}"):
+            (crit,) = find_criticals(n, c, time_s=t,
+                                     direction="run-up" if rate > 0 else "coast-down")
+        assert f"reads {word} the steady-state critical" in crit.sweep_note
+        assert "AF reads low" not in crit.sweep_note
