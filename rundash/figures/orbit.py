@@ -1,0 +1,116 @@
+"""Orbits of an X/Y probe pair (filtered 1X and unfiltered) and their whirl direction."""
+
+from __future__ import annotations
+
+import math
+from typing import Any, Literal, Mapping
+
+import numpy as np
+import plotly.graph_objects as go
+
+from rundash.figures.common import (
+    PALETTE, UnitSystem, apply_layout,
+)
+from rundash.units import display_unit, to_display
+
+
+def whirl_direction(u, v) -> Literal["ccw", "cw"]:
+    """Sense in which a closed orbit is traversed on screen (signed shoelace area)."""
+    u = np.asarray(u, dtype=float)
+    v = np.asarray(v, dtype=float)
+    area = 0.5 * np.sum(u * np.roll(v, -1) - np.roll(u, -1) * v)
+    return "ccw" if area > 0 else "cw"
+
+
+
+
+# ----------------------------------------------------------------------------- orbit
+def _screen_angle_rad(angle_deg: float, rotation: str) -> float:
+    # the reference sensor sits at the top of the screen (our choice, stated in the
+    # figure); probe angles are measured from it in the direction of rotation, and the
+    # screen shows the machine viewed from the driver end.
+    sign = 1.0 if rotation == "ccw" else -1.0
+    return math.radians(90.0 + sign * angle_deg)
+
+
+def orbit(x_probe: Mapping[str, Any], y_probe: Mapping[str, Any], *, kind: str = "proximity",
+          system: UnitSystem = "metric", rotation: str = "ccw", speed_rpm: float | None = None,
+          raw_x=None, raw_y=None, title: str | None = None, n_points: int = 256
+          ) -> go.Figure:
+    """Orbit of an X/Y probe pair: filtered 1X ellipse and one unfiltered revolution.
+
+    The probe mounting angles **are applied** here: each probe reads the shaft's motion
+    along its own axis, ``d_i = u cos(b_i) + v sin(b_i)`` with ``b_i`` the probe's screen
+    angle (reference sensor at the top, angles in the direction of rotation, machine
+    viewed from the driver end), and the two readings are solved for the screen
+    coordinates ``(u, v)``. This works for any two non-parallel probes.
+
+    Parameters
+    ----------
+    x_probe, y_probe : dict
+        ``name``, ``angle_deg`` (mounting angle), ``amplitude`` (1X, storage units:
+        p-p for proximity) and ``phase_lag_deg`` of the 1X vector at the chosen speed.
+    raw_x, raw_y : array_like, optional
+        One revolution of each unfiltered waveform (storage units, same length), starting
+        at the once-per-rev event; its mean is removed.
+    speed_rpm : float, optional
+        Only labels the title.
+
+    Returns
+    -------
+    plotly.graph_objects.Figure
+        Traces ``'1X filtered'`` and ``'unfiltered'`` (when given), the once-per-rev mark,
+        and the whirl direction in the title (forward: same sense as rotation).
+    """
+    bx = _screen_angle_rad(float(x_probe["angle_deg"]), rotation)
+    by = _screen_angle_rad(float(y_probe["angle_deg"]), rotation)
+    m = np.array([[math.cos(bx), math.sin(bx)], [math.cos(by), math.sin(by)]])
+    if abs(np.linalg.det(m)) < 1e-6:
+        raise ValueError("the two probes are parallel: no orbit can be built")
+    minv = np.linalg.inv(m)
+    half = 0.5 if kind == "proximity" else 1.0  # p-p -> peak for the 1X sinusoid
+    th = np.linspace(0.0, 1.0, n_points + 1)
+
+    def filt(p):
+        a = half * float(p["amplitude"])
+        return a * np.cos(2 * np.pi * th - math.radians(float(p["phase_lag_deg"])))
+
+    def to_screen(dx, dy):
+        uv = minv @ np.vstack([dx, dy])
+        return np.asarray(to_display(uv[0], kind, system)), np.asarray(to_display(uv[1], kind, system))
+
+    u, v = to_screen(filt(x_probe), filt(y_probe))
+    fig = go.Figure()
+    fig.add_trace(go.Scatter(x=u, y=v, mode="lines", name="1X filtered", meta="data",
+                             line={"color": PALETTE[0], "width": 2.5}))
+    fig.add_trace(go.Scatter(x=[u[0]], y=[v[0]], mode="markers", name="once-per-rev mark",
+                             meta="mark", marker={"size": 10, "color": PALETTE[0],
+                                                  "symbol": "circle", "line": {"color": "white",
+                                                                               "width": 1}}))
+    whirl = whirl_direction(u, v)
+    if raw_x is not None and raw_y is not None and len(raw_x) > 3:
+        rx = np.asarray(raw_x, dtype=float)
+        ry = np.asarray(raw_y, dtype=float)
+        n = min(rx.size, ry.size)
+        ru, rv = to_screen(rx[:n] - rx[:n].mean(), ry[:n] - ry[:n].mean())
+        fig.add_trace(go.Scatter(x=ru, y=rv, mode="lines", name="unfiltered (one revolution)",
+                                 meta="raw", line={"color": PALETTE[1], "width": 1.2}))
+        fig.add_trace(go.Scatter(x=[ru[0]], y=[rv[0]], mode="markers", meta="mark",
+                                 name="once-per-rev mark (unfiltered)", showlegend=False,
+                                 marker={"size": 9, "color": PALETTE[1]}))
+    sense = "forward" if whirl == rotation else "reverse"
+    unit = display_unit(kind, system).replace("um", "µm")
+    sp = f" at {speed_rpm:.0f} rpm" if speed_rpm is not None else ""
+    apply_layout(fig, title=title or f"Orbit{sp}: {sense} whirl ({whirl})", height=480)
+    lim = float(np.nanmax(np.abs(np.concatenate([u, v] + ([ru, rv] if len(fig.data) > 2
+                                                          else []))))) * 1.15 or 1.0
+    fig.update_xaxes(title_text=f"horizontal ({unit})", range=[-lim, lim], zeroline=True,
+                     zerolinecolor="#bbbbbb")
+    fig.update_yaxes(title_text=f"vertical ({unit})", range=[-lim, lim], zeroline=True,
+                     zerolinecolor="#bbbbbb", scaleanchor="x", scaleratio=1)
+    fig.add_annotation(text="probe mounting angles applied; reference sensor at top; "
+                       "viewed from the driver end", xref="paper", yref="paper", x=0, y=-0.2,
+                       showarrow=False, font={"size": 10})
+    fig.update_layout(margin={"b": 80})
+    fig.update_layout(meta={"whirl": whirl, "sense": sense})
+    return fig
