@@ -222,6 +222,7 @@ def cmd_process(*, db: str | None, run: int, orders: str, revs_per_block: int,
 
 
 def cmd_findings(*, db: str | None, run: int, as_json: bool) -> int:
+    from rundash import presentation as pr
     from rundash.errors import NotFoundError
     from rundash.storage import queries as q
 
@@ -229,6 +230,7 @@ def cmd_findings(*, db: str | None, run: int, as_json: bool) -> int:
     with database.read() as conn:
         q.get_run(conn, run)
         proc = q.load_processing(conn, run)
+        kinds = {c.probe_name: c.kind for c in q.list_channels(conn, run) if c.role == "probe"}
     if proc is None or proc.findings is None:
         raise NotFoundError(f"run {run} has no findings yet: run 'rundash process {run}' first")
     f = proc.findings
@@ -238,35 +240,28 @@ def cmd_findings(*, db: str | None, run: int, as_json: bool) -> int:
     r, mach = f["run"], f["machine"]
     print(f"run {r['id']}: {r['machine']} — {r['label']} ({r['kind']}, {r['cycle'] or 'no cycle'}, "
           f"{r['started_at'] or 'start time not given'})")
-    print(f"operating range {mach['min_operating_speed_rpm']:g}-"
-          f"{mach['max_continuous_speed_rpm']:g} rpm; profile {f['profile']['name']}: "
+    print(f"operating range {pr.number(mach['min_operating_speed_rpm'])}-"
+          f"{pr.number(mach['max_continuous_speed_rpm'])} rpm; profile {f['profile']['name']}: "
           f"{f['profile']['title']}")
     print(f"verdict: {f['run_verdict'].upper()}")
+    print(pr.summary_line(f))
     print()
-
-    def fmt(v, spec=".2f"):
-        return "-" if v is None else format(v, spec)
-
-    rows = [("probe", "dir", "speed rpm", "AF hp", "AF phase", "AF fit", "class", "conf",
-             "margin %", "required %", "verdict")]
-    for c in f["criticals"]:
-        rows.append((c["probe"], c["direction"], fmt(c["speed_rpm"], ".0f"),
-                     fmt(c["af_half_power"]), fmt(c["af_phase"]), fmt(c["af_fit"]),
-                     c["classification"], c["confidence"], fmt(c["separation_margin_pct"], ".1f"),
-                     fmt(c["required_margin_pct"], ".1f"), c["margin_verdict"]))
-    if len(rows) > 1:
-        _table(rows)
+    cols = [("probe", "probe"), ("direction", "dir"), ("speed", "speed rpm"),
+            ("peak", "peak 1X"), ("af_half_power", "AF hp"), ("af_phase", "AF phase"),
+            ("af_fit", "AF fit"), ("classification", "class"), ("confidence", "conf"),
+            ("margin", "margin"), ("required", "required"), ("verdict", "verdict")]
+    crit = pr.critical_rows(f, kinds=kinds)
+    if crit:
+        _table([tuple(t for _, t in cols)] + [tuple(c[k] for k, _ in cols) for c in crit])
     else:
         print("no critical speed found in the speed range of the run")
-    judged = [x for x in f["limits"] if x["verdict"] != "reference only"]
+    judged = [x for x in pr.limit_rows(f, kinds=kinds) if x["judged"]]
     if judged:
         print()
-        rows = [("probe", "dir", "measure", "where", "at rpm", "level", "limit", "zone", "result")]
-        for x in judged:
-            rows.append((x["probe"], x["direction"], x["measure"], x["where"],
-                         fmt(x["speed_rpm"], ".0f"), f"{fmt(x['value'], '.1f')} {x['units']}",
-                         fmt(x["limit"], ".1f"), x["zone"] or "-", x["verdict"]))
-        _table(rows)
+        cols = [("probe", "probe"), ("direction", "dir"), ("measure", "measure"),
+                ("where", "where"), ("speed", "at rpm"), ("value", "level"), ("limit", "limit"),
+                ("zone", "zone"), ("verdict", "result")]
+        _table([tuple(t for _, t in cols)] + [tuple(x[k] for k, _ in cols) for x in judged])
     for w in f["warnings"]:
         print(f"note: {w}")
     print()
@@ -326,17 +321,9 @@ def cmd_sync(*, source: str, to: str, machine: str | None, as_json: bool, quiet:
     return 0
 
 
-def _pm(value, sigma, spec=".1f", unit=""):
-    if value is None:
-        return "-"
-    txt = format(value, spec)
-    if sigma is not None:
-        txt += " ± " + format(sigma, spec)
-    return txt + unit
-
-
 def cmd_compare(*, db: str | None, runs: list[int], as_json: bool, boot: int,
                 speeds: str | None) -> int:
+    from rundash import presentation as pr
     from rundash.workflows.comparison import compare_runs
 
     phase_speeds = None
@@ -355,73 +342,37 @@ def cmd_compare(*, db: str | None, runs: list[int], as_json: bool, boot: int,
         print(json.dumps(c, indent=2))
         return 0
     by_id = {r["id"]: r for r in c["runs"]}
-
-    def name(rid):
-        r = by_id[rid]
-        return f"run {rid} ({r['label'] or r['source']}; {r['kind']}, {r['cycle'] or 'no cycle'}" \
-               f", {(r['started_at'] or 'start not given')[:10]})"
-    print(f"{c['machine']['name']}: comparison with {name(c['reference'])}")
+    print(f"{c['machine']['name']}: comparison with {pr.run_name(by_id[c['reference']])}")
     for p in c["pairs"]:
         print()
-        print(f"{name(p['a'])} -> {name(p['b'])}: {p['verdict'].upper()}")
-        rows = [("probe", "dir", "critical rpm", "shift rpm", "shift %", "AF", "AF change",
-                 "peak 1X", "peak change", "changed")]
-        for pr in p["probes"]:
-            d = pr["direction_a"] if pr["direction_a"] == pr["direction_b"] else \
-                f"{pr['direction_a']}/{pr['direction_b']}"
-            for m in pr["criticals"]:
-                a, b = m["a"], m["b"]
-                sp, af, pk = m["speed"], m["af"], m["peak_amplitude"]
-
-                def star(s):
-                    return "*" if s and s["significant"] else ""
-                rows.append((
-                    pr["probe"], d,
-                    f"{a['speed_rpm']:.0f} -> {b['speed_rpm']:.0f}" if a and b else
-                    (f"{a['speed_rpm']:.0f} -> none" if a else f"none -> {b['speed_rpm']:.0f}"),
-                    _pm(sp["delta"], sp["sigma"], ".1f") + star(sp) if sp else "-",
-                    f"{sp['delta_pct']:+.2f}" if sp and sp["delta_pct"] is not None else "-",
-                    f"{a['af']:.2f} -> {b['af']:.2f}" if a and b and a["af"] is not None
-                    and b["af"] is not None else "-",
-                    _pm(af["delta"], af["sigma"], ".2f") + star(af) if af else "-",
-                    f"{a['peak_amplitude']:.3g} -> {b['peak_amplitude']:.3g} {pr['units']}"
-                    if a and b and a["peak_amplitude"] is not None
-                    and b["peak_amplitude"] is not None else "-",
-                    _pm(pk["delta"], pk["sigma"], ".2f") + star(pk) if pk else "-",
-                    "yes" if m["changed"] else "no"))
-        _table(rows)
-        ph = [(pr["probe"], s) for pr in p["probes"] for s in pr["phase"]
-              if s and s["delta"] is not None]
+        print(f"{pr.run_name(by_id[p['a']])} -> {pr.run_name(by_id[p['b']])}: "
+              f"{p['verdict'].upper()}")
+        cols = [("probe", "probe"), ("direction", "dir"), ("speeds", "critical rpm"),
+                ("speed_shift", "shift"), ("speed_sig", "speed shift"), ("afs", "AF"),
+                ("af_shift", "AF change"), ("peaks", "peak 1X"), ("peak_shift", "peak change"),
+                ("changed", "changed")]
+        rows = pr.shift_rows({"pairs": [p]})
+        _table([tuple(t for _, t in cols)] + [tuple(m[k] for k, _ in cols) for m in rows])
+        ph = pr.phase_rows(p)
         if ph:
             print()
-            rows = [("probe", "quantity", "a", "b", "change", "changed")]
-            for probe, s in ph:
-                unit = " deg" if s["units"] == "deg" else ""
-                rows.append((probe, s["quantity"], f"{s['a']:.2f}{unit}", f"{s['b']:.2f}{unit}",
-                             _pm(s["delta"], s["sigma"], ".2f", unit),
-                             "yes" if s["significant"] else "no"))
-            _table(rows)
-        if p["slow_roll"]:
+            cols = [("probe", "probe"), ("quantity", "quantity"), ("a", "a"), ("b", "b"),
+                    ("change", "change"), ("significant", "change is")]
+            _table([tuple(t for _, t in cols)] + [tuple(x[k] for k, _ in cols) for x in ph])
+        sr = pr.slow_roll_rows(p)
+        if sr:
             print()
-            rows = [("probe", "slow roll a", "slow roll b", "change", "hint")]
-            for s in p["slow_roll"]:
-                rows.append((s["probe"], f"{s['a_amplitude']:.2f} {s['units']} ∠{s['a_lag_deg']:.0f}",
-                             f"{s['b_amplitude']:.2f} {s['units']} ∠{s['b_lag_deg']:.0f}",
-                             _pm(s["change"], s["sigma"], ".2f"),
-                             "yes" if s["material"] else "no"))
-            _table(rows)
-        for pr in p["probes"]:
-            for n in pr["notes"]:
-                print(f"note: {pr['probe']}: {n}")
-            for m in pr["criticals"]:
-                for n in m["notes"]:
-                    print(f"note: {pr['probe']}: {n}")
+            cols = [("probe", "probe"), ("a", "slow roll a"), ("b", "slow roll b"),
+                    ("change", "change"), ("material", "material")]
+            _table([tuple(t for _, t in cols)] + [tuple(x[k] for k, _ in cols) for x in sr])
+        for n in pr.pair_notes(p):
+            print(f"note: {n}")
     if c["hints"]:
         print()
         for h in c["hints"]:
             print(h)
     print()
-    print(f"* significant: {c['rule']}")
+    print(f"significant: {c['rule']}")
     print(f"uncertainties (±, one sigma): {c['method']}")
     print()
     print(c["caution"])

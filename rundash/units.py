@@ -45,6 +45,23 @@ VECTOR_AMPLITUDE_CONVENTION: dict[str, str] = {
     "velocity": "pk",
     "acceleration": "pk",
 }
+#: How a direct (unfiltered) level, and every level judged against a limit, is expressed:
+#: p-p over each revolution for displacement, rms for seismic transducers.
+LEVEL_CONVENTION: dict[str, str] = {
+    "proximity": "pp",
+    "velocity": "rms",
+    "acceleration": "rms",
+}
+
+
+def vector_amplitude_factor(kind: str) -> float:
+    """Factor from ``|complex nX|`` to the stored nX amplitude of a transducer kind:
+    2 for peak-to-peak (proximity), 1 for peak (seismic).
+
+    >>> vector_amplitude_factor("proximity"), vector_amplitude_factor("velocity")
+    (2.0, 1.0)
+    """
+    return 2.0 if VECTOR_AMPLITUDE_CONVENTION[kind] == "pp" else 1.0
 
 
 def storage_factor(unit: str, kind: str) -> float:

@@ -31,9 +31,12 @@ ALLOWED = {
     "ingest": {"storage", "model", "analysis"},
     "workflows": {"storage", "ingest", "dsp", "analysis", "model"},
     "figures": {"analysis", "dsp", "model"},
-    "report": {"workflows", "figures", "model", "storage", "ingest"},
-    "dashboard": {"workflows", "figures", "model", "storage", "ingest", "report"},
-    "cli": {"workflows", "figures", "model", "storage", "ingest", "report", "dashboard"},
+    "presentation": set(),
+    "report": {"workflows", "figures", "presentation", "model", "storage", "ingest"},
+    "dashboard": {"workflows", "figures", "presentation", "model", "storage", "ingest",
+                  "report"},
+    "cli": {"workflows", "figures", "presentation", "model", "storage", "ingest", "report",
+            "dashboard"},
 }
 # the pure layers: no I/O, no tables, no plots (DEVELOPERS.md, "Layers")
 PURE = ("dsp", "analysis")

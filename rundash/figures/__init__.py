@@ -17,6 +17,7 @@ Public functions, by figure family (module)
 ``comparison``: comparison_trend  critical speed and AF per run against date, cycles
 ``live``: live_bode_polar  the live monitor's Bode and polar figures
 ``segments``: split_by_direction  cut a track into run-up / coast-down / hold pieces
+``segments``: track_pieces  a stored track as trace dicts, one per direction
 ``segments``: drawing_segments  the run's segments as drawn: blips folded in
 ``segments``: time_in_band  seconds a speed history spends inside a speed band
 ``common``: decimate_minmax  display indices keeping each speed bin's extremes
@@ -44,12 +45,14 @@ from rundash.figures.comparison import comparison_trend
 from rundash.figures.levels import direct_vs_filtered, guidance_lines
 from rundash.figures.live import live_bode_polar
 from rundash.figures.orbit import orbit, whirl_direction
-from rundash.figures.segments import drawing_segments, split_by_direction, time_in_band
+from rundash.figures.segments import (
+    drawing_segments, split_by_direction, time_in_band, track_pieces,
+)
 from rundash.figures.speed import speed_time
 
 __all__ = [
     "bode", "polar", "speed_time", "direct_vs_filtered", "guidance_lines", "cascade",
     "campbell", "orbit", "whirl_direction", "comparison_trend", "live_bode_polar",
-    "split_by_direction", "drawing_segments", "time_in_band", "decimate_minmax",
+    "split_by_direction", "track_pieces", "drawing_segments", "time_in_band", "decimate_minmax",
     "unwrap_phase_deg", "margin_zones", "PALETTE", "DIRECTION_STYLE",
 ]

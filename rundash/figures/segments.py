@@ -101,3 +101,20 @@ def time_in_band(time_s, speed_rpm, lo_rpm: float, hi_rpm: float) -> float:
     inside = (n >= lo_rpm) & (n <= hi_rpm)
     both = inside[:-1] & inside[1:]
     return float(np.sum(np.diff(t)[both]))
+
+
+def track_pieces(track, segments: Sequence[Mapping[str, Any]] | None, *, probe: str,
+                 order: float = 1.0, skip_steady: bool = False, min_points: int = 1,
+                 **extra: Any) -> list[dict[str, Any]]:
+    """A stored track (``time_s``, ``speed_rpm``, ``amplitude``, ``phase_lag_deg``,
+    ``direct``, ``compensated``) as the trace dicts the figures draw, one per run
+    direction as drawn (:func:`split_by_direction`); ``extra`` keys go into each."""
+    out = []
+    for direction, idx in split_by_direction(track.time_s, segments):
+        if (skip_steady and direction == "steady") or idx.size < min_points:
+            continue
+        out.append({"probe": probe, "order": float(order), "direction": direction,
+                    "time_s": track.time_s[idx], "speed_rpm": track.speed_rpm[idx],
+                    "amplitude": track.amplitude[idx], "phase_lag_deg": track.phase_lag_deg[idx],
+                    "direct": track.direct[idx], "compensated": track.compensated, **extra})
+    return out

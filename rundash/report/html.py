@@ -16,11 +16,11 @@ from __future__ import annotations
 
 import base64
 import html
-import math
 from datetime import datetime, timezone
 from typing import Any, Literal, Sequence
 
 from rundash import CAUTION, __version__, figures
+from rundash import presentation as pr
 from rundash.errors import NotFoundError
 
 Flavour = Literal["interactive", "static"]
@@ -32,20 +32,7 @@ def _e(x: Any) -> str:
 
 
 def _n(x: Any, digits: int = 0, unit: str = "") -> str:
-    if x is None or (isinstance(x, float) and not math.isfinite(x)):
-        return "–"
-    if isinstance(x, (int, float)):
-        return f"{x:,.{digits}f}" + (f" {unit}" if unit else "")
-    return _e(x)
-
-
-def _pm(value, sigma, digits=1, unit=""):
-    if value is None:
-        return "–"
-    txt = f"{value:+,.{digits}f}"
-    if sigma is not None:
-        txt += f" ± {sigma:,.{digits}f}"
-    return txt + (f" {unit}" if unit else "")
+    return _e(pr.number(x, digits, unit))
 
 
 def _table(head: Sequence[str], rows: Sequence[Sequence[str]], cls: str = "") -> str:
@@ -99,18 +86,10 @@ def _traces(tracks, segments, probe: str, *, run_label: str | None = None,
     t = by.get(True) or by.get(False)
     if t is None:
         return []
-    out = []
-    for direction, idx in figures.split_by_direction(t.time_s, segments):
-        if direction == "steady" or idx.size < 3:
-            continue
-        tr = {"probe": f"{run_label} {probe}" if run_label else probe, "order": 1.0,
-              "direction": direction, "speed_rpm": t.speed_rpm[idx],
-              "amplitude": t.amplitude[idx], "phase_lag_deg": t.phase_lag_deg[idx],
-              "direct": t.direct[idx], "time_s": t.time_s[idx]}
-        if color:
-            tr["color"] = color
-        out.append(tr)
-    return out
+    label = f"{run_label} {probe}" if run_label else probe
+    extra = {"color": color} if color else {}
+    return figures.track_pieces(t, segments, probe=label, skip_steady=True, min_points=3,
+                                **extra)
 
 
 def build_figures(data: dict[str, Any]) -> list[tuple[str, Any]]:
@@ -119,9 +98,7 @@ def build_figures(data: dict[str, Any]) -> list[tuple[str, Any]]:
     f = proc.findings or {}
     crit = f.get("criticals") or []
     spec = machine.spec
-    op = {"min_operating_speed_rpm": spec.min_operating_speed_rpm,
-          "max_continuous_speed_rpm": spec.max_continuous_speed_rpm,
-          "trip_speed_rpm": spec.trip_speed_rpm}
+    op = pr.operating_range(spec)
     out = []
     if data["speed_profile"] is not None:
         t, n = data["speed_profile"]
@@ -204,7 +181,7 @@ def _verdict_word(v: str | None) -> str:
 
 
 def _run_section(data) -> str:
-    run, m, proc = data["run"], data["machine"], data["proc"]
+    run, m = data["run"], data["machine"]
     s = m.spec
     probes = ", ".join(f"{p.name} ({p.kind}, {p.bearing or '–'} {p.axis}, {p.angle_deg:g}°)"
                        for p in m.probes)
@@ -256,40 +233,37 @@ def _processing_section(data) -> str:
             "<h3>Once-per-rev reference (tach) and its repairs</h3>" + _kv(trows))
 
 
+def _verdict_cell(v: str) -> str:
+    cls = {"pass": "v-pass", "fail": "v-fail"}.get(v, "v-not")
+    return f'<b class="{cls}">{_e(v)}</b>'
+
+
 def _findings_section(data) -> str:
     f = data["proc"].findings
     if not f:
         return "<h2>3. Findings</h2><p>No findings stored for this run.</p>"
-    rows = []
-    for c in f.get("criticals") or []:
-        rows.append([_e(c.get("probe")), _e(c.get("direction")), _n(c.get("speed_rpm")),
-                     _n(c.get("peak_amplitude"), 1, c.get("amplitude_units") or ""),
-                     _n(c.get("af_half_power"), 2), _n(c.get("af_phase"), 2),
-                     _n(c.get("af_fit"), 2),
-                     f"{_n(c.get('af_governing'), 2)} ({_e(c.get('af_method'))})",
-                     _e(c.get("classification")), _e(c.get("confidence")),
-                     _n(c.get("separation_margin_pct"), 1, "%"),
-                     _n(c.get("required_margin_pct"), 1, "%"),
-                     f'<b class="{"v-pass" if c.get("margin_verdict") == "pass" else "v-fail" if c.get("margin_verdict") == "fail" else "v-not"}">{_e(c.get("margin_verdict"))}</b>'])
+    kinds = {c.probe_name: c.kind for c in data["channels"] if c.role == "probe"}
+    crit = pr.critical_rows(f, kinds=kinds)
+    cols = ("probe", "direction", "speed", "peak", "af_half_power", "af_phase", "af_fit",
+            "af", "classification", "confidence", "margin", "required")
+    rows = [[_e(c[k]) for k in cols] + [_verdict_cell(c["verdict"])] for c in crit]
     out = [f"<h2>3. Findings</h2><p>Run verdict: {_verdict_word(f.get('run_verdict'))}</p>",
+           f"<p>{_e(pr.summary_line(f))}</p>",
            f'<div class="caution">{_e(f.get("caution") or CAUTION)}</div>',
            "<h3>Critical speeds and separation margins</h3>"]
     out.append(_table(["probe", "direction", "speed (rpm)", "peak 1X", "AF half-power",
                        "AF phase", "AF fit", "AF governing", "class", "confidence",
                        "margin found", "required", "verdict"], rows) if rows else
                "<p>No critical speed was found in the speed range of the run.</p>")
-    ev = [f"<li><b>{_e(c.get('probe'))} {_e(c.get('direction'))} {_n(c.get('speed_rpm'))} rpm"
-          f"</b>: {_e(c.get('margin_reason') or '')}"
-          + (f"; {_e(c.get('mode_hint'))}" if c.get("mode_hint") else "")
-          + (f"; {_e(c.get('sweep_note'))}" if c.get("sweep_note") else "") + "</li>"
-          for c in f.get("criticals") or []]
+    ev = [f"<li><b>{_e(c['probe'])} {_e(c['direction'])} {_e(c['speed'])} rpm</b>: "
+          f"{_e(c['source'])}" + (f"; {_e(c['mode_hint'])}" if c["mode_hint"] else "")
+          + (f"; {_e(c['sweep_note'])}" if c["sweep_note"] else "") + "</li>" for c in crit]
     if ev:
         out.append("<h3>Why (per critical)</h3><ul class='small'>" + "".join(ev) + "</ul>")
-    lim = [[_e(x.get("probe")), _e(x.get("direction")), _e(x.get("measure")), _e(x.get("where")),
-            _n(x.get("speed_rpm")), _n(x.get("value"), 1, x.get("units") or ""),
-            _n(x.get("limit"), 1), _e(x.get("zone") or "–"), _e(x.get("verdict")),
-            f'<span class="small">{_e(x.get("basis"))}; {_e(x.get("source"))}</span>']
-           for x in f.get("limits") or []]
+    lim = [[_e(x[k]) for k in ("probe", "direction", "measure", "where", "speed", "value",
+                               "limit", "zone", "verdict")]
+           + [f'<span class="small">{_e(x["basis"])}; {_e(x["source"])}</span>']
+           for x in pr.limit_rows(f, kinds=kinds)]
     out.append("<h3>Vibration limit checks</h3>")
     out.append(_table(["probe", "direction", "measure", "where", "at rpm", "level", "limit",
                        "zone", "result", "basis and source"], lim) if lim else
@@ -314,57 +288,33 @@ def _comparison_section(data) -> str:
     if not c:
         return ""
     runs = {r["id"]: r for r in c["runs"]}
-
-    def name(rid):
-        r = runs[rid]
-        return (f"run {rid} ({_e(r['label'])}; {_e(r['kind'])}, {_e(r['cycle'] or 'no cycle')}, "
-                f"{_e((r['started_at'] or 'start not given')[:10])})")
     out = ["<h2>4. Comparison with other runs</h2>",
-           f"<p>Reference: {name(c['reference'])}. Shifts read later minus earlier; ± is one "
-           f"sigma; <span class='sig'>*</span> marks a significant change: {_e(c['rule'])}.</p>",
+           f"<p>Reference: {_e(pr.run_name(runs[c['reference']]))}. Shifts read later minus "
+           f"earlier; ± is one sigma; a significant change: {_e(c['rule'])}.</p>",
            f"<p class='small muted'>{_e(c['method'])}</p>"]
-    for p in c["pairs"]:
-        out.append(f"<h3>{name(p['a'])} → {name(p['b'])}: {_e(p['verdict'])}</h3>")
-        rows = []
-        for pr in p["probes"]:
-            d = pr["direction_a"] if pr["direction_a"] == pr["direction_b"] else \
-                f"{pr['direction_a']} vs {pr['direction_b']}"
-            for m in pr["criticals"]:
-                a, b = m["a"], m["b"]
 
-                def cell(s, digits, unit=""):
-                    if not s:
-                        return "–"
-                    star = "<span class='sig'>*</span>" if s.get("significant") else ""
-                    return _pm(s["delta"], s["sigma"], digits, unit) + star
-                rows.append([
-                    _e(pr["probe"]), _e(d),
-                    f"{_n(a['speed_rpm']) if a else 'none'} → {_n(b['speed_rpm']) if b else 'none'}",
-                    cell(m["speed"], 1, "rpm") + (f" ({m['speed']['delta_pct']:+.2f} %)"
-                                                  if m["speed"] and m["speed"]["delta_pct"]
-                                                  is not None else ""),
-                    f"{_n(a and a['af'], 2)} → {_n(b and b['af'], 2)}", cell(m["af"], 2),
-                    f"{_n(a and a['peak_amplitude'], 1)} → {_n(b and b['peak_amplitude'], 1)} "
-                    f"{_e(pr['units'])}", cell(m["peak_amplitude"], 1),
-                    "yes" if m["changed"] else "no"])
-        out.append(_table(["probe", "direction", "critical (rpm)", "speed shift", "AF",
-                           "AF shift", "peak 1X", "peak shift", "changed"], rows))
-        ph = [[_e(pr["probe"]), _e(s["quantity"]), _n(s["a"], 2), _n(s["b"], 2),
-               _pm(s["delta"], s["sigma"], 2, "deg" if s["units"] == "deg" else "")
-               + ("<span class='sig'>*</span>" if s["significant"] else "")]
-              for pr in p["probes"] for s in pr["phase"] if s and s["delta"] is not None]
+    def sig(word: str) -> str:
+        return f"<span class='sig'>{_e(word)}</span>" if word == "significant" else _e(word)
+    for p in c["pairs"]:
+        out.append(f"<h3>{_e(pr.run_name(runs[p['a']]))} → {_e(pr.run_name(runs[p['b']]))}: "
+                   f"{_e(p['verdict'])}</h3>")
+        rows = [[_e(m["probe"]), _e(m["direction"]), _e(m["speeds"]),
+                 _e(m["speed_shift"]), sig(m["speed_sig"]), _e(m["afs"]), _e(m["af_shift"]),
+                 sig(m["af_sig"]), _e(m["peaks"]), _e(m["peak_shift"]), _e(m["changed"])]
+                for m in pr.shift_rows({"pairs": [p]})]
+        out.append(_table(["probe", "direction", "critical (rpm)", "speed shift", "speed",
+                           "AF", "AF shift", "AF", "peak 1X", "peak shift", "changed"], rows))
+        ph = [[_e(x[k]) for k in ("probe", "quantity", "a", "b", "change")]
+              + [sig(x["significant"])] for x in pr.phase_rows(p)]
         if ph:
-            out.append(_table(["probe", "quantity", "earlier", "later", "change"], ph))
-        sr = [[_e(s["probe"]), f"{_n(s['a_amplitude'], 2)} {_e(s['units'])} ∠{_n(s['a_lag_deg'])}°",
-               f"{_n(s['b_amplitude'], 2)} {_e(s['units'])} ∠{_n(s['b_lag_deg'])}°",
-               _pm(s["change"], s["sigma"], 2), "yes" if s["material"] else "no"]
-              for s in p["slow_roll"]]
+            out.append(_table(["probe", "quantity", "earlier", "later", "change", "change is"],
+                              ph))
+        sr = [[_e(x[k]) for k in ("probe", "a", "b", "change", "material")]
+              for x in pr.slow_roll_rows(p)]
         if sr:
             out.append("<p class='small'>Slow-roll vectors (runout, bow):</p>" +
                        _table(["probe", "earlier", "later", "change", "material"], sr))
-        notes = [f"{pr['probe']}: {n}" for pr in p["probes"] for n in pr["notes"]] + \
-            [f"{pr['probe']}: {n}" for pr in p["probes"] for m in pr["criticals"]
-             for n in m["notes"]]
+        notes = pr.pair_notes(p)
         if notes:
             out.append("<ul class='small'>" + "".join(f"<li>{_e(n)}</li>" for n in notes)
                        + "</ul>")

@@ -25,7 +25,7 @@ from rundash.errors import AnalysisError, InputError, NotFoundError
 from rundash.workflows.findings import json_number
 from rundash.storage import queries as q
 from rundash.storage.engine import Database
-from rundash.units import VECTOR_AMPLITUDE_CONVENTION, amplitude_label
+from rundash.units import VECTOR_AMPLITUDE_CONVENTION, amplitude_label, vector_amplitude_factor
 
 SCHEMA = "rundash.comparison/1"
 MIN_BLOCKS = 20  # as the findings: fewer revolutions in a direction, nothing to compare
@@ -67,7 +67,7 @@ def _curves(data: dict[str, Any]) -> dict[tuple[str, str], dict[str, Any]]:
         raw = tr.get(False)
         if raw is None or raw.kind not in VECTOR_AMPLITUDE_CONVENTION:
             continue
-        afac = 2.0 if VECTOR_AMPLITUDE_CONVENTION[raw.kind] == "pp" else 1.0
+        afac = vector_amplitude_factor(raw.kind)
         use = tr.get(True) if raw.kind == "proximity" and True in tr else raw
         vec = phasor_from_lag(use.amplitude / afac, use.phase_lag_deg)
         raw_vec = phasor_from_lag(raw.amplitude / afac, raw.phase_lag_deg)
@@ -169,7 +169,8 @@ def compare_runs(db: Database, run_ids: Sequence[int], *,
         per = []
         for (name, direction), est in sorted(estimates[rid].items()):
             kind = curves[rid][(name, direction)]["kind"]
-            per.append(dict(probe=name, direction=direction, units=amplitude_label(kind),
+            per.append(dict(probe=name, direction=direction, kind=kind,
+                            units=amplitude_label(kind),
                             sweep_rate_rpm_s=json_number(est.sweep_rate_rpm_s),
                             speed_range_rpm=[json_number(x) for x in est.speed_range_rpm],
                             criticals=[_estimate_json(c) for c in est.criticals]))
@@ -206,7 +207,7 @@ def compare_runs(db: Database, run_ids: Sequence[int], *,
             sp = probe_spec.get(name)
             probes_json.append(dict(
                 probe=name, bearing=sp.bearing if sp else "", axis=sp.axis if sp else "none",
-                units=amplitude_label(kind), direction_a=da, direction_b=db_,
+                kind=kind, units=amplitude_label(kind), direction_a=da, direction_b=db_,
                 like_with_like=res.like_with_like, notes=list(res.notes),
                 criticals=crit, phase=[_shift_json(s) for s in res.phase],
                 hints=list(res.hints), verdict=res.verdict))
@@ -225,7 +226,7 @@ def compare_runs(db: Database, run_ids: Sequence[int], *,
                 return cmp.VectorMean(afac * vm.mean, afac * vm.std_error, vm.n)
             ch = cmp.compare_vectors(scaled(ca["slow"]), scaled(cb["slow"]), k=k)
             slow.append(dict(
-                probe=name, units=amplitude_label(ca["kind"]),
+                probe=name, kind=ca["kind"], units=amplitude_label(ca["kind"]),
                 a_amplitude=json_number(ch.a.amplitude), a_lag_deg=json_number(ch.a.lag_deg),
                 b_amplitude=json_number(ch.b.amplitude), b_lag_deg=json_number(ch.b.lag_deg),
                 change=json_number(ch.delta_amplitude), sigma=json_number(ch.sigma),

@@ -24,7 +24,10 @@ from rundash.analysis.verdicts import judge, summarize
 from rundash.conventions import lag_deg_from_phasor
 from rundash.ingest.profile_file import load_profile
 from rundash.model import ChannelInfo, MachineDescription, RunInfo
-from rundash.units import VECTOR_AMPLITUDE_CONVENTION, amplitude_label
+from rundash.units import (
+    LEVEL_CONVENTION, STORAGE_UNIT, VECTOR_AMPLITUDE_CONVENTION, amplitude_label,
+    vector_amplitude_factor,
+)
 
 SCHEMA = "rundash.findings/1"
 MIN_BLOCKS = 20  # fewer revolutions in a direction than this: nothing to judge there
@@ -84,7 +87,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
         for i, ch in enumerate(probes):
             if ch.kind not in VECTOR_AMPLITUDE_CONVENTION:
                 continue
-            afac = 2.0 if VECTOR_AMPLITUDE_CONVENTION[ch.kind] == "pp" else 1.0
+            afac = vector_amplitude_factor(ch.kind)
             for d, sel in directions.items():
                 s, t = track.speed_rpm[sel], track.time_s[sel]
                 v = np.asarray(compensated[i, k1, sel], dtype=np.complex128)
@@ -231,6 +234,10 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
         "processing": dict(slow_roll_rpm=list(slow_roll_rpm) if slow_roll_rpm else None,
                            speed_range_rpm=[json_number(track.speed_rpm.min()),
                                             json_number(track.speed_rpm.max())]),
+        "probes": [dict(name=ch.probe_name, kind=ch.kind, unit=STORAGE_UNIT.get(ch.kind, ""),
+                        vector_convention=VECTOR_AMPLITUDE_CONVENTION.get(ch.kind, ""),
+                        level_convention=LEVEL_CONVENTION.get(ch.kind, ""))
+                   for ch in probes],
         "criticals": sorted(crit_json, key=lambda c: (c["direction"], c["speed_rpm"] or 0,
                                                       c["probe"])),
         "bearings": bearings,

@@ -38,7 +38,7 @@ from rundash.model import MachineDescription
 from rundash.storage import live_queries as lq
 from rundash.storage import queries as q
 from rundash.storage.engine import Database
-from rundash.units import VECTOR_AMPLITUDE_CONVENTION
+from rundash.units import vector_amplitude_factor
 
 #: Re-exported for the faces (they do not import analysis modules themselves).
 WarningSettings = lw.WarningSettings
@@ -133,7 +133,7 @@ class LiveProcessor:
         """Rows for :func:`rundash.storage.live_queries.save_vectors`, in stored units."""
         rows = []
         for i, ch in enumerate(self.probes):
-            afac = 2.0 if VECTOR_AMPLITUDE_CONVENTION[ch.kind] == "pp" else 1.0
+            afac = vector_amplitude_factor(ch.kind)
             direct = tr.direct_pp[i] if ch.kind == "proximity" else tr.direct_rms[i]
             for k, order in enumerate(tr.orders):
                 v = tr.vectors[i, k]

@@ -26,7 +26,7 @@ import time
 import warnings
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
-from typing import Any, Iterator, Sequence
+from typing import Any, Iterator
 
 import numpy as np
 
@@ -34,13 +34,13 @@ from rundash import __version__
 from rundash.conventions import lag_deg_from_phasor
 from rundash.dsp import orders as dsp_orders
 from rundash.dsp import slowroll, spectra, speed, tach
-from rundash.errors import DspError, RundashError, StorageError
+from rundash.errors import DspError, StorageError
 from rundash.ingest.machine_file import parse_machine_description
 from rundash.model import MachineDescription, TachSpec
 from rundash.progress import Progress, no_progress
 from rundash.storage import queries as q
 from rundash.storage.engine import Database
-from rundash.units import VECTOR_AMPLITUDE_CONVENTION
+from rundash.units import vector_amplitude_factor
 from rundash.workflows import findings as findings_mod
 
 
@@ -369,7 +369,7 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
                               segments=seg_list, warnings=notes)
             q.save_speed_profile(conn, run_id, rev_mid, profile.rpm(rev_mid))
             for i, ch in enumerate(probes):
-                afac = 2.0 if VECTOR_AMPLITUDE_CONVENTION[ch.kind] == "pp" else 1.0
+                afac = vector_amplitude_factor(ch.kind)
                 direct = track.direct_pp[i] if ch.kind == "proximity" else track.direct_rms[i]
                 for k, order in enumerate(track.orders):
                     for compensated, vec in ((False, track.vectors), (True, comp)):

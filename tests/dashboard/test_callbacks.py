@@ -10,6 +10,7 @@ from numpy.testing import assert_allclose
 
 from rundash import CAUTION
 from rundash.dashboard import ids
+from rundash import presentation
 from rundash.dashboard.pages import importer, review, runs
 from rundash.errors import InputError
 from rundash.units import UM_PER_MIL
@@ -117,7 +118,7 @@ class TestReview:
 
     def test_findings_units_with_micro_sign_convert(self):
         # the findings write 'µm pp'; 1 mil = 25.4 um exactly
-        assert review._amp(50.8, "µm pp", "imperial") == "2 mil pp"
+        assert presentation.amplitude(50.8, "proximity", "pp", "imperial") == "2 mil pp"
 
     def test_verdict_panel_without_findings(self, demo_db):
         ctx = dict(review.load_context(demo_db.db, demo_db.run_id), findings=None)
@@ -126,8 +127,8 @@ class TestReview:
 
     def test_amplitudes_in_imperial(self):
         # 1 mil = 25.4 um exactly
-        assert review._amp(50.8, "um pp", "imperial") == "2 mil pp"
-        assert review._amp(25.4, "mm/s pk", "imperial") == "1 in/s pk"
+        assert presentation.amplitude(50.8, "proximity", "pp", "imperial") == "2 mil pp"
+        assert presentation.amplitude(25.4, "velocity", "pk", "imperial") == "1 in/s pk"
 
     def test_vector_figures_mark_criticals_of_the_probe(self, demo_db):
         bode, polar, direct = review.vector_figures(demo_db.db, demo_db.run_id, "K410-DE-X",

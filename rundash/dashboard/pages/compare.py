@@ -21,6 +21,7 @@ from typing import Any, Sequence
 from rundash import CAUTION, figures
 from rundash.dashboard import ids
 from rundash.errors import NotFoundError, RundashError
+from rundash.presentation import operating_range
 
 PATH = "/compare"
 TITLE = "Compare runs"
@@ -145,12 +146,7 @@ def overlay_figures(db, run_ids: Sequence[int], probe: str, system: str = "metri
     comp = any(t.get("compensated") for t in traces)
     word = "slow-roll compensated" if comp else "uncompensated"
     machine = ctxs[0]["machine"] if ctxs else None
-    op = None
-    if machine is not None:
-        s = machine.spec
-        op = {"min_operating_speed_rpm": s.min_operating_speed_rpm,
-              "max_continuous_speed_rpm": s.max_continuous_speed_rpm,
-              "trip_speed_rpm": s.trip_speed_rpm}
+    op = operating_range(machine.spec) if machine is not None else None
     uirev = f"compare-{probe}-{system}-{','.join(str(c['run'].id) for c in ctxs)}"
     bode = figures.bode(traces, kind=kind, system=system, operating=op, compensated=comp,
                         uirevision=uirev, title=f"Bode plots across runs, {probe} 1X ({word})")
@@ -174,55 +170,11 @@ def comparison_of(db, run_ids: Sequence[int], *, cache=None, n_boot: int = N_BOO
     return src._get(key, lambda: compare_runs(db, ordered, n_boot=n_boot))
 
 
-def _pm(value, sigma, digits: int, unit: str = "") -> str:
-    if value is None:
-        return "–"
-    txt = f"{value:+,.{digits}f}"
-    if sigma is not None:
-        txt += f" ± {sigma:.2g}"
-    return txt + unit
-
-
-def _val(value, sigma, digits: int) -> str:
-    if value is None:
-        return "–"
-    return f"{value:,.{digits}f}" + (f" ± {sigma:.2g}" if sigma is not None else "")
-
-
-def _sig(shift) -> str:
-    if not shift or shift.get("significant") is None:
-        return "not judged"
-    return "significant" if shift["significant"] else "not significant"
-
-
 def table_rows(comparison: dict[str, Any], probe: str | None = None) -> list[dict[str, str]]:
     """One row per matched critical of each run pair (of ``probe``, or every probe)."""
-    rows = []
-    for p in comparison.get("pairs") or []:
-        for pr in p["probes"]:
-            if probe is not None and pr["probe"] != probe:
-                continue
-            d = pr["direction_a"] if pr["direction_a"] == pr["direction_b"] else \
-                f"{pr['direction_a']} vs {pr['direction_b']}"
-            for m in pr["criticals"]:
-                sp, af = m.get("speed") or {}, m.get("af") or {}
-                a, b = m.get("a") or {}, m.get("b") or {}
-                pct = sp.get("delta_pct")
-                rows.append({
-                    "runs": f"{p['a']} → {p['b']}", "probe": pr["probe"], "direction": d,
-                    "speed_a": _val(a.get("speed_rpm"), a.get("speed_std_rpm"), 1),
-                    "speed_b": _val(b.get("speed_rpm"), b.get("speed_std_rpm"), 1),
-                    "speed_shift": _pm(sp.get("delta"), sp.get("sigma"), 1, " rpm")
-                    + (f" ({pct:+.1f} %)" if pct is not None else ""),
-                    "speed_sig": _sig(sp),
-                    "af_a": _val(a.get("af"), a.get("af_std"), 2),
-                    "af_b": _val(b.get("af"), b.get("af_std"), 2),
-                    "af_shift": _pm(af.get("delta"), af.get("sigma"), 2), "af_sig": _sig(af),
-                    "hints": "; ".join(m.get("hints") or []) or "–",
-                    "notes": "; ".join(list(m.get("notes") or []) + list(pr.get("notes") or
-                                                                         [])),
-                    "changed": "changed" if m.get("changed") else "no significant change"})
-    return rows
+    from rundash.presentation import shift_rows
+
+    return shift_rows(comparison, probe)
 
 
 TABLE_COLUMNS = [("runs", "Runs (ref → later)"), ("probe", "Probe"),

@@ -1,0 +1,110 @@
+"""One rendering: the CLI, the run review page and the report show the same numbers for
+the demo's runs, because all three render the findings and the comparison through
+rundash.presentation.
+
+The cells are checked against the findings JSON itself (the speed of each critical is its
+``speed_rpm`` to the rpm, its required margin to 0.1 %; the rows' formats are ours, no
+outside source), and then looked for, cell by cell, in what each face shows.
+"""
+
+from __future__ import annotations
+
+import html
+import re
+
+import pytest
+
+from rundash import presentation as pr
+from rundash.cli import main
+from rundash.dashboard.pages import compare as compare_page
+from rundash.dashboard.pages import review
+from rundash.report.html import load_report_data, render
+from rundash.storage import queries as q
+from rundash.storage.engine import open_database
+from rundash.workflows.demo import build_demo
+
+N_BOOT = 20  # every face asked for the same bootstrap, so the sigmas are the same
+
+
+def _text(component) -> str:
+    if component is None:
+        return ""
+    if isinstance(component, (str, int, float)):
+        return str(component)
+    if isinstance(component, (list, tuple)):
+        return " ".join(_text(c) for c in component)
+    return _text(getattr(component, "children", None))
+
+
+def _plain(page: str) -> str:
+    page = re.sub(r"<script.*?</script>", " ", page, flags=re.S)
+    return html.unescape(re.sub(r"<[^>]+>", " ", page))
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    path = tmp_path_factory.mktemp("present") / "demo.sqlite"
+    db = open_database(str(path), create=True)
+    ids = build_demo(db)
+    yield db, path, ids
+    db.dispose()
+
+
+def _faces(db, path, run_id, capsys):
+    assert main(["findings", str(run_id), "--db", str(path)]) == 0
+    cli = capsys.readouterr().out
+    page = _text(review.verdict_panel(review.load_context(db, run_id)))
+    report = _plain(render(load_report_data(db, run_id)))
+    return {"cli": cli, "review page": page, "report": report}
+
+
+def test_findings_cells_are_the_json_and_every_face_shows_them(demo, capsys):
+    db, path, ids = demo
+    checked = 0
+    for run_id in ids:
+        with db.read() as conn:
+            f = q.load_processing(conn, run_id).findings
+        assert {p["name"]: p["kind"] for p in f["probes"]} and all(
+            p["kind"] in ("proximity", "velocity", "acceleration") for p in f["probes"])
+        crit = pr.critical_rows(f)
+        assert len(crit) == len(f["criticals"]) > 0
+        for row, c in zip(crit, f["criticals"]):
+            assert row["speed"] == f"{c['speed_rpm']:,.0f}"
+            assert row["required"].startswith(f"{c['required_margin_pct']:.1f} %") or \
+                row["required"].startswith("none")
+            assert row["peak"].endswith(c["amplitude_units"].replace("um", "µm"))
+        judged = [r for r in pr.limit_rows(f) if r["judged"]]
+        faces = _faces(db, path, run_id, capsys)
+        for name, text in faces.items():
+            for row in crit:
+                for key in ("probe", "speed", "peak", "margin", "required", "verdict"):
+                    assert row[key] in text, (name, run_id, key, row[key])
+                    checked += 1
+            for row in judged:
+                for key in ("value", "limit", "speed"):
+                    assert row[key] in text, (name, run_id, key, row[key])
+                    checked += 1
+    assert checked > 100
+
+
+def test_comparison_cells_are_the_same_in_cli_page_and_report(demo, capsys):
+    db, path, ids = demo
+    with db.read() as conn:
+        runs = sorted((q.get_run(conn, r) for r in ids), key=lambda r: r.started_at)
+    ups = [r.id for r in runs if r.kind == "run-up"][:2]
+    assert main(["compare", *map(str, ups), "--db", str(path), "--boot", str(N_BOOT)]) == 0
+    cli = capsys.readouterr().out
+    comparison = compare_page.comparison_of(db, ups, n_boot=N_BOOT)
+    rows = pr.shift_rows(comparison)
+    assert rows
+    probes = sorted({r["probe"] for r in rows})
+    page = " ".join(_text(compare_page.comparison_view(db, ups, p, n_boot=N_BOOT)[1])
+                    for p in probes)
+    report = _plain(render(load_report_data(db, ups[0], [ups[1]], n_boot=N_BOOT)))
+    m = comparison["pairs"][0]["probes"][0]["criticals"][0]
+    assert rows[0]["speed_shift"].startswith(f"{m['speed']['delta']:+,.1f} ± "
+                                             f"{m['speed']['sigma']:.2g} rpm")
+    for name, text in {"cli": cli, "compare page": page, "report": report}.items():
+        for row in rows:
+            for key in ("probe", "speed_shift", "af_shift"):
+                assert row[key] in text, (name, key, row[key])
