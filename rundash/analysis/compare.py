@@ -47,6 +47,7 @@ import numpy as np
 from scipy import signal
 
 from rundash.analysis.criticals import Critical, find_criticals
+from rundash.analysis.vectors import mean_vector_near
 from rundash.errors import AnalysisError, invalid_value
 
 Direction = Literal["run-up", "coast-down"]
@@ -365,11 +366,10 @@ def _circ_std_deg(values: list[float], min_n: int = 5) -> float | None:
 
 
 def _phase_point(s, v, afac, speed, width_pct):
-    sel = np.abs(s - speed) <= speed * width_pct / 100.0
-    if not sel.any():
+    m, n = mean_vector_near(s, v, speed, width_pct=width_pct)
+    if m is None:
         return None, None, 0
-    m = v[sel].mean()
-    return float(np.mod(-np.degrees(np.angle(m)), 360.0)), float(afac * abs(m)), int(sel.sum())
+    return float(np.mod(-np.degrees(np.angle(m)), 360.0)), float(afac * abs(m)), n
 
 
 def _nearest(crits, speed, tol_pct):

@@ -18,6 +18,11 @@ Order tracking (:mod:`rundash.dsp.orders`)
     OrderTrack          -- its result (vectors, direct levels, speed, time)
     concat_tracks       -- join tracks of consecutive chunks
 
+Run directions (:mod:`rundash.dsp.directions`, one definition for judging and drawing)
+    direction_segments  -- the stored segments folded: blips belong to their sweep
+    split_by_direction  -- a track cut into pieces by them
+    direction_masks     -- run-up and coast-down masks with enough blocks to judge
+
 Incremental processing (:mod:`rundash.dsp.incremental`, a record arriving in pieces)
     IncrementalTach     -- once-per-rev events of a tach fed block by block
     IncrementalOrders   -- order tracking of revolutions as they complete
@@ -38,6 +43,7 @@ Spectra (:mod:`rundash.dsp.spectra`)
     Cascade             -- its result
 """
 
+from rundash.dsp.directions import direction_masks, direction_segments, split_by_direction
 from rundash.dsp.incremental import IncrementalOrders, IncrementalTach
 from rundash.dsp.orders import OrderTrack, OrderTracker, concat_tracks, track_orders
 from rundash.dsp.slowroll import auto_slow_roll_window, compensate, slow_roll_vector
@@ -51,6 +57,7 @@ __all__ = [
     "speed_profile", "SpeedProfile", "segment", "Segment", "run_kind",
     "track_orders", "OrderTracker", "OrderTrack", "concat_tracks",
     "IncrementalTach", "IncrementalOrders",
+    "direction_segments", "split_by_direction", "direction_masks",
     "vold_kalman", "VoldKalmanResult",
     "auto_slow_roll_window", "slow_roll_vector", "compensate",
     "cascade", "cascade_plan", "cascade_rows", "Cascade",

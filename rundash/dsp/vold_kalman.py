@@ -180,7 +180,6 @@ def vold_kalman(x, fs: float, speed, orders, *, bandwidth_hz: float | None = Non
     n = x.size
     if n < 16:
         raise DspError(invalid_value("x", f"{n} samples", "at least 16 samples"))
-    t_full = np.arange(n) / fs
     if isinstance(speed, SpeedProfile):
         profile = speed
         rpm_full = None

@@ -33,11 +33,6 @@ MARGIN_FILL = "rgba(213, 94, 0, 0.10)"       # vermillion, light
 HALF_POWER_FILL = "rgba(0, 114, 178, 0.12)"  # blue, light
 CURSOR_COLOR = "#000000"
 MAX_POINTS = 2000
-#: A segment shorter than this (s) is drawn as part of the one before it.
-MIN_PIECE_S = 10.0
-#: A 'steady' segment whose speed changes by more than this fraction of its mean speed
-#: is drawn as the sweep it is (display choice of ours, no source).
-HOLD_SPEED_TOLERANCE = 0.02
 
 
 

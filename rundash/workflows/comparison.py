@@ -21,6 +21,7 @@ import numpy as np
 from rundash import CAUTION
 from rundash.analysis import compare as cmp
 from rundash.conventions import phasor_from_lag
+from rundash.dsp.directions import MIN_BLOCKS, direction_masks
 from rundash.errors import AnalysisError, InputError, NotFoundError
 from rundash.workflows.findings import json_number
 from rundash.storage import queries as q
@@ -28,7 +29,6 @@ from rundash.storage.engine import Database
 from rundash.units import VECTOR_AMPLITUDE_CONVENTION, amplitude_label, vector_amplitude_factor
 
 SCHEMA = "rundash.comparison/1"
-MIN_BLOCKS = 20  # as the findings: fewer revolutions in a direction, nothing to compare
 RULE = ("a change is significant when |b - a| > k * sqrt(sigma_a^2 + sigma_b^2), k = {k:g} "
         "(about 95 % two-sided for Gaussian errors at k = 2; common practice, no source)")
 METHOD = ("one-sigma uncertainties from a dependent wild bootstrap over revolutions "
@@ -77,15 +77,10 @@ def _curves(data: dict[str, Any]) -> dict[tuple[str, str], dict[str, Any]]:
             if np.count_nonzero(m) >= 2:
                 slow = cmp.vector_mean(raw_vec[m])
         offset = slow.std_error if (slow is not None and use is not raw) else 0.0
-        for d in ("run-up", "coast-down"):
-            sel = np.zeros(use.time_s.size, dtype=bool)
-            for s in proc.segments or []:
-                if s["kind"] == d:
-                    sel |= (use.time_s >= s["t_start_s"]) & (use.time_s <= s["t_end_s"])
-            if sel.sum() >= MIN_BLOCKS:
-                out[(name, d)] = dict(speed=use.speed_rpm[sel], vector=vec[sel],
-                                      time=use.time_s[sel], afac=afac, offset=offset,
-                                      kind=raw.kind, slow=slow)
+        for d, sel in direction_masks(use.time_s, proc.segments, min_blocks=MIN_BLOCKS).items():
+            out[(name, d)] = dict(speed=use.speed_rpm[sel], vector=vec[sel],
+                                  time=use.time_s[sel], afac=afac, offset=offset,
+                                  kind=raw.kind, slow=slow)
         if not any(k[0] == name for k in out) and slow is not None:
             out[(name, "none")] = dict(slow=slow, afac=afac, kind=raw.kind)
     return out

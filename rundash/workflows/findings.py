@@ -20,8 +20,10 @@ from rundash import CAUTION
 from rundash.analysis import criticals as crit_mod
 from rundash.analysis.limits import check_levels
 from rundash.analysis.modes import mode_hint
+from rundash.analysis.vectors import mean_vector_near
 from rundash.analysis.verdicts import judge, summarize
 from rundash.conventions import lag_deg_from_phasor
+from rundash.dsp.directions import MIN_BLOCKS, direction_masks
 from rundash.ingest.profile_file import load_profile
 from rundash.model import ChannelInfo, MachineDescription, RunInfo
 from rundash.units import (
@@ -30,7 +32,6 @@ from rundash.units import (
 )
 
 SCHEMA = "rundash.findings/1"
-MIN_BLOCKS = 20  # fewer revolutions in a direction than this: nothing to judge there
 
 
 def json_number(x):
@@ -42,17 +43,6 @@ def json_number(x):
     except (TypeError, ValueError):
         return None
     return x if math.isfinite(x) else None
-
-
-def _vector_at(speed, vec, nc, width_pct=0.5):
-    """Mean complex vector within +-width_pct of a speed (None when no block is there)."""
-    sel = np.abs(speed - nc) <= nc * width_pct / 100.0
-    if not sel.any():
-        i = int(np.argmin(np.abs(speed - nc)))
-        if abs(speed[i] - nc) > nc * 0.02:
-            return None
-        return vec[i]
-    return vec[sel].mean()
 
 
 def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[ChannelInfo],
@@ -69,14 +59,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
     k1 = int(np.flatnonzero(np.isclose(track.orders, 1.0))[0]) if np.any(
         np.isclose(track.orders, 1.0)) else None
     spec_by_name = {p.name: p for p in desc.probes}
-    directions = {}
-    for d in ("run-up", "coast-down"):
-        sel = np.zeros(track.n_blocks, dtype=bool)
-        for s in segments:
-            if s.kind == d:
-                sel |= (track.time_s >= s.t_start_s) & (track.time_s <= s.t_end_s)
-        if sel.sum() >= MIN_BLOCKS:
-            directions[d] = sel
+    directions = direction_masks(track.time_s, segments, min_blocks=MIN_BLOCKS)
     if k1 is None:
         notes.append("1X was not tracked: no critical speeds can be found")
     if not directions:
@@ -114,7 +97,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                 out.append(None)
                 continue
             _, s2, v2, *_ = per_probe[(partner.name, d)]
-            a, b = _vector_at(s, v, c.speed_rpm), _vector_at(s2, v2, c.speed_rpm)
+            a, _ = mean_vector_near(s, v, c.speed_rpm, nearest_within_pct=2.0)
+            b, _ = mean_vector_near(s2, v2, c.speed_rpm, nearest_within_pct=2.0)
             if a is None or b is None:
                 out.append(None)
                 continue
