@@ -19,9 +19,7 @@ TransducerKind = Literal["proximity", "velocity", "acceleration"]
 TRANSDUCER_KINDS: tuple[str, ...] = TransducerKind.__args__  # type: ignore[attr-defined]
 RunKind = Literal["run-up", "coast-down", "mixed", "steady"]
 RUN_KINDS: tuple[str, ...] = RunKind.__args__  # type: ignore[attr-defined]
-RunState = Literal["importing", "complete", "incomplete"]
 Rotation = Literal["cw", "ccw"]
-Edge = Literal["rising", "falling"]
 Axis = Literal["X", "Y", "none"]
 
 

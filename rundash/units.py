@@ -94,13 +94,3 @@ def amplitude_label(kind: str, system: UnitSystem = "metric") -> str:
     """Axis label fragment for a filtered amplitude, e.g. ``'um pp'`` or ``'mm/s pk'``."""
     unit = display_unit(kind, system)
     return f"{unit.replace('um', 'µm')} {VECTOR_AMPLITUDE_CONVENTION[kind]}"
-
-
-def rpm_to_hz(speed_rpm):
-    """Shaft speed in rpm to rotation frequency in Hz."""
-    return speed_rpm / 60.0
-
-
-def hz_to_rpm(freq_hz):
-    """Rotation frequency in Hz to shaft speed in rpm."""
-    return freq_hz * 60.0

@@ -22,18 +22,9 @@ from rundash.report.html import load_report_data, render
 from rundash.storage import queries as q
 from rundash.storage.engine import open_database
 from rundash.workflows.demo import build_demo
+from tests.dashboard.test_callbacks import _text
 
 N_BOOT = 20  # every face asked for the same bootstrap, so the sigmas are the same
-
-
-def _text(component) -> str:
-    if component is None:
-        return ""
-    if isinstance(component, (str, int, float)):
-        return str(component)
-    if isinstance(component, (list, tuple)):
-        return " ".join(_text(c) for c in component)
-    return _text(getattr(component, "children", None))
 
 
 def _plain(page: str) -> str:

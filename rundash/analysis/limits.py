@@ -25,9 +25,6 @@ from rundash.analysis.zones import BEARING_VELOCITY, SHAFT_DISPLACEMENT
 from rundash.analysis.zones import cite as _cite
 from rundash.errors import AnalysisError, invalid_value
 
-ZONES = ("A", "B", "C", "D")
-
-
 @dataclass(frozen=True)
 class LevelCheck:
     """One level compared with one limit or zone table.

@@ -85,15 +85,6 @@ class Reader(ABC):
                             "rate: correct the machine description or drop its sample_rate_hz")
         return fs
 
-    def _check_finite(self, block: np.ndarray, first_row: int, row_offset: int = 0) -> None:
-        """Refuse NaN or infinite samples, naming the channel and row."""
-        bad = ~np.isfinite(block)
-        if bad.any():
-            ch, idx = np.argwhere(bad)[0]
-            raise self.fail(f"channel {self.channels[ch]!r}, row {first_row + idx + row_offset}: "
-                            f"value {float(block[ch, idx])!r} is not a finite number")
-
-
 def rate_from_times(times: np.ndarray, name: str, column: str, first_row: int) -> float:
     """Sample rate from a time column; the time must step evenly (to 1 % of a step)."""
     if times.size < 2:

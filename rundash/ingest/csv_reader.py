@@ -11,7 +11,6 @@ from typing import Iterator
 
 import numpy as np
 
-from rundash.errors import InputError
 from rundash.ingest.base import DEFAULT_BLOCK, Reader, check_time_continues, rate_from_times
 
 _TIME_NAMES = ("time_s", "time", "t")

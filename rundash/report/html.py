@@ -391,8 +391,3 @@ def render(data: dict[str, Any], *, flavour: Flavour = "interactive", reviewer: 
         + _comparison_section(data)
         + f"<h2>{n_sec}. Plots</h2>" + "".join(parts)
         + _signoff(reviewer, decision, remarks) + "</body></html>")
-
-
-def figure_count(data: dict[str, Any]) -> int:
-    """How many figures the report of ``data`` draws."""
-    return len(build_figures(data))

@@ -156,10 +156,6 @@ class Database:
     on_lock_wait: Callable[[float, float], None] | None = None
 
     @property
-    def is_sqlite(self) -> bool:
-        return self.engine.dialect.name == "sqlite"
-
-    @property
     def shown(self) -> str:
         """The URL for messages (no password; a SQLite file as its path)."""
         return _shown(self.url)
@@ -424,4 +420,3 @@ def open_database(db: str | None = None, *, create: bool = False, upgrade: bool 
         raise StorageError(f"cannot open database {shown}: {exc.__class__.__name__}: "
                            f"{str(exc).splitlines()[0] if str(exc) else ''}") from exc
     return Database(engine=engine, url=url, lock_wait_s=float(lock_wait_s))
-

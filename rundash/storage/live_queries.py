@@ -14,7 +14,7 @@ from datetime import datetime
 from typing import Any, Sequence
 
 import numpy as np
-from sqlalchemy import Connection, func, insert, select, update
+from sqlalchemy import Connection, insert, select, update
 
 from rundash.storage import orm
 from rundash.storage.codec import decode_f64, encode_f64
@@ -80,11 +80,6 @@ def save_status(conn: Connection, run_id: int, *, state: str, time_s: float, n_s
         conn.execute(insert(LS).values(run_id=run_id, **values))
 
 
-def set_status_state(conn: Connection, run_id: int, state: str, message: str = "") -> None:
-    conn.execute(update(LS).where(LS.c.run_id == run_id).values(
-        state=state, message=message, updated_at=orm.utcnow()))
-
-
 def load_status(conn: Connection, run_id: int) -> LiveStatusInfo | None:
     r = conn.execute(select(LS).where(LS.c.run_id == run_id)).first()
     if r is None:
@@ -112,10 +107,6 @@ def save_vectors(conn: Connection, run_id: int, seq: int,
              time_s=encode_f64(t), speed_rpm=encode_f64(s), amplitude=encode_f64(a),
              phase_lag_deg=encode_f64(p), direct=encode_f64(d))
         for cid, o, t, s, a, p, d in rows])
-
-
-def last_vector_seq(conn: Connection, run_id: int) -> int | None:
-    return conn.execute(select(func.max(LV.c.seq)).where(LV.c.run_id == run_id)).scalar()
 
 
 def load_live_tracks(conn: Connection, run_id: int, *, order: float | None = None,

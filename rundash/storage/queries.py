@@ -398,9 +398,3 @@ def save_finding_rows(conn: Connection, run_id: int, rows: Sequence[dict[str, An
     conn.execute(delete(F).where(F.c.run_id == run_id))
     if rows:
         conn.execute(insert(F), [dict(run_id=run_id, **r) for r in rows])
-
-
-def load_finding_rows(conn: Connection, run_id: int) -> list[dict[str, Any]]:
-    cols = [c for c in F.c if c.name not in ("id", "run_id")]
-    q = select(*cols).where(F.c.run_id == run_id).order_by(F.c.probe_name, F.c.speed_rpm)
-    return [dict(r._mapping) for r in conn.execute(q).all()]

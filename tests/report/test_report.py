@@ -19,7 +19,7 @@ from rundash import CAUTION
 from rundash.cli import main
 from rundash.workflows.demo import build_demo
 from rundash.report import load_report_data, write_report
-from rundash.report.html import figure_count
+from rundash.report.html import build_figures
 from rundash.storage import queries as q
 from rundash.storage.engine import open_database
 
@@ -121,7 +121,7 @@ class TestHtml:
                                           " .plot-container .scatterlayer path.js-fill').length")
         finally:
             driver.quit()
-        expected = figure_count(load_report_data(db, rid))
+        expected = len(build_figures(load_report_data(db, rid)))
         assert drawn == expected and n >= expected and lines > 0
         assert not [u for u in fetched if u.startswith(("http:", "https:"))]
 
