@@ -83,6 +83,8 @@ def cmd_import(*, db: str | None, data: str, machine: str, label: str, cycle: st
                      progress=bar)
     if hasattr(bar, "close"):
         bar.close()
+    if not quiet and res.time_base:
+        print(f"time base: {res.time_base}", file=sys.stderr)
     for w in res.warnings:
         print(f"warning: {w}", file=sys.stderr)
     if process:

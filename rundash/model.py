@@ -85,6 +85,7 @@ class DataSpec:
     ``full_scale_v`` scales normalised PCM in WAV files (1.0 full scale -> volts).
     ``signal_units`` is ``"V"`` (columns in volts, scaled by each probe's sensitivity)
     or ``"engineering"`` (columns already in each probe's units).
+    ``delimiter`` and ``decimal`` set a CSV's dialect (``"auto"``: sniffed).
     """
 
     format: str = "auto"
@@ -93,6 +94,8 @@ class DataSpec:
     full_scale_v: float = 1.0
     signal_units: str = "V"
     dataset: str | None = None
+    delimiter: str = "auto"
+    decimal: str = "auto"
 
 
 @dataclass(frozen=True)

@@ -6,6 +6,14 @@ format knows it) the number of samples, and then yields blocks of shape
 ``(n_channels, n)`` float32 or float64 (float32 where that holds the file's samples
 exactly) in the file's own values (volts or engineering units, before
 any probe sensitivity is applied), in order, never the whole file at once.
+
+``select(names)`` narrows the blocks to those channels, in that order (a reader then reads
+or converts only those: a CSV's other columns are not parsed). After the blocks,
+``sample_rate_hz`` holds the rate refined over the whole file (a time column's fit, see
+:mod:`rundash.ingest.timebase`); ``time_note`` says in one line where the rate came from,
+``start_time`` is the record's start when the file says it (epoch time stamps, an MDF4
+header), ``units`` the unit the file gives each channel (empty when it gives none), and
+``warnings`` lists doubts about the file's time base.
 """
 
 from __future__ import annotations
@@ -13,8 +21,9 @@ from __future__ import annotations
 import math
 import stat
 from abc import ABC, abstractmethod
+from datetime import datetime
 from pathlib import Path
-from typing import Iterator
+from typing import Iterator, Sequence
 
 import numpy as np
 
@@ -35,6 +44,11 @@ class Reader(ABC):
         self.channels: tuple[str, ...] = ()
         self.sample_rate_hz: float = float("nan")
         self.n_samples: int | None = None
+        self.time_note: str = ""
+        self.start_time: datetime | None = None
+        self.units: dict[str, str] = {}
+        self.warnings: list[str] = []
+        self._sel: tuple[int, ...] | None = None
         try:
             st = self.path.stat()
         except FileNotFoundError:
@@ -55,6 +69,20 @@ class Reader(ABC):
 
         Non-finite samples are passed on: the importer refuses them, naming channel and
         sample (the CSV reader refuses them itself, naming the row)."""
+
+    def select(self, names: Sequence[str]) -> None:
+        """Yield only these channels, in this order, from now on."""
+        index = {c: i for i, c in enumerate(self.channels)}
+        missing = [n for n in names if n not in index]
+        if missing:
+            raise self.fail(f"channel {missing[0]!r} is not in the file; the file has "
+                            f"{_listing(self.channels)}")
+        self._sel = tuple(index[n] for n in names)
+
+    @property
+    def selected(self) -> tuple[int, ...]:
+        """Indexes (into ``channels``) of the channels the blocks hold."""
+        return self._sel if self._sel is not None else tuple(range(len(self.channels)))
 
     def close(self) -> None:  # pragma: no cover - readers without resources
         pass
@@ -85,33 +113,12 @@ class Reader(ABC):
                             "rate: correct the machine description or drop its sample_rate_hz")
         return fs
 
-def rate_from_times(times: np.ndarray, name: str, column: str, first_row: int) -> float:
-    """Sample rate from a time column; the time must step evenly (to 1 % of a step)."""
-    if times.size < 2:
-        raise InputError(f"{name}: time column {column!r} has fewer than two rows")
-    d = np.diff(times)
-    dt = float(np.median(d))
-    if not dt > 0:
-        raise InputError(f"{name}: time column {column!r} does not increase")
-    bad = np.flatnonzero(np.abs(d - dt) > 0.01 * dt)
-    if bad.size:
-        i = int(bad[0])
-        raise InputError(
-            f"{name}: time column {column!r}, row {first_row + i + 1}: time "
-            f"{float(times[i + 1])!r} s does not follow {float(times[i])!r} s by the sample "
-            f"interval {dt:.6g} s "
-            "(expected evenly spaced, increasing time)")
-    return 1.0 / dt
 
 
-def check_time_continues(times: np.ndarray, fs: float, start_index: int, t0: float, name: str,
-                         column: str, first_row: int) -> None:
-    """Check that a later block's times continue the sampling grid t0 + i/fs."""
-    expect = t0 + (start_index + np.arange(times.size)) / fs
-    bad = np.flatnonzero(np.abs(times - expect) > 0.5 / fs)
-    if bad.size:
-        i = int(bad[0])
-        raise InputError(
-            f"{name}: time column {column!r}, row {first_row + i}: time {float(times[i])!r} s is "
-            "off the "
-            f"sampling grid (expected {expect[i]:.9g} s: evenly spaced, increasing time)")
+def _listing(names: Sequence[str], limit: int = 12) -> str:
+    """Names joined by commas, the first ``limit`` of them and a count of the rest."""
+    if len(names) <= limit:
+        return ", ".join(names)
+    return f"{', '.join(names[:limit])} and {len(names) - limit} more"
+
+

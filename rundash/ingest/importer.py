@@ -11,6 +11,7 @@ import numpy as np
 
 from rundash.errors import DuplicateRunError, InputError
 from rundash.ingest import open_reader
+from rundash.ingest.base import _listing
 from rundash.ingest.bounds import SAMPLE_RATE_HZ, out_of_range
 from rundash.ingest.machine_file import check_profile
 from rundash.model import RUN_KINDS, MachineDescription
@@ -35,6 +36,10 @@ class ImportResult:
     n_channels: int
     sample_rate_hz: float
     warnings: tuple[str, ...]
+    #: one line: where the sample rate came from (time column unit, fit, declared rate)
+    time_base: str = ""
+    #: the start time used (given, or from the file's epoch time stamps), or None
+    started_at: datetime | None = None
 
 
 def file_sha256(path: Path, progress: Progress = no_progress) -> str:
@@ -83,7 +88,7 @@ def channel_plan(desc: MachineDescription, channels: tuple[str, ...], name: str)
     missing = [c for c in [desc.tach.column, *(p.column for p in desc.probes)] if c not in index]
     if missing:
         raise InputError(f"{name}: channel {missing[0]!r} named in the machine description is "
-                         f"not in the file; the file has {', '.join(channels)}")
+                         f"not in the file; the file has {_listing(channels)}")
     plan.append((index[desc.tach.column], "tach", None, "V" if desc.data.signal_units == "V"
                  else "raw", 1.0))
     for p in desc.probes:
@@ -116,19 +121,23 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
                          f"(e.g. 2026-05-01T06:00:00Z), got {started_at.isoformat()!r}")
     reader = open_reader(path, desc.data)
     try:
-        if bad := out_of_range(reader.sample_rate_hz, SAMPLE_RATE_HZ):
+        plan = channel_plan(desc, reader.channels, path.name)
+        names = [reader.channels[col] for col, *_ in plan]
+        reader.select(names)  # blocks now hold the plan's channels, in its order
+        fs = reader.sample_rate_hz  # a time column is read and fitted here
+        if bad := out_of_range(fs, SAMPLE_RATE_HZ):
             raise InputError(f"{path.name}: sample rate: {bad} (from the file's header or "
                              "time column, or [data].sample_rate_hz: check its unit)")
-        plan = channel_plan(desc, reader.channels, path.name)
+        if started_at is None:
+            started_at = reader.start_time
         hasher = _BackgroundHash(path)
         warnings: list[str] = []
-        unused = sorted(set(reader.channels) - {reader.channels[i] for i, *_ in plan})
+        unused = [c for c in reader.channels if c not in set(names)]
         if unused:
             warnings.append(f"file channels not named in the machine description were not "
-                            f"stored: {', '.join(unused)}")
+                            f"stored: {_listing(sorted(unused))}")
         with db.write() as conn:
             mid, _ = q.upsert_machine(conn, desc)
-            fs = reader.sample_rate_hz
             run_id = q.create_run(
                 conn, machine_id=mid, kind=kind, label=label or path.stem, cycle=cycle,
                 notes=notes, started_at=started_at, source_name=path.name, source_sha256="",
@@ -139,8 +148,6 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
                     conn, run_id=run_id, position=pos, name=reader.channels[col], role=role,
                     probe_name=probe.name if probe else None, kind=probe.kind if probe else None,
                     unit=unit, scale=scale, sample_rate_hz=fs))
-            cols = np.array([col for col, *_ in plan])
-            names = [reader.channels[c] for c in cols]
             scales = np.array([s for *_, s in plan])[:, None]
             unit_scale = bool(np.all(scales == 1.0))
             stats_min = np.full(len(plan), np.inf)
@@ -151,7 +158,7 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
             pending: list[np.ndarray] = []
             pending_n = 0
             for block, frac in reader.blocks(q.CHUNK_SAMPLES):
-                sel = block[cols]
+                sel = block
                 if not unit_scale:
                     sel *= scales.astype(sel.dtype)
                 pending.append(sel)
@@ -169,6 +176,10 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
                                             stats_min, stats_max, names, path.name, at_ext)
             if start == 0:
                 raise InputError(f"{path.name}: no samples")
+            warnings.extend(reader.warnings)
+            if reader.sample_rate_hz != fs:  # a time column's fit, refined over the file
+                fs = reader.sample_rate_hz
+                q.set_run_sample_rate(conn, run_id, fs)
             for i, (col, role, probe, unit, _) in enumerate(plan):
                 if stats_max[i] == stats_min[i]:
                     warnings.append(f"channel {reader.channels[col]!r}"
@@ -198,7 +209,8 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
     finally:
         reader.close()
     return ImportResult(run_id=run_id, machine_id=mid, n_samples=start, n_channels=len(plan),
-                        sample_rate_hz=fs, warnings=tuple(warnings))
+                        sample_rate_hz=fs, warnings=tuple(warnings), time_base=reader.time_note,
+                        started_at=started_at)
 
 
 def _flush(conn, ch_ids, chunk, start, chunk_index, fs, smin, smax, names, source, at_ext):

@@ -37,6 +37,7 @@ _PROBE_KEYS = {
 _DATA_KEYS = {
     "format": (str, False), "time_column": (str, False), "sample_rate_hz": (float, False),
     "full_scale_v": (float, False), "signal_units": (str, False), "dataset": (str, False),
+    "delimiter": (str, False), "decimal": (str, False),
 }
 FORMATS = ("auto", "csv", "wav", "hdf5", "parquet")
 
@@ -129,6 +130,13 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
         ck.choice("[data].format", d["format"], FORMATS)
     if "signal_units" in d:
         ck.choice("[data].signal_units", d["signal_units"], ("V", "engineering"))
+    if "delimiter" in d:
+        ck.choice("[data].delimiter", d["delimiter"], ("auto", ",", ";", "\t"))
+    if "decimal" in d:
+        ck.choice("[data].decimal", d["decimal"], ("auto", ".", ","))
+    if d.get("decimal") == "," and d.get("delimiter") == ",":
+        ck.fail("[data].decimal", "a decimal comma needs [data].delimiter = \";\" or \"\\t\" "
+                "(a comma cannot separate both columns and decimals)")
     ck.positive("[data].sample_rate_hz", d.get("sample_rate_hz"))
     ck.positive("[data].full_scale_v", d.get("full_scale_v"))
     ck.within("[data].sample_rate_hz", d.get("sample_rate_hz"), bounds.SAMPLE_RATE_HZ)

@@ -28,12 +28,20 @@ class WavReader(Reader):
             if len(riff) < 12 or riff[:4] not in (b"RIFF", b"RF64") or riff[8:12] != b"WAVE":
                 raise self.fail("not a RIFF/WAVE file (expected the 'RIFF....WAVE' header)")
             fmt = None
+            ds64_data = None  # RF64: the data size from the 'ds64' chunk
+            pos = 12
             while True:
+                fh.seek(pos)
                 hdr = fh.read(8)
                 if len(hdr) < 8:
-                    raise self.fail("no 'data' chunk found (truncated file?)")
+                    if fmt is None or not hasattr(self, "_data_offset"):
+                        raise self.fail("no 'data' chunk found (truncated file?)")
+                    break  # the end of the file after the data chunk
                 cid, size = hdr[:4], struct.unpack("<I", hdr[4:])[0]
                 if cid == b"fmt ":
+                    if fmt is not None:
+                        raise self.fail(f"a second 'fmt ' chunk at byte {pos}; expected one "
+                                        "'fmt ' chunk (which layout holds is not clear)")
                     body = fh.read(size)
                     if len(body) < 16:
                         raise self.fail("'fmt ' chunk too short")
@@ -41,16 +49,25 @@ class WavReader(Reader):
                     if tag == _EXTENSIBLE and len(body) >= 26:
                         tag = struct.unpack("<H", body[24:26])[0]
                     fmt = (tag, nch, fs, align, bits)
-                    if size % 2:
-                        fh.read(1)
+                elif cid == b"ds64" and riff[:4] == b"RF64":
+                    body = fh.read(min(size, 28))
+                    if len(body) >= 16:
+                        ds64_data = struct.unpack("<Q", body[8:16])[0]
                 elif cid == b"data":
                     if fmt is None:
                         raise self.fail("'data' chunk before the 'fmt ' chunk")
-                    self._data_offset = fh.tell()
+                    if hasattr(self, "_data_offset"):
+                        raise self.fail(f"a second 'data' chunk at byte {pos}; expected one "
+                                        "'data' chunk (a second one would be dropped)")
+                    if size == 0xFFFFFFFF and ds64_data is not None:
+                        size = ds64_data
+                    self._data_offset = pos + 8
                     self._data_size = size
+                    if pos + 8 + size > self.size_bytes:
+                        break  # truncated: refused below with the sizes
+                pos += 8 + size + (size % 2)
+                if hasattr(self, "_data_offset") and pos + 8 > self.size_bytes:
                     break
-                else:
-                    fh.seek(size + (size % 2), 1)
         tag, nch, fs, align, bits = fmt
         if tag == _PCM and bits in (16, 24, 32):
             self._kind = "pcm"
@@ -66,6 +83,7 @@ class WavReader(Reader):
         self._align = align
         self.sample_rate_hz = self._agree_rate(self._check_rate(float(fs), "WAV header"),
                                                "WAV header")
+        self.time_note = f"{self.sample_rate_hz:.10g} Hz from the WAV header"
         available = self.size_bytes - self._data_offset
         if self._data_size > available:
             raise self.fail(f"truncated: the header declares {self._data_size} data bytes but "
@@ -77,24 +95,31 @@ class WavReader(Reader):
         self._scale = float(self.data.full_scale_v)
 
     def _decode(self, raw: bytes, n: int) -> np.ndarray:
+        """The selected channels of ``n`` frames, (n_selected, n), a fresh array."""
         nch = len(self.channels)
+        sel = self.selected
         # float32 wherever it holds the file's samples exactly (PCM 16/24-bit, float32)
-        if self._kind == "float":
-            x = np.frombuffer(raw, dtype="<f4" if self._bits == 32 else "<f8")
+        if self._kind == "float" or self._bits in (16, 32):
+            code = {("float", 32): "<f4", ("float", 64): "<f8", ("pcm", 16): "<i2",
+                    ("pcm", 32): "<i4"}[(self._kind, self._bits)]
+            frames = np.frombuffer(raw, dtype=code).reshape(n, nch)
+            out_t = np.float64 if code in ("<f8", "<i4") else np.float32
+            scale = self._scale if self._kind == "float" else self._scale / 2.0 ** (
+                self._bits - 1)
+            out = np.empty((len(sel), n), dtype=out_t)
             with np.errstate(over="ignore", invalid="ignore"):  # the importer names inf/NaN
-                x = x * x.dtype.type(self._scale)
-        elif self._bits == 16:
-            x = np.frombuffer(raw, dtype="<i2").astype(np.float32) * np.float32(
-                self._scale / 32768.0)
-        elif self._bits == 32:
-            x = np.frombuffer(raw, dtype="<i4") * (self._scale / 2147483648.0)
-        else:  # 24-bit: widen each 3-byte sample to 4 bytes, sign from the top byte
-            b = np.frombuffer(raw, dtype=np.uint8).reshape(-1, 3)
-            w = np.zeros((b.shape[0], 4), dtype=np.uint8)
-            w[:, 1:] = b
-            x = w.view("<i4").ravel().astype(np.float32) * np.float32(
-                self._scale / 2147483648.0)
-        return x.reshape(n, nch).T
+                for j, c in enumerate(sel):
+                    np.multiply(frames[:, c], out_t(scale), out=out[j], casting="unsafe")
+            return out
+        # 24-bit: widen each 3-byte sample to 4 bytes, sign from the top byte
+        b = np.frombuffer(raw, dtype=np.uint8).reshape(n, nch, 3)
+        out = np.empty((len(sel), n), dtype=np.float32)
+        w = np.zeros((n, 4), dtype=np.uint8)
+        for j, c in enumerate(sel):
+            w[:, 1:] = b[:, c]
+            np.multiply(w.view("<i4").ravel(), np.float32(self._scale / 2147483648.0),
+                        out=out[j], casting="unsafe")
+        return out
 
     def blocks(self, block_size: int = DEFAULT_BLOCK) -> Iterator[tuple[np.ndarray, float]]:
         done = 0

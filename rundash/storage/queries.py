@@ -154,6 +154,16 @@ def write_chunks(conn: Connection, rows: Sequence[tuple[int, int, int, np.ndarra
              sample_rate_hz=sample_rate_hz, data=encode_f32(x)) for cid, ci, si, x in rows])
 
 
+def set_run_sample_rate(conn: Connection, run_id: int, sample_rate_hz: float) -> None:
+    """Set the sample rate of a run, its channels and their chunks (an import whose time
+    column refined the rate after the first chunks were written)."""
+    ids = select(C.c.id).where(C.c.run_id == run_id).scalar_subquery()
+    conn.execute(update(R).where(R.c.id == run_id).values(sample_rate_hz=sample_rate_hz))
+    conn.execute(update(C).where(C.c.run_id == run_id).values(sample_rate_hz=sample_rate_hz))
+    conn.execute(update(W).where(W.c.channel_id.in_(ids)).values(
+        sample_rate_hz=sample_rate_hz))
+
+
 def set_channel_lengths(conn: Connection, lengths: dict[int, int]) -> None:
     for cid, n in lengths.items():
         conn.execute(update(C).where(C.c.id == cid).values(n_samples=n))

@@ -323,7 +323,9 @@ def build(folder: str | Path) -> list[Case]:
     case("csv_semicolons", put("semicolons.csv", "\n".join(l.replace(",", ";")
                                                           for l in lines[:200]) + "\n"),
          "refused", [r"semicolons\.csv", "separated by ';'", "comma-separated"],
-         "semicolon-separated values")
+         "semicolon-separated values where the machine file declares commas (sniffed "
+         "semicolons import: tests/ingest/test_csv_dialects.py)",
+         machine=machine("machine_comma.toml", machine_text(data='delimiter = ","\n')))
     cols_nt = {k: v for k, v in base.items()}
     case("csv_no_rate", write_csv(root / "no_rate.csv", cols_nt,
                                   names=("tach", "x1", "y1", "v1")).name, "refused",
@@ -340,6 +342,24 @@ def build(folder: str | Path) -> list[Case]:
                          machine_text(data="sample_rate_hz = 2000\n")))
     case("csv_only_time", write_csv(root / "only_time.csv", base, names=("time_s",)).name,
          "refused", [r"only_time\.csv", "no data columns"], "a time column and nothing else")
+    gap = {k: np.delete(v, 5000) for k, v in base.items()}
+    case("csv_missing_row", write_csv(root / "missing_row.csv", gap).name, "refused",
+         [r"missing_row\.csv", "'time_s'", "row 5002", "evenly spaced"],
+         "one row missing (a gap of one sample interval in the time column)")
+    case("csv_time_text", put("time_text.csv", cell(3001, 0, "00:00:03.000")), "refused",
+         [r"time_text\.csv", "'time_s'", "row 3001", "not a number"],
+         "a clock time where seconds are expected in the time column")
+    slow = dict(base)
+    slow["time_s"] = base["time_s"] * 1e12  # a step of 1e9: below 50 Hz in s, ms, us and ns
+    case("csv_time_too_slow", write_csv(root / "time_too_slow.csv", slow).name, "refused",
+         [r"time_too_slow\.csv", "sample rate", "10 to 1e\+07 Hz"],
+         "a time column in s (by its name) whose step gives 1e-9 Hz")
+    bare = {k: v for k, v in slow.items() if k != "time_s"}
+    bare["time"] = base["time_s"] * 1e12  # no unit in the name: judged by the step size
+    case("csv_time_no_unit_too_slow",
+         write_csv(root / "time_no_unit.csv", bare, names=("time", *NAMES[1:])).name,
+         "refused", [r"time_no_unit\.csv", "'time'", "fewer than 50 samples per second"],
+         "a bare 'time' column stepping by 1e9: implausible in s, ms, µs and ns")
     case("csv_one_row", put("one_row.csv", "\n".join(lines[:2]) + "\n"), "refused",
          [r"one_row\.csv", "fewer than two rows"], "one data row")
     del m_csv_rate
@@ -390,6 +410,27 @@ def build(folder: str | Path) -> list[Case]:
          "the header says 1000 Hz, the machine file 2000 Hz",
          machine=machine("machine_wav_rate.toml",
                          machine_text(wav=True, data="sample_rate_hz = 2000\n")))
+    def riff(*chunks: bytes) -> bytes:
+        body = b"WAVE" + b"".join(chunks)
+        return b"RIFF" + struct.pack("<I", len(body)) + body
+
+    def chunk(cid: bytes, body: bytes) -> bytes:
+        return cid + struct.pack("<I", len(body)) + body + (b"\0" if len(body) % 2 else b"")
+
+    def fmt16(fs: int, nch: int = 4) -> bytes:
+        return chunk(b"fmt ", struct.pack("<HHIIHH", 1, nch, fs, fs * nch * 2, nch * 2, 16))
+
+    raw = frames.astype("<i2").tobytes()
+    half = len(raw) // 2 // 8 * 8
+    case("wav_two_fmt", put("two_fmt.wav", riff(fmt16(1000), fmt16(2000), chunk(b"data", raw))),
+         "refused", [r"two_fmt\.wav", "second 'fmt ' chunk"],
+         "two 'fmt ' chunks (1000 Hz, then 2000 Hz): which one holds is not clear",
+         machine=m_wav)
+    case("wav_two_data", put("two_data.wav", riff(fmt16(1000), chunk(b"data", raw[:half]),
+                                                  chunk(b"LIST", b"INFOjunk"),
+                                                  chunk(b"data", raw[half:]))),
+         "refused", [r"two_data\.wav", "second 'data' chunk"],
+         "two 'data' chunks (the second half of the samples would be dropped)", machine=m_wav)
     case("wav_clipped_probe", put("clipped.wav", wav_bytes(wav_frames(base, clip_probe=1.0))),
          "warned", [r"'ch2'", "C1-X", "clipped"],
          "probe x1 saturates at PCM full scale (usable but doubtful)", machine=m_wav)

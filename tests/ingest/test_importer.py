@@ -77,7 +77,8 @@ class TestImportRun:
         p = tmp_path / "bad.csv"
         if case == "bad_row_late":
             write_csv(p, n=140_000, bad_row=139_000)
-            match = r"bad.csv: near row"
+            # the cell is named exactly (it was "near row" before the CSV reader located it)
+            match = r"bad.csv: column 'v1', row 139001: 'oops' is not a number"
         elif case == "missing_channel":
             p.write_text("time_s,tach,x1,y1\n0,0,0,0\n0.001,0,0,0\n", encoding="utf-8")
             match = r"bad.csv: channel 'v1' named in the machine description is not in the file"
