@@ -64,6 +64,27 @@ def vector_amplitude_factor(kind: str) -> float:
     return 2.0 if VECTOR_AMPLITUDE_CONVENTION[kind] == "pp" else 1.0
 
 
+#: Factor to volts of the signal units a data file may give its channels.
+TO_VOLTS: dict[str, float] = {"V": 1.0, "mV": 1e-3}
+#: How data files spell the units rundash knows (lower case, spaces removed).
+_SPELLINGS: dict[str, str] = {
+    "um": "um", "µm": "um", "μm": "um", "micron": "um", "microns": "um",
+    "micrometer": "um", "micrometre": "um", "mil": "mil", "mils": "mil", "mm": "mm",
+    "mm/s": "mm/s", "in/s": "in/s", "ips": "in/s", "m/s2": "m/s2", "m/s^2": "m/s2",
+    "m/s²": "m/s2", "m/s**2": "m/s2", "m/(s^2)": "m/s2", "g": "g", "v": "V", "mv": "mV",
+}
+
+
+def unit_from_text(text: str) -> str | None:
+    """rundash's name of a unit as a data file spells it (``"µm"`` -> ``"um"``,
+    ``"m/s^2"`` -> ``"m/s2"``, ``"mV"`` -> ``"mV"``), or None for a unit it does not know.
+
+    >>> unit_from_text(" µm "), unit_from_text("m/s^2"), unit_from_text("counts")
+    ('um', 'm/s2', None)
+    """
+    return _SPELLINGS.get("".join(text.split()).lower())
+
+
 def storage_factor(unit: str, kind: str) -> float:
     """Factor that turns a value in ``unit`` into the storage unit of ``kind``."""
     if unit not in TO_STORAGE:

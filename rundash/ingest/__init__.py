@@ -12,7 +12,8 @@ from rundash.ingest.base import Reader
 from rundash.model import DataSpec
 
 FORMAT_BY_SUFFIX = {".csv": "csv", ".txt": "csv", ".wav": "wav", ".h5": "hdf5", ".hdf5": "hdf5",
-                    ".hdf": "hdf5", ".parquet": "parquet", ".pq": "parquet"}
+                    ".hdf": "hdf5", ".parquet": "parquet", ".pq": "parquet", ".mf4": "mdf",
+                    ".mdf": "mdf"}
 
 
 def reader_class(fmt: str) -> type[Reader]:
@@ -28,7 +29,10 @@ def reader_class(fmt: str) -> type[Reader]:
     if fmt == "parquet":
         from rundash.ingest.parquet_reader import ParquetReader
         return ParquetReader
-    raise InputError(invalid_value("format", fmt, "'csv', 'wav', 'hdf5' or 'parquet'"))
+    if fmt == "mdf":
+        from rundash.ingest.mdf_reader import MdfReader
+        return MdfReader
+    raise InputError(invalid_value("format", fmt, "'csv', 'wav', 'hdf5', 'parquet' or 'mdf'"))
 
 
 def open_reader(path: str | Path, data: DataSpec | None = None) -> Reader:

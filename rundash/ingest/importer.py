@@ -18,7 +18,7 @@ from rundash.model import RUN_KINDS, MachineDescription
 from rundash.progress import Progress, no_progress
 from rundash.storage import queries as q
 from rundash.storage.engine import Database
-from rundash.units import STORAGE_UNIT, storage_factor
+from rundash.units import STORAGE_UNIT, TO_STORAGE, TO_VOLTS, storage_factor, unit_from_text
 
 #: A probe channel is reported as clipped when at least this fraction of its samples (and
 #: at least CLIP_MIN_SAMPLES) sit exactly at its minimum or at its maximum value: a
@@ -81,8 +81,35 @@ class _BackgroundHash:
         return self._digest
 
 
-def channel_plan(desc: MachineDescription, channels: tuple[str, ...], name: str):
+def _file_unit_factor(desc: MachineDescription, probe, stated: str, column: str,
+                      name: str) -> float:
+    """Check a channel's unit as the file states it against the machine description;
+    the factor from the file's unit to the one the description assumes (mV -> V)."""
+    unit = unit_from_text(stated) if stated else None
+    if unit is None:
+        return 1.0  # the file says nothing rundash knows: the description governs
+    if desc.data.signal_units == "V":
+        if unit in TO_VOLTS:
+            return TO_VOLTS[unit]
+        raise InputError(f"{name}: channel {column!r} (probe {probe.name}) is in {stated!r} by "
+                         "the file, but [data].signal_units is 'V'; expected volts: set "
+                         "signal_units = \"engineering\" for channels in engineering units")
+    if unit in TO_VOLTS:
+        raise InputError(f"{name}: channel {column!r} (probe {probe.name}) is in {stated!r} by "
+                         "the file, but [data].signal_units is 'engineering'; expected "
+                         f"{probe.units}: set signal_units = \"V\" and the probe's sensitivity")
+    if unit != probe.units:
+        kind = TO_STORAGE[unit][0]
+        raise InputError(f"{name}: channel {column!r} is in {stated!r} by the file ({kind}), "
+                         f"but probe {probe.name} says units = {probe.units!r}; expected the "
+                         "same unit: correct [[probes]].units")
+    return 1.0
+
+
+def channel_plan(desc: MachineDescription, channels: tuple[str, ...], name: str,
+                  file_units: dict[str, str] | None = None):
     """(file column index, role, probe, unit, scale) for the tach and every probe."""
+    file_units = file_units or {}
     index = {c: i for i, c in enumerate(channels)}
     plan = []
     missing = [c for c in [desc.tach.column, *(p.column for p in desc.probes)] if c not in index]
@@ -92,7 +119,8 @@ def channel_plan(desc: MachineDescription, channels: tuple[str, ...], name: str)
     plan.append((index[desc.tach.column], "tach", None, "V" if desc.data.signal_units == "V"
                  else "raw", 1.0))
     for p in desc.probes:
-        factor = storage_factor(p.units, p.kind)
+        factor = storage_factor(p.units, p.kind) * _file_unit_factor(
+            desc, p, file_units.get(p.column, ""), p.column, name)
         if desc.data.signal_units == "V":
             scale = factor * 1000.0 / p.sensitivity_mv_per_unit  # V -> units -> storage unit
         else:
@@ -125,6 +153,8 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
         names = [reader.channels[col] for col, *_ in plan]
         reader.select(names)  # blocks now hold the plan's channels, in its order
         fs = reader.sample_rate_hz  # a time column is read and fitted here
+        if reader.units:  # units the file states (MDF): checked against the description
+            plan = channel_plan(desc, reader.channels, path.name, reader.units)
         if bad := out_of_range(fs, SAMPLE_RATE_HZ):
             raise InputError(f"{path.name}: sample rate: {bad} (from the file's header or "
                              "time column, or [data].sample_rate_hz: check its unit)")

@@ -39,7 +39,7 @@ _DATA_KEYS = {
     "full_scale_v": (float, False), "signal_units": (str, False), "dataset": (str, False),
     "delimiter": (str, False), "decimal": (str, False),
 }
-FORMATS = ("auto", "csv", "wav", "hdf5", "parquet")
+FORMATS = ("auto", "csv", "wav", "hdf5", "parquet", "mdf")
 
 
 def parse_machine_description(text: str, source: str = "<machine file>") -> MachineDescription:

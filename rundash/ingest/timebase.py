@@ -183,7 +183,7 @@ class TimeBase:
         else:
             how = (f"{self._fs:.10g} Hz from a least-squares fit of {self.n} time stamps "
                    "(refined as the file was read)")
-        res = f", printed to {self._q0:.3g} {u}" if self._q0 > 0 else ""
+        res = f", resolved to {self._q0:.3g} {u}" if self._q0 > 0 else ""
         epoch = ""
         if self.start_time is not None:
             epoch = f"; epoch time stamps: the run starts {self.start_time.isoformat()}"

@@ -5,7 +5,7 @@ Run ``python tests/badinput/make_corpus.py FOLDER`` to write the corpus into FOL
 print one line per case; ``tests/badinput/test_corpus.py`` calls :func:`build` into a
 temporary folder and feeds every case to ``rundash import`` through ``rundash.cli.main``.
 
-The files are written with numpy, h5py, pyarrow and hand-packed RIFF headers; nothing
+The files are written with numpy, h5py, pyarrow, asammdf and hand-packed RIFF headers; nothing
 here imports rundash, so what a case contains does not depend on the code under test.
 The good baseline is an invented run-up of a test rig (600 to 3000 rpm in 10 s, one
 lightly damped mode near 1800 rpm), recorded in volts: proximity probes at 7.874 mV/um,
@@ -215,6 +215,33 @@ def write_parquet(path: Path, cols, *, names=NAMES, metadata=None, types=None) -
         table = table.replace_schema_metadata({k.encode(): str(v).encode()
                                                for k, v in metadata.items()})
     pq.write_table(table, path, row_group_size=4096)
+    return path
+
+
+def write_mdf(path: Path, cols, *, groups=(("tach", "x1"), ("y1", "v1")), fs=None,
+              rename=None, text=None) -> Path:
+    """An MDF4 file (asammdf) with one channel group per entry of ``groups``; ``fs`` maps a
+    group number to its own rate, ``rename`` a column to its name in the file, ``text``
+    names a column given a value-to-text conversion rule."""
+    from asammdf import MDF, Signal
+
+    mdf = MDF(version="4.10")
+    for gi, names in enumerate(groups):
+        rate = (fs or {}).get(gi, FS)
+        n = int(round(DURATION_S * rate))
+        t = np.arange(n) / rate
+        sigs = []
+        for k in names:
+            x = np.interp(t, cols["time_s"], cols[k])
+            conv = None
+            if k == text:
+                x = (x > np.median(x)).astype(np.uint8)
+                conv = {"val_0": 0, "text_0": b"low", "val_1": 1, "text_1": b"high"}
+            sigs.append(Signal(samples=x, timestamps=t, name=(rename or {}).get(k, k),
+                               unit="V", conversion=conv))
+        mdf.append(sigs)
+    mdf.save(path, overwrite=True)
+    mdf.close()
     return path
 
 
@@ -512,6 +539,30 @@ def build(folder: str | Path) -> list[Case]:
                                              names=("time_s", "tach", "y1", "v1")).name,
          "refused", [r"missing_channel\.parquet", "'x1'", "not in the file"],
          "a named channel is absent")
+
+    # ---------------------------------------------------------------- MDF4
+    good_mf4 = write_mdf(root / "good.mf4", base)
+    case("mdf_empty", put("empty.mf4", b""), "refused", [r"empty\.mf4", "empty"],
+         "an empty file")
+    case("mdf_garbage", put("garbage.mf4", garbage), "refused",
+         [r"garbage\.mf4", "not a readable ASAM MDF"], "binary garbage with a .mf4 ending")
+    mf = good_mf4.read_bytes()
+    case("mdf_truncated", put("truncated.mf4", mf[: len(mf) // 3]), "refused",
+         [r"truncated\.mf4", "MDF"], "cut to a third")
+    case("mdf_missing_channel", write_mdf(root / "missing_channel.mf4", base,
+                                          groups=(("tach", "x1"), ("v1",))).name,
+         "refused", [r"missing_channel\.mf4", "'y1'", "not in the file"],
+         "a named channel is absent")
+    case("mdf_two_rates", write_mdf(root / "two_rates.mf4", base, fs={1: FS / 2}).name,
+         "refused", [r"two_rates\.mf4", "500 Hz", "1000 Hz", "one sample rate"],
+         "the probes' channel group at half the tach's rate (no resampling between rates)")
+    case("mdf_name_twice", write_mdf(root / "name_twice.mf4", base,
+                                     groups=(("tach", "x1"), ("y1", "v1"), ("x1",))).name,
+         "refused", [r"name_twice\.mf4", "'x1'", "channel groups 0 and 2"],
+         "a channel name in two channel groups")
+    case("mdf_text_channel", write_mdf(root / "text_channel.mf4", base, text="v1").name,
+         "refused", [r"text_channel\.mf4", "'v1'", "expected numbers"],
+         "a probe channel with a value-to-text conversion")
 
     # ---------------------------------------------------------------- machine description
     case("toml_syntax", "good.csv", "refused", [r"bad_syntax\.toml", "not valid TOML"],

@@ -167,7 +167,7 @@ class TestCorpus:
         assert len(cases) >= 40
         assert len({c.name for c in cases}) == len(cases)
         kinds = Counter(c.name.split("_")[0] for c in cases)
-        for reader in ("csv", "wav", "h5", "pq", "toml", "name"):
+        for reader in ("csv", "wav", "h5", "pq", "mdf", "toml", "name"):
             assert kinds[reader] >= 5, (reader, kinds)
         assert {c.expect for c in cases} == {"refused", "warned", "process_fails",
                                              "process_warned"}
@@ -182,7 +182,8 @@ class TestCorpus:
 
     @pytest.mark.parametrize("name, machine", [
         ("good.csv", "machine.toml"), ("good.wav", "machine_wav.toml"),
-        ("good.h5", "machine.toml"), ("good.parquet", "machine.toml")])
+        ("good.h5", "machine.toml"), ("good.parquet", "machine.toml"),
+        ("good.mf4", "machine.toml")])
     def test_good_files_import_without_warnings(self, corpus, tmp_path, capsys, name, machine):
         # the undamaged sources of the cases: 16-bit PCM and float samples with noise are
         # neither clipped nor flat, so every refusal above is the damage's doing

@@ -1,5 +1,5 @@
 """One contract every reader passes, on files written by independent libraries
-(pandas, scipy.io.wavfile, Python's wave module, h5py, pyarrow)."""
+(pandas, scipy.io.wavfile, Python's wave module, h5py, pyarrow, asammdf)."""
 
 from __future__ import annotations
 
@@ -89,8 +89,22 @@ def write_parquet(tmp, t, x):
     return p, DataSpec(), NAMES, 0.0
 
 
+def write_mdf(tmp, t, x):
+    from asammdf import MDF, Signal
+    p = tmp / "rec.mf4"
+    mdf = MDF(version="4.10")
+    # two channel groups with their own time channels (same rate, same start)
+    mdf.append([Signal(samples=s, timestamps=t, name=n, unit="V") for n, s in
+                zip(NAMES[:2], x[:2])])
+    mdf.append([Signal(samples=s, timestamps=t, name=n, unit="V") for n, s in
+                zip(NAMES[2:], x[2:])])
+    mdf.save(p, overwrite=True)
+    mdf.close()
+    return p, DataSpec(), NAMES, 0.0
+
+
 WRITERS = [write_csv, write_wav16, write_wav24, write_wav32, write_wav_float, write_hdf5,
-           write_parquet]
+           write_parquet, write_mdf]
 
 
 @pytest.mark.parametrize("writer", WRITERS, ids=lambda w: w.__name__[6:])
