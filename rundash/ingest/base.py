@@ -76,7 +76,7 @@ class Reader(ABC):
         missing = [n for n in names if n not in index]
         if missing:
             raise self.fail(f"channel {missing[0]!r} is not in the file; the file has "
-                            f"{_listing(self.channels)}")
+                            f"{listing(self.channels)}")
         self._sel = tuple(index[n] for n in names)
 
     @property
@@ -115,7 +115,7 @@ class Reader(ABC):
 
 
 
-def _listing(names: Sequence[str], limit: int = 12) -> str:
+def listing(names: Sequence[str], limit: int = 12) -> str:
     """Names joined by commas, the first ``limit`` of them and a count of the rest."""
     if len(names) <= limit:
         return ", ".join(names)

@@ -28,7 +28,7 @@ from typing import Iterator
 import numpy as np
 
 from rundash.errors import InputError
-from rundash.ingest.base import DEFAULT_BLOCK, Reader, _listing
+from rundash.ingest.base import DEFAULT_BLOCK, Reader, listing
 from rundash.ingest.timebase import FIT_ROWS, TimeBase, parse_time_name
 
 MAX_HEADER_BYTES = 1 << 20
@@ -92,7 +92,7 @@ class CsvReader(Reader):
             tcol = tcol.strip()
             if tcol not in names:
                 raise self.fail(f"time column {tcol!r} not found; columns are "
-                                f"{_listing(names)}")
+                                f"{listing(names)}")
         else:
             # a time column is used (and checked against any declared rate) when present
             tcol = next((n for n in names if parse_time_name(n)[0]), None)

@@ -11,7 +11,7 @@ import numpy as np
 
 from rundash.errors import DuplicateRunError, InputError
 from rundash.ingest import open_reader
-from rundash.ingest.base import _listing
+from rundash.ingest.base import listing
 from rundash.ingest.bounds import SAMPLE_RATE_HZ, out_of_range
 from rundash.ingest.machine_file import check_profile
 from rundash.model import RUN_KINDS, MachineDescription
@@ -115,7 +115,7 @@ def channel_plan(desc: MachineDescription, channels: tuple[str, ...], name: str,
     missing = [c for c in [desc.tach.column, *(p.column for p in desc.probes)] if c not in index]
     if missing:
         raise InputError(f"{name}: channel {missing[0]!r} named in the machine description is "
-                         f"not in the file; the file has {_listing(channels)}")
+                         f"not in the file; the file has {listing(channels)}")
     plan.append((index[desc.tach.column], "tach", None, "V" if desc.data.signal_units == "V"
                  else "raw", 1.0))
     for p in desc.probes:
@@ -165,7 +165,7 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
         unused = [c for c in reader.channels if c not in set(names)]
         if unused:
             warnings.append(f"file channels not named in the machine description were not "
-                            f"stored: {_listing(sorted(unused))}")
+                            f"stored: {listing(sorted(unused))}")
         with db.write() as conn:
             mid, _ = q.upsert_machine(conn, desc)
             run_id = q.create_run(

@@ -29,7 +29,7 @@ from typing import Iterator
 import numpy as np
 
 from rundash.errors import InputError
-from rundash.ingest.base import DEFAULT_BLOCK, Reader, _listing
+from rundash.ingest.base import DEFAULT_BLOCK, Reader, listing
 from rundash.ingest.timebase import FIT_ROWS, TimeBase
 
 
@@ -136,7 +136,7 @@ class MdfReader(Reader):
                     "rate for the tach and every probe (rundash does not resample between "
                     "rates: record them at one rate)")
         # offsets on the reference grid: group sample p = j + off
-        t0 = {gi: tb._ref + tb._intercept() for gi, tb in tbs.items()}
+        t0 = {gi: tb.t0_s for gi, tb in tbs.items()}
         off = {gi: (t0[ref] - t0[gi]) * fs for gi in tbs}
         n = {gi: self._mdf.groups[gi].channel_group.cycles_nr for gi in tbs}
         j0 = max(0, max(math.ceil(-o - 1e-6) for o in off.values()))

@@ -15,7 +15,7 @@ from typing import Iterator
 import numpy as np
 
 from rundash.errors import InputError
-from rundash.ingest.base import DEFAULT_BLOCK, Reader, _listing
+from rundash.ingest.base import DEFAULT_BLOCK, Reader, listing
 from rundash.ingest.timebase import FIT_ROWS, TimeBase, parse_time_name
 
 _ARROW_UNITS = {"s": "s", "ms": "ms", "us": "us", "ns": "ns"}
@@ -41,7 +41,7 @@ class ParquetReader(Reader):
         names = list(schema.names)
         tcol = self.data.time_column
         if tcol is not None and tcol not in names:
-            raise self.fail(f"time column {tcol!r} not found; columns are {_listing(names)}")
+            raise self.fail(f"time column {tcol!r} not found; columns are {listing(names)}")
         if tcol is None:
             tcol = next((n for n in names if parse_time_name(n)[0]
                          or pt.is_timestamp(schema.field(n).type)), None)

@@ -156,6 +156,11 @@ class TimeBase:
     def rate_hz(self) -> float:
         return self._fs
 
+    @property
+    def t0_s(self) -> float:
+        """Fitted time of sample 0 in seconds (on the column's own clock)."""
+        return (self._ref + self._intercept()) * UNIT_FACTORS[self.unit]
+
     def feed(self, t: np.ndarray) -> None:
         """Check the next block of time stamps (file units, in order) and refine the fit."""
         t = np.asarray(t, dtype=np.float64)
