@@ -55,6 +55,9 @@ class CsvReader(Reader):
             raise self.fail("binary content (NUL bytes) where CSV text was expected")
         bom = 3 if head.startswith(b"\xef\xbb\xbf") else 0
         first_nl = head.find(b"\n")
+        if first_nl < 0 and b"\r" in head:
+            raise self.fail("lines end in a carriage return only (CR, an old Mac convention); "
+                            "expected LF or CR LF line endings")
         if first_nl < 0 and len(head) == MAX_HEADER_BYTES:
             raise self.fail(f"header row longer than {MAX_HEADER_BYTES} bytes; expected a header "
                             "row of column names")
@@ -63,11 +66,19 @@ class CsvReader(Reader):
         except UnicodeDecodeError as exc:
             raise self.fail(f"header row is not UTF-8 text (byte {exc.start}); expected a "
                             "header row of column names") from None
+        if header.count('"') % 2:
+            raise self.fail("the header row has an unclosed quote (\"); expected names, "
+                            "each quoted or not")
         sample = head[bom:].decode("utf-8", errors="replace").splitlines()[1:21]
         if len(head) == MAX_HEADER_BYTES and sample:
             sample = sample[:-1]  # the last line may be cut
         sample = [s for s in sample if s.strip()]
-        self._delim = self._pick_delimiter(header, sample)
+        try:
+            self._delim = self._pick_delimiter(header.rstrip("\r"),
+                                               [x.rstrip("\r") for x in sample])
+        except csv.Error as exc:
+            raise self.fail(f"cannot read the first rows as CSV ({exc}); expected one row per "
+                            "line") from None
         self._decimal = self._pick_decimal(sample)
         try:
             names = next(csv.reader([header.rstrip("\r")], delimiter=self._delim,
@@ -385,12 +396,16 @@ class _FieldCounter:
 
     def _check(self, body: bytes) -> None:
         lines = body.count(b"\n")
-        blank = (body.count(b"\n\n") + body.count(b"\n\r\n")
-                 + (1 if body.startswith((b"\n", b"\r\n")) else 0))
-        rows = lines - blank
-        if b'"' not in body and body.count(self.delim) <= self.expect * rows:
-            self.rows += rows
-            return
+        if b'"' not in body:
+            delims = body.count(self.delim)
+            if delims == self.expect * lines:  # the usual case: two counts, no blank line
+                self.rows += lines
+                return
+            blank = (body.count(b"\n\n") + body.count(b"\n\r\n")
+                     + (1 if body.startswith((b"\n", b"\r\n")) else 0))
+            if delims <= self.expect * (lines - blank):
+                self.rows += lines - blank
+                return
         a = np.frombuffer(body, dtype=np.uint8)
         nl = np.flatnonzero(a == 10)
         starts = np.concatenate(([0], nl[:-1] + 1))

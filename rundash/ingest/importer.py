@@ -6,6 +6,7 @@ import hashlib
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
+from typing import Iterator
 
 import numpy as np
 
@@ -40,6 +41,63 @@ class ImportResult:
     time_base: str = ""
     #: the start time used (given, or from the file's epoch time stamps), or None
     started_at: datetime | None = None
+
+
+class _Failed:
+    def __init__(self, exc: BaseException):
+        self.exc = exc
+
+
+def prefetched(blocks: Iterator, depth: int = 2) -> Iterator:
+    """Iterate ``blocks`` in a worker thread, ``depth`` items ahead.
+
+    Parsing and decoding (pandas' tokenizer, numpy, pyarrow, file reads) and the SQLite
+    writes of the consumer both release the GIL, so on two cores reading the next block
+    overlaps writing this one. An exception in the worker is raised here; leaving the
+    loop early stops the worker and closes ``blocks``."""
+    import queue
+    import threading
+
+    q: queue.Queue = queue.Queue(depth)
+    stop = threading.Event()
+    done = object()
+
+    def put(item) -> bool:
+        while not stop.is_set():
+            try:
+                q.put(item, timeout=0.05)
+                return True
+            except queue.Full:
+                continue
+        return False
+
+    def run() -> None:
+        try:
+            for item in blocks:
+                if not put(item):
+                    break
+            else:
+                put(done)
+        except BaseException as exc:  # handed to the consumer, raised there
+            put(_Failed(exc))
+        finally:
+            close = getattr(blocks, "close", None)
+            if close is not None:
+                close()
+
+    worker = threading.Thread(target=run, name="rundash-read-ahead", daemon=True)
+    worker.start()
+    try:
+        while True:
+            item = q.get()
+            if item is done:
+                break
+            if isinstance(item, _Failed):
+                raise item.exc
+            yield item
+    finally:
+        stop.set()
+        worker.join()
 
 
 def file_sha256(path: Path, progress: Progress = no_progress) -> str:
@@ -187,7 +245,7 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
             chunk_index = 0
             pending: list[np.ndarray] = []
             pending_n = 0
-            for block, frac in reader.blocks(q.CHUNK_SAMPLES):
+            for block, frac in prefetched(reader.blocks(q.CHUNK_SAMPLES)):
                 sel = block
                 if not unit_scale:
                     sel *= scales.astype(sel.dtype)

@@ -387,6 +387,25 @@ def build(folder: str | Path) -> list[Case]:
          write_csv(root / "time_no_unit.csv", bare, names=("time", *NAMES[1:])).name,
          "refused", [r"time_no_unit\.csv", "'time'", "fewer than 50 samples per second"],
          "a bare 'time' column stepping by 1e9: implausible in s, ms, µs and ns")
+    # each of these ended in a traceback once (issue: tracebacks instead of one line)
+    case("csv_cr_only", put("cr_only.csv", "\r".join(lines[:300]) + "\r"), "refused",
+         [r"cr_only\.csv", "carriage return only"], "old Mac line endings (CR only): a "
+         "csv.Error traceback before")
+    case("csv_huge_time", put("huge_time.csv", "\n".join(
+        [lines[0]] + [f"{1e300 * (i + 1):g}," + ln.split(",", 1)[1]
+                      for i, ln in enumerate(lines[1:300])]) + "\n"), "refused",
+         [r"huge_time\.csv", "'time_s'", "row 2", "beyond any clock"],
+         "time stamps near 1e300: an OverflowError traceback before")
+    case("csv_unclosed_quote", put("unclosed_quote.csv", '"' + good_text), "refused",
+         [r"unclosed_quote\.csv", "unclosed quote"], "a header row with an unclosed quote")
+    case("csv_first_row_long", put("first_row_long.csv", row(2, lines[1] + ",7")), "refused",
+         [r"first_row_long\.csv", "row 2 has 6 columns", "expected 5 columns"],
+         "the first data row longer than the header: a pandas ValueError traceback before")
+    case("csv_epoch_far", put("epoch_far.csv", "\n".join(
+        ["timestamp" + lines[0][6:]] + [f"{1e17 + i * 1e3:.1f}," + ln.split(",", 1)[1]
+                                       for i, ln in enumerate(lines[1:300])]) + "\n"),
+         "refused", [r"epoch_far\.csv", "'timestamp'", "after 2200"],
+         "epoch-sized time stamps that are no date in any unit")
     case("csv_one_row", put("one_row.csv", "\n".join(lines[:2]) + "\n"), "refused",
          [r"one_row\.csv", "fewer than two rows"], "one data row")
     del m_csv_rate
