@@ -20,7 +20,9 @@ time stamp.
 
 from __future__ import annotations
 
+import contextlib
 import gc
+import logging
 import math
 import sys
 from datetime import timedelta
@@ -43,7 +45,9 @@ class MdfReader(Reader):
         except ImportError:  # pragma: no cover - depends on the install
             raise InputError(f"{self.path.name}: reading MDF needs asammdf: "
                              "pip install 'rundash[mdf]'") from None
-        self._mdf, problem = _open_quietly(MDF, self.path)
+        self._logged: list[str] = []
+        with self._asammdf_log():
+            self._mdf, problem = _open_quietly(MDF, self.path)
         if problem:
             raise self.fail(f"not a readable ASAM MDF file ({problem}); expected an MDF file "
                             "whole, as the recorder wrote it")
@@ -83,9 +87,33 @@ class MdfReader(Reader):
     def sample_rate_hz(self, value: float) -> None:
         self._fs = float(value)
 
+    @contextlib.contextmanager
+    def _asammdf_log(self):
+        """asammdf logs what it finds odd (a malformed XML comment, ...) to stderr: keep
+        those lines as warnings of this file instead (the command line stays one line)."""
+        log = logging.getLogger("asammdf")
+        keep = log.handlers[:], log.propagate
+        seen = self._logged
+
+        class Collect(logging.Handler):
+            def emit(self, record):
+                text = " ".join(record.getMessage().split())[:200]
+                if text not in seen and len(seen) < 5:
+                    seen.append(text)
+
+        log.handlers, log.propagate = [Collect(logging.WARNING)], False
+        try:
+            yield
+        finally:
+            log.handlers, log.propagate = keep
+
+    def _file_warnings(self) -> list[str]:
+        return [f"MDF file: {m} (reported by asammdf)" for m in self._logged]
+
     def _read(self, what: str, fn, *args, **kw):
         try:
-            return fn(*args, **kw)
+            with self._asammdf_log():
+                return fn(*args, **kw)
         except InputError:
             raise
         except Exception as exc:  # asammdf on damaged data blocks
@@ -158,7 +186,7 @@ class MdfReader(Reader):
             head = None
         if self.start_time is None and head is not None and head.tzinfo is not None:
             self.start_time = head + timedelta(seconds=start)
-        self.warnings = [w for tb in tbs.values() for w in tb.warnings]
+        self.warnings = [w for tb in tbs.values() for w in tb.warnings] + self._file_warnings()
         self._note()
         self._plan = True
 
@@ -213,7 +241,8 @@ class MdfReader(Reader):
             yield (out.astype(np.float32) if small else out), (b - j0) / total
         for gi in self._tbs:
             self._feed(gi, self._mdf.groups[gi].channel_group.cycles_nr)
-        self.warnings = [w for tb in self._tbs.values() for w in tb.warnings]
+        self.warnings = [w for tb in self._tbs.values() for w in tb.warnings] + \
+            self._file_warnings()
         self._fs = self._tbs[self._where[self.channels[self.selected[0]]][0][0]].rate_hz
         self._note()
 
