@@ -228,7 +228,7 @@ class CsvReader(Reader):
 
     # ------------------------------------------------------------------ parsing
     def _read(self, fields: list[int], *, dtype=np.float64, chunksize=None, skiprows=1,
-              nrows=None):
+              nrows=None, source=None):
         kw = dict(sep=self._delim, decimal=self._decimal, header=None, skiprows=skiprows,
                   names=list(range(self._n_fields)), usecols=fields, engine="c",
                   encoding="utf-8", skipinitialspace=True, dtype=dtype)
@@ -236,7 +236,7 @@ class CsvReader(Reader):
             kw["chunksize"] = chunksize
         if nrows:
             kw["nrows"] = nrows
-        return self._pd.read_csv(self.path, **kw)
+        return self._pd.read_csv(self.path if source is None else source, **kw)
 
     def _parsed(self):
         """A generator of ``(array (n_fields_used, m) float64, fraction)`` per parsed piece,
@@ -247,15 +247,16 @@ class CsvReader(Reader):
     def _pieces(self, fields, max_rows: int | None = None):
         pd = self._pd
         names = {k: self._names[f] for k, f in enumerate(fields)}
-        counter = _FieldCounter(self, self._data_offset, self._n_fields)
+        counter = _CountingFile(self, self._data_offset, self._n_fields)
         start = 0
         try:
             try:
-                reader = self._read(fields, chunksize=max_rows or self._parse_rows)
+                reader = self._read(fields, chunksize=max_rows or self._parse_rows,
+                                    source=counter)
             except (ValueError, pd.errors.ParserError) as exc:  # pandas reads the first row
-                counter.check_through(self._parse_rows)
-                raise self.fail(f"row 2: {_short(exc)}; expected {self._n_fields} columns per "
-                                "row, as the header row") from None
+                raise counter.problem or self.fail(
+                    f"row 2: {_short(exc)}; expected {self._n_fields} columns per row, as the "
+                    "header row") from None
             with reader:
                 while True:
                     try:
@@ -266,15 +267,16 @@ class CsvReader(Reader):
                         raise self.fail(f"near row {start + 2}: not UTF-8 text (byte "
                                         f"{exc.start})") from None
                     except ValueError as exc:
-                        counter.check_through(start + self._parse_rows)
-                        raise self._locate(fields, names, start, exc) from None
+                        raise counter.problem or self._locate(fields, names, start, exc
+                                                              ) from None
                     except pd.errors.ParserError as exc:
-                        counter.check_through(start + self._parse_rows)
-                        raise self.fail(f"near row {start + 2}: {_short(exc)}; expected numbers "
-                                        f"only, {self._n_fields} columns per row") from None
+                        raise counter.problem or self.fail(
+                            f"near row {start + 2}: {_short(exc)}; expected numbers only, "
+                            f"{self._n_fields} columns per row") from None
+                    if counter.problem is not None:
+                        raise counter.problem
                     m = len(df)
                     arr = df.to_numpy(np.float64).T
-                    counter.check_through(start + m)
                     bad = ~np.isfinite(arr)
                     if bad.any():
                         k, idx = np.argwhere(bad)[0]
@@ -282,10 +284,13 @@ class CsvReader(Reader):
                         raise self.fail(f"{what} {names[k]!r}, row {start + 2 + idx}: value is "
                                         "not a finite number (empty, NaN, infinite or missing)")
                     start += m
-                    yield arr, _progress(reader, self.size_bytes)
+                    yield arr, min(1.0, counter.tell() / self.size_bytes)
+            if counter.problem is not None:
+                raise counter.problem
         except UnicodeDecodeError as exc:
             raise self.fail(f"near row {start + 2}: not UTF-8 text (byte {exc.start})") from None
-        counter.close()
+        finally:
+            counter.close()
         self.n_samples = start
 
     def _locate(self, fields, names, start, exc) -> InputError:
@@ -354,53 +359,78 @@ class CsvReader(Reader):
             self.warnings = list(tb.warnings)
 
 
-class _FieldCounter:
-    """Counts delimiters line by line, ahead of pandas, to refuse rows longer than the
-    header (a decimal comma in a comma-separated file, a stray delimiter): pandas ignores
-    extra fields when it converts only some columns. Rows with fewer fields are left to
-    pandas, which gives their missing values as NaN (refused in used columns).
+class _CountingFile(io.RawIOBase):
+    """The file as pandas reads it, counting delimiters line by line on the way through,
+    to refuse rows longer than the header (a decimal comma in a comma-separated file, a
+    stray delimiter): pandas ignores extra fields when it converts only some columns. Rows
+    with fewer fields are left to pandas, which gives their missing values as NaN (refused
+    in used columns).
 
-    Whole pieces are first checked by their totals (``bytes.count``, fast); a piece whose
-    totals do not add up, or that holds quotes, is checked line by line with numpy.
-    """
+    Each piece pandas reads is first checked by its totals (``bytes.count``, fast); a piece
+    whose totals do not add up, or that holds quotes, is checked line by line with numpy.
+    A problem found is kept in :attr:`problem` (raised by the reader after the piece that
+    pandas returns: an exception inside ``read`` would reach pandas' C parser)."""
 
     def __init__(self, reader: CsvReader, offset: int, n_fields: int):
+        super().__init__()
         self.r = reader
-        self.fh = open(reader.path, "rb")
-        self.fh.seek(offset)
+        self.f = open(reader.path, "rb", buffering=0)
+        self.offset = offset
         self.delim = reader._delim.encode()
         self.expect = n_fields - 1
         self.rows = 0
-        self.carry = b""
-        self.eof = False
+        self.pos = 0
+        self.tail = b""
+        self.problem: InputError | None = None
+
+    def readable(self) -> bool:
+        return True
+
+    def readinto(self, b) -> int:
+        n = self.f.readinto(b)
+        if n is None:  # pragma: no cover - non-blocking files only
+            return 0
+        data = bytes(memoryview(b)[:n])
+        skip = max(0, min(n, self.offset - self.pos))
+        self.pos += n
+        if self.problem is None:
+            try:
+                self._see(data[skip:] if skip else data, end=(n == 0))
+            except InputError as exc:
+                self.problem = exc
+        return n
+
+    def tell(self) -> int:
+        return self.pos
 
     def close(self) -> None:
-        self.fh.close()
+        self.f.close()
+        super().close()
 
-    def check_through(self, rows: int) -> None:
-        while self.rows < rows and not self.eof:
-            buf = self.fh.read(PARSE_BYTES)
-            if not buf:
-                self.eof = True
-                body, self.carry = self.carry + b"\n", b""
-            else:
-                buf = self.carry + buf
-                cut = buf.rfind(b"\n")
-                if cut < 0:
-                    self.carry = buf
-                    continue
-                body, self.carry = buf[:cut + 1], buf[cut + 1:]
-            self._check(body)
-        if self.eof:
-            self.close()
+    def _see(self, data: bytes, *, end: bool) -> None:
+        buf = self.tail + data if self.tail else data
+        if end:
+            self.tail = b""
+            if buf.strip():
+                self._check(buf + b"\n")
+            return
+        cut = buf.rfind(b"\n")
+        if cut < 0:
+            self.tail = buf
+            return
+        self.tail = buf[cut + 1:]
+        stop = cut + 1
+        if buf.find(b'"', 0, stop) < 0:
+            lines = buf.count(b"\n", 0, stop)
+            if buf.count(self.delim, 0, stop) == self.expect * lines:
+                self.rows += lines  # the usual case: two counts, no copy
+                return
+        self._check(buf[:stop])
 
     def _check(self, body: bytes) -> None:
         lines = body.count(b"\n")
         if b'"' not in body:
             delims = body.count(self.delim)
-            if delims == self.expect * lines:  # the usual case: two counts, no blank line
-                self.rows += lines
-                return
             blank = (body.count(b"\n\n") + body.count(b"\n\r\n")
                      + (1 if body.startswith((b"\n", b"\r\n")) else 0))
             if delims <= self.expect * (lines - blank):
@@ -428,16 +458,6 @@ class _FieldCounter:
                               f"expected {self.expect + 1} columns, as the header row "
                               f"({_SHOWN[self.r._delim]}-separated)")
         self.rows += count.size
-
-
-def _progress(reader, size: int) -> float:
-    try:
-        return min(1.0, reader.handles.handle.buffer.tell() / size)
-    except (AttributeError, OSError, ValueError):
-        try:
-            return min(1.0, reader.handles.handle.tell() / size)
-        except (AttributeError, OSError, ValueError):
-            return 0.0
 
 
 def _short(exc: Exception) -> str:
