@@ -216,10 +216,10 @@ def cmd_process(*, db: str | None, run: int, orders: str, revs_per_block: int,
         print(f"verdict: {res.findings.get('run_verdict')} "
               f"({len(res.findings.get('criticals', []))} critical-speed findings)")
     if timings:
-        print(f"stage times (s; 'read' runs beside 'tracking' in a second thread), "
-              f"wall {res.wall_s:.2f} s:")
+        print(f"stage times, wall and CPU s ('read' runs beside 'tracking' in a second "
+              f"thread), wall {res.wall_s:.2f} s:")
         for stage, sec in res.stage_s.items():
-            print(f"  {stage:<12} {sec:7.2f}")
+            print(f"  {stage:<12} {sec:7.2f} {res.stage_cpu_s.get(stage, 0.0):7.2f}")
     return 0
 
 

@@ -357,11 +357,19 @@ def load_speed_profile(conn: Connection, run_id: int) -> tuple[np.ndarray, np.nd
 
 def save_track(conn: Connection, run_id: int, channel_id: int, order: float, compensated: bool,
                time_s, speed_rpm, amplitude, phase_lag_deg, direct) -> None:
+    """One vector track. Times and speeds are stored as float64; amplitude, phase lag and
+    direct level as float32 (7 significant digits, finer than the float32 samples they
+    come from; half the bytes to write and read). :func:`load_tracks` reads either."""
     conn.execute(insert(V).values(
         run_id=run_id, channel_id=channel_id, order=float(order), compensated=compensated,
         n=int(len(time_s)), time_s=encode_f64(time_s), speed_rpm=encode_f64(speed_rpm),
-        amplitude=encode_f64(amplitude), phase_lag_deg=encode_f64(phase_lag_deg),
-        direct=encode_f64(direct)))
+        amplitude=encode_f32(amplitude), phase_lag_deg=encode_f32(phase_lag_deg),
+        direct=encode_f32(direct)))
+
+
+def _decode_n(b: bytes, n: int) -> np.ndarray:
+    """``n`` values as float64 from a float32 or a float64 blob (told by its length)."""
+    return decode_f32(b).astype(np.float64) if len(b) == 4 * n else decode_f64(b)
 
 
 def load_tracks(conn: Connection, run_id: int, *, order: float | None = None,
@@ -378,8 +386,9 @@ def load_tracks(conn: Connection, run_id: int, *, order: float | None = None,
     q = q.order_by(C.c.position, V.c.order, V.c.compensated)
     return [StoredTrack(channel_id=r.channel_id, probe_name=r.probe_name, kind=r.kind,
                         order=r.order, compensated=r.compensated, time_s=decode_f64(r.time_s),
-                        speed_rpm=decode_f64(r.speed_rpm), amplitude=decode_f64(r.amplitude),
-                        phase_lag_deg=decode_f64(r.phase_lag_deg), direct=decode_f64(r.direct))
+                        speed_rpm=decode_f64(r.speed_rpm), amplitude=_decode_n(r.amplitude, r.n),
+                        phase_lag_deg=_decode_n(r.phase_lag_deg, r.n),
+                        direct=_decode_n(r.direct, r.n))
             for r in conn.execute(q).all()]
 
 

@@ -14,8 +14,8 @@ per-revolution results are (they are the output): about 72 bytes per revolution 
 probe channel (4 orders: the vectors and the slow-roll-compensated vectors as complex64,
 p-p and rms as float32), e.g. about 0.8 GB for a 2-hour run of 15 probes at 6000 rpm.
 
-``ProcessResult.stage_s`` holds the seconds spent per stage (:data:`STAGES`); ``rundash
-process --timings`` prints them.
+``ProcessResult.stage_s`` and ``stage_cpu_s`` hold the wall and CPU seconds spent per
+stage (:data:`STAGES`); ``rundash process --timings`` prints them.
 """
 
 from __future__ import annotations
@@ -86,40 +86,49 @@ class ProcessResult:
     warnings: list[str] = field(default_factory=list)
     findings: dict[str, Any] | None = None
     stage_s: dict[str, float] = field(default_factory=dict)
+    stage_cpu_s: dict[str, float] = field(default_factory=dict)
     wall_s: float = 0.0
 
 
 class StageTimer:
-    """Seconds spent per stage (``with timer("tracking"): ...``); thread-safe sums."""
+    """Wall and CPU seconds spent per stage (``with timer("tracking"): ...``), summed over
+    every entry; thread-safe (CPU seconds are the entering thread's own)."""
 
     def __init__(self):
         self.seconds: dict[str, float] = {}
+        self.cpu_seconds: dict[str, float] = {}
         self._lock = threading.Lock()
 
-    def add(self, stage: str, seconds: float) -> None:
+    def add(self, stage: str, seconds: float, cpu_seconds: float = 0.0) -> None:
         with self._lock:
             self.seconds[stage] = self.seconds.get(stage, 0.0) + seconds
+            self.cpu_seconds[stage] = self.cpu_seconds.get(stage, 0.0) + cpu_seconds
 
     @contextmanager
     def __call__(self, stage: str):
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.thread_time()
         try:
             yield
         finally:
-            self.add(stage, time.perf_counter() - t0)
+            self.add(stage, time.perf_counter() - t0, time.thread_time() - c0)
+
+    def _order(self) -> list[str]:
+        known = [s for s in STAGES if s in self.seconds]
+        return known + sorted(set(self.seconds) - set(known))
 
     def ordered(self) -> dict[str, float]:
-        known = [s for s in STAGES if s in self.seconds]
-        return {s: self.seconds[s] for s in known + sorted(set(self.seconds) - set(known))}
+        return {s: self.seconds[s] for s in self._order()}
+
+    def ordered_cpu(self) -> dict[str, float]:
+        return {s: self.cpu_seconds[s] for s in self._order()}
 
 
 def _timed_chunks(conn, channel_ids, timer: StageTimer) -> Iterator[tuple[int, np.ndarray]]:
     """``q.iter_run_chunks`` with the time spent reading and decoding added to "read"."""
     it = q.iter_run_chunks(conn, channel_ids)
     while True:
-        t0 = time.perf_counter()
-        item = next(it, None)
-        timer.add("read", time.perf_counter() - t0)
+        with timer("read"):
+            item = next(it, None)
         if item is None:
             return
         yield item
@@ -388,5 +397,6 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
             q.update_run(conn, run_id, kind=kind)
     progress(1.0, "saving")
     result.stage_s = timer.ordered()
+    result.stage_cpu_s = timer.ordered_cpu()
     result.wall_s = time.perf_counter() - t_start
     return result
