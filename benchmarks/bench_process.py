@@ -10,6 +10,9 @@ stage (read, tach, speed, tracking, cascade, findings, modal fits, save), printe
 with each stage's share of the wall time. "startup" is the child's wall time outside
 ``process_run`` (interpreter start, imports, opening the database).
 
+Runs longer than about 80 minutes are written as HDF5 (float32, the same samples the
+WAV reader gives), since a WAV file holds at most 4 GB.
+
 Usage: python benchmarks/bench_process.py [--minutes 10] [--keep DIR] [--reuse]
 (``--reuse`` with ``--keep``: process the run already imported in DIR again.)
 """
@@ -32,32 +35,56 @@ N_CH = 16
 FULL_SCALE_V = 10.0
 
 
-def write_wav(path: Path, minutes: float) -> int:
-    n = int(minutes * 60 * FS)
+def _pcm_blocks(n: int):
+    """The run as 16-bit PCM blocks (samples x channels), 2^18 samples at a time."""
     rpm0, rpm1 = 300.0, 12000.0
     dur = n / FS
     rate = (rpm1 - rpm0) / dur
     rng = np.random.default_rng(0)
+    block = 1 << 18
+    for s in range(0, n, block):
+        t = (s + np.arange(min(block, n - s))) / FS
+        rpm = rpm0 + rate * t
+        theta = (rpm0 * t + 0.5 * rate * t * t) / 60.0
+        r = rpm / 3000.0
+        h = r * r / ((1 - r * r) + 2j * 0.05 * r)
+        x = np.empty((t.size, N_CH), np.float32)
+        ph = np.mod(theta, 1.0)
+        x[:, 0] = np.where(ph < 0.1, 0.5, 4.5)  # tach: a notch, 10 % of a turn
+        for c in range(1, N_CH):
+            x[:, c] = (0.2 * np.real(h * np.exp(1j * (2 * np.pi * theta + 0.3 * c)))
+                       + 0.02 * np.cos(4 * np.pi * theta)
+                       + 0.005 * rng.standard_normal(t.size))
+        yield s, np.round(x / FULL_SCALE_V * 32767).astype("<i2")
+
+
+def write_wav(path: Path, minutes: float) -> int:
+    n = int(minutes * 60 * FS)
     data_bytes = n * N_CH * 2
     with open(path, "wb") as fh:
         fh.write(b"RIFF" + struct.pack("<I", 36 + data_bytes) + b"WAVE")
         fh.write(b"fmt " + struct.pack("<IHHIIHH", 16, 1, N_CH, FS, FS * N_CH * 2, N_CH * 2, 16))
         fh.write(b"data" + struct.pack("<I", data_bytes))
-        block = 1 << 18
-        for s in range(0, n, block):
-            t = (s + np.arange(min(block, n - s))) / FS
-            rpm = rpm0 + rate * t
-            theta = (rpm0 * t + 0.5 * rate * t * t) / 60.0
-            r = rpm / 3000.0
-            h = r * r / ((1 - r * r) + 2j * 0.05 * r)
-            x = np.empty((t.size, N_CH), np.float32)
-            ph = np.mod(theta, 1.0)
-            x[:, 0] = np.where(ph < 0.1, 0.5, 4.5)  # tach: a notch, 10 % of a turn
-            for c in range(1, N_CH):
-                x[:, c] = (0.2 * np.real(h * np.exp(1j * (2 * np.pi * theta + 0.3 * c)))
-                           + 0.02 * np.cos(4 * np.pi * theta)
-                           + 0.005 * rng.standard_normal(t.size))
-            fh.write(np.round(x / FULL_SCALE_V * 32767).astype("<i2").tobytes())
+        for _, pcm in _pcm_blocks(n):
+            fh.write(pcm.tobytes())
+    return n
+
+
+def write_hdf5(path: Path, minutes: float) -> int:
+    """The same samples as :func:`write_wav` (the WAV reader's float32 volts), as one
+    float32 dataset per channel: for runs whose WAV would pass the format's 4 GB limit."""
+    import h5py
+
+    n = int(minutes * 60 * FS)
+    scale = np.float32(FULL_SCALE_V / 32768.0)
+    with h5py.File(path, "w") as f:
+        f.attrs["sample_rate_hz"] = float(FS)
+        ds = [f.create_dataset(f"ch{c + 1}", (n,), dtype="<f4", chunks=(1 << 16,))
+              for c in range(N_CH)]
+        for s, pcm in _pcm_blocks(n):
+            x = pcm.astype(np.float32) * scale
+            for c in range(N_CH):
+                ds[c][s:s + x.shape[0]] = x[:, c]
     return n
 
 
@@ -92,13 +119,14 @@ def main() -> int:
     a = ap.parse_args()
     td = Path(a.keep) if a.keep else Path(tempfile.mkdtemp())
     td.mkdir(parents=True, exist_ok=True)
-    wav, db = td / "long.wav", td / "bench.sqlite"
+    big = a.minutes * 60 * FS * N_CH * 2 > 4.0e9  # a WAV holds at most 4 GB of data
+    wav, db = td / ("long.h5" if big else "long.wav"), td / "bench.sqlite"
     if a.reuse and db.exists():
         run_id = "1"
         n = int(round(a.minutes * 60 * FS))
     else:
         t0 = time.perf_counter()
-        n = write_wav(wav, a.minutes)
+        n = (write_hdf5 if big else write_wav)(wav, a.minutes)
         print(f"synthesised {N_CH} x {n} samples ({N_CH * n / 1e6:.0f} M) in "
               f"{time.perf_counter() - t0:.0f} s")
         m = machine(td / "m.toml")
