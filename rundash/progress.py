@@ -13,8 +13,20 @@ from typing import Callable
 Progress = Callable[[float, str], None]
 
 
-def no_progress(fraction: float, stage: str) -> None:
-    """A progress callback that shows nothing."""
+class _NoProgress:
+    """A progress callback that shows nothing (and, like :class:`Bar`, can be closed)."""
+
+    def __call__(self, fraction: float, stage: str) -> None:
+        pass
+
+    def close(self) -> None:
+        pass
+
+    def __repr__(self) -> str:
+        return "no_progress"
+
+
+no_progress = _NoProgress()
 
 
 class Bar:

@@ -13,7 +13,8 @@ ROOT = Path(__file__).resolve().parents[1] / "rundash"
 MODULES = sorted(
     ".".join(("rundash", *p.relative_to(ROOT).with_suffix("").parts)).removesuffix(".__init__")
     for folder in ("dsp", "analysis") for p in (ROOT / folder).glob("*.py"))
-MODULES += ["rundash.errors", "rundash.units", "rundash.conventions", "rundash.presentation"]
+MODULES += ["rundash.errors", "rundash.units", "rundash.conventions", "rundash.presentation",
+            "rundash.cli.common"]
 
 
 @pytest.mark.parametrize("name", MODULES)

@@ -2,7 +2,7 @@
 module and fail on an import that runs the wrong way, naming the file and line.
 
 A module's layer is the folder (or top-level module) it sits in under ``rundash/``:
-``rundash/workflows/live.py`` is in ``workflows``, ``rundash/cli.py`` in ``cli``. The
+``rundash/workflows/live.py`` is in ``workflows``, ``rundash/cli/commands.py`` in ``cli``. The
 migrations (``migrations/``, installed as ``rundash.migrations``) are the ``migrations``
 layer. There are no passes by module name.
 """

@@ -417,3 +417,15 @@ def save_finding_rows(conn: Connection, run_id: int, rows: Sequence[dict[str, An
     conn.execute(delete(F).where(F.c.run_id == run_id))
     if rows:
         conn.execute(insert(F), [dict(run_id=run_id, **r) for r in rows])
+
+
+def load_finding_rows(conn: Connection, run_ids: Sequence[int]) -> list[dict[str, Any]]:
+    """The critical-speed rows of the finding table of ``run_ids`` (run id, probe,
+    direction, speed, classification, details: the findings JSON entry), by run and speed."""
+    if not run_ids:
+        return []
+    rows = conn.execute(select(F.c.run_id, F.c.probe_name, F.c.direction, F.c.speed_rpm,
+                               F.c.classification, F.c.details)
+                        .where(F.c.run_id.in_([int(r) for r in run_ids]))
+                        .order_by(F.c.run_id, F.c.speed_rpm)).all()
+    return [dict(r._mapping) for r in rows]

@@ -63,7 +63,4 @@ def build_demo(db: Database, *, progress: Progress = no_progress,
                 from rundash.workflows.pipeline import process_run
                 process_run(db, run_id, progress=progress)
                 log(f"processed run {run_id}")
-    close = getattr(progress, "close", None)
-    if close:
-        close()
     return ids

@@ -146,27 +146,24 @@ class LiveProcessor:
 def earlier_bands(db: Database, machine_name: str, *, exclude_run: int | None = None
                   ) -> tuple[lw.ExpectedBand, ...]:
     """Expected critical bands from the processed runs of a machine (confirmed criticals;
-    all criticals when none is confirmed). A band runs from the half-power speeds when
-    both are known, else over the finding's band."""
+    all criticals when none is confirmed), read from the finding table. A band runs from
+    the half-power speeds when both are known, else over the finding's band."""
     rows, fallback = [], []
     with db.read() as conn:
-        runs = [r for r in q.list_runs(conn) if r.machine_name == machine_name
+        runs = [r.id for r in q.list_runs(conn) if r.machine_name == machine_name
                 and r.id != exclude_run and r.processed]
-        for r in runs:
-            proc = q.load_processing(conn, r.id)
-            if proc is None or not proc.findings:
-                continue
-            for c in proc.findings.get("criticals", []):
-                sp = c.get("speed_rpm")
-                if sp is None:
-                    continue
-                if c.get("n1_rpm") is not None and c.get("n2_rpm") is not None:
-                    lo, hi = c["n1_rpm"], c["n2_rpm"]
-                else:
-                    lo, hi = (c.get("band_rpm") or [math.nan, math.nan])[:2]
-                item = (float(sp), float(lo if lo is not None else math.nan),
-                        float(hi if hi is not None else math.nan), f"run {r.id}")
-                (rows if c.get("classification") == "confirmed" else fallback).append(item)
+        found = q.load_finding_rows(conn, runs)
+    for c in found:
+        sp, d = c["speed_rpm"], c["details"] or {}
+        if sp is None:
+            continue
+        if d.get("n1_rpm") is not None and d.get("n2_rpm") is not None:
+            lo, hi = d["n1_rpm"], d["n2_rpm"]
+        else:
+            lo, hi = (d.get("band_rpm") or [math.nan, math.nan])[:2]
+        item = (float(sp), float(lo if lo is not None else math.nan),
+                float(hi if hi is not None else math.nan), f"run {c['run_id']}")
+        (rows if c["classification"] == "confirmed" else fallback).append(item)
     return lw.expected_bands(rows or fallback)
 
 

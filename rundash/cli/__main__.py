@@ -1,0 +1,7 @@
+"""``python -m rundash.cli``: the command line."""
+
+import sys
+
+from rundash.cli import main
+
+sys.exit(main())
