@@ -206,6 +206,7 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
         raise InputError("Invalid value for 'started_at': allowed a UTC time with its zone "
                          f"(e.g. 2026-05-01T06:00:00Z), got {started_at.isoformat()!r}")
     reader = open_reader(path, desc.data)
+    stream = None
     try:
         plan = channel_plan(desc, reader.channels, path.name)
         names = [reader.channels[col] for col, *_ in plan]
@@ -245,7 +246,8 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
             chunk_index = 0
             pending: list[np.ndarray] = []
             pending_n = 0
-            for block, frac in prefetched(reader.blocks(q.CHUNK_SAMPLES)):
+            stream = prefetched(reader.blocks(q.CHUNK_SAMPLES))
+            for block, frac in stream:
                 sel = block
                 if not unit_scale:
                     sel *= scales.astype(sel.dtype)
@@ -258,6 +260,7 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
                                                 stats_min, stats_max, names, path.name, at_ext)
                     pending, pending_n = ([rest], rest.shape[1]) if rest.shape[1] else ([], 0)
                 progress(frac, "importing")
+            stream.close()
             if pending_n:
                 data = np.concatenate(pending, axis=1)
                 start, chunk_index = _flush(conn, ch_ids, data, start, chunk_index, fs,
@@ -295,6 +298,8 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
                          source_sha256=sha)
             progress(1.0, "importing")
     finally:
+        if stream is not None:
+            stream.close()  # the read-ahead thread ends before the reader closes
         reader.close()
     return ImportResult(run_id=run_id, machine_id=mid, n_samples=start, n_channels=len(plan),
                         sample_rate_hz=fs, warnings=tuple(warnings), time_base=reader.time_note,
