@@ -15,7 +15,8 @@ import numpy as np
 
 from rundash.errors import TachError, TachQualityWarning, invalid_value
 
-__all__ = ["detect_edges", "EdgeDetector", "once_per_rev", "OncePerRev", "MIN_REVOLUTIONS"]
+__all__ = ["detect_edges", "EdgeDetector", "once_per_rev", "OncePerRev", "MIN_REVOLUTIONS",
+           "edge_samples", "timing_jitter", "TachQuality", "tach_quality"]
 
 #: Fewest once-per-rev events that make a usable reference (4 revolutions).
 MIN_REVOLUTIONS = 4
@@ -25,8 +26,11 @@ MIN_REVOLUTIONS = 4
 # (common practice, no source).
 _ANCHOR_TOL = 0.15
 
-# Percentiles of the low and high tach levels.
-_Q_LO, _Q_HI = 2.0, 98.0
+# Percentiles of the low and high tach levels: a narrow notch (6 deg of a revolution is
+# 1.7 % of the samples) sets the level only below the 1.7th percentile (common
+# practice, no source).
+_Q_LO, _Q_HI = 0.25, 99.75
+
 
 
 def _block_bounds(n: int, block: int) -> np.ndarray:
@@ -385,9 +389,10 @@ def detect_edges(
     threshold : float, optional
         Fixed threshold in the units of ``x``. By default the threshold follows the
         midpoint of the low and high levels, estimated per window of
-        ``level_window_s`` from the 2nd and 98th percentiles and interpolated between
-        windows, so a slow DC drift of a proximity-probe tach over a notch or keyway
-        does not move the events.
+        ``level_window_s`` from the 0.25th and 99.75th percentiles (so a keyway
+        notch or a pulse only 0.5 % of a revolution wide still sets a level) and
+        interpolated between windows, so a slow DC drift of a proximity-probe tach over
+        a notch or keyway does not move the events.
     hysteresis : float, optional
         Full width of the hysteresis band in the units of ``x``, centred on the
         threshold. Default: 20 % of the local span (high - low level).
@@ -472,6 +477,11 @@ def _predict(d1: float, d2: float) -> float:
         return 2.0 * d2
     return 1.0 / math.sqrt(q)
 
+
+#: Fewest pulse intervals agreeing with the one before (within 25 %) for a plausible
+#: pulse train; a shaft's tach has nearly all, noise about a third (common practice, no
+#: source; measured on white and low-passed noise: 34 % and 43 %).
+MIN_REGULAR_FRACTION = 0.6
 
 _MAX_FILL = 8  # most pulses inserted in one gap; a longer gap is a dropout, left as is
 
@@ -593,7 +603,10 @@ def once_per_rev(event_times_s, pulses_per_rev: int = 1, *, repair: bool = True)
     Raises
     ------
     TachError
-        With fewer than 4 revolutions of events, or events that are not increasing.
+        With fewer than 4 revolutions of events, or events that are not increasing, or
+        (with ``repair``) a train of at least 20 pulses of which fewer than
+        :data:`MIN_REGULAR_FRACTION` of the intervals agree within 25 % with the one
+        before: noise on the channel, not once-per-rev events.
     """
     t = np.asarray(event_times_s, dtype=np.float64).ravel()
     if isinstance(pulses_per_rev, bool) or int(pulses_per_rev) != pulses_per_rev or pulses_per_rev < 1:
@@ -627,6 +640,7 @@ def once_per_rev(event_times_s, pulses_per_rev: int = 1, *, repair: bool = True)
             notes.append(f"{len(filled)} missing tach pulse(s) inserted")
         if removed:
             notes.append(f"{len(removed)} spurious tach pulse(s) removed")
+        _check_plausible(pulses)
     else:
         pulses = t
     times = pulses[::ppr].copy()
@@ -640,3 +654,166 @@ def once_per_rev(event_times_s, pulses_per_rev: int = 1, *, repair: bool = True)
         warnings.warn("; ".join(notes) + where, TachQualityWarning, stacklevel=2)
     return OncePerRev(times_s=times, pulses_per_rev=ppr, n_missing_filled=len(filled),
                       n_extra_removed=len(removed), repair_times_s=rep, notes=tuple(notes))
+
+
+def _check_plausible(pulses: np.ndarray) -> None:
+    """Refuse a pulse train that no turning shaft makes (noise on the tach channel)."""
+    d = np.diff(pulses)
+    if d.size < 20:
+        return
+    r = d[1:] / d[:-1]
+    regular = float(np.mean((r >= 0.8) & (r <= 1.25)))
+    if regular < MIN_REGULAR_FRACTION:
+        raise TachError(
+            f"The tach shows no plausible once-per-rev events: only {100 * regular:.0f} % of "
+            f"{d.size} pulse intervals agree within 25 % with the one before (a turning "
+            f"shaft gives nearly all); check that the tach column carries the "
+            f"once-per-rev reference, and its edge and threshold")
+
+
+def edge_samples(x, fs: float, event_times_s, *, t0: float = 0.0,
+                 max_events: int = 2000) -> float | None:
+    """Median number of sample intervals a tach edge spans, at the detected events.
+
+    For each event (at most ``max_events``, evenly chosen) the step between the two
+    samples that straddle the crossing is compared with the local span (highest minus
+    lowest sample within 4 samples of it): an edge sharper than the sample interval
+    steps the whole span at once (1.0); a linear ramp over ``r`` samples steps ``1/r``
+    of it. Results above about 8 only say "well sampled" (the 9-sample window).
+    Linear interpolation of the threshold crossing is exact on a ramp spanning more
+    than one sample, and quantised to the sample grid on a sharper edge (DESIGN.md
+    section 4; common practice, no source).
+
+    Parameters
+    ----------
+    x : array_like, shape (n_samples,)
+        The tach channel (or a block of it whose sample 0 lies at ``t0``).
+    fs : float
+        Sample rate in Hz.
+    event_times_s : array_like
+        Event times in s from :func:`detect_edges` (those outside ``x`` are ignored).
+
+    Returns
+    -------
+    float or None
+        None when no event lies inside ``x``.
+    """
+    x = np.asarray(x)
+    ev = np.asarray(event_times_s, dtype=np.float64).ravel()
+    c = np.floor((ev - t0) * fs + 1e-9).astype(np.int64)
+    c = c[(c >= 4) & (c + 5 < x.size)]
+    if c.size == 0:
+        return None
+    if c.size > max_events:
+        c = c[np.linspace(0, c.size - 1, max_events).astype(np.int64)]
+    win = x[c[:, None] + np.arange(-4, 6)[None, :]].astype(np.float64)
+    span = win.max(axis=1) - win.min(axis=1)
+    step = np.abs(win[:, 5] - win[:, 4])
+    ok = (step > 0) & (span > 0)
+    if not np.any(ok):
+        return None
+    return float(np.median(span[ok] / step[ok]))
+
+
+def timing_jitter(event_times_s) -> tuple[float, float] | None:
+    """Rms timing jitter of once-per-rev events, in s and in degrees of rotation.
+
+    Third differences ``t[k+2] - 3 t[k+1] + 3 t[k] - t[k-1]`` cancel any speed history
+    whose time-against-angle is locally quadratic, and multiply independent jitter of
+    rms ``s`` by ``sqrt(20)``; the median absolute third difference (scaled by 1.4826,
+    the normal consistency factor) ignores the few revolutions of a hard start or a
+    repaired pulse. Degrees are at the median revolution time.
+
+    Returns
+    -------
+    (jitter_s, jitter_deg) or None
+        None with fewer than 8 events.
+    """
+    t = np.asarray(event_times_s, dtype=np.float64).ravel()
+    if t.size < 8:
+        return None
+    d3 = t[3:] - 3.0 * t[2:-1] + 3.0 * t[1:-2] - t[:-3]
+    js = 1.4826 / math.sqrt(20.0) * float(np.median(np.abs(d3)))
+    return js, 360.0 * js / float(np.median(np.diff(t)))
+
+
+@dataclass(frozen=True)
+class TachQuality:
+    """How far the once-per-rev events can be trusted.
+
+    Attributes
+    ----------
+    edge_samples : float or None
+        Median sample intervals spanned by an edge (:func:`edge_samples`).
+    jitter_s, jitter_deg : float or None
+        Rms timing jitter of the once-per-rev events (:func:`timing_jitter`), in s and
+        in degrees of rotation.
+    fs : float or None
+        Sample rate of the tach channel in Hz.
+    notes : tuple of str
+        Warnings in words (also issued as :class:`TachQualityWarning`).
+    """
+
+    edge_samples: float | None
+    jitter_s: float | None
+    jitter_deg: float | None
+    fs: float | None
+    notes: tuple[str, ...]
+
+    @property
+    def quantised(self) -> bool:
+        """True when the edges are sharper than the sample grid resolves."""
+        return self.edge_samples is not None and self.edge_samples < MIN_EDGE_SAMPLES
+
+    def angle_bound_rad(self, speed_rpm) -> np.ndarray:
+        """Bound of the reference angle error that fitting cannot remove, in radians.
+
+        A sample-quantised event is anywhere within half a sample of where it is read,
+        and while the revolution lasts close to a whole number of samples that offset
+        stays put for many revolutions: half a sample of rotation,
+        ``pi * rpm / (60 fs)``. Zero for well-sampled edges (their jitter is random and
+        shows in the scatter of the vectors).
+        """
+        n = np.asarray(speed_rpm, dtype=np.float64)
+        if not self.quantised or not self.fs:
+            return np.zeros(n.shape)
+        return np.pi * np.abs(n) / (60.0 * self.fs)
+
+
+#: An edge spanning fewer sample intervals than this is under-sampled (common practice,
+#: no source: linear interpolation needs both straddling samples on the edge).
+MIN_EDGE_SAMPLES = 2.0
+#: Rms jitter of the once-per-rev events, degrees of rotation, above which the tach is
+#: called jittery: the 1X phase of one revolution scatters by as much (our own choice,
+#: half a degree; the speed model fits through it).
+MAX_JITTER_DEG = 0.5
+
+
+def tach_quality(edge_span_samples: float | None, rev_times_s,
+                 fs: float | None = None) -> TachQuality:
+    """Judge the once-per-rev reference; warn with :class:`TachQualityWarning`.
+
+    Parameters
+    ----------
+    edge_span_samples : float or None
+        From :func:`edge_samples` on the tach channel.
+    rev_times_s : array_like
+        Once-per-rev event times in s (:attr:`OncePerRev.times_s`).
+    fs : float, optional
+        Sample rate of the tach channel in Hz (for :meth:`TachQuality.angle_bound_rad`).
+    """
+    jit = timing_jitter(rev_times_s)
+    js, jd = jit if jit is not None else (None, None)
+    notes = []
+    if edge_span_samples is not None and edge_span_samples < MIN_EDGE_SAMPLES:
+        notes.append(
+            f"tach edges span {edge_span_samples:.1f} sample interval(s) (fewer than "
+            f"{MIN_EDGE_SAMPLES:g}): the events are quantised to the sample grid"
+            + (f", about {jd:.2f} deg of rotation rms" if jd is not None else "")
+            + "; a higher sample rate or a slower edge gives a better phase reference")
+    elif jd is not None and jd > MAX_JITTER_DEG:
+        notes.append(f"tach events jitter by {jd:.2f} deg of rotation rms (more than "
+                     f"{MAX_JITTER_DEG:g} deg): check the tach signal and its threshold")
+    for n in notes:
+        warnings.warn(n, TachQualityWarning, stacklevel=2)
+    return TachQuality(edge_span_samples, js, jd, fs, tuple(notes))

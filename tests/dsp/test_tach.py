@@ -211,3 +211,92 @@ class TestOncePerRev:
         ev = np.array([0.0, 0.1, 0.2, 0.25, 0.3, 0.4, 0.5])
         opr = once_per_rev(ev, repair=False)
         assert_allclose(opr.times_s, ev)
+
+
+class TestTachQuality:
+    """Edge sampling, event jitter and plausibility of the once-per-rev reference."""
+
+    def test_edge_samples_of_a_step_and_of_linear_ramps(self):
+        # Definition (edge_samples): a step covers the local span in one sample interval
+        # (1.0); a linear ramp over r sample intervals steps 1/r of the span per sample.
+        sweep = synth.linear_sweep(3000.0, 0.0, 2.0)  # 3000 rpm: 400 samples per rev
+        t = np.arange(int(sweep.duration_s * FS)) / FS
+        theta = sweep.theta(t)
+        step = np.where(np.mod(theta, 1.0) < 0.5, 0.0, 5.0)
+        ev = detect_edges(step, FS)
+        assert detect_edges.__module__ == "rundash.dsp.tach"
+        from rundash.dsp.tach import edge_samples
+        assert edge_samples(step, FS, ev) == pytest.approx(1.0, abs=1e-9)
+        for r in (3.0, 6.0):
+            # tach_waveform's ramp_rev is the half-width of an edge in revolutions
+            x = synth.tach_waveform(theta, ramp_rev=r / 400.0 / 2.0)
+            assert edge_samples(x, FS, detect_edges(x, FS)) == pytest.approx(r, rel=0.02)
+
+    def test_timing_jitter_of_white_jitter(self):
+        # Third differences of independent jitter of rms s have variance 20 s^2 (sum of
+        # the squared binomial coefficients 1, 3, 3, 1); the estimate is the normal MAD
+        # scale of them. 4000 events: the MAD's standard error is about 1.3 %; 6 %.
+        from rundash.dsp.tach import timing_jitter
+        sweep = synth.linear_sweep(600.0, 20.0, 120.0)
+        ref = sweep.rev_times()
+        rng = np.random.default_rng(3)
+        ev = ref + 2e-5 * rng.standard_normal(ref.size)
+        jit_s, jit_deg = timing_jitter(ev)
+        assert jit_s == pytest.approx(2e-5, rel=0.06)
+        # in degrees of rotation at the median revolution time
+        assert jit_deg == pytest.approx(360.0 * jit_s / np.median(np.diff(ev)), rel=1e-12)
+        exact_s, _ = timing_jitter(ref)
+        # time against angle is a square root under constant acceleration, nearly a
+        # quadratic over four revolutions: its third differences are far below the jitter
+        assert exact_s < 1e-3 * 2e-5
+
+    def test_sample_quantised_notch_is_warned(self):
+        # A 6 deg notch read at 5 kHz by 4000-4500 rpm is one or two samples wide: the
+        # edge is a single step and the events sit on the sample grid (DESIGN.md
+        # section 4: sub-sample location needs samples on the edge).
+        from rundash.dsp.tach import tach_quality
+        fs = 5000.0
+        sweep = synth.linear_sweep(4000.0, 50.0, 10.0)
+        t = np.arange(int(sweep.duration_s * fs)) / fs
+        phase = np.mod(sweep.theta(t), 1.0)
+        x = np.where(phase < 6.0 / 360.0, 0.0, 5.0)
+        ev = detect_edges(x, fs, edge="falling")
+        # the level estimate still sees the notch (1.7 % of the samples)
+        assert ev.size == pytest.approx(sweep.theta(np.array(10.0)), abs=2)
+        from rundash.dsp.tach import edge_samples
+        span = edge_samples(x, fs, ev)
+        opr = once_per_rev(ev)
+        with pytest.warns(TachQualityWarning, match=r"quantised to the sample grid"):
+            q = tach_quality(span, opr.times_s, fs)
+        assert q.quantised and span == pytest.approx(1.0)
+        # quantisation is uniform over one sample: rms 1/sqrt(12) sample; in degrees of
+        # rotation at 4250 rpm: 360 * 0.289 * 4250 / 60 / 5000 = 1.47 deg; 25 %
+        assert q.jitter_deg == pytest.approx(1.47, rel=0.25)
+        # half a sample of rotation is the bound the fit cannot remove: pi rpm / (60 fs)
+        assert_allclose(q.angle_bound_rad([4250.0]), [np.pi * 4250.0 / 60.0 / fs])
+
+    def test_well_sampled_tach_is_not_warned(self):
+        from rundash.dsp.tach import edge_samples, tach_quality
+        sweep = synth.linear_sweep(600.0, 500.0, 4.0)
+        _, v = _tach(sweep, ramp_rev=0.02)
+        ev = detect_edges(v, FS)
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            q = tach_quality(edge_samples(v, FS, ev), once_per_rev(ev).times_s, FS)
+        assert not q.quantised and q.notes == ()
+        assert_allclose(q.angle_bound_rad([3000.0]), [0.0])
+
+    @pytest.mark.parametrize("lowpass_hz", [None, 200.0])
+    def test_noise_only_tach_is_refused_in_one_line(self, lowpass_hz):
+        # White or low-passed noise crosses any threshold at random: about a third of
+        # its intervals agree with the one before, a shaft's tach nearly all.
+        from scipy.signal import butter, sosfilt
+        fs = 5000.0
+        x = np.random.default_rng(1).standard_normal(int(60 * fs))
+        if lowpass_hz:
+            x = sosfilt(butter(4, lowpass_hz, fs=fs, output="sos"), x)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", TachQualityWarning)
+            with pytest.raises(TachError, match=r"^The tach shows no plausible once-per-rev "
+                                                r"events: only \d+ % of \d+ pulse intervals"):
+                once_per_rev(detect_edges(x, fs))
