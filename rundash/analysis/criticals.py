@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import math
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Literal
 
 import numpy as np
@@ -120,12 +120,14 @@ class _Curve:
     amp: np.ndarray  # amplitude_factor * |vector|
     lag: np.ndarray  # unwrapped lag, deg
     noise: np.ndarray  # 1-sigma noise of the smoothed amplitude per bin, amplitude_factor units
+    floor: np.ndarray  # bound of the error the scatter does not show, per bin, same units
     smoothed: bool
     window_bins: int  # smoothing window in bins (1 when not smoothed)
 
 
-def _bin(speed: np.ndarray, vector: np.ndarray, bin_rpm: float | None):
-    """Average complex vectors into speed bins; return centres, means, counts, point sigma.
+def _bin(speed: np.ndarray, vector: np.ndarray, bin_rpm: float | None, floor=None):
+    """Average complex vectors into speed bins; return centres, means, counts, point sigma,
+    the bin width and the mean ``floor`` per bin (zeros without one).
 
     The point sigma (per real component) is pooled from the scatter inside bins holding
     two or more points (the upper 5 % of bins trimmed against steep signal slopes);
@@ -159,11 +161,15 @@ def _bin(speed: np.ndarray, vector: np.ndarray, bin_rpm: float | None):
         sigma_point = float(np.sqrt(np.sum((n[keep] - 1) * var[keep]) / np.sum(n[keep] - 1) / 2.0))
     x = centres[filled]
     out = np.interp(centres, x, mean.real) + 1j * np.interp(centres, x, mean.imag)
-    return centres, out, np.maximum(count, 1), sigma_point, float(bin_rpm)
+    fl = np.zeros(n_bins)
+    if floor is not None:
+        fb = np.bincount(k, floor[order], minlength=n_bins)[filled] / count[filled]
+        fl = np.interp(centres, x, fb)
+    return centres, out, np.maximum(count, 1), sigma_point, float(bin_rpm), fl
 
 
-def _prepare(speed, vector, amplitude_factor, bin_rpm, smooth_rpm) -> _Curve:
-    grid, v, count, sigma_point, w = _bin(speed, vector, bin_rpm)
+def _prepare(speed, vector, amplitude_factor, bin_rpm, smooth_rpm, floor=None) -> _Curve:
+    grid, v, count, sigma_point, w, fl = _bin(speed, vector, bin_rpm, floor)
     if sigma_point is not None:
         sig2 = sigma_point ** 2 / count
     else:  # one point per bin: noise from second differences (white noise: var 6 sigma^2)
@@ -182,9 +188,10 @@ def _prepare(speed, vector, amplitude_factor, bin_rpm, smooth_rpm) -> _Curve:
         coeffs = signal.savgol_coeffs(n_win, 2)
         sig2 = np.convolve(np.pad(sig2, n_win // 2, mode="edge"), coeffs ** 2, mode="valid")
         v = signal.savgol_filter(v.real, n_win, 2) + 1j * signal.savgol_filter(v.imag, n_win, 2)
+        fl = np.convolve(np.pad(fl, n_win // 2, mode="edge"), np.ones(n_win) / n_win, mode="valid")
     lag = np.degrees(np.unwrap(-np.angle(v)))
-    return _Curve(grid, v, amplitude_factor * np.abs(v), lag, amplitude_factor * np.sqrt(sig2), smoothed,
-                  n_win if smoothed else 1)
+    return _Curve(grid, v, amplitude_factor * np.abs(v), lag, amplitude_factor * np.sqrt(sig2),
+                  amplitude_factor * fl, smoothed, n_win if smoothed else 1)
 
 
 def _band_edges(amp: np.ndarray, i: int, frac: float, tol: float) -> tuple[int, int]:
@@ -357,7 +364,7 @@ def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
                    bin_rpm: float | None = None, smooth_rpm: float | None = None,
                    critically_damped_af: float = CRITICALLY_DAMPED_AF,
                    quasi_steady_ratio: float = QUASI_STEADY_RATIO,
-                   fit: bool = True) -> tuple[Critical, ...]:
+                   fit: bool = True, amplitude_floor=None) -> tuple[Critical, ...]:
     """Find and classify the critical speeds in one probe's 1X response.
 
     Steps: (1) average the complex vectors into speed bins (``bin_rpm``) and smooth them
@@ -415,6 +422,15 @@ def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
         See the sweep-rate rule above.
     fit : bool
         Run the one-mode fit per critical.
+    amplitude_floor : float or array_like, shape (n,), optional
+        A bound on the error of ``|c|`` per point that the scatter does not show because
+        it does not average out between neighbouring revolutions, in the units of ``|c|``
+        (before ``amplitude_factor``). For slow-roll-compensated vectors read against a
+        sample-quantised tach it is the uncompensated amplitude times the angle
+        uncertainty of the reference events in radians: an angle error rotates the
+        measured vector but not the subtracted slow-roll vector. A peak must rise above
+        its base by more than twice the floor (the bound at the peak and at its base);
+        default none.
 
     Returns
     -------
@@ -460,20 +476,30 @@ def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
     for name, val in (("min_prominence", min_prominence), ("min_height", min_height)):
         if not 0 <= val < 1:
             raise AnalysisError(invalid_value(name, val, "a fraction in [0, 1)"))
+    floor = None
+    if amplitude_floor is not None:
+        floor = np.broadcast_to(np.asarray(amplitude_floor, dtype=float), s.shape) \
+            if np.ndim(amplitude_floor) == 0 else np.asarray(amplitude_floor, dtype=float)
+        if floor.shape != s.shape or not np.all(np.isfinite(floor) & (floor >= 0)):
+            raise AnalysisError(invalid_value("amplitude_floor", f"shape {floor.shape}",
+                                              f"finite values >= 0, a scalar or shape {s.shape}"))
     good = np.isfinite(s) & np.isfinite(v.real) & np.isfinite(v.imag) & (s > 0)
     if t is not None:
         good &= np.isfinite(t)
         t = t[good]
     s, v = s[good], v[good]
+    if floor is not None:
+        floor = floor[good]
     if s.size < 20 or np.ptp(s) <= 0:
         raise AnalysisError(invalid_value("speed_rpm", f"{s.size} finite points", "at least 20 finite points over a speed range"))
 
-    curve = _prepare(s, v, float(amplitude_factor), bin_rpm, smooth_rpm)
+    curve = _prepare(s, v, float(amplitude_factor), bin_rpm, smooth_rpm, floor)
     amp = curve.amp
     idx, props = signal.find_peaks(amp, prominence=1e-12 * amp.max())
+    # significance: 8 noise sigmas of the smoothed curve, twice the floor
     keep = [(i, p) for i, p in zip(idx, props["prominences"])
             if p >= min_prominence * amp[i] and amp[i] >= min_height * amp.max()
-            and p >= 8.0 * curve.noise[i]]
+            and p >= 8.0 * curve.noise[i] and p > 2.0 * curve.floor[i]]
 
     found: list[Critical] = []
     bands: list[tuple[float, float]] = []
@@ -481,6 +507,7 @@ def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
         found.append(_from_peak(curve, int(i), s, t, 8.0 * curve.noise[i], phase_confirm_deg, critically_damped_af,
                                 quasi_steady_ratio, fit, direction, float(amplitude_factor)))
         bands.append(found[-1].band_rpm)
+    found = _drop_beating(found)
     found.extend(_phase_only(curve, bands, s, t, critically_damped_af, quasi_steady_ratio, fit,
                              direction, float(amplitude_factor)))
     for c in found:
@@ -556,6 +583,54 @@ def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min,
                     float(lag_pk % 360.0), rel_pk, float(base % 360.0), band, hp, pa, mode,
                     af, method, reason, cd, rate, ratio, note, loop, classification,
                     confidence, tuple(evidence), direction, afac)
+
+
+#: Decay times of the free vibration after a fast sweep within which a ripple of the 1X
+#: on the sweep side of a critical is read as beating (our own choice: e^-5 = 0.7 %).
+BEAT_DECAY_TIMES = 5.0
+
+
+def _drop_beating(found: list[Critical]) -> list[Critical]:
+    """Remove ripples that are post-resonance beating, not criticals.
+
+    After a sweep too fast for a quasi-steady reading, the free vibration at the
+    natural frequency outlasts the passage and beats with the 1X: the amplitude ripples
+    on the sweep side of the critical (above it on a run-up, below on a coast-down)
+    while the free vibration decays with ``exp(-zeta omega_n t)`` (F. M. Lewis, Trans.
+    ASME 54, 1932). A peak without phase confirmation, lower than a confirmed critical
+    whose sweep was too fast, on its sweep side, within the speed the sweep covers in
+    :data:`BEAT_DECAY_TIMES` decay times beyond its band, is such a ripple: it is
+    dropped and named in the critical's evidence.
+    """
+    out = list(found)
+    for j, main in enumerate(found):
+        if (main.classification != "confirmed" or not main.sweep_note
+                or not main.sweep_rate_rpm_s or main.peak_amplitude is None):
+            continue
+        zeta = main.fit.zeta if main.fit is not None else (
+            0.5 / main.af_governing if main.af_governing else None)
+        if not zeta or zeta <= 0:
+            continue
+        sign = math.copysign(1.0, main.sweep_rate_rpm_s)
+        wn = 2.0 * math.pi * main.speed_rpm / 60.0
+        reach = abs(main.sweep_rate_rpm_s) * BEAT_DECAY_TIMES / (zeta * wn)
+        edge = main.band_rpm[1] if sign > 0 else main.band_rpm[0]
+        ripples = [c for c in out if c is not main and c.classification == "amplitude-only"
+                   and c.peak_amplitude is not None and c.peak_amplitude < main.peak_amplitude
+                   and 0 < sign * (c.speed_rpm - main.speed_rpm)
+                   and sign * (c.speed_rpm - edge) <= reach]
+        if not ripples:
+            continue
+        speeds = ", ".join(f"{c.speed_rpm:.0f}" for c in sorted(ripples, key=lambda c: c.speed_rpm))
+        side = "above" if sign > 0 else "below"
+        sentence = (f"the amplitude ripple at {speeds} rpm {side} it is post-resonance beating "
+                    f"(the free vibration at the natural frequency, decaying over "
+                    f"{1.0 / (zeta * wn):.2f} s, beats with the 1X after the fast sweep; "
+                    f"F. M. Lewis, 1932), not a critical")
+        k = out.index(main)
+        out[k] = replace(main, evidence=main.evidence + (sentence,))
+        out = [c for c in out if c not in ripples]
+    return out
 
 
 def _closing_evidence(evidence: list, rate, note: str, af, cd_af: float) -> bool:
@@ -720,18 +795,25 @@ def combine_bearing(criticals_x, criticals_y, *, match_tolerance_pct: float = 5.
     if not match_tolerance_pct > 0:
         raise AnalysisError(invalid_value("match_tolerance_pct", match_tolerance_pct, "a positive percentage"))
     pairs = list(_pair(criticals_x, criticals_y, match_tolerance_pct, af_tolerance, ("X", "Y")))
-    xs = [p for p in pairs if p.b is None]
-    ys = [p for p in pairs if p.a is None]
-    for px in xs:
-        for py in ys:
-            d = 100.0 * (py.b.speed_rpm - px.a.speed_rpm) / px.a.speed_rpm
+    # indices, not the pairs themselves: a pair's note grows with each partner, and one
+    # X-only critical may sit in the split window of two Y-only ones (or the reverse)
+    xs = [k for k, p in enumerate(pairs) if p.b is None]
+    ys = [k for k, p in enumerate(pairs) if p.a is None]
+    notes = {k: [] for k in xs + ys}
+    for kx in xs:
+        cx = pairs[kx].a
+        for ky in ys:
+            cy = pairs[ky].b
+            d = 100.0 * (cy.speed_rpm - cx.speed_rpm) / cx.speed_rpm
             if abs(d) <= split_window_pct:
-                for p in (px, py):
-                    k = pairs.index(p)
-                    pairs[k] = CriticalPair(p.a, p.b, None, None, p.agreement,
-                                            p.note + f"; possible split critical with the other "
-                                            f"probe's {(py.b if p is px else px.a).speed_rpm:.0f} "
-                                            f"rpm ({d:+.1f} %), e.g. anisotropic supports")
+                notes[kx].append((cy.speed_rpm, d))
+                notes[ky].append((cx.speed_rpm, d))
+    for k, partners in notes.items():
+        if partners:
+            p = pairs[k]
+            pairs[k] = CriticalPair(p.a, p.b, None, None, p.agreement, p.note + "".join(
+                f"; possible split critical with the other probe's {sp:.0f} rpm ({d:+.1f} %), "
+                "e.g. anisotropic supports" for sp, d in partners))
     return tuple(pairs)
 
 
