@@ -55,34 +55,59 @@ class Cascade:
 
 
 def cascade_plan(profile: SpeedProfile, *, speed_step_rpm: float = 50.0,
-                 max_rows: int = 200, margin_s: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
+                 max_rows: int = 200, margin_s: float = 0.0,
+                 resolution_s: float = 0.1) -> tuple[np.ndarray, np.ndarray]:
     """Row times (s) and speeds (rpm): a row each time the speed has moved by a step.
 
-    The step is widened when needed so that there are at most ``max_rows`` rows. Only
-    revolutions at least ``margin_s`` from the profile's ends are used (half a spectrum
-    window keeps every row's window inside the record).
+    Speeds are the mean speeds over consecutive stretches of ``resolution_s`` (the shaft
+    angle turned, from the speed profile, over the stretch's duration), so the timing
+    jitter of single revolutions never counts as speed travel. The step is widened when
+    needed so that there are at most ``max_rows`` rows; the travel it is sized from is
+    the speed's total variation counted in moves of at least a tenth of a step (a dead
+    band: jitter and a controller's hunting inside it add nothing). Only times at least
+    ``margin_s`` from the profile's ends are used (half a spectrum window keeps every
+    row's window inside the record).
     """
     if not (np.isfinite(speed_step_rpm) and speed_step_rpm > 0):
         raise DspError(invalid_value("speed_step_rpm", speed_step_rpm, "a positive step in rpm"))
     if isinstance(max_rows, bool) or int(max_rows) != max_rows or max_rows < 1:
         raise DspError(invalid_value("max_rows", max_rows, "an integer >= 1"))
-    rt = profile._t
-    tm = 0.5 * (rt[:-1] + rt[1:])
-    rpm = 60.0 / np.diff(rt)
-    inside = (tm >= rt[0] + margin_s) & (tm <= rt[-1] - margin_s)
-    tm, rpm = tm[inside], rpm[inside]
+    if not (np.isfinite(resolution_s) and resolution_s > 0):
+        raise DspError(invalid_value("resolution_s", resolution_s, "a positive time in s"))
+    t0, t1 = profile.t_start + margin_s, profile.t_end - margin_s
+    if t1 <= t0:
+        return np.empty(0), np.empty(0)
+    n = max(1, int(np.floor((t1 - t0) / resolution_s)))
+    edges = np.linspace(t0, t0 + n * resolution_s, n + 1) if n * resolution_s <= t1 - t0 \
+        else np.linspace(t0, t1, n + 1)
+    theta = profile.angle_rev(edges)
+    tm = 0.5 * (edges[:-1] + edges[1:])
+    rpm = 60.0 * np.diff(theta) / np.diff(edges)
+    ok = np.isfinite(rpm)
+    tm, rpm = tm[ok], rpm[ok]
     if tm.size == 0:
         return np.empty(0), np.empty(0)
-    travel = float(np.sum(np.abs(np.diff(rpm))))
+    travel = _travel(rpm, 0.1 * float(speed_step_rpm))
     step = max(float(speed_step_rpm), travel / max(int(max_rows) - 1, 1) * 1.0001)
     rows = [0]
     last = rpm[0]
-    for i in range(1, rpm.size):  # one step per revolution
+    for i in range(1, rpm.size):
         if abs(rpm[i] - last) >= step:
             rows.append(int(i))
             last = rpm[i]
     rows = np.asarray(rows[:max_rows])
     return tm[rows], rpm[rows]
+
+
+def _travel(rpm: np.ndarray, dead_band: float) -> float:
+    """Total variation of ``rpm`` counted in moves of at least ``dead_band``."""
+    total, last = 0.0, float(rpm[0])
+    for r in rpm[1:]:
+        d = abs(float(r) - last)
+        if d >= dead_band:
+            total += d
+            last = float(r)
+    return total
 
 
 def _check_window(window, n_fft):

@@ -367,8 +367,10 @@ class Segment:
     rpm_end: float
 
 
-def _windowed_slope(rev_times_s: np.ndarray, tg: np.ndarray, window_s: float) -> np.ndarray:
-    """Least-squares slope (rpm/s) of per-revolution mean speed within +-window/2 of tg."""
+def _windowed_slope(rev_times_s: np.ndarray, tg: np.ndarray, window_s: float,
+                    clip_s: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
+    """Least-squares slope (rpm/s) of per-revolution mean speed within +-window/2 of tg
+    (and, with ``clip_s = (t_from, t_to)`` per grid point, within those times)."""
     rt = np.asarray(rev_times_s, dtype=np.float64)
     tm = 0.5 * (rt[1:] + rt[:-1])
     r = 60.0 / np.diff(rt)
@@ -378,6 +380,9 @@ def _windowed_slope(rev_times_s: np.ndarray, tg: np.ndarray, window_s: float) ->
                                                            tc * r)]
     lo = np.searchsorted(tm, tg - window_s / 2, side="left")
     hi = np.searchsorted(tm, tg + window_s / 2, side="right")
+    if clip_s is not None:
+        lo = np.maximum(lo, np.searchsorted(tm, clip_s[0], side="left"))
+        hi = np.minimum(hi, np.searchsorted(tm, clip_s[1], side="right"))
     # at least 3 revolutions per window (slow speeds): widen to the nearest ones
     short = hi - lo < 3
     if np.any(short):
@@ -418,54 +423,10 @@ def _refine_boundaries(runs: list, acc: np.ndarray, tg: np.ndarray, window_s: fl
             b[1] = j
 
 
-def segment(
-    profile: SpeedProfile,
-    *,
-    steady_tol_rpm_s: float = 10.0,
-    min_duration_s: float = 2.0,
-    smooth_s: float = 2.0,
-) -> tuple[Segment, ...]:
-    """Split a record into run-up, coast-down and steady segments.
-
-    The acceleration at each point of a grid (every ``smooth_s / 4`` s) is the slope of a
-    least-squares line through the per-revolution mean speeds (60 / revolution time)
-    within ``smooth_s`` around it: it averages over every revolution in the window, so a
-    tach quantised to whole samples (a square TTL pulse, no edge to interpolate) gives a
-    steady slope even at high speed. Points whose acceleration magnitude is at most
-    ``steady_tol_rpm_s`` are steady, others run-up or coast-down by sign. Runs shorter
-    than ``min_duration_s`` are merged into the longer neighbour (common practice, no
-    source).
-
-    Parameters
-    ----------
-    profile : SpeedProfile
-    steady_tol_rpm_s : float
-        Largest |acceleration| in rpm/s still called steady.
-    min_duration_s : float
-        Shortest segment kept, in s.
-    smooth_s : float
-        Window of the acceleration estimate, in s.
-
-    Returns
-    -------
-    tuple of Segment, in time order, covering ``[profile.t_start, profile.t_end]``.
-    """
-    for name, v in (("steady_tol_rpm_s", steady_tol_rpm_s), ("min_duration_s", min_duration_s),
-                    ("smooth_s", smooth_s)):
-        if not (np.isfinite(v) and v >= 0):
-            raise DspError(invalid_value(name, v, "a non-negative number"))
-    t0, t1 = profile.t_start, profile.t_end
-    dt = max(smooth_s / 4.0, (t1 - t0) / 20000.0, 1e-3)
-    n = max(3, int(np.floor((t1 - t0) / dt)) + 1)
-    tg = np.linspace(t0, t1, n)
-    rpm = profile.rpm(tg)
-    acc = _windowed_slope(profile.rev_times_s, tg, max(smooth_s, 2 * dt))
-    code = np.where(acc > steady_tol_rpm_s, 1, np.where(acc < -steady_tol_rpm_s, -1, 0))
-    # runs of equal code
-    starts = np.concatenate([[0], np.flatnonzero(np.diff(code)) + 1])
-    ends = np.concatenate([starts[1:], [n]])
-    runs = [[int(code[s]), int(s), int(e)] for s, e in zip(starts, ends)]
-    # merge short runs into their longer neighbour, shortest first
+def _merge_short(runs: list, tg: np.ndarray, min_duration_s: float) -> None:
+    """Merge runs shorter than ``min_duration_s`` into their longer neighbour, shortest
+    first, and join equal neighbours (in place)."""
+    n = tg.size
     while len(runs) > 1:
         dur = [tg[min(e, n - 1)] - tg[s] for _, s, e in runs]
         i = int(np.argmin(dur))
@@ -480,14 +441,108 @@ def segment(
         lo, hi = min(i, j), max(i, j)
         runs[lo] = [runs[j][0], runs[lo][1], runs[hi][2]]
         del runs[hi]
-        # join equal neighbours
-        k = 0
-        while k < len(runs) - 1:
-            if runs[k][0] == runs[k + 1][0]:
-                runs[k][2] = runs[k + 1][2]
-                del runs[k + 1]
-            else:
-                k += 1
+        _join_equal(runs)
+
+
+def _join_equal(runs: list) -> None:
+    k = 0
+    while k < len(runs) - 1:
+        if runs[k][0] == runs[k + 1][0]:
+            runs[k][2] = runs[k + 1][2]
+            del runs[k + 1]
+        else:
+            k += 1
+
+
+def _runs(code: np.ndarray) -> list:
+    starts = np.concatenate([[0], np.flatnonzero(np.diff(code)) + 1])
+    ends = np.concatenate([starts[1:], [code.size]])
+    return [[int(code[s]), int(s), int(e)] for s, e in zip(starts, ends)]
+
+
+def _slow_sweeps(runs: list, profile: SpeedProfile, tg: np.ndarray, rpm: np.ndarray,
+                 steady_tol_pct: float, hold_window_s: float) -> np.ndarray:
+    """Codes per grid point after looking into the steady runs for slow sweeps.
+
+    A steady run whose speed range exceeds ``steady_tol_pct`` of its mean is examined
+    with the least-squares slope over ``hold_window_s`` (clipped to the run, so the
+    ramps beside it do not leak in): where the speed would change by more than
+    ``steady_tol_pct`` within ``hold_window_s``, the machine is sweeping, however
+    slowly (0.7 rpm/s at 1000 rpm is 4 % a minute).
+    """
+    n = tg.size
+    code = np.concatenate([np.full(e - s, c) for c, s, e in runs])
+    for c, s, e in runs:
+        if c != 0:
+            continue
+        seg = rpm[s:e]
+        if e - s < 3 or np.ptp(seg) <= steady_tol_pct / 100.0 * np.mean(seg):
+            continue
+        t_from = np.full(e - s, tg[s])
+        t_to = np.full(e - s, tg[min(e, n - 1)])
+        acc = _windowed_slope(profile.rev_times_s, tg[s:e], hold_window_s, (t_from, t_to))
+        moving = np.abs(acc) * hold_window_s > steady_tol_pct / 100.0 * seg
+        code[s:e] = np.where(moving, np.sign(acc), 0).astype(code.dtype)
+    return code
+
+
+def segment(
+    profile: SpeedProfile,
+    *,
+    steady_tol_rpm_s: float = 10.0,
+    min_duration_s: float = 2.0,
+    smooth_s: float = 2.0,
+    steady_tol_pct: float = 1.0,
+    hold_window_s: float = 60.0,
+) -> tuple[Segment, ...]:
+    """Split a record into run-up, coast-down and steady segments.
+
+    The acceleration at each point of a grid (every ``smooth_s / 4`` s) is the slope of a
+    least-squares line through the per-revolution mean speeds (60 / revolution time)
+    within ``smooth_s`` around it: it averages over every revolution in the window, so a
+    tach quantised to whole samples (a square TTL pulse, no edge to interpolate) gives a
+    steady slope even at high speed. Points whose acceleration magnitude is at most
+    ``steady_tol_rpm_s`` are steady, others run-up or coast-down by sign. A steady
+    stretch is then held to a relative rule: it stays steady only where its speed
+    changes by at most ``steady_tol_pct`` % within ``hold_window_s`` (slope over that
+    window, within the stretch), so a slow run-up (0.7 rpm/s over an hour) is a run-up,
+    not a hold. Runs shorter than ``min_duration_s`` are merged into the longer
+    neighbour (common practice, no source).
+
+    Parameters
+    ----------
+    profile : SpeedProfile
+    steady_tol_rpm_s : float
+        Largest |acceleration| in rpm/s that may be steady (over ``smooth_s``).
+    min_duration_s : float
+        Shortest segment kept, in s.
+    smooth_s : float
+        Window of the acceleration estimate, in s.
+    steady_tol_pct, hold_window_s : float
+        Largest speed change, % of the speed, within ``hold_window_s`` s still steady.
+
+    Returns
+    -------
+    tuple of Segment, in time order, covering ``[profile.t_start, profile.t_end]``.
+    """
+    for name, v in (("steady_tol_rpm_s", steady_tol_rpm_s), ("min_duration_s", min_duration_s),
+                    ("smooth_s", smooth_s), ("steady_tol_pct", steady_tol_pct)):
+        if not (np.isfinite(v) and v >= 0):
+            raise DspError(invalid_value(name, v, "a non-negative number"))
+    if not (np.isfinite(hold_window_s) and hold_window_s > 0):
+        raise DspError(invalid_value("hold_window_s", hold_window_s, "a positive time in s"))
+    t0, t1 = profile.t_start, profile.t_end
+    dt = max(smooth_s / 4.0, (t1 - t0) / 20000.0, 1e-3)
+    n = max(3, int(np.floor((t1 - t0) / dt)) + 1)
+    tg = np.linspace(t0, t1, n)
+    rpm = profile.rpm(tg)
+    acc = _windowed_slope(profile.rev_times_s, tg, max(smooth_s, 2 * dt))
+    code = np.where(acc > steady_tol_rpm_s, 1, np.where(acc < -steady_tol_rpm_s, -1, 0))
+    runs = _runs(code)
+    _merge_short(runs, tg, min_duration_s)
+    code = _slow_sweeps(runs, profile, tg, rpm, steady_tol_pct, hold_window_s)
+    runs = _runs(code)
+    _merge_short(runs, tg, min_duration_s)
     _refine_boundaries(runs, acc, tg, max(smooth_s, 2 * dt))
     names = {1: "run-up", -1: "coast-down", 0: "steady"}
     out = []

@@ -75,3 +75,29 @@ def test_bad_options():
         cascade(x, FS, prof, speed_step_rpm=0.0)
     with pytest.raises(DspError, match="Invalid value for 'n_fft'"):
         cascade(x, FS, prof, n_fft=8)
+
+
+class TestPlanIgnoresJitter:
+    def test_slow_run_up_through_a_jittery_tach_gets_a_row_per_step(self):
+        # 0.7 rpm/s for 54 minutes (600 -> 2868 rpm, closed-form linear sweep), events
+        # quantised to a 5 kHz sample grid and interpolated as measured (fit="never"):
+        # per-revolution speeds jitter by up to 0.8 %, which summed over 94 000
+        # revolutions is far more than the 2268 rpm travelled. Rows every 50 rpm:
+        # 2268 / 50 = 45 steps, 46 rows.
+        sw = synth.linear_sweep(600.0, 0.7, 54 * 60.0)
+        rt = (np.floor(sw.rev_times() * 5000.0 + 0.37) + 0.5 - 0.37) / 5000.0
+        prof = speed_profile(rt, fit="never")
+        per_rev = 60.0 / np.diff(rt)
+        assert np.sum(np.abs(np.diff(per_rev))) > 100 * 2268.0
+        times, rpm = cascade_plan(prof, speed_step_rpm=50.0, max_rows=200)
+        assert times.size == pytest.approx(46, abs=1)
+        # rows a step apart, give or take the speed error of a 0.1 s stretch: the angle at
+        # each end is off by the jitter, 0.29 samples x 16.7 rev/s / 5 kHz = 1e-3 rev at
+        # 1000 rpm, so 60 x sqrt(2) x 1e-3 / 0.1 = 0.8 rpm rms; 5 rpm
+        assert np.all((np.diff(rpm) >= 50.0) & (np.diff(rpm) < 55.0))
+
+    def test_hold_gives_one_row(self):
+        rt = (np.floor(np.arange(3001) * 0.02 * 5000.0 + 0.37) + 0.5 - 0.37) / 5000.0
+        rt = rt + 3e-5 * np.random.default_rng(0).standard_normal(rt.size)
+        times, _ = cascade_plan(speed_profile(rt, fit="never"))
+        assert times.size == 1

@@ -214,3 +214,34 @@ class TestFitThroughJitter:
         assert not prof.fitted and prof.note == "" and prof.jitter_deg / 360 < FIT_JITTER_REV
         with pytest.raises(DspError, match="Invalid value for 'fit'"):
             speed_profile(np.arange(10.0), fit="sometimes")
+
+
+class TestSegmentRelative:
+    """Steady means a small relative speed change over a minute, not a slow rate."""
+
+    def test_slow_run_up_is_a_run_up(self):
+        # 0.7 rpm/s for 54 minutes (600 -> 2868 rpm, closed-form linear sweep) never
+        # exceeds the 10 rpm/s rate, but changes speed by 4 % a minute at 1000 rpm: a
+        # run-up, read through a 5 kHz sample-quantised tach as well.
+        sw = synth.linear_sweep(600.0, 0.7, 54 * 60.0)
+        rt = sw.rev_times()
+        for events in (rt, (np.floor(rt * 5000.0 + 0.37) + 0.5 - 0.37) / 5000.0):
+            segs = segment(speed_profile(events))
+            assert [s.kind for s in segs] == ["run-up"]
+            assert segs[0].rpm_end == pytest.approx(600.0 + 0.7 * 54 * 60.0, rel=2e-3)
+
+    def test_long_hold_with_hunting_and_drift_stays_steady(self):
+        # 20 minutes at 3000 rpm with a +-0.3 % speed-controller hunt (period 20 s) and a
+        # 1.5 % drift over the hold (0.075 % a minute): steady throughout.
+        def rpm(t):
+            return 3000.0 * (1 + 0.015 * t / 1200.0 + 0.003 * np.sin(2 * np.pi * t / 20.0))
+
+        tg = np.linspace(0, 1200.0, 1_200_001)
+        theta = np.concatenate([[0], np.cumsum(0.5 * (rpm(tg[1:]) + rpm(tg[:-1])) * np.diff(tg) / 60)])
+        rt = np.interp(np.arange(int(theta[-1])), theta, tg)
+        assert [s.kind for s in segment(speed_profile(rt))] == ["steady"]
+
+    def test_bad_hold_window(self):
+        prof = speed_profile(np.arange(200) * 0.02)
+        with pytest.raises(DspError, match="Invalid value for 'hold_window_s'"):
+            segment(prof, hold_window_s=0.0)
