@@ -920,3 +920,38 @@ def rising_at_top(speed_rpm, vector, *, amplitude_factor: float = 2.0,
             f"{lo:.0f} to {top:.0f} rpm (lag change {dlag:+.0f} deg); a critical may lie above "
             f"{top:.0f} rpm and cannot be located or judged from this run")
     return RisingAtTop(lo, top, float(first), float(last), 100 * rise, dlag, note)
+
+
+def first_candidate_rpm(speed_rpm, vectors, *, amplitude_factor: float = 2.0) -> float | None:
+    """Lowest confirmed critical speed in uncompensated 1X vectors, for choosing where
+    slow roll may be read (:func:`rundash.dsp.slowroll.choose_slow_roll_window`).
+
+    Runout adds a constant vector, which shifts neither a resonance's amplitude peak much
+    nor its phase rise; only peaks the phase confirms count, so a runout or noise bump
+    at low speed cannot push the slow-roll band down. No modal fit (a candidate only).
+
+    Parameters
+    ----------
+    speed_rpm : array_like, shape (n,)
+    vectors : array_like of complex, shape (n_channels, n) or (n,)
+
+    Returns
+    -------
+    float or None
+        None when no channel shows a confirmed critical (or the data are too few).
+    """
+    s = np.asarray(speed_rpm, dtype=float).ravel()
+    v = np.asarray(vectors, dtype=complex)
+    v = v[None, :] if v.ndim == 1 else v
+    best = None
+    for row in v:
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                found = find_criticals(s, row, amplitude_factor=amplitude_factor, fit=False)
+        except AnalysisError:
+            continue
+        for c in found:
+            if c.classification == "confirmed" and (best is None or c.speed_rpm < best):
+                best = float(c.speed_rpm)
+    return best

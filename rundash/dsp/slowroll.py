@@ -9,18 +9,157 @@ for the phasor convention).
 
 from __future__ import annotations
 
+import math
+from dataclasses import dataclass
+
 import numpy as np
 
 from rundash.errors import DspError, invalid_value
 
-__all__ = ["auto_slow_roll_window", "slow_roll_vector", "compensate"]
+__all__ = ["auto_slow_roll_window", "choose_slow_roll_window", "SlowRollChoice",
+           "slow_roll_vector", "compensate"]
+
+#: Tolerances of a steady slow-roll band: across the band the 1X of every proximity probe
+#: changes by at most this fraction in amplitude and this many degrees in phase (our own
+#: choice; common practice asks for "steady", no source gives numbers).
+SLOW_ROLL_AMPLITUDE_TOL = 0.10
+SLOW_ROLL_PHASE_TOL_DEG = 10.0
+#: The band must lie below this fraction of the first candidate critical speed (our own
+#: choice: there an undamped unbalance response is 0.2^2 / (1 - 0.2^2) = 4.2 % of its
+#: level well above the critical, and it changes with speed squared).
+SLOW_ROLL_BELOW_CRITICAL = 0.2
+
+
+@dataclass(frozen=True)
+class SlowRollChoice:
+    """The slow-roll band chosen from the data, or why none qualified.
+
+    Attributes
+    ----------
+    window : (low_rpm, high_rpm) or None
+    limit_rpm : float
+        Highest speed a band could reach (the lower of ``max_fraction`` x the top speed
+        and ``below_critical`` x the first candidate critical).
+    note : str
+        The choice or the refusal, in words.
+    """
+
+    window: tuple[float, float] | None
+    limit_rpm: float
+    note: str
+
+
+def choose_slow_roll_window(speed_rpm, vectors, *, first_critical_rpm: float | None = None,
+                            max_fraction: float = 0.15, below_critical: float = SLOW_ROLL_BELOW_CRITICAL,
+                            width_fraction: float = 0.05, min_speed_rpm: float = 0.0,
+                            min_blocks: int = 5, amplitude_tol: float = SLOW_ROLL_AMPLITUDE_TOL,
+                            phase_tol_deg: float = SLOW_ROLL_PHASE_TOL_DEG) -> SlowRollChoice:
+    """Choose a slow-roll band where the 1X is steady, well below the first critical.
+
+    A band ``width_fraction`` x the top speed wide qualifies when it lies below
+    ``limit = min(max_fraction x top, below_critical x first_critical_rpm)``, holds at
+    least ``min_blocks`` blocks, and the 1X vector of every channel is steady across it:
+    a complex least-squares line through the band's vectors against speed changes, over
+    the band's effective span (2 sqrt(3) x the standard deviation of its speeds, the
+    span of evenly spread speeds), by at most ``amplitude_tol`` in amplitude and
+    ``phase_tol_deg`` in phase (a vector smaller than 2 % of the channel's largest 1X has
+    no meaningful phase: then only its change must stay within that 2 %). Of the
+    qualifying bands the lowest is taken: the dynamic response is least there. A
+    long dwell counts for nothing by itself: a warm-up hold at a higher speed is steady
+    because the speed is, not because the response is negligible.
+
+    Parameters
+    ----------
+    speed_rpm : array_like, shape (n_blocks,)
+    vectors : array_like of complex, shape (n_channels, n_blocks) or (n_blocks,)
+        Uncompensated 1X vectors of the channels to be compensated (proximity probes).
+    first_critical_rpm : float, optional
+        Lowest candidate critical speed (e.g. from the uncompensated 1X); None when the
+        run shows none.
+    max_fraction, below_critical, width_fraction, min_speed_rpm, min_blocks :
+        Band limits (fractions of the top speed and of the critical, rpm, count).
+    amplitude_tol, phase_tol_deg : float
+        Steadiness tolerances.
+
+    Returns
+    -------
+    SlowRollChoice
+    """
+    s = np.asarray(speed_rpm, dtype=np.float64).ravel()
+    v = np.asarray(vectors, dtype=np.complex128)
+    v = v[None, :] if v.ndim == 1 else v
+    if v.ndim != 2 or v.shape[1] != s.size:
+        raise DspError(invalid_value("vectors", f"shape {np.shape(vectors)}",
+                                     f"(n_channels, {s.size}) like speed_rpm"))
+    for name, val in (("max_fraction", max_fraction), ("width_fraction", width_fraction),
+                      ("below_critical", below_critical)):
+        if not (np.isfinite(val) and 0 < val <= 1):
+            raise DspError(invalid_value(name, val, "a fraction in (0, 1]"))
+    good = np.isfinite(s) & np.all(np.isfinite(v), axis=0)
+    if not np.any(good):
+        return SlowRollChoice(None, 0.0, "no slow-roll window: no finite speeds")
+    top = float(np.max(s[good]))
+    limit = max_fraction * top
+    why = f"{100 * max_fraction:.0f} % of the top speed {top:.0f} rpm"
+    if first_critical_rpm is not None and np.isfinite(first_critical_rpm) and first_critical_rpm > 0 \
+            and below_critical * first_critical_rpm < limit:
+        limit = below_critical * float(first_critical_rpm)
+        why = (f"{100 * below_critical:.0f} % of the first candidate critical at "
+               f"{first_critical_rpm:.0f} rpm")
+    keep = good & (s <= limit) & (s >= min_speed_rpm)
+    width = width_fraction * top
+    tol_txt = (f"the 1X steady within {100 * amplitude_tol:.0f} % and {phase_tol_deg:g} deg "
+               f"on every proximity probe")
+    none = SlowRollChoice(None, limit, (
+        f"no slow-roll window qualifies: no band below {limit:.0f} rpm ({why}) holds "
+        f"{min_blocks} revolutions with {tol_txt}; proximity vectors are not compensated "
+        f"(set [processing] slow_roll_rpm in the machine description, or --slow-roll)"))
+    if np.count_nonzero(keep) < min_blocks:
+        return none
+    order = np.argsort(s[keep], kind="stable")
+    c = s[keep][order]
+    vv = v[:, keep][:, order]
+    scale = np.max(np.abs(v[:, good]), axis=1)  # per channel
+    x = c - c.mean()
+    cum = lambda a: np.concatenate([np.zeros(a.shape[:-1] + (1,), a.dtype), np.cumsum(a, axis=-1)], axis=-1)
+    s0, sx, sxx = cum(np.ones_like(x)), cum(x), cum(x * x)
+    sv, sxv = cum(vv), cum(vv * x[None, :])
+    i = np.arange(c.size)
+    j = np.searchsorted(c, c + width, side="right")
+    n = s0[j] - s0[i]
+    for k in np.flatnonzero(n >= min_blocks):  # lowest first
+        a, b = i[k], j[k]
+        nn = n[k]
+        mx = (sx[b] - sx[a]) / nn
+        var = max((sxx[b] - sxx[a]) / nn - mx * mx, 0.0)
+        mean = (sv[:, b] - sv[:, a]) / nn
+        slope = ((sxv[:, b] - sxv[:, a]) / nn - mx * mean) / var if var > 0 else np.zeros_like(mean)
+        half = math.sqrt(3.0 * var)  # half the effective span
+        lo_v, hi_v = mean - slope * half, mean + slope * half
+        small = np.abs(mean) < 0.02 * scale
+        amp_ok = np.abs(np.abs(hi_v) - np.abs(lo_v)) <= amplitude_tol * np.abs(mean)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            ph = np.degrees(np.abs(np.angle(hi_v / lo_v)))
+        ph_ok = np.nan_to_num(ph, nan=0.0) <= phase_tol_deg
+        tiny_ok = np.abs(hi_v - lo_v) <= 0.02 * scale
+        if np.all(np.where(small, tiny_ok, amp_ok & ph_ok)):
+            lo = float(c[a])
+            hi = float(min(lo + width, limit))
+            return SlowRollChoice((lo, hi), limit, (
+                f"slow-roll window {lo:.0f}-{hi:.0f} rpm chosen from the data: the lowest band "
+                f"of {int(nn)} revolutions with {tol_txt}, below {limit:.0f} rpm ({why})"))
+    return none
 
 
 def auto_slow_roll_window(speed_rpm, time_s, *, max_fraction: float = 0.15,
                           width_fraction: float = 0.05, min_speed_rpm: float = 0.0,
                           max_accel_rpm_s: float | None = None,
                           min_blocks: int = 5) -> tuple[float, float] | None:
-    """Choose a slow-roll speed band automatically.
+    """Choose a slow-roll speed band from the speeds alone (no vectors at hand).
+
+    :func:`choose_slow_roll_window` is the rule processing uses: it checks that the 1X
+    is steady and that the band lies well below the first critical. Without vectors
+    only this cruder rule is possible.
 
     Rule (common practice, no source): consider the blocks below ``max_fraction`` of the
     record's top speed and above ``min_speed_rpm`` (and, if given, with |acceleration|
@@ -76,11 +215,11 @@ def auto_slow_roll_window(speed_rpm, time_s, *, max_fraction: float = 0.15,
     dur = 1.0 / np.maximum(cand, 1e-9)
     cum = np.concatenate([[0.0], np.cumsum(dur)])
     spent = np.where(counts >= min_blocks, cum[hi_idx] - cum[np.arange(cand.size)], -1.0)
+    if not np.any(counts >= min_blocks):
+        return None  # enough low blocks, but spread wider than any one band
     # the lowest band within 5 % of the longest dwell (a sweep at constant deceleration
     # spends equal time in every band: then the lowest, where the response is least)
     best = int(np.flatnonzero(spent >= 0.95 * spent.max())[0])
-    if counts[best] < min_blocks:
-        return None
     lo = float(cand[best])
     return lo, float(min(lo + width, max_fraction * top))
 

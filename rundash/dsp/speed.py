@@ -29,7 +29,7 @@ import numpy as np
 from scipy.interpolate import CubicSpline, PchipInterpolator
 from scipy.linalg import LinAlgError, solveh_banded
 
-from rundash.dsp.tach import timing_jitter
+from rundash.dsp.tach import local_jitter_s, timing_jitter
 from rundash.errors import DspError, TachError, invalid_value
 
 __all__ = ["SpeedProfile", "speed_profile", "fit_event_times", "Segment", "segment", "run_kind"]
@@ -79,19 +79,28 @@ def _whittaker(t: np.ndarray, lam: float, w: np.ndarray | None = None) -> np.nda
     return t - (r if iw is None else r * iw)
 
 
-def fit_event_times(rev_times_s, jitter_s: float) -> tuple[np.ndarray, float]:
+def fit_event_times(rev_times_s, jitter_s) -> tuple[np.ndarray, float]:
     """Once-per-rev event times fitted through their timing jitter.
 
     A shaft cannot change speed from one revolution to the next as jittered events
     suggest; the events are fitted (not interpolated) by Whittaker-Henderson smoothing
     of time against revolution number with a third-difference penalty, which leaves
-    any locally constant angular acceleration (time quadratic in angle) untouched. The
-    smoothing weight follows the discrepancy principle: the robust rms residual
-    (1.4826 x the median absolute residual) equals the estimated jitter ``jitter_s``
+    any locally constant angular acceleration (time quadratic in angle) untouched. Each
+    event is weighted by the inverse square of its jitter (a sample-quantised edge
+    jitters by a fixed time, so a record from 200 to 6000 rpm holds events of very
+    different quality). The smoothing weight follows the discrepancy principle: the
+    robust rms of the residuals in jitters (1.4826 x the median absolute value) is one
     (bisection on log lambda; lambda at most 1e12). Where the speed truly changes
-    faster than the fit follows (a hard start, a trip), residuals beyond two jitters
-    get their events weighted up until the fit follows them; the first and last two
-    events are weighted up from the start.
+    faster than the fit follows (a hard start, a trip), residuals beyond two jitters get
+    their events weighted up until the fit follows them; the first and last two events
+    are weighted up from the start.
+
+    Parameters
+    ----------
+    rev_times_s : array_like, shape (n,)
+    jitter_s : float or array_like, shape (n,)
+        Rms timing jitter in s, one for all events or per event
+        (:func:`rundash.dsp.tach.local_jitter_s`).
 
     Returns
     -------
@@ -106,35 +115,41 @@ def fit_event_times(rev_times_s, jitter_s: float) -> tuple[np.ndarray, float]:
     of regularization", Soviet Math. Dokl. 7 (1966) 414-417 (discrepancy principle).
     """
     t = np.asarray(rev_times_s, dtype=np.float64).ravel()
-    if t.size < 8 or not (np.isfinite(jitter_s) and jitter_s > 0):
+    sig = np.broadcast_to(np.asarray(jitter_s, dtype=np.float64), t.shape).copy() \
+        if np.ndim(jitter_s) == 0 or np.size(jitter_s) == t.size else None
+    if t.size < 8 or sig is None or not np.all(np.isfinite(sig)):
         return t, 0.0
+    ref = float(np.max(sig))
+    if not ref > 0:
+        return t, 0.0
+    # weights from 1 (the worst events) to 400 (events 20 times steadier or better):
+    # bounded, so the banded solve stays well conditioned
+    sig = np.maximum(sig, 0.05 * ref)
+    base = (ref / sig) ** 2
     t0 = t[0]
     tc = t - t0  # the banded solve works on differences; keep the numbers small anyway
     lo, hi = -2.0, math.log10(_LAMBDA_MAX)
     best = None
     try:
-        # the weight: the residuals' robust rms (1.4826 x median |r|) equals the jitter,
-        # so the few revolutions of a hard start or a sudden speed change do not set it
         for _ in range(18):
             mid = 0.5 * (lo + hi)
-            u = _whittaker(tc, 10.0 ** mid)
-            if 1.4826 * float(np.median(np.abs(u - tc))) > jitter_s:
+            u = _whittaker(tc, 10.0 ** mid, base)
+            if 1.4826 * float(np.median(np.abs(u - tc) / sig)) > 1.0:
                 hi = mid
             else:
                 lo, best = mid, u
             if hi - lo < 0.05:
                 break
         if best is not None:
-            # where the speed really changes faster than the fit follows (residuals
-            # beyond 3 jitters), weight the events up until the fit follows them
-            w = np.ones(tc.size)
-            w[:2] = w[-2:] = _END_WEIGHT
+            w = base.copy()
+            w[:2] *= _END_WEIGHT
+            w[-2:] *= _END_WEIGHT
             best = _whittaker(tc, 10.0 ** lo, w)
-            for _ in range(4):
-                big = np.abs(best - tc) / (_FOLLOW_JITTERS * jitter_s)
+            for _ in range(8):
+                big = np.abs(best - tc) / (_FOLLOW_JITTERS * sig)
                 if not np.any(big > 1.0):
                     break
-                w = np.maximum(w, np.where(big > 1.0, big * big * w, 1.0))
+                w = np.where(big > 1.0, big * big * w, w)
                 best = _whittaker(tc, 10.0 ** lo, w)
     except (LinAlgError, ValueError):
         return t, 0.0
@@ -165,11 +180,11 @@ class SpeedProfile:
     """
 
     __slots__ = ("_t", "_c", "model", "_spline", "_measured", "jitter_s", "jitter_deg",
-                 "fit_lambda")
+                 "fit_lambda", "worst_jitter_deg")
 
     def __init__(self, rev_times_s: np.ndarray, model: Literal["cubic", "pchip"] = "cubic", *,
                  measured_s: np.ndarray | None = None, jitter: tuple[float, float] | None = None,
-                 fit_lambda: float = 0.0):
+                 fit_lambda: float = 0.0, worst_jitter_deg: float | None = None):
         t = np.asarray(rev_times_s, dtype=np.float64)
         k = np.arange(t.size, dtype=np.float64)
         spline = None
@@ -190,6 +205,8 @@ class SpeedProfile:
         self.jitter_s, self.jitter_deg = jitter if jitter is not None else (None, None)
         #: smoothing weight of the fit through the events (0: interpolated)
         self.fit_lambda = float(fit_lambda)
+        #: rms jitter of the worst tenth of the events, degrees of rotation
+        self.worst_jitter_deg = worst_jitter_deg
 
     @property
     def fitted(self) -> bool:
@@ -208,9 +225,9 @@ class SpeedProfile:
         if not self.fitted:
             return ""
         rms = float(np.sqrt(np.mean((self._t - self._measured) ** 2)))
-        return (f"speed model fitted through the tach event jitter ({1e6 * self.jitter_s:.1f} us, "
-                f"{self.jitter_deg:.2f} deg of rotation rms): events moved by "
-                f"{1e6 * rms:.1f} us rms")
+        worst = self.worst_jitter_deg if self.worst_jitter_deg is not None else self.jitter_deg
+        return (f"speed model fitted through the tach event jitter (up to {worst:.2f} deg of "
+                f"rotation rms), not interpolated: events moved by {1e6 * rms:.1f} us rms")
 
     def __repr__(self) -> str:
         return (f"SpeedProfile({self.n_revs} revs, {self.t_start:.3f}-{self.t_end:.3f} s, "
@@ -320,8 +337,8 @@ def speed_profile(rev_times_s, *, model: Literal["cubic", "pchip"] = "cubic",
     fit : {'auto', 'never', 'always'}
         Whether the spline goes through the events as measured or through times fitted
         through their timing jitter (:func:`fit_event_times`, with the jitter of
-        :func:`rundash.dsp.tach.timing_jitter`). ``'auto'`` fits when the rms jitter
-        exceeds :data:`FIT_JITTER_REV` of a revolution: sample-quantised edges (a sharp
+        :func:`rundash.dsp.tach.local_jitter_s`). ``'auto'`` fits when the rms jitter
+        of the worst tenth of the events exceeds :data:`FIT_JITTER_REV` of a revolution: sample-quantised edges (a sharp
         notch at a low sample rate) or a noisy tach, where interpolating each event
         would turn the jitter into speed and phase swings the shaft cannot make.
 
@@ -349,11 +366,15 @@ def speed_profile(rev_times_s, *, model: Literal["cubic", "pchip"] = "cubic",
         raise TachError(invalid_value("rev_times_s", "non-increasing or non-finite times",
                                       "strictly increasing finite times in s"))
     jit = timing_jitter(t)
-    fitted, lam = t, 0.0
-    if jit is not None and fit != "never" and (
-            fit == "always" or jit[1] / 360.0 > FIT_JITTER_REV):
-        fitted, lam = fit_event_times(t, jit[0])
-    return SpeedProfile(fitted, model, measured_s=t, jitter=jit, fit_lambda=lam)
+    fitted, lam, worst_rev = t, 0.0, None
+    if jit is not None:
+        local = local_jitter_s(t)
+        # the jitter in revolutions of the worst tenth (quantisation grows with speed)
+        worst_rev = float(np.percentile(local[1:] / np.diff(t), 90.0))
+        if fit == "always" or (fit == "auto" and worst_rev > FIT_JITTER_REV):
+            fitted, lam = fit_event_times(t, local)
+    return SpeedProfile(fitted, model, measured_s=t, jitter=jit, fit_lambda=lam,
+                        worst_jitter_deg=None if worst_rev is None else 360.0 * worst_rev)
 
 
 @dataclass(frozen=True)

@@ -673,13 +673,15 @@ def _check_plausible(pulses: np.ndarray) -> None:
 
 def edge_samples(x, fs: float, event_times_s, *, t0: float = 0.0,
                  max_events: int = 2000) -> float | None:
-    """Median number of sample intervals a tach edge spans, at the detected events.
+    """Sample intervals a tach edge spans, at the sharpest tenth of the detected events.
 
     For each event (at most ``max_events``, evenly chosen) the step between the two
     samples that straddle the crossing is compared with the local span (highest minus
     lowest sample within 4 samples of it): an edge sharper than the sample interval
     steps the whole span at once (1.0); a linear ramp over ``r`` samples steps ``1/r``
-    of it. Results above about 8 only say "well sampled" (the 9-sample window).
+    of it. Results above about 8 only say "well sampled" (the 9-sample window). An edge
+    of fixed angular width spans fewer samples the faster the shaft turns, so the 10th
+    percentile over the events is returned: the edges of the top tenth of the speeds.
     Linear interpolation of the threshold crossing is exact on a ramp spanning more
     than one sample, and quantised to the sample grid on a sharper edge (DESIGN.md
     section 4; common practice, no source).
@@ -712,7 +714,7 @@ def edge_samples(x, fs: float, event_times_s, *, t0: float = 0.0,
     ok = (step > 0) & (span > 0)
     if not np.any(ok):
         return None
-    return float(np.median(span[ok] / step[ok]))
+    return float(np.percentile(span[ok] / step[ok], 10.0))
 
 
 def timing_jitter(event_times_s) -> tuple[float, float] | None:
@@ -737,6 +739,34 @@ def timing_jitter(event_times_s) -> tuple[float, float] | None:
     return js, 360.0 * js / float(np.median(np.diff(t)))
 
 
+def local_jitter_s(event_times_s, window: int = 200) -> np.ndarray:
+    """Rms timing jitter per event (s), as :func:`timing_jitter` over blocks of ``window``
+    events (the largest of five neighbouring blocks) and interpolated between block
+    centres: a record whose tach edge is resolved at 200 rpm and quantised to the sample
+    grid at 6000 rpm has no single jitter.
+
+    Returns
+    -------
+    ndarray, shape (n_events,)
+        Empty with fewer than 8 events.
+    """
+    t = np.asarray(event_times_s, dtype=np.float64).ravel()
+    if t.size < 8:
+        return np.empty(0)
+    a = np.abs(t[3:] - 3.0 * t[2:-1] + 3.0 * t[1:-2] - t[:-3])
+    w = int(max(8, min(window, a.size)))
+    nb = max(1, a.size // w)
+    edges = np.linspace(0, a.size, nb + 1).astype(np.int64)
+    med = np.array([np.median(a[edges[b]:edges[b + 1]]) for b in range(nb)])
+    # the largest of five neighbouring blocks: while a revolution lasts nearly a whole
+    # number of samples, a quantised edge's error hardly changes from one event to the
+    # next and its third differences vanish, though the error itself does not
+    pad = np.pad(med, 2, mode="edge")
+    med = np.max(np.lib.stride_tricks.sliding_window_view(pad, 5), axis=1)
+    centre = 0.5 * (edges[:-1] + edges[1:]) + 1.5  # d3[i] sits between events i+1, i+2
+    return 1.4826 / math.sqrt(20.0) * np.interp(np.arange(t.size), centre, med)
+
+
 @dataclass(frozen=True)
 class TachQuality:
     """How far the once-per-rev events can be trusted.
@@ -747,7 +777,8 @@ class TachQuality:
         Median sample intervals spanned by an edge (:func:`edge_samples`).
     jitter_s, jitter_deg : float or None
         Rms timing jitter of the once-per-rev events (:func:`timing_jitter`), in s and
-        in degrees of rotation.
+        in degrees of rotation; the notes quote the worst tenth of the events
+        (:func:`local_jitter_s`).
     fs : float or None
         Sample rate of the tach channel in Hz.
     notes : tuple of str
@@ -759,6 +790,7 @@ class TachQuality:
     jitter_deg: float | None
     fs: float | None
     notes: tuple[str, ...]
+    worst_jitter_s: float | None = None
 
     @property
     def quantised(self) -> bool:
@@ -768,16 +800,18 @@ class TachQuality:
     def angle_bound_rad(self, speed_rpm) -> np.ndarray:
         """Bound of the reference angle error that fitting cannot remove, in radians.
 
-        A sample-quantised event is anywhere within half a sample of where it is read,
-        and while the revolution lasts close to a whole number of samples that offset
-        stays put for many revolutions: half a sample of rotation,
-        ``pi * rpm / (60 fs)``. Zero for well-sampled edges (their jitter is random and
-        shows in the scatter of the vectors).
+        An event read from an edge the sample grid does not resolve is off by an amount
+        that, while a revolution lasts close to a whole number of samples, stays put for
+        many revolutions: no fit through the events removes it. Its bound is twice the
+        rms jitter of the worst tenth of the events (a step edge: 2 / sqrt(12) of a
+        sample, about the half sample it can be off), as rotation at ``speed_rpm``.
+        Zero for well-sampled edges (their jitter is random and shows in the scatter of
+        the vectors).
         """
         n = np.asarray(speed_rpm, dtype=np.float64)
-        if not self.quantised or not self.fs:
+        if not self.quantised or not self.worst_jitter_s:
             return np.zeros(n.shape)
-        return np.pi * np.abs(n) / (60.0 * self.fs)
+        return 2.0 * self.worst_jitter_s * 2.0 * np.pi * np.abs(n) / 60.0
 
 
 #: An edge spanning fewer sample intervals than this is under-sampled (common practice,
@@ -802,18 +836,24 @@ def tach_quality(edge_span_samples: float | None, rev_times_s,
     fs : float, optional
         Sample rate of the tach channel in Hz (for :meth:`TachQuality.angle_bound_rad`).
     """
-    jit = timing_jitter(rev_times_s)
+    t = np.asarray(rev_times_s, dtype=np.float64).ravel()
+    jit = timing_jitter(t)
     js, jd = jit if jit is not None else (None, None)
+    worst = worst_s = None  # rms jitter of the worst tenth of the events, deg and s
+    if jit is not None:
+        local = local_jitter_s(t)
+        worst = float(np.percentile(360.0 * local[1:] / np.diff(t), 90.0))
+        worst_s = float(np.percentile(local, 90.0))
     notes = []
     if edge_span_samples is not None and edge_span_samples < MIN_EDGE_SAMPLES:
         notes.append(
             f"tach edges span {edge_span_samples:.1f} sample interval(s) (fewer than "
             f"{MIN_EDGE_SAMPLES:g}): the events are quantised to the sample grid"
-            + (f", about {jd:.2f} deg of rotation rms" if jd is not None else "")
+            + (f", up to {worst:.2f} deg of rotation rms" if worst is not None else "")
             + "; a higher sample rate or a slower edge gives a better phase reference")
-    elif jd is not None and jd > MAX_JITTER_DEG:
-        notes.append(f"tach events jitter by {jd:.2f} deg of rotation rms (more than "
+    elif worst is not None and worst > MAX_JITTER_DEG:
+        notes.append(f"tach events jitter by up to {worst:.2f} deg of rotation rms (more than "
                      f"{MAX_JITTER_DEG:g} deg): check the tach signal and its threshold")
     for n in notes:
         warnings.warn(n, TachQualityWarning, stacklevel=2)
-    return TachQuality(edge_span_samples, js, jd, fs, tuple(notes))
+    return TachQuality(edge_span_samples, js, jd, fs, tuple(notes), worst_s)
