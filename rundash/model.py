@@ -99,6 +99,17 @@ class DataSpec:
 
 
 @dataclass(frozen=True)
+class ProcessingSpec:
+    """Processing choices a machine description may fix (``[processing]``).
+
+    ``slow_roll_rpm`` is the slow-roll speed band (low, high) in rpm; ``None`` lets
+    processing choose one from the data.
+    """
+
+    slow_roll_rpm: tuple[float, float] | None = None
+
+
+@dataclass(frozen=True)
 class MachineDescription:
     """Everything a machine description file says."""
 
@@ -107,6 +118,7 @@ class MachineDescription:
     probes: tuple[ProbeSpec, ...]
     data: DataSpec = field(default_factory=DataSpec)
     source: str = ""
+    processing: ProcessingSpec = field(default_factory=ProcessingSpec)
 
     def probe(self, name: str) -> ProbeSpec:
         for p in self.probes:

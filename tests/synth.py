@@ -148,3 +148,30 @@ def sdof_unbalance_response(sweep: Sweep, fs, *, fn_hz, zeta, e_m=1e-5, t_end=No
     sol = solve_ivp(rhs, (0.0, t_end), y0, t_eval=t, method="DOP853", rtol=1e-9,
                     atol=1e-12 * e_m)
     return t, sol.y[0]
+
+
+def piecewise_sweep(knots_t, knots_rpm) -> Sweep:
+    """rpm(t) piecewise linear through the knots (holds, ramps, a stop), theta(t) its exact
+    integral in revolutions (a quadratic on each piece)."""
+    kt = np.asarray(knots_t, dtype=np.float64)
+    kr = np.asarray(knots_rpm, dtype=np.float64)
+    cum = np.concatenate([[0.0], np.cumsum(0.5 * (kr[1:] + kr[:-1]) * np.diff(kt) / 60.0)])
+
+    def rpm(t):
+        return np.interp(t, kt, kr)
+
+    def theta(t):
+        t = np.asarray(t, dtype=np.float64)
+        k = np.clip(np.searchsorted(kt, t, side="right") - 1, 0, kt.size - 2)
+        s = t - kt[k]
+        slope = (kr[k + 1] - kr[k]) / (kt[k + 1] - kt[k])
+        return cum[k] + (kr[k] * s + 0.5 * slope * s * s) / 60.0
+
+    return Sweep(theta=theta, rpm=rpm, duration_s=float(kt[-1]))
+
+
+def notch_tach(theta, width_deg, *, gap=5.0, depth=5.0):
+    """A proximity tach over a keyway notch with sharp edges: ``gap`` volts, ``gap - depth``
+    for ``width_deg`` of each revolution from theta = 0 (the falling edge is the event)."""
+    phase = np.mod(np.asarray(theta), 1.0)
+    return np.where(phase < width_deg / 360.0, gap - depth, gap)

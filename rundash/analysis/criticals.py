@@ -28,6 +28,8 @@ from rundash.analysis.amplification import (
 from rundash.errors import AnalysisError, SweepRateWarning, invalid_value
 
 Direction = Literal["run-up", "coast-down"]
+Measure = Literal["displacement", "velocity", "acceleration"]
+_INTEGRATIONS = {"displacement": 0, "velocity": 1, "acceleration": 2}
 Classification = Literal["confirmed", "amplitude-only", "phase-only"]
 Confidence = Literal["high", "medium", "low"]
 
@@ -364,7 +366,8 @@ def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
                    bin_rpm: float | None = None, smooth_rpm: float | None = None,
                    critically_damped_af: float = CRITICALLY_DAMPED_AF,
                    quasi_steady_ratio: float = QUASI_STEADY_RATIO,
-                   fit: bool = True, amplitude_floor=None) -> tuple[Critical, ...]:
+                   fit: bool = True, amplitude_floor=None,
+                   measure: Measure = "displacement") -> tuple[Critical, ...]:
     """Find and classify the critical speeds in one probe's 1X response.
 
     Steps: (1) average the complex vectors into speed bins (``bin_rpm``) and smooth them
@@ -431,6 +434,15 @@ def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
         measured vector but not the subtracted slow-roll vector. A peak must rise above
         its base by more than twice the floor (the bound at the peak and at its base);
         default none.
+    measure : {'displacement', 'velocity', 'acceleration'}
+        What the vectors measure. Velocity and acceleration are integrated to the
+        displacement-equivalent 1X (divided by ``j omega`` once or twice) before anything
+        is read: their extra factor of speed moves the peak up (closed form for an SDOF
+        unbalance response, peak of ``r^3 / |1 - r^2 + 2 j zeta r|`` at
+        ``r^2 = 2 - 4 zeta^2 - sqrt(1 - 16 zeta^2 + 16 zeta^4)``, against
+        ``r^2 = 1 / (1 - 2 zeta^2)`` for displacement; 1.1 % apart at zeta 0.1), and the
+        AF and the phase are the displacement response's. Reported amplitudes and lags
+        stay those of the measured quantity at the peak speed.
 
     Returns
     -------
@@ -492,8 +504,52 @@ def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
         floor = floor[good]
     if s.size < 20 or np.ptp(s) <= 0:
         raise AnalysisError(invalid_value("speed_rpm", f"{s.size} finite points", "at least 20 finite points over a speed range"))
+    if measure not in _INTEGRATIONS:
+        raise AnalysisError(invalid_value("measure", measure, ", ".join(map(repr, _INTEGRATIONS))))
+    k_int = _INTEGRATIONS[measure]
+    if k_int:
+        jw = (1j * 2.0 * math.pi * s / 60.0) ** k_int
+        v = v / jw
+        if floor is not None:
+            floor = floor / np.abs(jw)
+    found = _find(s, v, t, float(amplitude_factor), direction, min_prominence, min_height,
+                  phase_confirm_deg, bin_rpm, smooth_rpm, critically_damped_af,
+                  quasi_steady_ratio, fit, floor)
+    if k_int:
+        found = [_as_measured(c, k_int, measure) for c in found]
+    for c in found:
+        if c.sweep_note:
+            warnings.warn(f"critical at {c.speed_rpm:.0f} rpm: {c.sweep_note}", SweepRateWarning,
+                          stacklevel=2)
+    return tuple(sorted(found, key=lambda c: c.speed_rpm))
 
-    curve = _prepare(s, v, float(amplitude_factor), bin_rpm, smooth_rpm, floor)
+
+def _as_measured(c: Critical, k: int, measure: str) -> Critical:
+    """A critical found on the displacement-equivalent 1X, with the amplitudes and lags of
+    the measured velocity (acceleration) at its speeds: x (j omega)^k, lag - 90 k deg."""
+    def scale(rpm):
+        return (2.0 * math.pi * rpm / 60.0) ** k
+
+    hp = c.half_power
+    pk = c.peak_speed_rpm if c.peak_speed_rpm is not None else c.speed_rpm
+    if hp is not None:
+        hp = replace(hp, peak_amplitude=hp.peak_amplitude * scale(hp.nc_rpm))
+    shift = 90.0 * k
+    return replace(
+        c, half_power=hp,
+        peak_amplitude=None if c.peak_amplitude is None else c.peak_amplitude * scale(pk),
+        lag_at_peak_deg=None if c.lag_at_peak_deg is None else (c.lag_at_peak_deg - shift) % 360.0,
+        baseline_lag_deg=(c.baseline_lag_deg - shift) % 360.0,
+        evidence=c.evidence + (
+            f"identified on the displacement-equivalent 1X (the {measure} vector divided by "
+            f"{'j omega' if k == 1 else '(j omega)^2'}): the extra factor of speed in a {measure} "
+            f"reading moves its own peak above the displacement peak; amplitude and lags "
+            f"quoted as measured ({measure})",))
+
+
+def _find(s, v, t, afac, direction, min_prominence, min_height, phase_confirm_deg, bin_rpm,
+          smooth_rpm, critically_damped_af, quasi_steady_ratio, fit, floor) -> list[Critical]:
+    curve = _prepare(s, v, afac, bin_rpm, smooth_rpm, floor)
     amp = curve.amp
     idx, props = signal.find_peaks(amp, prominence=1e-12 * amp.max())
     # significance: 8 noise sigmas of the smoothed curve, twice the floor
@@ -505,16 +561,12 @@ def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
     bands: list[tuple[float, float]] = []
     for i, _ in keep:
         found.append(_from_peak(curve, int(i), s, t, 8.0 * curve.noise[i], phase_confirm_deg, critically_damped_af,
-                                quasi_steady_ratio, fit, direction, float(amplitude_factor)))
+                                quasi_steady_ratio, fit, direction, afac))
         bands.append(found[-1].band_rpm)
     found = _drop_beating(found)
     found.extend(_phase_only(curve, bands, s, t, critically_damped_af, quasi_steady_ratio, fit,
-                             direction, float(amplitude_factor)))
-    for c in found:
-        if c.sweep_note:
-            warnings.warn(f"critical at {c.speed_rpm:.0f} rpm: {c.sweep_note}", SweepRateWarning,
-                          stacklevel=2)
-    return tuple(sorted(found, key=lambda c: c.speed_rpm))
+                             direction, afac))
+    return found
 
 
 def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min, do_fit,

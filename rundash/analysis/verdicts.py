@@ -227,20 +227,31 @@ def judge(criticals, *, min_operating_speed_rpm: float, max_continuous_speed_rpm
 
 
 def summarize(margins, *, profile, min_operating_speed_rpm: float, max_continuous_speed_rpm: float,
-              level_checks=()) -> RunVerdict:
-    """Run summary of margin verdicts and level checks; carries :data:`rundash.CAUTION`."""
+              level_checks=(), top_speed_rpm: float | None = None) -> RunVerdict:
+    """Run summary of margin verdicts and level checks; carries :data:`rundash.CAUTION`.
+
+    ``top_speed_rpm`` is the highest speed the run reached: below the minimum operating
+    speed the run says nothing of the speeds between it and the range, where a critical
+    may lie, so it is at best ``'not judged'`` (a failing margin still fails).
+    """
     prof = as_profile(profile)
     margins, checks = tuple(margins), tuple(level_checks)
     notes = []
     if prof.needs_confirmation:
         notes.append(f"profile {prof.name!r} needs the user's confirmation: {prof.notes}")
     verdicts = [m.verdict for m in margins]
+    short = top_speed_rpm is not None and top_speed_rpm < float(min_operating_speed_rpm)
     if "fail" in verdicts or any(c.status == "exceeds" for c in checks):
         overall = "fail"
-    elif "not judged" in verdicts:
+    elif "not judged" in verdicts or short:
         overall = "not judged"
     else:
         overall = "pass"
+    if short:
+        notes.append(f"the run never reached the operating range: top speed {top_speed_rpm:.0f} "
+                     f"rpm, range {float(min_operating_speed_rpm):.0f}-"
+                     f"{float(max_continuous_speed_rpm):.0f} rpm; a critical between them cannot "
+                     f"be seen, so the run is not judged")
     if not margins:
         notes.append("no critical speed found in the speed range of the run")
     if any(c.status == "reference only" for c in checks):

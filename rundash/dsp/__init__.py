@@ -4,9 +4,15 @@ Once-per-rev reference (:mod:`rundash.dsp.tach`)
     detect_edges        -- event times of a tach channel's chosen edge, sub-sample
     once_per_rev        -- once-per-rev events with missing/extra pulse repair
     OncePerRev          -- its result
+    edge_samples        -- sample intervals a tach edge spans (under 2: quantised)
+    timing_jitter       -- rms jitter of once-per-rev events (third differences)
+    tach_quality        -- judge the reference, warn (TachQualityWarning)
+    TachQuality         -- its result, with the angle bound a fit cannot remove
 
 Speed (:mod:`rundash.dsp.speed`)
-    speed_profile       -- smooth cubic angle model from the reference events
+    speed_profile       -- smooth cubic angle model from the reference events (fitted
+                           through their jitter when they jitter)
+    fit_event_times     -- the events fitted through their timing jitter
     SpeedProfile        -- angle_rev(t), rpm(t), time_at_angle(a), t_start, t_end
     segment             -- run-up / coast-down / steady segments
     Segment             -- one segment
@@ -32,7 +38,10 @@ Vold–Kalman filter (:mod:`rundash.dsp.vold_kalman`)
     VoldKalmanResult    -- its result
 
 Slow roll (:mod:`rundash.dsp.slowroll`)
-    auto_slow_roll_window -- a low, steady speed band chosen from the data
+    choose_slow_roll_window -- the lowest band where the 1X is steady, below the first
+                           candidate critical
+    SlowRollChoice      -- its result, with the reason
+    auto_slow_roll_window -- a band from the speeds alone (no vectors at hand)
     slow_roll_vector    -- mean vector in a speed band
     compensate          -- subtract it from every block
 
@@ -46,19 +55,27 @@ Spectra (:mod:`rundash.dsp.spectra`)
 from rundash.dsp.directions import direction_masks, direction_segments, split_by_direction
 from rundash.dsp.incremental import IncrementalOrders, IncrementalTach
 from rundash.dsp.orders import OrderTrack, OrderTracker, concat_tracks, track_orders
-from rundash.dsp.slowroll import auto_slow_roll_window, compensate, slow_roll_vector
+from rundash.dsp.slowroll import (
+    SlowRollChoice, auto_slow_roll_window, choose_slow_roll_window, compensate, slow_roll_vector,
+)
 from rundash.dsp.spectra import Cascade, cascade, cascade_plan, cascade_rows
-from rundash.dsp.speed import Segment, SpeedProfile, run_kind, segment, speed_profile
-from rundash.dsp.tach import OncePerRev, detect_edges, once_per_rev
+from rundash.dsp.speed import (
+    Segment, SpeedProfile, fit_event_times, run_kind, segment, speed_profile,
+)
+from rundash.dsp.tach import (
+    OncePerRev, TachQuality, detect_edges, edge_samples, once_per_rev, tach_quality, timing_jitter,
+)
 from rundash.dsp.vold_kalman import VoldKalmanResult, vold_kalman
 
 __all__ = [
-    "detect_edges", "once_per_rev", "OncePerRev",
-    "speed_profile", "SpeedProfile", "segment", "Segment", "run_kind",
+    "detect_edges", "once_per_rev", "OncePerRev", "edge_samples", "timing_jitter",
+    "tach_quality", "TachQuality",
+    "speed_profile", "SpeedProfile", "fit_event_times", "segment", "Segment", "run_kind",
     "track_orders", "OrderTracker", "OrderTrack", "concat_tracks",
     "IncrementalTach", "IncrementalOrders",
     "direction_segments", "split_by_direction", "direction_masks",
     "vold_kalman", "VoldKalmanResult",
-    "auto_slow_roll_window", "slow_roll_vector", "compensate",
+    "choose_slow_roll_window", "SlowRollChoice", "auto_slow_roll_window", "slow_roll_vector",
+    "compensate",
     "cascade", "cascade_plan", "cascade_rows", "Cascade",
 ]

@@ -153,7 +153,9 @@ class IncrementalOrders:
             return empty
         k_stop = self.k_next + nb * R
         k0 = max(0, self.k_next - self.context_revs) // R * R
-        prof = dsp_speed.speed_profile(rev_times[k0:])
+        # the events as measured: a fit through their jitter needs the whole record (the
+        # processing at the end makes it when the tach jitters)
+        prof = dsp_speed.speed_profile(rev_times[k0:], fit="never")
         lo = max(self._buf_start, int(math.floor(rev_times[self.k_next] * fs)) - 1)
         hi = min(self._end, int(math.ceil(rev_times[k_stop] * fs)) + 2)
         x = self._buf[:, lo - self._buf_start:hi - self._buf_start]

@@ -63,8 +63,9 @@ def cascade_plan(profile: SpeedProfile, *, speed_step_rpm: float = 50.0,
     angle turned, from the speed profile, over the stretch's duration), so the timing
     jitter of single revolutions never counts as speed travel. The step is widened when
     needed so that there are at most ``max_rows`` rows; the travel it is sized from is
-    the speed's total variation counted in moves of at least a tenth of a step (a dead
-    band: jitter and a controller's hunting inside it add nothing). Only times at least
+    the speed's total variation counted in moves of at least a tenth of a step or five
+    times the scatter of the stretch speeds, whichever is larger (a dead band: jitter
+    and a controller's hunting inside it add nothing). Only times at least
     ``margin_s`` from the profile's ends are used (half a spectrum window keeps every
     row's window inside the record).
     """
@@ -87,7 +88,11 @@ def cascade_plan(profile: SpeedProfile, *, speed_step_rpm: float = 50.0,
     tm, rpm = tm[ok], rpm[ok]
     if tm.size == 0:
         return np.empty(0), np.empty(0)
-    travel = _travel(rpm, 0.1 * float(speed_step_rpm))
+    # dead band: a tenth of a step, or five times the scatter of the stretch speeds
+    # (second differences of white scatter have variance 6 sigma^2), whichever is larger
+    scatter = 1.4826 * float(np.median(np.abs(np.diff(rpm, 2)))) / np.sqrt(6.0) \
+        if rpm.size > 2 else 0.0
+    travel = _travel(rpm, max(0.1 * float(speed_step_rpm), 5.0 * scatter))
     step = max(float(speed_step_rpm), travel / max(int(max_rows) - 1, 1) * 1.0001)
     rows = [0]
     last = rpm[0]

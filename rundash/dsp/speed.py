@@ -29,17 +29,18 @@ import numpy as np
 from scipy.interpolate import CubicSpline, PchipInterpolator
 from scipy.linalg import LinAlgError, solveh_banded
 
-from rundash.dsp.tach import local_jitter_s, timing_jitter
+from rundash.dsp.tach import MAX_JITTER_DEG, local_jitter_s, timing_jitter
 from rundash.errors import DspError, TachError, invalid_value
 
 __all__ = ["SpeedProfile", "speed_profile", "fit_event_times", "Segment", "segment", "run_kind"]
 
 _NEWTON_ITERATIONS = 4  # for time_at_angle
 
-#: Rms event jitter, as a fraction of a revolution, above which ``fit="auto"`` fits the
-#: event times instead of interpolating them (0.036 deg; our own choice: below it the fit
-#: would change the speed by less than the 0.05 % the speed model is held to).
-FIT_JITTER_REV = 1e-4
+#: Rms event jitter of the worst tenth of the events, as a fraction of a revolution,
+#: above which ``fit="auto"`` fits the event times instead of interpolating them: the
+#: jitter the tach-quality check calls large (0.5 deg, :data:`tach.MAX_JITTER_DEG`).
+#: Below it an interpolated speed scatters by under 0.2 % from one revolution to the next.
+FIT_JITTER_REV = MAX_JITTER_DEG / 360.0
 # The fit's ends are held to the first and last two events (weight 10: a penalised fit
 # is free at its ends, where a hard start has its largest third differences), and events
 # left more than two jitters away are weighted up until the fit follows them (measured
@@ -323,7 +324,8 @@ class SpeedProfile:
 
 
 def speed_profile(rev_times_s, *, model: Literal["cubic", "pchip"] = "cubic",
-                  fit: Literal["auto", "never", "always"] = "auto") -> SpeedProfile:
+                  fit: Literal["auto", "never", "always"] = "auto",
+                  jitter_floor_s: float = 0.0) -> SpeedProfile:
     """Speed profile from once-per-rev reference event times.
 
     Parameters
@@ -341,6 +343,12 @@ def speed_profile(rev_times_s, *, model: Literal["cubic", "pchip"] = "cubic",
         of the worst tenth of the events exceeds :data:`FIT_JITTER_REV` of a revolution: sample-quantised edges (a sharp
         notch at a low sample rate) or a noisy tach, where interpolating each event
         would turn the jitter into speed and phase swings the shaft cannot make.
+    jitter_floor_s : float
+        The least rms jitter of any event, in s. A tach edge the sample grid does not
+        resolve (:attr:`rundash.dsp.tach.TachQuality.quantised`) puts each event
+        anywhere within its sample: ``1 / (sqrt(12) fs)`` rms, though while a revolution
+        lasts nearly a whole number of samples the error drifts so slowly that its
+        third differences do not show it.
 
     Returns
     -------
@@ -367,8 +375,10 @@ def speed_profile(rev_times_s, *, model: Literal["cubic", "pchip"] = "cubic",
                                       "strictly increasing finite times in s"))
     jit = timing_jitter(t)
     fitted, lam, worst_rev = t, 0.0, None
+    if not (np.isfinite(jitter_floor_s) and jitter_floor_s >= 0):
+        raise DspError(invalid_value("jitter_floor_s", jitter_floor_s, "a time >= 0 in s"))
     if jit is not None:
-        local = local_jitter_s(t)
+        local = np.maximum(local_jitter_s(t), jitter_floor_s)
         # the jitter in revolutions of the worst tenth (quantisation grows with speed)
         worst_rev = float(np.percentile(local[1:] / np.diff(t), 90.0))
         if fit == "always" or (fit == "auto" and worst_rev > FIT_JITTER_REV):

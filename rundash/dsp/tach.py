@@ -16,7 +16,7 @@ import numpy as np
 from rundash.errors import TachError, TachQualityWarning, invalid_value
 
 __all__ = ["detect_edges", "EdgeDetector", "once_per_rev", "OncePerRev", "MIN_REVOLUTIONS",
-           "edge_samples", "timing_jitter", "TachQuality", "tach_quality"]
+           "edge_samples", "edge_spans", "timing_jitter", "TachQuality", "tach_quality"]
 
 #: Fewest once-per-rev events that make a usable reference (4 revolutions).
 MIN_REVOLUTIONS = 4
@@ -671,8 +671,28 @@ def _check_plausible(pulses: np.ndarray) -> None:
             f"once-per-rev reference, and its edge and threshold")
 
 
+def edge_spans(x, fs: float, event_times_s, *, t0: float = 0.0,
+               max_events: int = 2000) -> np.ndarray:
+    """Sample intervals spanned by the edge of each event inside ``x`` (a channel or one
+    block of it whose sample 0 lies at ``t0``); see :func:`edge_samples`. At most
+    ``max_events``, evenly chosen; events too near the block's ends are left out."""
+    x = np.asarray(x)
+    ev = np.asarray(event_times_s, dtype=np.float64).ravel()
+    c = np.floor((ev - t0) * fs + 1e-9).astype(np.int64)
+    c = c[(c >= 4) & (c + 5 < x.size)]
+    if c.size > max_events:
+        c = c[np.linspace(0, c.size - 1, max_events).astype(np.int64)]
+    if c.size == 0:
+        return np.empty(0)
+    win = x[c[:, None] + np.arange(-4, 6)[None, :]].astype(np.float64)
+    span = win.max(axis=1) - win.min(axis=1)
+    step = np.abs(win[:, 5] - win[:, 4])
+    ok = (step > 0) & (span > 0)
+    return span[ok] / step[ok]
+
+
 def edge_samples(x, fs: float, event_times_s, *, t0: float = 0.0,
-                 max_events: int = 2000) -> float | None:
+                 max_events: int = 2000, spans=None) -> float | None:
     """Sample intervals a tach edge spans, at the sharpest tenth of the detected events.
 
     For each event (at most ``max_events``, evenly chosen) the step between the two
@@ -694,27 +714,20 @@ def edge_samples(x, fs: float, event_times_s, *, t0: float = 0.0,
         Sample rate in Hz.
     event_times_s : array_like
         Event times in s from :func:`detect_edges` (those outside ``x`` are ignored).
+    spans : array_like, optional
+        Per-event spans already gathered with :func:`edge_spans` (a channel read in
+        chunks); ``x`` and ``event_times_s`` are then not read.
 
     Returns
     -------
     float or None
         None when no event lies inside ``x``.
     """
-    x = np.asarray(x)
-    ev = np.asarray(event_times_s, dtype=np.float64).ravel()
-    c = np.floor((ev - t0) * fs + 1e-9).astype(np.int64)
-    c = c[(c >= 4) & (c + 5 < x.size)]
-    if c.size == 0:
+    r = edge_spans(x, fs, event_times_s, t0=t0, max_events=max_events) if spans is None \
+        else np.asarray(spans, dtype=np.float64)
+    if r.size == 0:
         return None
-    if c.size > max_events:
-        c = c[np.linspace(0, c.size - 1, max_events).astype(np.int64)]
-    win = x[c[:, None] + np.arange(-4, 6)[None, :]].astype(np.float64)
-    span = win.max(axis=1) - win.min(axis=1)
-    step = np.abs(win[:, 5] - win[:, 4])
-    ok = (step > 0) & (span > 0)
-    if not np.any(ok):
-        return None
-    return float(np.percentile(span[ok] / step[ok], 10.0))
+    return float(np.percentile(r, 10.0))
 
 
 def timing_jitter(event_times_s) -> tuple[float, float] | None:
@@ -796,6 +809,15 @@ class TachQuality:
     def quantised(self) -> bool:
         """True when the edges are sharper than the sample grid resolves."""
         return self.edge_samples is not None and self.edge_samples < MIN_EDGE_SAMPLES
+
+    @property
+    def jitter_floor_s(self) -> float:
+        """Least rms timing error of any event, s: ``1 / (sqrt(12) fs)`` for quantised
+        edges (uniform within a sample), else 0 (for
+        :func:`rundash.dsp.speed.speed_profile`)."""
+        if not self.quantised or not self.fs:
+            return 0.0
+        return 1.0 / (math.sqrt(12.0) * self.fs)
 
     def angle_bound_rad(self, speed_rpm) -> np.ndarray:
         """Bound of the reference angle error that fitting cannot remove, in radians.

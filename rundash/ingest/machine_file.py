@@ -8,14 +8,15 @@ as every TOML check is (:mod:`rundash.ingest.toml_check`).
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
 from rundash.errors import ConfigError, invalid_value
 from rundash.ingest import bounds
 from rundash.ingest.toml_check import TomlChecker, parse_toml
 from rundash.model import (
-    MACHINE_KINDS, TRANSDUCER_KINDS, DataSpec, MachineDescription, MachineSpec, ProbeSpec,
-    TachSpec,
+    MACHINE_KINDS, TRANSDUCER_KINDS, DataSpec, MachineDescription, MachineSpec,
+    ProcessingSpec, ProbeSpec, TachSpec,
 )
 from rundash.units import TO_STORAGE
 
@@ -46,9 +47,10 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
     """Parse and validate the text of a machine description file."""
     ck = TomlChecker(source)
     raw = parse_toml(text, source)
-    unknown = sorted(set(raw) - {"machine", "tach", "probes", "data"})
+    unknown = sorted(set(raw) - {"machine", "tach", "probes", "data", "processing"})
     if unknown:
-        ck.fail(unknown[0], "unknown table; allowed: [machine], [tach], [[probes]], [data]")
+        ck.fail(unknown[0], "unknown table; allowed: [machine], [tach], [[probes]], [data], "
+                            "[processing]")
     for key in ("machine", "tach", "probes"):
         if key not in raw:
             ck.fail(f"[{key}]" if key != "probes" else "[[probes]]", "missing required table")
@@ -149,7 +151,33 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
                         "missing: [data].signal_units is 'V', so every probe needs its "
                         "sensitivity (or set signal_units = 'engineering')")
     return MachineDescription(machine=machine, tach=tach, probes=tuple(probes), data=data,
-                              source=source)
+                              source=source,
+                              processing=_processing(ck, raw.get("processing", {}), machine))
+
+
+def _processing(ck: TomlChecker, raw, machine: MachineSpec) -> ProcessingSpec:
+    """``[processing]``: ``slow_roll_rpm = [low, high]`` in rpm, 0 <= low < high, no higher
+    than the maximum continuous speed."""
+    if not isinstance(raw, dict):
+        ck.fail("[processing]", f"expected a table, got {raw!r}")
+    if set(raw) - {"slow_roll_rpm"}:
+        ck.fail(f"[processing].{sorted(set(raw) - {'slow_roll_rpm'})[0]}",
+                "unknown key; allowed keys: slow_roll_rpm")
+    band = raw.get("slow_roll_rpm")
+    if band is None:
+        return ProcessingSpec()
+    kp = "[processing].slow_roll_rpm"
+    if (not isinstance(band, list) or len(band) != 2
+            or any(isinstance(b, bool) or not isinstance(b, (int, float)) for b in band)):
+        ck.fail(kp, f"expected two numbers [low, high] in rpm, got {band!r}")
+    lo, hi = float(band[0]), float(band[1])
+    if not (math.isfinite(lo) and math.isfinite(hi) and 0 <= lo < hi):
+        ck.fail(kp, f"expected 0 <= low < high in rpm, got [{lo:g}, {hi:g}]")
+    if hi > machine.max_continuous_speed_rpm:
+        ck.fail(kp, f"expected a band below the maximum continuous speed "
+                    f"{machine.max_continuous_speed_rpm:g} rpm (slow roll is read far below "
+                    f"it), got [{lo:g}, {hi:g}]")
+    return ProcessingSpec(slow_roll_rpm=(lo, hi))
 
 
 def check_profile(desc: MachineDescription) -> None:

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 import warnings
+from dataclasses import replace
 from typing import Any, Sequence
 
 import numpy as np
@@ -24,6 +25,7 @@ from rundash.analysis.vectors import mean_vector_near
 from rundash.analysis.verdicts import judge, summarize
 from rundash.conventions import lag_deg_from_phasor
 from rundash.dsp.directions import MIN_BLOCKS, direction_masks
+from rundash.errors import AnalysisError
 from rundash.ingest.profile_file import load_profile
 from rundash.model import ChannelInfo, MachineDescription, RunInfo
 from rundash.units import (
@@ -32,6 +34,8 @@ from rundash.units import (
 )
 
 SCHEMA = "rundash.findings/1"
+# criticals of seismic probes are read on their displacement-equivalent 1X
+_MEASURE = {"proximity": "displacement", "velocity": "velocity", "acceleration": "acceleration"}
 
 
 def json_number(x):
@@ -47,7 +51,9 @@ def json_number(x):
 
 def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[ChannelInfo],
                    track, compensated: np.ndarray, segments, slow_roll_rpm,
-                   processing_notes: Sequence[str] = ()) -> dict[str, Any]:
+                   processing_notes: Sequence[str] = (),
+                   angle_bound_rad: np.ndarray | None = None,
+                   slow_roll_basis: str = "") -> dict[str, Any]:
     """Findings JSON of one processed run (see the module docstring).
 
     ``processing_notes`` (tach repairs, a missing slow-roll window, ...) lead the
@@ -65,6 +71,14 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
     if not directions:
         notes.append("the run has no run-up or coast-down stretch long enough to judge")
 
+    # seismic probes at a bearing that has proximity probes: their criticals are shown as
+    # measured, and that bearing's margins are judged from the proximity probes
+    processed = {c.probe_name for c in probes}
+    prox_at = {}
+    for p in desc.probes:
+        if p.kind == "proximity" and p.bearing and p.name in processed:
+            prox_at.setdefault(p.bearing, []).append(p.name)
+    seismic_ref: dict[str, list[str]] = {}  # seismic probe -> the bearing's proximity probes
     per_probe: dict[tuple[str, str], tuple] = {}  # (probe, direction) -> (crits, speed, vec)
     if k1 is not None:
         for i, ch in enumerate(probes):
@@ -74,10 +88,28 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
             for d, sel in directions.items():
                 s, t = track.speed_rpm[sel], track.time_s[sel]
                 v = np.asarray(compensated[i, k1, sel], dtype=np.complex128)
+                floor = None
+                if angle_bound_rad is not None and ch.kind == "proximity":
+                    # the reference angle error rotates the measured vector, not the
+                    # subtracted slow-roll vector
+                    floor = np.abs(track.vectors[i, k1, sel]).astype(np.float64) * \
+                        angle_bound_rad[sel]
+                sp = spec_by_name.get(ch.probe_name)
+                measure = _MEASURE.get(ch.kind, "displacement")
+                if measure != "displacement" and sp is not None and prox_at.get(sp.bearing):
+                    seismic_ref[ch.probe_name] = prox_at[sp.bearing]
                 with warnings.catch_warnings(record=True) as caught:
                     warnings.simplefilter("always")
-                    crits = crit_mod.find_criticals(s, v, time_s=t, amplitude_factor=afac,
-                                                    direction=d)
+                    if ch.probe_name in seismic_ref:
+                        # as measured (its own peak), with the displacement-equivalent
+                        # speed beside it
+                        crits = crit_mod.find_criticals(s, v, time_s=t, amplitude_factor=afac,
+                                                        direction=d)
+                        crits = _with_displacement_equivalent(crits, s, v, afac, d, measure)
+                    else:
+                        crits = crit_mod.find_criticals(
+                            s, v, time_s=t, amplitude_factor=afac, direction=d,
+                            amplitude_floor=floor, measure=measure)
                 for w in caught:
                     notes.append(f"{ch.probe_name} {d}: {w.message}")
                 per_probe[(ch.probe_name, d)] = (crits, s, v, t, afac, i)
@@ -128,9 +160,17 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                    max_continuous_speed_rpm=m.max_continuous_speed_rpm, profile=profile,
                    rated_speed_rpm=m.rated_speed_rpm, probe=name, amplitude_units=units,
                    mode_hints=hints[(name, d)])
-        margins.extend(mv)
+        refs = seismic_ref.get(name)
+        if refs:
+            why = (f"not counted in the run verdict: bearing {sp.bearing}'s margins are judged "
+                   f"from its proximity probes ({', '.join(refs)}); a {ch.kind} reading carries "
+                   f"an extra factor of speed, which moves its peak above the displacement peak")
+            mv = tuple(replace(x, reason=f"{why}. {x.reason}") for x in mv)
+        else:
+            margins.extend(mv)
         for verdict in mv:
             j = verdict.to_json_dict()
+            j["counts_for_run_verdict"] = not refs
             c = verdict.critical
             hp = c.half_power
             j.update(bearing=sp.bearing if sp else "", axis=sp.axis if sp else "none",
@@ -203,7 +243,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
     summary = summarize(margins, profile=profile,
                         min_operating_speed_rpm=m.min_operating_speed_rpm,
                         max_continuous_speed_rpm=m.max_continuous_speed_rpm,
-                        level_checks=level_checks)
+                        level_checks=level_checks,
+                        top_speed_rpm=float(np.nanmax(track.speed_rpm)))
     sj = summary.to_json_dict()
     return {
         "schema": SCHEMA,
@@ -216,6 +257,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                         trip_speed_rpm=m.trip_speed_rpm, kind=m.kind),
         "profile": dict(sj["profile"], rules=_profile_rules(profile)),
         "processing": dict(slow_roll_rpm=list(slow_roll_rpm) if slow_roll_rpm else None,
+                           slow_roll_basis=slow_roll_basis,
                            speed_range_rpm=[json_number(track.speed_rpm.min()),
                                             json_number(track.speed_rpm.max())]),
         "probes": [dict(name=ch.probe_name, kind=ch.kind, unit=STORAGE_UNIT.get(ch.kind, ""),
@@ -233,6 +275,28 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
         "run_verdict": sj["overall"] if directions else "not judged",
         "caution": CAUTION,
     }
+
+
+def _with_displacement_equivalent(crits, s, v, afac, direction, measure):
+    """Add to each critical of a seismic probe, read as measured, the speed its
+    displacement-equivalent 1X (integrated) puts it at."""
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            integ = crit_mod.find_criticals(s, v, amplitude_factor=afac, direction=direction,
+                                            fit=False, measure=measure)
+    except AnalysisError:
+        return crits
+    out = []
+    for c in crits:
+        near = [x for x in integ if abs(x.speed_rpm - c.speed_rpm) <= 0.05 * c.speed_rpm]
+        if near:
+            x = min(near, key=lambda x: abs(x.speed_rpm - c.speed_rpm))
+            c = replace(c, evidence=c.evidence + (
+                f"read as measured ({measure}); its displacement-equivalent 1X (integrated) "
+                f"peaks at {x.speed_rpm:.0f} rpm",))
+        out.append(c)
+    return tuple(out)
 
 
 def _profile_rules(profile) -> list[dict[str, Any]]:

@@ -31,6 +31,7 @@ from typing import Any, Iterator
 import numpy as np
 
 from rundash import __version__
+from rundash.analysis.criticals import first_candidate_rpm
 from rundash.conventions import lag_deg_from_phasor
 from rundash.dsp import orders as dsp_orders
 from rundash.dsp import slowroll, spectra, speed, tach
@@ -188,9 +189,11 @@ def _n_fft(fs: float) -> int:
     return int(min(max(n, 256), 16384))
 
 
-def _edges(db: Database, tach_ch, desc: MachineDescription, timer: StageTimer) -> np.ndarray:
+def _edges(db: Database, tach_ch, desc: MachineDescription,
+           timer: StageTimer) -> tuple[np.ndarray, float | None]:
     """Tach events of the whole channel, streamed (the channel is held in memory between
-    the detector's passes only up to :data:`TACH_CACHE_SAMPLES`)."""
+    the detector's passes only up to :data:`TACH_CACHE_SAMPLES`), and the sample
+    intervals their edges span (:func:`rundash.dsp.tach.edge_samples`)."""
     fs = tach_ch.sample_rate_hz
     det = tach.EdgeDetector(tach_ch.n_samples, fs, edge=desc.tach.edge,
                             threshold=desc.tach.threshold, hysteresis=desc.tach.hysteresis)
@@ -213,12 +216,13 @@ def _edges(db: Database, tach_ch, desc: MachineDescription, timer: StageTimer) -
                 det.feed_levels(x, start)
         with timer("tach"):
             det.end_pass()
-    parts = []
+    parts, spans = [], []
     for start, x in chunks():
         with timer("tach"):
             parts.append(det.feed(x, start))
+            spans.append(tach.edge_spans(x, fs, parts[-1], t0=start / fs, max_events=200))
     parts.append(det.finish())
-    return np.concatenate(parts)
+    return np.concatenate(parts), tach.edge_samples(None, fs, None, spans=np.concatenate(spans))
 
 
 class _Results:
@@ -277,14 +281,17 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        edges = _edges(db, tach_ch, desc, timer)
+        edges, span = _edges(db, tach_ch, desc, timer)
         with timer("tach"):
             opr = tach.once_per_rev(edges, desc.tach.pulses_per_rev)
+            tq = tach.tach_quality(span, opr.times_s, tach_ch.sample_rate_hz)
         with timer("speed"):
-            profile = speed.speed_profile(opr.times_s)
+            profile = speed.speed_profile(opr.times_s, jitter_floor_s=tq.jitter_floor_s)
             segments = speed.segment(profile)
             kind = speed.run_kind(segments)
     notes += [f"{w.category.__name__}: {w.message}" for w in caught]
+    if profile.note:
+        notes.append(profile.note)
     progress(1.0, "tach")
 
     tracker = dsp_orders.OrderTracker(profile, fs, len(probes), orders=params.orders,
@@ -339,24 +346,34 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
 
     with timer("findings"):
         # slow-roll compensation: proximity probes only, never seismic channels
-        window = params.slow_roll_rpm or slowroll.auto_slow_roll_window(track.speed_rpm,
-                                                                        track.time_s)
         is_prox = np.array([c.kind == "proximity" for c in probes])
+        window = params.slow_roll_rpm or desc.processing.slow_roll_rpm
+        slow_roll_basis = ("--slow-roll" if params.slow_roll_rpm else
+                           "[processing] slow_roll_rpm of the machine description" if window
+                           else "")
+        k1 = np.flatnonzero(np.isclose(track.orders, 1.0))
+        if window is None and is_prox.any() and k1.size:
+            raw1 = track.vectors[is_prox, int(k1[0])]
+            choice = slowroll.choose_slow_roll_window(
+                track.speed_rpm, raw1,
+                first_critical_rpm=first_candidate_rpm(track.speed_rpm, raw1))
+            window, slow_roll_basis = choice.window, choice.note
+            if window is None:
+                notes.append(choice.note)
         comp = track.vectors.copy()
         if window is not None and is_prox.any():
             for i in np.flatnonzero(is_prox):  # one channel at a time: no full-size temporaries
                 sr = slowroll.slow_roll_vector(track.speed_rpm, track.vectors[i], window)
                 comp[i] = slowroll.compensate(track.vectors[i], sr)
-        elif is_prox.any():
-            notes.append("no slow-roll window found (no low, steady speed band): proximity "
-                         "vectors are not compensated")
 
         result = ProcessResult(run_id=run_id, run_kind=kind, n_revs=opr.n_revs,
                                n_blocks=track.n_blocks, slow_roll_rpm=window, warnings=notes)
 
         findings = findings_mod.build_findings(
             desc=desc, run=run, probes=probes, track=track, compensated=comp,
-            segments=segments, slow_roll_rpm=window, processing_notes=notes)
+            segments=segments, slow_roll_rpm=window, processing_notes=notes,
+            slow_roll_basis=slow_roll_basis,
+            angle_bound_rad=tq.angle_bound_rad(track.speed_rpm))
         result.findings = findings
 
     progress(0.0, "saving")

@@ -93,3 +93,22 @@ def test_validation():
     with pytest.raises(ConfigError, match="Invalid value for 'mode_hints'"):
         judge([c], min_operating_speed_rpm=4000.0, max_continuous_speed_rpm=5000.0,
               profile=load_profile("api617"), mode_hints=[])
+
+
+class TestRangeNotReached:
+    """A run that never reached the operating range is not judged (issue 16)."""
+
+    def test_run_up_below_the_range_is_not_judged(self):
+        from rundash.analysis.verdicts import summarize
+        from rundash.ingest.profile_file import load_profile
+        prof = load_profile("api617")
+        # 600 -> 1200 rpm, range 2600-2900 rpm, nothing found: not a pass
+        rv = summarize((), profile=prof, min_operating_speed_rpm=2600.0,
+                       max_continuous_speed_rpm=2900.0, top_speed_rpm=1200.0)
+        assert rv.overall == "not judged"
+        assert any(n.startswith("the run never reached the operating range: top speed 1200 rpm, "
+                                "range 2600-2900 rpm") for n in rv.notes)
+        # reaching the range changes nothing else
+        rv = summarize((), profile=prof, min_operating_speed_rpm=2600.0,
+                       max_continuous_speed_rpm=2900.0, top_speed_rpm=2900.0)
+        assert rv.overall == "pass"

@@ -140,6 +140,8 @@ def signals(n: int | None = None, *, rpm0: float = RPM0, rpm1: float = RPM1,
         tach_v = np.where(phase < 0.2, 5.0, 0.0)
         for rev in (40, 75, 110):
             tach_v[np.floor(theta) == rev] = 0.0
+    elif tach == "noise":  # the tach column carries noise only (a broken probe lead)
+        tach_v = 0.5 * rng.standard_normal(n)
     else:  # pragma: no cover - generator misuse
         raise ValueError(tach)
     return {"time_s": t, "tach": tach_v, "x1": x_um * SENS_PROX_V_PER_UM,
@@ -650,6 +652,10 @@ def build(folder: str | Path) -> list[Case]:
     case("tach_stuck_high", write_csv(root / "tach_stuck.csv", signals(tach="stuck")).name,
          "process_fails", [r"[Tt]oo few tach pulses", "tach"],
          "the tach gives a few pulses, then is stuck high", process=True)
+    case("tach_noise", write_csv(root / "tach_noise.csv", signals(tach="noise")).name,
+         "process_fails", [r"tach shows no plausible once-per-rev events", r"pulse intervals"],
+         "a tach column carrying noise only: said so, not a sample-rate complaint at an "
+         "absurd speed", process=True)
     case("constant_speed", write_csv(root / "constant_speed.csv",
                                      signals(rpm0=1500.0, rpm1=1500.0)).name,
          "process_warned", [r"no run-up or coast-down stretch"],

@@ -245,3 +245,20 @@ class TestSegmentRelative:
         prof = speed_profile(np.arange(200) * 0.02)
         with pytest.raises(DspError, match="Invalid value for 'hold_window_s'"):
             segment(prof, hold_window_s=0.0)
+
+    def test_sample_floor_covers_revolutions_of_nearly_whole_samples(self):
+        # 0.7 rpm/s for 54 minutes read at 512 Hz through a quantised edge: while a
+        # revolution lasts nearly a whole number of samples (for ~100 s at a time) the
+        # quantisation error drifts slowly and its third differences vanish, so the
+        # jitter seen locally is too small and the fit follows the error's sawtooth. The
+        # floor 1 / (sqrt(12) fs) (uniform error within a sample) keeps the fit smooth:
+        # mean speeds over 0.1 s within 0.1 rpm rms of the closed form (linear sweep).
+        sw = synth.linear_sweep(600.0, 0.7, 54 * 60.0)
+        q = _quantised(sw.rev_times(), 512.0)
+        prof = speed_profile(q, jitter_floor_s=1.0 / (np.sqrt(12.0) * 512.0))
+        e = np.linspace(prof.t_start, prof.t_end, 30001)
+        rpm = 60.0 * np.diff(prof.angle_rev(e)) / np.diff(e)
+        err = rpm - sw.rpm(0.5 * (e[1:] + e[:-1]))
+        assert np.sqrt(np.mean(err ** 2)) < 0.1
+        with pytest.raises(DspError, match="Invalid value for 'jitter_floor_s'"):
+            speed_profile(q, jitter_floor_s=-1.0)

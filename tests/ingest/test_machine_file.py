@@ -61,3 +61,47 @@ class TestParseMachineDescription:
         text = _edit("sensitivity_mv_per_unit = 4.0\n", "")
         with pytest.raises(ConfigError, match="'NDE-V'.sensitivity_mv_per_unit: missing"):
             parse_machine_description(text, "m.toml")
+
+
+class TestProcessingTable:
+    """[processing] slow_roll_rpm: the user's slow-roll band overrides the automatic one."""
+
+    BASE = """
+[machine]
+name = "M"
+kind = "pump"
+rated_speed_rpm = 3000
+min_operating_speed_rpm = 2800
+max_continuous_speed_rpm = 3100
+
+[tach]
+column = "t"
+
+[[probes]]
+name = "P"
+column = "x"
+kind = "proximity"
+units = "um"
+sensitivity_mv_per_unit = 7.874
+"""
+
+    def test_band_is_read(self):
+        d = parse_machine_description(self.BASE + "\n[processing]\nslow_roll_rpm = [180, 260.5]\n")
+        assert d.processing.slow_roll_rpm == (180.0, 260.5)
+        assert parse_machine_description(self.BASE).processing.slow_roll_rpm is None
+
+    @pytest.mark.parametrize("value, match", [
+        ("[300]", r"expected two numbers \[low, high\] in rpm"),
+        ('["a", 2]', r"expected two numbers"),
+        ("[400, 300]", r"expected 0 <= low < high in rpm, got \[400, 300\]"),
+        ("[-5, 300]", r"expected 0 <= low < high"),
+        ("[200, 3200]", r"expected a band below the maximum continuous speed 3100 rpm"),
+    ])
+    def test_bad_band_names_the_key(self, value, match):
+        with pytest.raises(ConfigError, match=r"^m\.toml: \[processing\]\.slow_roll_rpm: " + match):
+            parse_machine_description(self.BASE + f"\n[processing]\nslow_roll_rpm = {value}\n",
+                                      "m.toml")
+
+    def test_unknown_key(self):
+        with pytest.raises(ConfigError, match=r"\[processing\]\.slowroll: unknown key"):
+            parse_machine_description(self.BASE + "\n[processing]\nslowroll = [1, 2]\n")
