@@ -344,7 +344,8 @@ def speed_profile(rev_times_s, *, model: Literal["cubic", "pchip"] = "cubic",
         notch at a low sample rate) or a noisy tach, where interpolating each event
         would turn the jitter into speed and phase swings the shaft cannot make.
     jitter_floor_s : float
-        The least rms jitter of any event, in s. A tach edge the sample grid does not
+        The least rms jitter of any event in the fit, in s (whether to fit is decided
+        from the jitter measured). A tach edge the sample grid does not
         resolve (:attr:`rundash.dsp.tach.TachQuality.quantised`) puts each event
         anywhere within its sample: ``1 / (sqrt(12) fs)`` rms, though while a revolution
         lasts nearly a whole number of samples the error drifts so slowly that its
@@ -378,11 +379,13 @@ def speed_profile(rev_times_s, *, model: Literal["cubic", "pchip"] = "cubic",
     if not (np.isfinite(jitter_floor_s) and jitter_floor_s >= 0):
         raise DspError(invalid_value("jitter_floor_s", jitter_floor_s, "a time >= 0 in s"))
     if jit is not None:
-        local = np.maximum(local_jitter_s(t), jitter_floor_s)
-        # the jitter in revolutions of the worst tenth (quantisation grows with speed)
+        local = local_jitter_s(t)
+        # whether to fit: the measured jitter, in revolutions, of the worst tenth of the
+        # events (quantisation grows with speed); how: each event's jitter, no less than
+        # the floor
         worst_rev = float(np.percentile(local[1:] / np.diff(t), 90.0))
         if fit == "always" or (fit == "auto" and worst_rev > FIT_JITTER_REV):
-            fitted, lam = fit_event_times(t, local)
+            fitted, lam = fit_event_times(t, np.maximum(local, jitter_floor_s))
     return SpeedProfile(fitted, model, measured_s=t, jitter=jit, fit_lambda=lam,
                         worst_jitter_deg=None if worst_rev is None else 360.0 * worst_rev)
 
