@@ -56,17 +56,19 @@ def choose_slow_roll_window(speed_rpm, vectors, *, first_critical_rpm: float | N
                             phase_tol_deg: float = SLOW_ROLL_PHASE_TOL_DEG) -> SlowRollChoice:
     """Choose a slow-roll band where the 1X is steady, well below the first critical.
 
-    A band ``width_fraction`` x the top speed wide qualifies when it lies below
-    ``limit = min(max_fraction x top, below_critical x first_critical_rpm)``, holds at
-    least ``min_blocks`` blocks, and the 1X vector of every channel is steady across it:
-    a complex least-squares line through the band's vectors against speed changes, over
-    the band's effective span (2 sqrt(3) x the standard deviation of its speeds, the
-    span of evenly spread speeds), by at most ``amplitude_tol`` in amplitude and
-    ``phase_tol_deg`` in phase (a vector smaller than 2 % of the channel's largest 1X has
-    no meaningful phase: then only its change must stay within that 2 %). Of the
-    qualifying bands the lowest is taken: the dynamic response is least there. A
-    long dwell counts for nothing by itself: a warm-up hold at a higher speed is steady
-    because the speed is, not because the response is negligible.
+    A band ``width_fraction`` x the top speed wide, or a half, a quarter or an eighth of
+    that, qualifies when it lies wholly below ``limit = min(max_fraction x top,
+    below_critical x first_critical_rpm)``, holds at least ``min_blocks`` blocks, and the 1X vector of
+    every channel is steady across it: a complex least-squares line through the band's
+    vectors against speed changes between the band's lowest and highest speeds, less
+    twice the standard error of that change (the scatter about the line), by at most
+    ``amplitude_tol`` in amplitude and ``phase_tol_deg`` in phase (a vector smaller than
+    2 % of the channel's largest 1X has no meaningful phase: then only its change must
+    stay within that 2 %). Of the qualifying bands the lowest is taken (the widest of
+    those starting there): the dynamic response is least there. A long dwell counts for
+    nothing by itself: a warm-up hold at a higher speed is steady because the speed is,
+    not because the response is negligible; only the limit keeps it out, so the first
+    candidate critical matters.
 
     Parameters
     ----------
@@ -121,34 +123,54 @@ def choose_slow_roll_window(speed_rpm, vectors, *, first_critical_rpm: float | N
     vv = v[:, keep][:, order]
     scale = np.max(np.abs(v[:, good]), axis=1)  # per channel
     x = c - c.mean()
-    cum = lambda a: np.concatenate([np.zeros(a.shape[:-1] + (1,), a.dtype), np.cumsum(a, axis=-1)], axis=-1)
+
+    def cum(a):
+        return np.concatenate([np.zeros(a.shape[:-1] + (1,), a.dtype), np.cumsum(a, axis=-1)],
+                              axis=-1)
+
     s0, sx, sxx = cum(np.ones_like(x)), cum(x), cum(x * x)
-    sv, sxv = cum(vv), cum(vv * x[None, :])
+    sv, sxv, svv = cum(vv), cum(vv * x[None, :]), cum(np.abs(vv) ** 2)
     i = np.arange(c.size)
-    j = np.searchsorted(c, c + width, side="right")
-    n = s0[j] - s0[i]
-    for k in np.flatnonzero(n >= min_blocks):  # lowest first
-        a, b = i[k], j[k]
-        nn = n[k]
-        mx = (sx[b] - sx[a]) / nn
-        var = max((sxx[b] - sxx[a]) / nn - mx * mx, 0.0)
-        mean = (sv[:, b] - sv[:, a]) / nn
-        slope = ((sxv[:, b] - sxv[:, a]) / nn - mx * mean) / var if var > 0 else np.zeros_like(mean)
-        half = math.sqrt(3.0 * var)  # half the effective span
-        lo_v, hi_v = mean - slope * half, mean + slope * half
-        small = np.abs(mean) < 0.02 * scale
-        amp_ok = np.abs(np.abs(hi_v) - np.abs(lo_v)) <= amplitude_tol * np.abs(mean)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            ph = np.degrees(np.abs(np.angle(hi_v / lo_v)))
-        ph_ok = np.nan_to_num(ph, nan=0.0) <= phase_tol_deg
-        tiny_ok = np.abs(hi_v - lo_v) <= 0.02 * scale
-        if np.all(np.where(small, tiny_ok, amp_ok & ph_ok)):
-            lo = float(c[a])
-            hi = float(min(lo + width, limit))
-            return SlowRollChoice((lo, hi), limit, (
-                f"slow-roll window {lo:.0f}-{hi:.0f} rpm chosen from the data: the lowest band "
-                f"of {int(nn)} revolutions with {tol_txt}, below {limit:.0f} rpm ({why})"))
-    return none
+    best = None  # (low_rpm, -width, high_rpm, n)
+    for w in (width / 8.0, width / 4.0, width / 2.0, width):
+        j = np.searchsorted(c, c + w, side="right")
+        n = s0[j] - s0[i]
+        for k in np.flatnonzero((n >= min_blocks) & (c + w <= limit)):  # lowest first
+            a, b = i[k], j[k]
+            if best is not None and c[a] > best[0]:
+                break  # a wider band may tie the lowest start, never beat it
+            nn = n[k]
+            mx = (sx[b] - sx[a]) / nn
+            var = max((sxx[b] - sxx[a]) / nn - mx * mx, 0.0)
+            mean = (sv[:, b] - sv[:, a]) / nn
+            slope = ((sxv[:, b] - sxv[:, a]) / nn - mx * mean) / var if var > 0 \
+                else np.zeros_like(mean)
+            # the line's ends at the band's lowest and highest speeds, less twice the
+            # standard error of its change (the scatter of the band's vectors about it)
+            x0, x1 = c[a] - c.mean() - mx, c[b - 1] - c.mean() - mx
+            lo_v, hi_v = mean + slope * x0, mean + slope * x1
+            res = max(float(np.max((svv[:, b] - svv[:, a]) / nn - np.abs(mean) ** 2
+                                   - np.abs(slope) ** 2 * var)), 0.0)
+            se = math.sqrt(res / max(nn - 2, 1) / var) * (x1 - x0) if var > 0 else 0.0
+            change = np.maximum(np.abs(hi_v - lo_v) - 2.0 * se, 0.0)
+            small = np.abs(mean) < 0.02 * scale
+            ref = np.maximum(np.abs(mean), 1e-300)
+            amp_ok = np.maximum(np.abs(np.abs(hi_v) - np.abs(lo_v)) - 2.0 * se, 0.0) \
+                <= amplitude_tol * ref
+            ph_ok = np.degrees(2.0 * np.arcsin(np.minimum(change / (2.0 * ref), 1.0))) \
+                <= phase_tol_deg
+            tiny_ok = change <= 0.02 * scale
+            if np.all(np.where(small, tiny_ok, amp_ok & ph_ok)):
+                cand = (float(c[a]), -w, float(c[a] + w), int(nn))
+                if best is None or cand[:2] < best[:2]:
+                    best = cand
+                break
+    if best is None:
+        return none
+    lo, _, hi, nn = best
+    return SlowRollChoice((lo, hi), limit, (
+        f"slow-roll window {lo:.0f}-{hi:.0f} rpm chosen from the data: the lowest band of "
+        f"{nn} revolutions with {tol_txt}, below {limit:.0f} rpm ({why})"))
 
 
 def auto_slow_roll_window(speed_rpm, time_s, *, max_fraction: float = 0.15,

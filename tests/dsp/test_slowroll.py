@@ -81,3 +81,66 @@ class TestWindowOnASweep:
         lo, hi = auto_slow_roll_window(speed, t)
         assert lo == pytest.approx(speed.min(), rel=1e-6)
         assert hi <= 0.15 * speed.max() + 1e-9
+
+
+class TestChooseBySteadiness:
+    """The automatic window: steady 1X, well below the first critical, not the longest dwell.
+
+    Vectors: SDOF unbalance response (fn 3000 rpm, zeta 0.05; Thomson & Dahleh, 5th ed.,
+    sec. 3.3) plus a constant runout vector; rules of choose_slow_roll_window (our own
+    tolerances, DEVELOPERS.md, Reference values).
+    """
+
+    @staticmethod
+    def _run():
+        # 30 s at 200 rpm, a 10-minute warm-up hold at 1200 rpm, a sweep to 10 000 rpm
+        speed = np.concatenate([np.full(100, 200.0), np.linspace(200, 1200, 60),
+                                np.full(12000, 1200.0), np.linspace(1200, 10000, 3000)])
+        r = speed / 3000.0
+        dyn = 20.0 * r * r / (1 - r * r + 0.1j * r)
+        runout = 4.0 * np.exp(-1j)
+        rng = np.random.default_rng(0)
+        vec = np.stack([dyn + runout, 1j * dyn + 0.5 * runout])
+        vec = vec + 0.02 * (rng.standard_normal(vec.shape) + 1j * rng.standard_normal(vec.shape))
+        return speed, vec
+
+    def test_window_at_slow_roll_not_at_the_warm_up_hold(self):
+        from rundash.dsp import choose_slow_roll_window
+        speed, vec = self._run()
+        # the dwell rule takes the hold (its most time below 15 % of the top speed)
+        lo, hi = auto_slow_roll_window(speed, np.arange(speed.size) * 0.05)
+        assert lo <= 1200.0 <= hi
+        ch = choose_slow_roll_window(speed, vec, first_critical_rpm=3007.5)
+        lo, hi = ch.window
+        assert lo == pytest.approx(200.0) and hi <= 0.2 * 3007.5
+        assert "chosen from the data" in ch.note and "first candidate critical" in ch.note
+        # without a candidate critical the limit is 15 % of the top speed; the lowest
+        # steady band still wins
+        assert choose_slow_roll_window(speed, vec).window[0] == pytest.approx(200.0)
+
+    def test_no_window_below_the_critical_is_said(self):
+        from rundash.dsp import choose_slow_roll_window
+        speed, vec = self._run()
+        keep = speed >= 1000.0  # the record starts at the warm-up hold
+        ch = choose_slow_roll_window(speed[keep], vec[:, keep], first_critical_rpm=3007.5)
+        assert ch.window is None and ch.limit_rpm == pytest.approx(601.5)
+        assert ch.note.startswith("no slow-roll window qualifies: no band below 602 rpm (20 % "
+                                  "of the first candidate critical at 3008 rpm)")
+        assert "[processing] slow_roll_rpm" in ch.note
+
+    def test_a_rising_response_is_not_slow_roll(self):
+        # a sweep from 300 rpm through a critical at 1000 rpm (no candidate critical
+        # given): from the first revolution the dynamic response (r^2 / (1 - r^2)) moves
+        # the 1X by more than 10 % of the runout within any band, so nothing qualifies
+        from rundash.dsp import choose_slow_roll_window
+        speed = np.linspace(300.0, 6000.0, 4000)
+        r = speed / 1000.0
+        vec = (20.0 * r * r / (1 - r * r + 0.1j * r) + 3.0)[None, :]
+        ch = choose_slow_roll_window(speed, vec)
+        assert ch.window is None and ch.note.startswith("no slow-roll window qualifies")
+
+    def test_low_blocks_spread_wider_than_a_band_give_none_not_index_error(self):
+        # issue 16: a coast-down to zero, a stop and a restart left a few low blocks
+        # spread wider than any band; the dwell rule failed with IndexError
+        s = np.array([3000.0] * 50 + [40.0, 120.0, 200.0, 280.0, 360.0, 440.0])
+        assert auto_slow_roll_window(s, np.arange(s.size) * 0.1, width_fraction=0.02) is None
