@@ -26,46 +26,28 @@ from rundash.storage import queries as q
 from rundash.workflows.pipeline import process_run
 from tests.synth import notch_tach, piecewise_sweep, tach_waveform
 
+# storage is involved: on SQLite and PostgreSQL (tests/conftest.py)
+pytestmark = pytest.mark.both_databases
+
 SENS_V_PER_UM = 7.874e-3
 
-MACHINE = """
-[machine]
-name = "Scenario rig {name}"
-kind = "compressor"
-rated_speed_rpm = {rated}
-min_operating_speed_rpm = {nmin}
-max_continuous_speed_rpm = {nmc}
-profile = "api617"
+def _machine(name, *, nmin, nmc, kind="compressor", edge="rising", probes, extra=""):
+    """Machine description text; ``probes`` = (name, column, kind, units, sensitivity,
+    bearing, axis, angle) per probe."""
+    units_of = {"proximity": "um", "velocity": "mm/s"}
+    tables = "".join(
+        f'\n[[probes]]\nname = "{n}"\ncolumn = "{c}"\nkind = "{k}"\nunits = "{units_of[k]}"\n'
+        f'sensitivity_mv_per_unit = {sens}\nbearing = "{b}"\naxis = "{ax}"\nangle_deg = {ang}\n'
+        for n, c, k, sens, b, ax, ang in probes)
+    return (f'[machine]\nname = "Scenario rig {name}"\nkind = "{kind}"\n'
+            f"rated_speed_rpm = {nmc}\nmin_operating_speed_rpm = {nmin}\n"
+            f'max_continuous_speed_rpm = {nmc}\nprofile = "api617"\n\n'
+            f'[tach]\ncolumn = "ch1"\nedge = "{edge}"\n{tables}\n'
+            f'[data]\nformat = "wav"\nfull_scale_v = 1.0\n{extra}\n')
 
-[tach]
-column = "ch1"
-edge = "{edge}"
 
-[[probes]]
-name = "A-X"
-column = "ch2"
-kind = "proximity"
-units = "um"
-sensitivity_mv_per_unit = 7.874
-bearing = "A"
-axis = "X"
-angle_deg = 0
-
-[[probes]]
-name = "A-Y"
-column = "ch3"
-kind = "proximity"
-units = "um"
-sensitivity_mv_per_unit = 7.874
-bearing = "A"
-axis = "Y"
-angle_deg = 90
-
-[data]
-format = "wav"
-full_scale_v = 1.0
-{extra}
-"""
+XY_PROBES = (("A-X", "ch2", "proximity", 7.874, "A", "X", 0),
+             ("A-Y", "ch3", "proximity", 7.874, "A", "Y", 90))
 
 
 def _response(rpm, fn_rpm, zeta, e_um):
@@ -94,7 +76,7 @@ def _process(db, tmp_path, name, sweep, *, fs, fn_rpm, zeta, e_um, runout_um=3.0
     path = tmp_path / f"{name}.wav"
     data = np.stack([tach, x * SENS_V_PER_UM, y * SENS_V_PER_UM]).T.astype(np.float32)
     wavfile.write(str(path), int(fs), data)
-    text = MACHINE.format(name=name, rated=nmc, nmin=nmin, nmc=nmc, edge=edge, extra=extra)
+    text = _machine(name, nmin=nmin, nmc=nmc, edge=edge, probes=XY_PROBES, extra=extra)
     desc = parse_machine_description(text, f"{name}.toml")
     res = import_run(db, path, desc, description_text=text)
     return process_run(db, res.run_id).findings, res.run_id
@@ -233,46 +215,11 @@ class TestVerdictsOfWhatTheRunCovers:
         assert casc and all(c.speed_rpm.size == pytest.approx(46, abs=2) for c in casc)
 
 
-VELOCITY_MACHINE = """
-[machine]
-name = "Scenario rig velocity"
-kind = "fan"
-rated_speed_rpm = 5000
-min_operating_speed_rpm = 4500
-max_continuous_speed_rpm = 5200
-
-[tach]
-column = "ch1"
-
-[[probes]]
-name = "A-X"
-column = "ch2"
-kind = "proximity"
-units = "um"
-sensitivity_mv_per_unit = 7.874
-bearing = "A"
-axis = "X"
-
-[[probes]]
-name = "A-VEL"
-column = "ch3"
-kind = "velocity"
-units = "mm/s"
-sensitivity_mv_per_unit = 100.0
-bearing = "A"
-
-[[probes]]
-name = "B-VEL"
-column = "ch4"
-kind = "velocity"
-units = "mm/s"
-sensitivity_mv_per_unit = 100.0
-bearing = "B"
-
-[data]
-format = "wav"
-full_scale_v = 1.0
-"""
+VELOCITY_MACHINE = _machine(
+    "velocity", nmin=4500, nmc=5200, kind="fan",
+    probes=(("A-X", "ch2", "proximity", 7.874, "A", "X", 0),
+            ("A-VEL", "ch3", "velocity", 100.0, "A", "none", 0),
+            ("B-VEL", "ch4", "velocity", 100.0, "B", "none", 0)))
 
 
 class TestVelocityProbes:
