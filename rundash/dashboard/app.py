@@ -1,5 +1,9 @@
 """The Dash application: ``create_app(db)`` builds it, ``serve(db, host, port)`` runs it.
 
+``serve`` runs the app in waitress (a pure-Python production WSGI server) on every
+address; only ``--debug`` (loopback only) uses Flask's development server, for its
+reloader and in-browser tracebacks.
+
 The app is a thin shell: a header with the page links, the page, and the caution bar
 (always visible). Each page module in :mod:`rundash.dashboard.pages` holds its route,
 layout and callbacks; the database handle is passed in here and nowhere else.
@@ -39,5 +43,23 @@ def serve(db: Database, *, host: str = "127.0.0.1", port: int = 8050, debug: boo
     app = create_app(db, password=password)
     for line in security.instructions(host, port, password=password):
         print(line, file=sys.stderr)
-    app.run(host=host, port=port, debug=debug)
+    if debug:
+        app.run(host=host, port=port, debug=True)
+        return 0
+    wsgi_server(app.server, host=host, port=port).run()
     return 0
+
+
+def wsgi_server(wsgi_app, *, host: str, port: int, threads: int = 8):
+    """A waitress server for ``wsgi_app`` bound to ``host:port`` (``.run()`` serves until
+    Ctrl-C, ``.close()`` stops it). Port 0 picks a free port (``.effective_port``).
+
+    Request bodies are capped at the app's ``MAX_CONTENT_LENGTH`` (see security.py) by
+    waitress as well, so an oversized upload is refused before it is buffered.
+    """
+    from waitress.server import create_server
+
+    cap = getattr(wsgi_app, "config", {}).get("MAX_CONTENT_LENGTH")
+    options = {"max_request_body_size": cap} if cap else {}
+    return create_server(wsgi_app, host=host.strip("[]"), port=port, threads=threads,
+                         ident="rundash", clear_untrusted_proxy_headers=True, **options)
