@@ -1,4 +1,4 @@
-"""A small progress bar for the terminal (stderr), and the callback type long work takes.
+"""The callback type long work takes, and its terminal face (a tqdm bar on stderr).
 
 Long work reports ``progress(fraction, stage)`` with fraction in [0, 1]; faces decide how
 to show it (this bar in the CLI, a status line in the dashboard).
@@ -30,36 +30,50 @@ no_progress = _NoProgress()
 
 
 class Bar:
-    """A one-line progress bar on a stream (stderr by default), redrawn at most 10 x/s."""
+    """The terminal face of a progress callback: one tqdm bar per stage on stderr.
 
-    def __init__(self, stream=None, width: int = 30):
+    On a terminal each stage is one bar redrawn in place (tqdm, at most 10 x/s). When
+    stderr is not a terminal (a log file, CI, a pipe) a redrawn bar would be glued into one
+    long line, so each stage prints one line when it starts and one when it ends, with its
+    time.
+    """
+
+    def __init__(self, stream=None):
         self.stream = stream or sys.stderr
-        self.width = width
-        self._last = 0.0
+        self._tty = bool(getattr(self.stream, "isatty", lambda: False)())
+        self._bar = None
         self._stage = ""
         self._t0 = time.monotonic()
 
     def __call__(self, fraction: float, stage: str) -> None:
-        now = time.monotonic()
-        if stage == self._stage and fraction < 1.0 and now - self._last < 0.1:
-            return
-        if stage != self._stage and self._stage:
-            self.stream.write("\n")
-            self._t0 = now
-        self._stage = stage
-        self._last = now
-        self._draw(fraction, stage, end=False)
+        f = min(max(float(fraction), 0.0), 1.0)
+        if stage != self._stage:
+            self._end_stage()
+            self._stage = stage
+            self._t0 = time.monotonic()
+            if self._tty:
+                from tqdm import tqdm
+                self._bar = tqdm(total=1000, desc=f"{stage:<22.22}", file=self.stream,
+                                 mininterval=0.1, leave=True,
+                                 bar_format="{desc} {bar:30} {percentage:5.1f} % {elapsed}")
+            else:
+                self.stream.write(f"{stage} ...\n")
+                self.stream.flush()
+        if self._bar is not None:
+            n = int(round(f * 1000))
+            if n > self._bar.n:
+                self._bar.update(n - self._bar.n)
 
-    def _draw(self, fraction: float, stage: str, end: bool) -> None:
-        f = min(max(fraction, 0.0), 1.0)
-        n = int(round(f * self.width))
-        line = (f"\r{stage:<22.22} [{'#' * n}{'.' * (self.width - n)}] {100 * f:5.1f} % "
-                f"{time.monotonic() - self._t0:6.1f} s")
-        self.stream.write(line + ("\n" if end else ""))
-        self.stream.flush()
+    def _end_stage(self) -> None:
+        if not self._stage:
+            return
+        if self._bar is not None:
+            self._bar.close()
+            self._bar = None
+        else:
+            self.stream.write(f"{self._stage} done in {time.monotonic() - self._t0:.1f} s\n")
+            self.stream.flush()
+        self._stage = ""
 
     def close(self) -> None:
-        if self._stage:
-            self.stream.write("\n")
-            self.stream.flush()
-            self._stage = ""
+        self._end_stage()

@@ -178,7 +178,12 @@ def cmd_demo(*, db: str | None, host: str, port: int, serve: bool, quiet: bool) 
 
     database = open_db(db or DEMO_DB, create=True)
     bar = progress_bar(quiet)
-    ids = build_demo(database, progress=bar, log=print)
+
+    def log(line: str) -> None:
+        bar.close()                 # the stage's last line before the result it led to
+        print(line, flush=True)
+
+    ids = build_demo(database, progress=bar, log=log)
     bar.close()
     print(f"demo database: {database.url} ({len(ids)} runs)")
     if not serve:
