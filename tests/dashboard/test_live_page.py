@@ -1,4 +1,4 @@
-"""The live page while a replay at x20 records a run with a known critical: polled in
+"""The live page while a replay at x10 records a run with a known critical: polled in
 headless Chromium (dash's ``dash_duo``); page logic without a browser too."""
 
 from __future__ import annotations
