@@ -13,7 +13,7 @@ from typing import Sequence
 
 from rundash import CAUTION, __version__
 from rundash.cli.commands import (
-    cmd_compare, cmd_demo, cmd_findings, cmd_import, cmd_machines, cmd_process, cmd_record,
+    cmd_compare, cmd_demo, cmd_export, cmd_findings, cmd_import, cmd_machines, cmd_process, cmd_record,
     cmd_report, cmd_reprocess, cmd_runs, cmd_serve, cmd_sync,
 )
 from rundash.cli.common import (
@@ -124,6 +124,24 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--speeds", type=parse_speeds, help="speeds (rpm) at which lag and 1X are compared, e.g. "
                                     "4400,5460 (default: minimum operating and maximum "
                                     "continuous speed)")
+    s.add_argument("--format", dest="fmt", choices=["csv", "parquet", "xlsx"],
+                   help="the comparison as a table (one row per compared quantity, see the "
+                        "README) instead of text; to -o FILE, or csv to stdout")
+    s.add_argument("-o", "--output", help="file for --format (default: stdout, csv only)")
+
+    s = with_db(sub.add_parser("export", help="a run's vectors, speed profile, findings, "
+                                              "limit checks or cascade as a table file"))
+    s.add_argument("run", type=int, help="run id (see 'rundash runs')")
+    s.add_argument("--what", required=True,
+                   choices=["vectors", "speed", "findings", "limits", "cascade"],
+                   help="which table (columns in the README, 'Exports')")
+    s.add_argument("--orders", type=parse_orders, default=None,
+                   help="vectors: only these orders, e.g. 1,2 (default: every stored order)")
+    s.add_argument("--probe", help="only this probe (vectors, findings, limits, cascade)")
+    s.add_argument("--format", dest="fmt", choices=["csv", "parquet", "xlsx"],
+                   help="file format (default: from the ending of -o)")
+    s.add_argument("-o", "--output", required=True,
+                   help="file to write (.csv, .parquet, .xlsx); '-' writes csv to stdout")
 
     s = with_db(sub.add_parser("report", help="write the sign-off report of a run (HTML or "
                                               "PDF)"))
@@ -156,7 +174,7 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
-COMMANDS = {"import": cmd_import, "record": cmd_record, "process": cmd_process, "findings": cmd_findings, "compare": cmd_compare, "report": cmd_report, "runs": cmd_runs, "machines": cmd_machines,
+COMMANDS = {"import": cmd_import, "record": cmd_record, "process": cmd_process, "findings": cmd_findings, "compare": cmd_compare, "export": cmd_export, "report": cmd_report, "runs": cmd_runs, "machines": cmd_machines,
             "serve": cmd_serve, "demo": cmd_demo, "sync": cmd_sync,
             "reprocess": cmd_reprocess}
 

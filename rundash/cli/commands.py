@@ -219,12 +219,44 @@ def cmd_sync(*, source: str, to: str, machine: str | None, as_json: bool, quiet:
     return 0
 
 
+def write_export(data: bytes, output: str | None) -> None:
+    """Write an export's bytes to ``output`` (stdout for '-' or none) and say where."""
+    if output in (None, "-"):
+        sys.stdout.buffer.write(data)
+        sys.stdout.flush()
+        return
+    Path(output).write_bytes(data)
+    print(output)
+
+
+def cmd_export(*, db: str | None, run: int, what: str, orders: tuple[float, ...] | None,
+               probe: str | None, fmt: str | None, output: str) -> int:
+    from rundash.workflows.export import format_of, run_table, table_bytes
+
+    fmt = format_of(output, fmt) if output != "-" else (fmt or "csv")
+    df = run_table(open_db(db), run, what, orders=orders, probe=probe)
+    write_export(table_bytes(df, fmt, sheet=what), output)
+    return 0
+
+
 def cmd_compare(*, db: str | None, runs: list[int], as_json: bool, boot: int,
-                speeds: list[float] | None) -> int:
+                speeds: list[float] | None, fmt: str | None = None,
+                output: str | None = None) -> int:
     from rundash import presentation as pr
     from rundash.workflows.comparison import compare_runs
 
+    if output and not fmt and not as_json:
+        from rundash.workflows.export import format_of
+        fmt = format_of(output)
+    if fmt and as_json:
+        raise InputError("give --json or --format, not both")
     c = compare_runs(open_db(db), runs, phase_speeds_rpm=speeds, n_boot=boot)
+    if fmt:
+        from rundash.workflows.export import comparison_table, table_bytes
+        write_export(table_bytes(comparison_table(c), fmt, sheet="comparison"), output)
+        return 0
+    if output:
+        raise InputError("-o/--output needs --format (csv, parquet or xlsx)")
     if as_json:
         print(json.dumps(c, indent=2))
         return 0
