@@ -20,7 +20,6 @@ stage (:data:`STAGES`); ``rundash process --timings`` prints them.
 
 from __future__ import annotations
 
-import queue
 import threading
 import time
 import warnings
@@ -36,6 +35,7 @@ from rundash.conventions import lag_deg_from_phasor
 from rundash.dsp import orders as dsp_orders
 from rundash.dsp import slowroll, spectra, speed, tach
 from rundash.errors import DspError, StorageError
+from rundash.ingest.importer import prefetched
 from rundash.ingest.machine_file import parse_machine_description
 from rundash.model import MachineDescription, TachSpec
 from rundash.progress import Progress, no_progress
@@ -139,39 +139,11 @@ def _prefetched(db: Database, channel_ids, timer: StageTimer) -> Iterator[tuple[
     """Chunks of the channels, read and decoded by a second thread up to
     :data:`PREFETCH_CHUNKS` ahead (SQLite and numpy copies run without the GIL, so the
     reading overlaps the tracking); errors of the reader are raised here."""
-    out: queue.Queue = queue.Queue(maxsize=PREFETCH_CHUNKS)
-    stop = threading.Event()
-    done = object()
+    def chunks():
+        with db.read() as conn:
+            yield from _timed_chunks(conn, channel_ids, timer)
 
-    def reader():
-        try:
-            with db.read() as conn:
-                for item in _timed_chunks(conn, channel_ids, timer):
-                    while not stop.is_set():
-                        try:
-                            out.put(item, timeout=0.1)
-                            break
-                        except queue.Full:
-                            continue
-                    if stop.is_set():
-                        return
-            out.put(done)
-        except BaseException as exc:  # handed to the consumer
-            out.put(exc)
-
-    th = threading.Thread(target=reader, name="rundash-reader", daemon=True)
-    th.start()
-    try:
-        while True:
-            item = out.get()
-            if item is done:
-                return
-            if isinstance(item, BaseException):
-                raise item
-            yield item
-    finally:
-        stop.set()
-        th.join()
+    return prefetched(chunks(), depth=PREFETCH_CHUNKS)
 
 
 def _description(conn, run_id: int) -> MachineDescription:
