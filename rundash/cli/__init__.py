@@ -151,6 +151,8 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("-o", "--output", required=True,
                    help="report file: .html (self-contained, opens offline) or .pdf")
     s.add_argument("--reviewer", default="", help="name printed in the sign-off block")
+    s.add_argument("--role", default="", help="the reviewer's role printed in the sign-off "
+                                              "block")
     s.add_argument("--decision", default="", help="decision printed in the sign-off block "
                                                   "(left blank to fill in by hand)")
     s.add_argument("--remarks", default="", help="remarks printed in the sign-off block")

@@ -299,11 +299,11 @@ def cmd_compare(*, db: str | None, runs: list[int], as_json: bool, boot: int,
 
 
 def cmd_report(*, db: str | None, run: int, compare: list[int] | None, output: str,
-               reviewer: str, decision: str, remarks: str, boot: int) -> int:
+               reviewer: str, role: str, decision: str, remarks: str, boot: int) -> int:
     from rundash.report import write_report
 
     path = write_report(open_db(db), run, output, compare=compare or (), reviewer=reviewer,
-                        decision=decision, remarks=remarks, n_boot=boot)
+                        role=role, decision=decision, remarks=remarks, n_boot=boot)
     print(path)
     return 0
 

@@ -1,10 +1,13 @@
 """Report downloads and the comparison link of the run review page.
 
-:func:`run_actions` draws the row of actions under the review page's header (download the
-sign-off report as HTML or PDF, compare with other runs); :func:`build_report` writes the
-report with :func:`rundash.report.write_report` into a throw-away folder and returns it as
-the dict ``dcc.Download`` takes; :func:`register_callbacks` wires the buttons. Errors
-(run not processed, no Chromium for the PDF) come back as a visible alert, one line.
+:func:`run_actions` draws the row of actions under the review page's header (the
+reviewer's fields printed in the sign-off block, whether to include the comparison with
+the previous processed run of the same kind on the same machine — as ``rundash report
+--compare`` does —, download the report as HTML or PDF, compare with other runs);
+:func:`build_report` writes the report with :func:`rundash.report.write_report` into a
+throw-away folder and returns it as the dict ``dcc.Download`` takes;
+:func:`register_callbacks` wires the buttons. Errors (run not processed, no Chromium or
+no PDF extra for the PDF) come back as a visible alert, one line.
 """
 
 from __future__ import annotations
@@ -19,6 +22,7 @@ from rundash.errors import InputError, RundashError
 
 ReportFormat = Literal["html", "pdf"]
 MIME = {"html": "text/html", "pdf": "application/pdf"}
+DECISIONS = ("accepted", "accepted with remarks", "not accepted")
 
 
 def report_filename(run, fmt: ReportFormat) -> str:
@@ -27,8 +31,11 @@ def report_filename(run, fmt: ReportFormat) -> str:
     return f"rundash-run-{run.id}-{day}.{fmt}"
 
 
-def build_report(db, run_id: int, fmt: ReportFormat, *, reviewer: str = "") -> dict[str, Any]:
-    """The sign-off report of ``run_id`` as a ``dcc.Download`` dict (base64 content).
+def build_report(db, run_id: int, fmt: ReportFormat, *, reviewer: str = "", role: str = "",
+                 decision: str = "", remarks: str = "",
+                 compare: tuple[int, ...] = ()) -> dict[str, Any]:
+    """The sign-off report of ``run_id`` as a ``dcc.Download`` dict (base64 content),
+    with the reviewer's fields in the sign-off block and the comparison with ``compare``.
 
     Raises
     ------
@@ -47,7 +54,8 @@ def build_report(db, run_id: int, fmt: ReportFormat, *, reviewer: str = "") -> d
         run = q.get_run(conn, int(run_id))
     name = report_filename(run, fmt)
     with tempfile.TemporaryDirectory(prefix="rundash-dl-") as tmp:
-        out = write_report(db, int(run_id), Path(tmp) / name, reviewer=reviewer)
+        out = write_report(db, int(run_id), Path(tmp) / name, compare=compare,
+                           reviewer=reviewer, role=role, decision=decision, remarks=remarks)
         content = out.read_bytes()
     return {"content": base64.b64encode(content).decode("ascii"), "filename": name,
             "base64": True, "type": MIME[fmt]}
@@ -67,8 +75,59 @@ def compare_href(db, run) -> str:
     return href([run.id, *[r.id for r in pick]])
 
 
+def previous_same_kind(db, run):
+    """The processed run of the same machine and kind that started last before ``run``
+    (by start time, then by id; undated runs count as older than dated ones), or None."""
+    from rundash.storage import queries as q
+
+    with db.read() as conn:
+        runs = q.list_runs(conn, q.run_machine_id(conn, run.id))  # newest first
+    ids_ = [r.id for r in runs]
+    older = runs[ids_.index(run.id) + 1:] if run.id in ids_ else []
+    return next((r for r in older if r.processed and r.kind == run.kind), None)
+
+
+def _field(label: str, component, width: str = "180px"):
+    from dash import html
+
+    return html.Div(style={"minWidth": width}, children=[
+        html.Label(label, className="head", htmlFor=component.id), component])
+
+
+def report_form(db, run):
+    """The reviewer's fields and the comparison choice printed into the report."""
+    from dash import dcc, html
+
+    prev = previous_same_kind(db, run)
+    if prev is None:
+        cmp = html.Span(f"No earlier processed {run.kind} of this machine to compare with.",
+                        className="note", id=ids.REPORT_COMPARE_NOTE)
+        choice = dcc.Checklist(id=ids.REPORT_COMPARE, options=[], value=[])
+    else:
+        day = prev.started_at.strftime("%Y-%m-%d") if prev.started_at else "undated"
+        name = f"run {prev.id} ({day}{', ' + prev.label if prev.label else ''})"
+        cmp = html.Span(f"with the previous {run.kind} of this machine: {name}",
+                        id=ids.REPORT_COMPARE_NOTE)
+        choice = dcc.Checklist(id=ids.REPORT_COMPARE, value=[prev.id], inline=True,
+                               options=[{"label": " include the comparison", "value": prev.id}])
+    return html.Div(className="controls", style={"marginTop": "6px"}, children=[
+        _field("Reviewer", dcc.Input(id=ids.REPORT_REVIEWER, type="text", value="",
+                                     placeholder="name", debounce=False)),
+        _field("Role", dcc.Input(id=ids.REPORT_ROLE, type="text", value="",
+                                 placeholder="e.g. rotating equipment engineer")),
+        _field("Decision", dcc.Dropdown(id=ids.REPORT_DECISION, clearable=True,
+                                        placeholder="blank: fill in by hand",
+                                        options=[{"label": d, "value": d} for d in DECISIONS]),
+               width="210px"),
+        _field("Remarks", dcc.Textarea(id=ids.REPORT_REMARKS, value="",
+                                       style={"width": "340px", "height": "36px"})),
+        html.Div(style={"display": "flex", "gap": "6px", "alignItems": "baseline"},
+                 children=[choice, cmp])])
+
+
 def run_actions(db, run, processed: bool):
-    """The actions row: report downloads (when processed) and the comparison link."""
+    """The actions row: the reviewer's fields and report downloads (when processed) and
+    the comparison link."""
     from dash import dcc, html
 
     link = dcc.Link("Compare with other runs of this machine →", href=compare_href(db, run))
@@ -76,18 +135,26 @@ def run_actions(db, run, processed: bool):
         return html.Div(className="controls", children=[
             html.Span("The report can be downloaded once the run is processed.",
                       className="note"), link])
-    return html.Div(className="controls", style={"alignItems": "center", "marginTop": "6px"},
-                    children=[
-        html.Button("Download report (HTML)", id=ids.REPORT_HTML, n_clicks=0),
-        html.Button("Download report (PDF)", id=ids.REPORT_PDF, n_clicks=0,
-                    title="Printed by headless Chromium; takes a few seconds"),
-        dcc.Download(id=ids.REPORT_DOWNLOAD),
-        html.Span(id=ids.REPORT_BUSY, className="note", role="status"),
-        html.Div(id=ids.REPORT_STATUS),
-        link])
+    return html.Div([
+        html.H3("Sign-off report", style={"margin": "10px 0 2px 0", "fontSize": "15px"}),
+        html.P("The fields below are printed in the report's sign-off block (a record, "
+               "not an electronic signature); leave them blank to fill in on paper.",
+               className="note", style={"margin": "0"}),
+        report_form(db, run),
+        html.Div(className="controls", style={"alignItems": "center", "marginTop": "6px"},
+                 children=[
+            html.Button("Download report (HTML)", id=ids.REPORT_HTML, n_clicks=0),
+            html.Button("Download report (PDF)", id=ids.REPORT_PDF, n_clicks=0,
+                        title="Printed by headless Chromium; takes a few seconds"),
+            dcc.Download(id=ids.REPORT_DOWNLOAD),
+            html.Span(id=ids.REPORT_BUSY, className="note", role="status"),
+            html.Div(id=ids.REPORT_STATUS),
+            link])])
 
 
-def download(db, run_id, trigger: str | None):
+def download(db, run_id, trigger: str | None, *, reviewer: str | None = "",
+             role: str | None = "", decision: str | None = "", remarks: str | None = "",
+             compare=()):
     """(download dict or None, status component) for a click on one of the buttons."""
     from dash import html
 
@@ -95,10 +162,13 @@ def download(db, run_id, trigger: str | None):
     if fmt is None or run_id is None:
         return None, None
     try:
-        data = build_report(db, int(run_id), fmt)
+        data = build_report(db, int(run_id), fmt, reviewer=(reviewer or "").strip(),
+                            role=(role or "").strip(), decision=decision or "",
+                            remarks=(remarks or "").strip(),
+                            compare=tuple(int(c) for c in compare or ()))
     except RundashError as exc:
         return None, html.Div(f"The {fmt.upper()} report could not be made: {exc}",
-                              className="error", role="alert")
+                              className="error", role="alert", id=ids.REPORT_ALERT)
     size = len(base64.b64decode(data["content"]))
     return data, html.Div(f"{data['filename']} ready ({size / 1e6:.1f} MB).", className="note")
 
@@ -108,10 +178,15 @@ def register_callbacks(app, db) -> None:
 
     @app.callback(Output(ids.REPORT_DOWNLOAD, "data"), Output(ids.REPORT_STATUS, "children"),
                   Input(ids.REPORT_HTML, "n_clicks"), Input(ids.REPORT_PDF, "n_clicks"),
-                  State(ids.RUN_ID, "data"), prevent_initial_call=True,
+                  State(ids.RUN_ID, "data"), State(ids.REPORT_REVIEWER, "value"),
+                  State(ids.REPORT_ROLE, "value"), State(ids.REPORT_DECISION, "value"),
+                  State(ids.REPORT_REMARKS, "value"), State(ids.REPORT_COMPARE, "value"),
+                  prevent_initial_call=True,
                   running=[(Output(ids.REPORT_HTML, "disabled"), True, False),
                            (Output(ids.REPORT_PDF, "disabled"), True, False),
                            (Output(ids.REPORT_BUSY, "children"),
                             "Building the report (the PDF takes a few seconds)…", "")])
-    def _download(_html_clicks, _pdf_clicks, run_id):
-        return download(db, run_id, ctx.triggered_id)
+    def _download(_html_clicks, _pdf_clicks, run_id, reviewer, role, decision, remarks,
+                  compare):
+        return download(db, run_id, ctx.triggered_id, reviewer=reviewer, role=role,
+                        decision=decision, remarks=remarks, compare=compare)

@@ -19,7 +19,7 @@ __all__ = ["load_report_data", "render", "write_report"]
 
 
 def write_report(db, run_id: int, output: str | Path, *, compare: Sequence[int] = (),
-                 reviewer: str = "", decision: str = "", remarks: str = "",
+                 reviewer: str = "", role: str = "", decision: str = "", remarks: str = "",
                  n_boot: int = 100) -> Path:
     """Write the report of ``run_id`` to ``output`` (``.html`` or ``.pdf``); returns it.
 
@@ -34,8 +34,11 @@ def write_report(db, run_id: int, output: str | Path, *, compare: Sequence[int] 
     if not out.parent.is_dir():
         raise InputError(f"Invalid value for '--output': allowed a file in an existing "
                          f"folder, got {str(output)!r}")
+    if suffix == ".pdf":
+        from rundash.report.pdf import check_pdf_tools
+        check_pdf_tools()  # before the data is loaded: one line, no traceback
     data = load_report_data(db, run_id, compare, n_boot=n_boot)
-    kw = dict(reviewer=reviewer, decision=decision, remarks=remarks)
+    kw = dict(reviewer=reviewer, role=role, decision=decision, remarks=remarks)
     if suffix == ".pdf":
         from rundash.report.pdf import html_to_pdf
         return html_to_pdf(render(data, flavour="static", **kw), out)

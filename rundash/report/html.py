@@ -21,7 +21,7 @@ from typing import Any, Literal, Sequence
 
 from rundash import CAUTION, __version__, figures
 from rundash import presentation as pr
-from rundash.errors import NotFoundError
+from rundash.errors import ConfigError, NotFoundError
 
 Flavour = Literal["interactive", "static"]
 FIG_WIDTH_PX, FIG_HEIGHT_PX = 900, 520
@@ -324,7 +324,7 @@ def _comparison_section(data) -> str:
     return "".join(out)
 
 
-def _signoff(reviewer: str, decision: str, remarks: str) -> str:
+def _signoff(reviewer: str, decision: str, remarks: str, role: str = "") -> str:
     opts = ("accepted", "accepted with remarks", "not accepted")
     d = (decision or "").strip().lower()
     boxes = "".join(f'<span class="box{" x" if d == o else ""}"></span>{_e(o)}' for o in opts)
@@ -333,6 +333,7 @@ def _signoff(reviewer: str, decision: str, remarks: str) -> str:
     return (
         '<h2>Sign-off</h2><div class="signoff"><table>'
         f'<tr><th>Reviewer</th><td><span class="line">{_e(reviewer) or "&nbsp;"}</span></td></tr>'
+        f'<tr><th>Role</th><td><span class="line">{_e(role) or "&nbsp;"}</span></td></tr>'
         f'<tr><th>Date</th><td><span class="line">{today if reviewer else "&nbsp;"}</span>'
         f'</td></tr><tr><th>Decision</th><td>{boxes}{extra}</td></tr>'
         f'<tr><th>Remarks</th><td><span class="line" style="min-width:520px">'
@@ -353,7 +354,7 @@ def _svg_uri(fig) -> str:
 
 
 def render(data: dict[str, Any], *, flavour: Flavour = "interactive", reviewer: str = "",
-           decision: str = "", remarks: str = "") -> str:
+           role: str = "", decision: str = "", remarks: str = "") -> str:
     """The report page as one HTML string (see the module docstring for ``flavour``)."""
     run, m = data["run"], data["machine"]
     f = data["proc"].findings or {}
@@ -361,7 +362,11 @@ def render(data: dict[str, Any], *, flavour: Flavour = "interactive", reviewer: 
     parts = []
     n_fig = 0
     if flavour == "static":
-        import kaleido
+        try:
+            import kaleido
+        except ImportError:
+            raise ConfigError("static figures need the PDF extra: pip install "
+                              "'rundash[pdf]' (kaleido)") from None
         kaleido.start_sync_server(silence_warnings=True)
         try:
             for cap, fig in figs:
@@ -390,4 +395,4 @@ def render(data: dict[str, Any], *, flavour: Flavour = "interactive", reviewer: 
         + _run_section(data) + _processing_section(data) + _findings_section(data)
         + _comparison_section(data)
         + f"<h2>{n_sec}. Plots</h2>" + "".join(parts)
-        + _signoff(reviewer, decision, remarks) + "</body></html>")
+        + _signoff(reviewer, decision, remarks, role) + "</body></html>")

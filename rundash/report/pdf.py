@@ -38,6 +38,24 @@ def find_browser() -> str:
                       "chromium) or set BROWSER_PATH, or write an .html report instead")
 
 
+def check_pdf_tools() -> None:
+    """Raise one ``ConfigError`` naming everything the PDF path lacks (the PDF extra,
+    kaleido, for the static figures; Chromium for the figures and the printing), so that
+    nothing is loaded or drawn before the user hears it."""
+    missing = []
+    try:
+        import kaleido  # noqa: F401
+    except ImportError:
+        missing.append("the PDF extra (pip install 'rundash[pdf]', which brings kaleido)")
+    try:
+        find_browser()
+    except ConfigError:
+        missing.append("Chromium (Debian: apt-get install chromium; or set BROWSER_PATH)")
+    if missing:
+        raise ConfigError("PDF output needs " + " and ".join(missing)
+                          + "; an .html report needs neither")
+
+
 def html_to_pdf(page: str, out: Path) -> Path:
     """Write ``page`` (a complete HTML document) as the PDF file ``out``."""
     browser = find_browser()

@@ -67,3 +67,43 @@ def test_compare_and_download(dash_duo, demo_full, ups):  # noqa: F811
         assert fh.read(15).lower() == "<!doctype html>"
     _shot(dash_duo, "review-download")
     assert _severe(dash_duo) == []
+
+
+def test_report_with_reviewer_fields_and_pdf_alert(dash_duo, demo_full, ups, monkeypatch):  # noqa: F811
+    """The review page's report form: the reviewer's fields and the comparison with the
+    previous run-up land in the downloaded file; without the PDF extra the PDF button
+    shows one visible line saying so."""
+    import sys
+
+    from dash.testing.wait import until
+
+    db, _ = demo_full
+    dash_duo.start_server(create_app(db))
+    dash_duo.driver.get(dash_duo.server_url + f"/run/{ups[1]}")
+    dash_duo.wait_for_element(f"#{ids.REPORT_REVIEWER}", timeout=15)
+    dash_duo.find_element(f"#{ids.REPORT_REVIEWER}").send_keys("B. Adeyemi")
+    dash_duo.find_element(f"#{ids.REPORT_ROLE}").send_keys("machinery engineer")
+    dash_duo.find_element(f"#{ids.REPORT_REMARKS}").send_keys("second critical to watch")
+    dash_duo.select_dcc_dropdown(f"#{ids.REPORT_DECISION}", value="accepted with remarks")
+    assert dash_duo.find_element(f"#{ids.REPORT_COMPARE} input").is_selected()
+    assert f"run {ups[0]}" in dash_duo.find_element(f"#{ids.REPORT_COMPARE_NOTE}").text
+    _shot(dash_duo, "review-report-form")
+    _click(dash_duo, f"#{ids.REPORT_HTML}")
+    dash_duo.wait_for_contains_text(f"#{ids.REPORT_STATUS}", "ready", timeout=60)
+    path = os.path.join(dash_duo.download_path, f"rundash-run-{ups[1]}-2025-06-03.html")
+    until(lambda: os.path.isfile(path) and os.path.getsize(path) > 100_000, timeout=20)
+    with open(path, encoding="utf-8") as fh:
+        page = fh.read()
+    for words in ("B. Adeyemi", "machinery engineer", "second critical to watch",
+                  'class="box x"></span>accepted with remarks', "Comparison with other runs"):
+        assert words in page, words
+
+    monkeypatch.setitem(sys.modules, "kaleido", None)  # the server runs in this process
+    _click(dash_duo, f"#{ids.REPORT_PDF}")
+    dash_duo.wait_for_element(f"#{ids.REPORT_ALERT}", timeout=30)
+    alert = dash_duo.find_element(f"#{ids.REPORT_ALERT}")
+    assert alert.is_displayed() and alert.get_attribute("role") == "alert"
+    assert alert.text.startswith("The PDF report could not be made: PDF output needs the "
+                                 "PDF extra") and len(alert.text.splitlines()) == 1
+    _shot(dash_duo, "review-report-pdf-alert")
+    assert _severe(dash_duo) == []

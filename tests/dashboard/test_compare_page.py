@@ -282,11 +282,40 @@ class TestReportDownload:
         assert CAUTION in html.unescape(page)
         assert "ready" in _text(status)
 
+    def test_reviewer_fields_and_the_previous_run(self, demo_full, ups):
+        db, by_file = demo_full
+        with db.read() as conn:
+            later, earlier = q.get_run(conn, ups[1]), q.get_run(conn, ups[0])
+        # the previous processed run-up of the machine, not the coast-downs between them
+        assert reports.previous_same_kind(db, later).id == ups[0]
+        assert reports.previous_same_kind(db, earlier) is None
+        form = _text(reports.report_form(db, later))
+        assert f"with the previous run-up of this machine: run {ups[0]} (2023-" in form
+        assert "No earlier processed run-up" in _text(reports.report_form(db, earlier))
+        data, status = reports.download(db, ups[1], ids.REPORT_HTML, reviewer=" A. Reviewer ",
+                                        role="commissioning lead",
+                                        decision="accepted with remarks",
+                                        remarks="recheck DE-Y", compare=[ups[0]])
+        page = html.unescape(base64.b64decode(data["content"]).decode("utf-8"))
+        assert "A. Reviewer" in page and "commissioning lead" in page
+        assert "recheck DE-Y" in page and 'class="box x"></span>accepted with remarks' in page
+        # the comparison section, as rundash report --compare writes it
+        assert "Comparison with other runs" in page and f"run {ups[0]}" in page
+        assert "ready" in _text(status)
+
     def test_pdf(self, demo_full, ups):
         db, _ = demo_full
         data, status = reports.download(db, ups[1], ids.REPORT_PDF)
         assert data["type"] == "application/pdf"
         assert base64.b64decode(data["content"])[:5] == b"%PDF-"
+
+    def test_missing_pdf_extra_is_an_alert(self, demo_full, ups, monkeypatch):
+        import sys
+
+        monkeypatch.setitem(sys.modules, "kaleido", None)  # the PDF extra not installed
+        data, status = reports.download(demo_full[0], ups[1], ids.REPORT_PDF)
+        assert data is None and status.className == "error" and status.role == "alert"
+        assert "PDF output needs the PDF extra" in _text(status)
 
     def test_errors_become_an_alert(self, demo_full):
         db, _ = demo_full

@@ -9,9 +9,13 @@ scenario's model in tests/test_demo_findings.py); here the report must carry the
 from __future__ import annotations
 
 import html
+import os
 import re
 import shutil
+import subprocess
+import sys
 import unicodedata
+from pathlib import Path
 
 import pytest
 
@@ -23,6 +27,7 @@ from rundash.report.html import build_figures
 from rundash.storage import queries as q
 from rundash.storage.engine import open_database
 
+ROOT = Path(__file__).resolve().parents[2]
 BROWSER_FLAGS = ("--headless", "--no-sandbox", "--disable-gpu", "--disable-dev-shm-usage",
                  "--disable-background-networking", "--disable-component-update",
                  "--disable-sync", "--no-first-run", "--disable-quic", "--window-size=1200,900")
@@ -52,6 +57,7 @@ def pdf_text(demo):
     db, folder, by_file, _ = demo
     out = write_report(db, by_file["k410_2025_up.wav"], folder / "r.pdf",
                        compare=[by_file["k410_2023_up.wav"]], reviewer="R. Okafor",
+                       role="machinery engineer",
                        decision="accepted with remarks", remarks="audit the second critical",
                        n_boot=10)
     reader = pypdf.PdfReader(str(out))
@@ -75,6 +81,7 @@ class TestPdf:
         _, text = pdf_text
         assert _words(CAUTION) in text
         assert "Sign-off" in text and "R. Okafor" in text and "audit the second critical" in text
+        assert "Role machinery engineer" in text
 
     def test_holds_the_comparison(self, pdf_text):
         _, text = pdf_text
@@ -140,3 +147,48 @@ class TestHtml:
                      str(db.engine.url.database)]) == 1
         err = capsys.readouterr().err.strip()
         assert words in err and len(err.splitlines()) == 1
+
+
+class TestPdfToolsMissing:
+    """The PDF path says in one line what is missing (no traceback): a real ``rundash
+    report`` process with kaleido hidden from its imports or Chromium off its PATH."""
+
+    def _run(self, demo, tmp_path, *, hide_kaleido: bool, path: str | None):
+        db, _, by_file, _ = demo
+        env = dict(os.environ)
+        env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
+        env.pop("BROWSER_PATH", None)
+        if path is not None:
+            env["PATH"] = path
+        hide = "sys.modules['kaleido'] = None; " if hide_kaleido else ""
+        out = tmp_path / "r.pdf"
+        res = subprocess.run(
+            [sys.executable, "-c", f"import sys; {hide}from rundash.cli import main; "
+             "sys.exit(main())", "report", str(by_file["k410_2025_up.wav"]), "-o", str(out),
+             "--db", str(db.engine.url.database)],
+            capture_output=True, text=True, env=env, timeout=120)
+        return res, out
+
+    def test_without_the_pdf_extra(self, demo, tmp_path):
+        res, out = self._run(demo, tmp_path, hide_kaleido=True, path=None)
+        assert res.returncode == 1 and not out.exists()
+        lines = res.stderr.strip().splitlines()
+        assert len(lines) == 1 and "Traceback" not in res.stderr, res.stderr
+        assert lines[0].startswith("rundash report: error: PDF output needs the PDF extra")
+        assert "rundash[pdf]" in lines[0] and "Chromium" not in lines[0]
+
+    def test_without_chromium(self, demo, tmp_path):
+        empty = tmp_path / "bin"
+        empty.mkdir()
+        res, out = self._run(demo, tmp_path, hide_kaleido=False, path=str(empty))
+        assert res.returncode == 1 and not out.exists()
+        lines = res.stderr.strip().splitlines()
+        assert len(lines) == 1 and "Traceback" not in res.stderr, res.stderr
+        assert "PDF output needs Chromium" in lines[0] and "apt-get install chromium" in lines[0]
+
+    def test_without_both(self, demo, tmp_path):
+        empty = tmp_path / "bin"
+        empty.mkdir()
+        res, _ = self._run(demo, tmp_path, hide_kaleido=True, path=str(empty))
+        lines = res.stderr.strip().splitlines()
+        assert len(lines) == 1 and "the PDF extra" in lines[0] and "and Chromium" in lines[0]
