@@ -19,7 +19,7 @@ from datetime import datetime, timezone
 from typing import Any, Sequence
 
 from rundash import CAUTION, figures
-from rundash.dashboard import ids
+from rundash.dashboard import exports, ids
 from rundash.errors import NotFoundError, RundashError
 from rundash.presentation import operating_range
 
@@ -328,7 +328,8 @@ def layout(db, machine_id: int | None = None, run_ids: Sequence[int] = (), *, ca
                      style={"display": "none"}),
             html.Div("Waiting for a comparison…", id=ids.COMPARE_STATUS, className="note"),
             dcc.Graph(id=ids.COMPARE_TREND, style={"height": "560px"}, **graph),
-            html.Div(id=ids.COMPARE_TABLE, children=html.Div(CAUTION, className="attention"))]),
+            html.Div(id=ids.COMPARE_TABLE, children=html.Div(CAUTION, className="attention")),
+            exports.compare_controls()]),
     ])
 
 

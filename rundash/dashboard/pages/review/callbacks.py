@@ -3,7 +3,7 @@
 
 from __future__ import annotations
 
-from rundash.dashboard import reports
+from rundash.dashboard import exports, reports
 from rundash.dashboard.pages.review.data import (
     UNIT_SYSTEMS, bode_figure, campbell_figure, cascade_figure, criticals_of, load_context,
     orbit_figure, polar_direct_figures, speed_figure,
@@ -76,6 +76,7 @@ def register_callbacks(app, db) -> None:
 
     cache = cache_of(app, db)  # one per app: keyed by run and processing time
     reports.register_callbacks(app, db)  # report downloads of the actions row
+    exports.register_callbacks(app, db)  # table downloads (review and compare pages)
 
     def _units(units):
         return units if units in UNIT_SYSTEMS else "metric"

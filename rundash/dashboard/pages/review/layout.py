@@ -7,7 +7,7 @@ from typing import Any
 
 from rundash import CAUTION
 from rundash import presentation as pr
-from rundash.dashboard import ids, reports
+from rundash.dashboard import exports, ids, reports
 from rundash.dashboard.pages.review.data import criticals_of, load_context, orbit_pairs
 from rundash.errors import NotFoundError
 
@@ -233,7 +233,8 @@ def layout(db, run_id: int, *, cache=None):
                + (f", trip {m.spec.trip_speed_rpm:,.0f} rpm" if m.spec.trip_speed_rpm else "")
                + (f" · slow-roll window {proc.slow_roll_rpm[0]:.0f}–{proc.slow_roll_rpm[1]:.0f}"
                   " rpm" if proc and proc.slow_roll_rpm else ""), className="muted"),
-        reports.run_actions(db, run, proc is not None)])
+        reports.run_actions(db, run, proc is not None),
+        *([exports.review_controls()] if proc is not None else [])])
     verdict = html.Div(id=ids.VERDICT_PANEL, className="card",
                        children=verdict_panel(ctx, "metric"))
     if proc is None:
