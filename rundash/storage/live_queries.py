@@ -19,7 +19,9 @@ from sqlalchemy import Connection, insert, select, update
 from rundash.storage import orm
 from rundash.storage.codec import decode_f64, encode_f64
 
-LS, LV, LE = orm.LiveStatus.__table__, orm.LiveVector.__table__, orm.LiveEvent.__table__
+LS, LE = orm.LiveStatus.__table__, orm.LiveEvent.__table__
+LV = orm.VectorTrack.__table__  # one vector store: the live monitor's rows are source 'live'
+LIVE = LV.c.source == "live"
 C = orm.Channel.__table__
 
 
@@ -103,7 +105,8 @@ def save_vectors(conn: Connection, run_id: int, seq: int,
     if not rows:
         return
     conn.execute(insert(LV), [
-        dict(run_id=run_id, channel_id=cid, order=float(o), seq=int(seq), n=int(len(t)),
+        dict(run_id=run_id, channel_id=cid, order=float(o), compensated=False, source="live",
+             seq=int(seq), n=int(len(t)),
              time_s=encode_f64(t), speed_rpm=encode_f64(s), amplitude=encode_f64(a),
              phase_lag_deg=encode_f64(p), direct=encode_f64(d))
         for cid, o, t, s, a, p, d in rows])
@@ -114,7 +117,7 @@ def load_live_tracks(conn: Connection, run_id: int, *, order: float | None = Non
     """Live vectors of a run (batches after ``after_seq``), joined per channel and order,
     in block order."""
     q = (select(LV, C.c.probe_name, C.c.kind, C.c.position).join(C, C.c.id == LV.c.channel_id)
-         .where(LV.c.run_id == run_id, LV.c.seq > after_seq))
+         .where(LV.c.run_id == run_id, LIVE, LV.c.seq > after_seq))
     if order is not None:
         q = q.where(LV.c.order == float(order))
     q = q.order_by(C.c.position, LV.c.order, LV.c.seq)

@@ -209,20 +209,35 @@ class SpeedProfileRow(Base):
 
 
 class VectorTrack(Base):
+    """The nX vectors of a run per channel and order: one store for both sources.
+
+    ``source`` 'processed': what ``process_run`` found (one row per channel, order and
+    compensation, ``seq`` 0; replaced on re-processing). ``source`` 'live': what the live
+    monitor found while the run was recorded, appended batch by batch (``seq`` the batch
+    number, never compensated; kept when the run is processed)."""
+
     __tablename__ = "vector_track"
-    __table_args__ = (UniqueConstraint("run_id", "channel_id", "order", "compensated"),)
+    __table_args__ = (UniqueConstraint("run_id", "channel_id", "order", "compensated",
+                                       "source", "seq"),)
 
     id: Mapped[intpk]
     run_id: Mapped[int] = mapped_column(ForeignKey("run.id", ondelete="CASCADE"), index=True)
     channel_id: Mapped[int] = mapped_column(ForeignKey("channel.id", ondelete="CASCADE"))
     order: Mapped[float] = mapped_column(Float, comment="1.0 = 1X")
     compensated: Mapped[bool] = mapped_column(Boolean, comment="slow-roll vector subtracted")
+    source: Mapped[str] = mapped_column(String(10), default="processed",
+                                        server_default="processed",
+                                        comment="processed or live")
+    seq: Mapped[int] = mapped_column(Integer, default=0, server_default="0",
+                                     comment="live: batch number from 0; processed: 0")
     n: Mapped[int] = mapped_column(Integer)
     time_s: Mapped[blob] = mapped_column(comment="float64, block centre times")
     speed_rpm: Mapped[blob] = mapped_column(comment="float64")
-    amplitude: Mapped[blob] = mapped_column(comment="float64, pp (proximity) or pk (seismic)")
-    phase_lag_deg: Mapped[blob] = mapped_column(comment="float64, 0 <= lag < 360")
-    direct: Mapped[blob] = mapped_column(comment="float64, p-p (displacement) or rms (seismic)")
+    amplitude: Mapped[blob] = mapped_column(
+        comment="float32 (processed) or float64 (live), pp (proximity) or pk (seismic)")
+    phase_lag_deg: Mapped[blob] = mapped_column(comment="float32 or float64, 0 <= lag < 360")
+    direct: Mapped[blob] = mapped_column(
+        comment="float32 or float64, p-p (displacement) or rms (seismic)")
 
 
 class CascadeRow(Base):
@@ -282,25 +297,6 @@ class LiveStatus(Base):
     tach_ok: Mapped[bool] = mapped_column(Boolean)
     n_revs: Mapped[int] = mapped_column(Integer)
     message: Mapped[str] = mapped_column(Text, default="")
-
-
-class LiveVector(Base):
-    """Vectors of a run found while it was recorded, appended batch by batch."""
-
-    __tablename__ = "live_vector"
-    __table_args__ = (UniqueConstraint("run_id", "seq", "channel_id", "order"),)
-
-    id: Mapped[intpk]
-    run_id: Mapped[int] = mapped_column(ForeignKey("run.id", ondelete="CASCADE"), index=True)
-    channel_id: Mapped[int] = mapped_column(ForeignKey("channel.id", ondelete="CASCADE"))
-    order: Mapped[float] = mapped_column(Float, comment="1.0 = 1X")
-    seq: Mapped[int] = mapped_column(Integer, comment="batch number, from 0")
-    n: Mapped[int] = mapped_column(Integer)
-    time_s: Mapped[blob] = mapped_column(comment="float64, block centre times")
-    speed_rpm: Mapped[blob] = mapped_column(comment="float64")
-    amplitude: Mapped[blob] = mapped_column(comment="float64, pp (proximity) or pk (seismic)")
-    phase_lag_deg: Mapped[blob] = mapped_column(comment="float64, 0 <= lag < 360")
-    direct: Mapped[blob] = mapped_column(comment="float64, p-p (displacement) or rms (seismic)")
 
 
 class LiveEvent(Base):

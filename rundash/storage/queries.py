@@ -27,6 +27,8 @@ M, P, R, C, W = orm.Machine.__table__, orm.Probe.__table__, orm.Run.__table__, \
 T, PR, SP, V, CA, F = orm.TachPulses.__table__, orm.Processing.__table__, \
     orm.SpeedProfileRow.__table__, orm.VectorTrack.__table__, orm.CascadeRow.__table__, \
     orm.Finding.__table__
+# the rows of vector_track that processing writes and replaces (the live monitor's stay)
+PROCESSED = V.c.source == "processed"
 
 
 # ----------------------------------------------------------------------------- machines
@@ -307,7 +309,8 @@ class StoredProcessing:
 def clear_results(conn: Connection, run_id: int) -> None:
     """Delete every derived result of a run (inside the caller's transaction)."""
     for table in (F, V, CA, SP, T, PR):
-        conn.execute(delete(table).where(table.c.run_id == run_id))
+        rows = table.c.run_id == run_id
+        conn.execute(delete(table).where(rows & PROCESSED if table is V else rows))
 
 
 def save_tach(conn: Connection, run_id: int, kind: str, times_s: np.ndarray) -> None:
@@ -362,7 +365,7 @@ def save_track(conn: Connection, run_id: int, channel_id: int, order: float, com
     come from; half the bytes to write and read). :func:`load_tracks` reads either."""
     conn.execute(insert(V).values(
         run_id=run_id, channel_id=channel_id, order=float(order), compensated=compensated,
-        n=int(len(time_s)), time_s=encode_f64(time_s), speed_rpm=encode_f64(speed_rpm),
+        source="processed", seq=0, n=int(len(time_s)), time_s=encode_f64(time_s), speed_rpm=encode_f64(speed_rpm),
         amplitude=encode_f32(amplitude), phase_lag_deg=encode_f32(phase_lag_deg),
         direct=encode_f32(direct)))
 
@@ -376,7 +379,7 @@ def load_tracks(conn: Connection, run_id: int, *, order: float | None = None,
                 compensated: bool | None = None, probe_name: str | None = None
                 ) -> list[StoredTrack]:
     q = select(V, C.c.probe_name, C.c.kind).join(C, C.c.id == V.c.channel_id).where(
-        V.c.run_id == run_id)
+        V.c.run_id == run_id, PROCESSED)
     if order is not None:
         q = q.where(V.c.order == float(order))
     if compensated is not None:

@@ -197,10 +197,14 @@ def _ensure_machine(src: Connection, dst: Connection, src_mid: int, report: Sync
 
 # ----------------------------------------------------------------------------- copying
 def _copy_rows(src: Connection, dst: Connection, table: Table, src_run: int, dst_run: int,
-               channel_map: dict[int, int], dst_run_id_in_json: bool = False) -> None:
+               channel_map: dict[int, int], dst_run_id_in_json: bool = False,
+               results_only: bool = False) -> None:
     cols = [c for c in table.c if c.name != "id"]
+    where = table.c.run_id == src_run
+    if results_only and table is q.V:  # the live monitor's vectors are not results
+        where = where & q.PROCESSED
     rows = []
-    for r in src.execute(select(*cols).where(table.c.run_id == src_run).order_by(table.c.id)):
+    for r in src.execute(select(*cols).where(where).order_by(table.c.id)):
         d = dict(r._mapping)
         d["run_id"] = dst_run
         if "channel_id" in d:
@@ -269,7 +273,8 @@ def _replace_results(src: Connection, dst: Connection, src_run: int, dst_run: in
     q.clear_results(dst, dst_run)
     for t in _run_child_tables():
         if t in RESULT_TABLES:
-            _copy_rows(src, dst, t, src_run, dst_run, channel_map, dst_run_id_in_json=t is PR)
+            _copy_rows(src, dst, t, src_run, dst_run, channel_map, dst_run_id_in_json=t is PR,
+                       results_only=True)
     kind = src.execute(select(R.c.kind).where(R.c.id == src_run)).scalar()
     q.update_run(dst, dst_run, kind=kind)
 
