@@ -18,6 +18,7 @@ from sqlalchemy import Connection, insert, select, update
 
 from rundash.storage import orm
 from rundash.storage.codec import decode_f64, encode_f64
+from rundash.storage.queries import StoredTrack
 
 LS, LE = orm.LiveStatus.__table__, orm.LiveEvent.__table__
 LV = orm.VectorTrack.__table__  # one vector store: the live monitor's rows are source 'live'
@@ -50,22 +51,6 @@ class LiveEventInfo:
     severity: str
     message: str
     details: dict[str, Any]
-
-
-@dataclass(frozen=True)
-class LiveTrack:
-    """Live vectors of one channel and order, all batches up to ``last_seq`` joined."""
-
-    channel_id: int
-    probe_name: str
-    kind: str
-    order: float
-    last_seq: int
-    time_s: np.ndarray
-    speed_rpm: np.ndarray
-    amplitude: np.ndarray
-    phase_lag_deg: np.ndarray
-    direct: np.ndarray
 
 
 def save_status(conn: Connection, run_id: int, *, state: str, time_s: float, n_samples: int,
@@ -113,7 +98,7 @@ def save_vectors(conn: Connection, run_id: int, seq: int,
 
 
 def load_live_tracks(conn: Connection, run_id: int, *, order: float | None = None,
-                     after_seq: int = -1) -> list[LiveTrack]:
+                     after_seq: int = -1) -> list[StoredTrack]:
     """Live vectors of a run (batches after ``after_seq``), joined per channel and order,
     in block order."""
     q = (select(LV, C.c.probe_name, C.c.kind, C.c.position).join(C, C.c.id == LV.c.channel_id)
@@ -131,10 +116,11 @@ def load_live_tracks(conn: Connection, run_id: int, *, order: float | None = Non
     for key, rs in groups.items():
         def cat(col):
             return np.concatenate([decode_f64(getattr(r, col)) for r in rs])
-        out.append(LiveTrack(channel_id=key[0], probe_name=meta[key][0], kind=meta[key][1],
-                             order=key[1], last_seq=rs[-1].seq, time_s=cat("time_s"),
-                             speed_rpm=cat("speed_rpm"), amplitude=cat("amplitude"),
-                             phase_lag_deg=cat("phase_lag_deg"), direct=cat("direct")))
+        out.append(StoredTrack(
+            channel_id=key[0], probe_name=meta[key][0], kind=meta[key][1], order=key[1],
+            compensated=False, last_seq=rs[-1].seq, time_s=cat("time_s"),
+            speed_rpm=cat("speed_rpm"), amplitude=cat("amplitude"),
+            phase_lag_deg=cat("phase_lag_deg"), direct=cat("direct")))
     return out
 
 

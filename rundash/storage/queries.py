@@ -270,7 +270,8 @@ def count_chunks(conn: Connection, channel_id: int) -> int:
 # ----------------------------------------------------------------------------- results
 @dataclass(frozen=True)
 class StoredTrack:
-    """A stored vector track of one channel and order."""
+    """A stored vector track of one channel and order: a processed track, or the live
+    monitor's batches up to ``last_seq`` joined (never compensated)."""
 
     channel_id: int
     probe_name: str
@@ -282,6 +283,7 @@ class StoredTrack:
     amplitude: np.ndarray
     phase_lag_deg: np.ndarray
     direct: np.ndarray
+    last_seq: int = 0
 
 
 @dataclass(frozen=True)
