@@ -29,7 +29,7 @@ import numpy as np
 from scipy.interpolate import CubicSpline, PchipInterpolator
 from scipy.linalg import LinAlgError, solveh_banded
 
-from rundash.dsp.tach import MAX_JITTER_DEG, local_jitter_s, timing_jitter
+from rundash.dsp.tach_quality import MAX_JITTER_DEG, local_jitter_s, timing_jitter
 from rundash.errors import DspError, TachError, invalid_value
 
 __all__ = ["SpeedProfile", "speed_profile", "fit_event_times", "Segment", "segment", "run_kind"]
