@@ -138,6 +138,87 @@ def _reference(profile: Profile, which: str, speeds: dict) -> float:
     return float(v)
 
 
+@dataclass(frozen=True)
+class SpeedMargin:
+    """The separation-margin judgement of one critical speed (see :func:`judge_speed`)."""
+
+    side: str
+    reference_speed_rpm: float | None
+    separation_margin_pct: float | None
+    required_margin_pct: float | None
+    verdict: str
+    reason: str
+
+
+def judge_speed(speed_rpm: float, af: float | None, *, profile, min_operating_speed_rpm: float,
+                max_continuous_speed_rpm: float, rated_speed_rpm: float | None = None,
+                damping_ratio: float | None = None, confirmed: bool = True,
+                af_basis: str | None = None) -> SpeedMargin:
+    """Separation-margin verdict of one critical speed with its governing AF.
+
+    The rule of :func:`judge` for one speed: ``confirmed=False`` (the phase does not
+    confirm a rotor critical) leaves it ``'not judged'`` unless it is critically damped;
+    ``af_basis`` says where the AF comes from (``None``: "AF not determinable"). An AF
+    of ``None`` gets the most demanding margin of the rule.
+
+    Examples
+    --------
+    API 617-style rule (DEVELOPERS.md, Reference values): AF 5 below N_min needs 12.143 %.
+
+    >>> from rundash.ingest.profile_file import load_profile
+    >>> m = judge_speed(3500.0, 5.0, profile=load_profile("api617"),
+    ...                 min_operating_speed_rpm=4400.0, max_continuous_speed_rpm=5460.0)
+    >>> m.side, round(m.separation_margin_pct, 2), round(m.required_margin_pct, 3), m.verdict
+    ('below', 20.45, 12.143, 'pass')
+    """
+    prof = as_profile(profile)
+    n_min, n_mc = float(min_operating_speed_rpm), float(max_continuous_speed_rpm)
+    speeds = {"min_operating_speed": n_min, "max_continuous_speed": n_mc,
+              "rated_speed": rated_speed_rpm}
+    m = prof.margin
+    nc, zeta = float(speed_rpm), damping_ratio
+    if nc < n_min:
+        side, ref = "below", _reference(prof, prof.reference_below, speeds)
+        sm = 100.0 * (ref - nc) / ref
+    elif nc > n_mc:
+        side, ref = "above", _reference(prof, prof.reference_above, speeds)
+        sm = 100.0 * (nc - ref) / ref
+    else:
+        side, ref, sm = "inside", None, None
+    cd = af is not None and m.no_margin_below_af is not None and af < m.no_margin_below_af
+    exempt = (zeta is not None and m.damping_exempt_ratio is not None
+              and zeta >= m.damping_exempt_ratio)
+    req = None if side == "inside" else required_margin_pct(prof, af, side,
+                                                             damping_ratio=zeta)
+    if cd:
+        verdict = "pass"
+        reason = (f"critically damped (AF {af:.2f} < {m.no_margin_below_af:g}): no separation "
+                  f"margin required ({m.source.cite()})")
+        req = 0.0
+    elif exempt:
+        verdict = "pass"
+        reason = (f"damping ratio {zeta:.2f} from the modal fit reaches "
+                  f"{m.damping_exempt_ratio:g}: no separation margin required "
+                  f"({m.source.cite()})")
+        req = 0.0
+    elif not confirmed:
+        verdict = "not judged"
+        reason = ("the phase does not confirm a rotor critical (possible structural resonance "
+                  "or runout artefact): review the Bode and polar plots before judging")
+    elif side == "inside":
+        verdict = "fail"
+        reason = (f"critical at {nc:.0f} rpm lies inside the operating range "
+                  f"{n_min:.0f}-{n_mc:.0f} rpm")
+    else:
+        verdict = "pass" if sm >= req else "fail"
+        basis = af_basis or "AF not determinable: the most demanding margin of the rule applied"
+        reason = (f"margin {sm:.1f} % {side} the {'N_min' if side == 'below' else 'N_mc'} "
+                  f"reference, required {req:.1f} % ({basis}; {m.source.cite()})")
+        if m.damping_exempt_ratio is not None and zeta is None:
+            reason += "; no fitted damping ratio, so the damping exemption could not be used"
+    return SpeedMargin(side, ref, sm, req, verdict, reason)
+
+
 def judge(criticals, *, min_operating_speed_rpm: float, max_continuous_speed_rpm: float,
           profile, rated_speed_rpm: float | None = None, probe: str = "",
           amplitude_units: str = "", mode_hints=None) -> tuple[MarginVerdict, ...]:
@@ -171,58 +252,19 @@ def judge(criticals, *, min_operating_speed_rpm: float, max_continuous_speed_rpm
     crits = tuple(criticals)
     if mode_hints is not None and len(mode_hints) != len(crits):
         raise ConfigError(invalid_value("mode_hints", f"{len(mode_hints)} hints", f"one per critical ({len(crits)})"))
-    speeds = {"min_operating_speed": n_min, "max_continuous_speed": n_mc, "rated_speed": rated_speed_rpm}
-    ref_b = _reference(prof, prof.reference_below, speeds)
-    ref_a = _reference(prof, prof.reference_above, speeds)
-    m = prof.margin
     out = []
     for k, c in enumerate(crits):
-        nc = c.speed_rpm
         af = c.af_governing
-        zeta = c.fit.zeta if c.fit is not None else None
-        if nc < n_min:
-            side, ref = "below", ref_b
-            sm = 100.0 * (ref - nc) / ref
-        elif nc > n_mc:
-            side, ref = "above", ref_a
-            sm = 100.0 * (nc - ref) / ref
-        else:
-            side, ref, sm = "inside", None, None
-        cd = af is not None and m.no_margin_below_af is not None and af < m.no_margin_below_af
-        exempt = (zeta is not None and m.damping_exempt_ratio is not None and zeta >= m.damping_exempt_ratio)
-        if side == "inside":
-            req = None
-        else:
-            req = required_margin_pct(prof, af, side, damping_ratio=zeta)
-        if cd:
-            verdict = "pass"
-            reason = (f"critically damped (AF {af:.2f} < {m.no_margin_below_af:g}): no separation "
-                      f"margin required ({m.source.cite()})")
-            req = 0.0
-        elif exempt:
-            verdict = "pass"
-            reason = (f"damping ratio {zeta:.2f} from the modal fit reaches {m.damping_exempt_ratio:g}: "
-                      f"no separation margin required ({m.source.cite()})")
-            req = 0.0
-        elif c.classification == "amplitude-only":
-            verdict = "not judged"
-            reason = ("the phase does not confirm a rotor critical (possible structural resonance "
-                      "or runout artefact): review the Bode and polar plots before judging")
-        elif side == "inside":
-            verdict = "fail"
-            reason = (f"critical at {nc:.0f} rpm lies inside the operating range "
-                      f"{n_min:.0f}-{n_mc:.0f} rpm")
-        else:
-            verdict = "pass" if sm >= req else "fail"
-            basis = (f"AF {af:.2f} by {c.af_method}" if af is not None
-                     else "AF not determinable: the most demanding margin of the rule applied")
-            reason = (f"margin {sm:.1f} % {side} the {'N_min' if side == 'below' else 'N_mc'} "
-                      f"reference, required {req:.1f} % ({basis}; {m.source.cite()})")
-            if m.damping_exempt_ratio is not None and zeta is None:
-                reason += "; no fitted damping ratio, so the damping exemption could not be used"
-        out.append(MarginVerdict(c, probe, c.direction, amplitude_units, side, ref, sm, req,
-                                 verdict, reason, prof.name,
-                                 None if mode_hints is None else mode_hints[k]))
+        margin = judge_speed(
+            c.speed_rpm, af, profile=prof, min_operating_speed_rpm=n_min,
+            max_continuous_speed_rpm=n_mc, rated_speed_rpm=rated_speed_rpm,
+            damping_ratio=c.fit.zeta if c.fit is not None else None,
+            confirmed=c.classification != "amplitude-only",
+            af_basis=(f"AF {af:.2f} by {c.af_method}" if af is not None else None))
+        out.append(MarginVerdict(c, probe, c.direction, amplitude_units, margin.side,
+                                 margin.reference_speed_rpm, margin.separation_margin_pct,
+                                 margin.required_margin_pct, margin.verdict, margin.reason,
+                                 prof.name, None if mode_hints is None else mode_hints[k]))
     return tuple(out)
 
 

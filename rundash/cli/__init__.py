@@ -16,6 +16,8 @@ from rundash.cli.commands import (
     cmd_compare, cmd_demo, cmd_export, cmd_findings, cmd_import, cmd_machines, cmd_process, cmd_record,
     cmd_report, cmd_reprocess, cmd_runs, cmd_serve, cmd_sync,
 )
+from rundash.cli.review import add_parsers as add_review_parsers
+from rundash.cli.review import cmd_delete, cmd_edit, cmd_review_show
 from rundash.cli.common import (
     DEMO_DB, parse_orders, parse_speeds, parse_time, parse_window, replicates,
 )
@@ -158,6 +160,7 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--remarks", default="", help="remarks printed in the sign-off block")
     s.add_argument("--boot", type=replicates, default=100,
                    help="bootstrap replicates for the comparison (default 100)")
+    add_review_parsers(sub, with_db)
     s = with_db(sub.add_parser("record", help="record a run as its data arrives, with live "
                                               "vectors and warnings"))
     s.add_argument("--machine", required=True, help="machine description file (TOML)")
@@ -178,7 +181,8 @@ def build_parser() -> argparse.ArgumentParser:
 
 COMMANDS = {"import": cmd_import, "record": cmd_record, "process": cmd_process, "findings": cmd_findings, "compare": cmd_compare, "export": cmd_export, "report": cmd_report, "runs": cmd_runs, "machines": cmd_machines,
             "serve": cmd_serve, "demo": cmd_demo, "sync": cmd_sync,
-            "reprocess": cmd_reprocess}
+            "reprocess": cmd_reprocess, "review": cmd_review_show, "edit": cmd_edit,
+            "delete": cmd_delete}
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -45,25 +45,29 @@ def cmd_import(*, db: str | None, data: str, machine: str, label: str, cycle: st
 def cmd_runs(*, db: str | None, machine: str | None, as_json: bool) -> int:
     from rundash.storage import queries as q
 
+    from rundash.workflows.review import review_states
+
     database = open_db(db)
     with database.read() as conn:
         runs = q.list_runs(conn)
     if machine:
         runs = [r for r in runs if r.machine_name == machine]
+    review = review_states(database, runs)
     if as_json:
         print(json.dumps([{
             "id": r.id, "machine": r.machine_name, "kind": r.kind, "label": r.label,
             "cycle": r.cycle, "started_at": r.started_at.isoformat() if r.started_at else None,
             "state": r.state, "source": r.source_name, "duration_s": round(r.duration_s, 3),
-            "processed": r.processed, "verdict": r.verdict} for r in runs], indent=2))
+            "processed": r.processed, "verdict": r.verdict, "review": review[r.id]}
+            for r in runs], indent=2))
         return 0
     rows = [("id", "machine", "kind", "started (UTC)", "cycle", "label", "state", "processed",
-             "verdict")]
+             "verdict", "review")]
     for r in runs:
         rows.append((str(r.id), r.machine_name, r.kind,
                      r.started_at.strftime("%Y-%m-%d %H:%M") if r.started_at else "-",
                      r.cycle or "-", r.label, r.state, "yes" if r.processed else "no",
-                     r.verdict or "-"))
+                     r.verdict or "-", review[r.id]))
     print_table(rows)
     return 0
 
@@ -119,14 +123,15 @@ def cmd_findings(*, db: str | None, run: int, as_json: bool) -> int:
     from rundash.errors import NotFoundError
     from rundash.storage import queries as q
 
+    from rundash.workflows.review import findings_with_review
+
     database = open_db(db)
     with database.read() as conn:
         q.get_run(conn, run)
-        proc = q.load_processing(conn, run)
         kinds = {c.probe_name: c.kind for c in q.list_channels(conn, run) if c.role == "probe"}
-    if proc is None or proc.findings is None:
+    f = findings_with_review(database, run)
+    if f is None:
         raise NotFoundError(f"run {run} has no findings yet: run 'rundash process {run}' first")
-    f = proc.findings
     if as_json:
         print(json.dumps(f, indent=2))
         return 0
@@ -137,6 +142,13 @@ def cmd_findings(*, db: str | None, run: int, as_json: bool) -> int:
           f"{pr.number(mach['max_continuous_speed_rpm'])} rpm; profile {f['profile']['name']}: "
           f"{f['profile']['title']}")
     print(f"verdict: {f['run_verdict'].upper()}")
+    rv = f["review"]
+    if rv["state"] != "processed":
+        print(f"review: {rv['state']}; verdict after the engineer's review: "
+              f"{str(rv['run_verdict']).upper()} ('rundash review {run}' shows the decisions)")
+        if rv["sign_off"]:
+            print(f"signed off: {rv['sign_off']['decision']} by {rv['sign_off']['name']} on "
+                  f"{rv['sign_off']['signed_on']}; {rv['sign_off']['note']}")
     print(pr.summary_line(f))
     print()
     cols = [("probe", "probe"), ("direction", "dir"), ("speed", "speed rpm"),

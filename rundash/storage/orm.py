@@ -313,3 +313,62 @@ class LiveEvent(Base):
     message: Mapped[str] = mapped_column(Text)
     details: Mapped[dict[str, Any]] = mapped_column(JSON)
     created_at: Mapped[created]
+
+
+# ----------------------------------------------------------------------------- review
+#: a review row's identity, the same in every database (sync adds rows by it)
+review_uid = Annotated[str, mapped_column(String(32), unique=True,
+                                          comment="identity across databases (sync)")]
+run_ref = Annotated[int, mapped_column(ForeignKey("run.id", ondelete="CASCADE"), index=True)]
+
+class ReviewDecision(Base):
+    """One entry of the engineer's review of a run: appended, never edited.
+
+    ``action`` is ``accept``, ``reject`` (with ``reason``), ``correct`` (the engineer's
+    ``speed_rpm`` and ``af``), ``add`` (a critical the automation missed), ``annotate``
+    (free ``text`` on a ``plot`` at ``speed_rpm``) or ``withdraw`` (takes back the entry
+    ``target_uid``). A later decision on the same critical supersedes an earlier one.
+    """
+
+    __tablename__ = "review_decision"
+
+    id: Mapped[intpk]
+    uid: Mapped[review_uid]
+    run_id: Mapped[run_ref]
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, comment="UTC, when decided")
+    reviewer: Mapped[str] = mapped_column(String(200), comment="who decided (as typed)")
+    action: Mapped[str] = mapped_column(String(20))
+    probe_name: Mapped[str] = mapped_column(String(200), default="")
+    direction: Mapped[str] = mapped_column(String(20), default="")
+    target_speed_rpm: Mapped[float | None] = mapped_column(
+        Float, comment="rpm of the automatic critical decided on; NULL: none")
+    target_uid: Mapped[str | None] = mapped_column(String(32), comment="entry withdrawn")
+    speed_rpm: Mapped[float | None] = mapped_column(Float, comment="engineer's speed, rpm")
+    af: Mapped[float | None] = mapped_column(Float, comment="engineer's AF")
+    reason: Mapped[str] = mapped_column(String(40), default="", comment="reject reason")
+    plot: Mapped[str] = mapped_column(String(20), default="", comment="annotated plot")
+    text: Mapped[str] = mapped_column(Text, default="")
+    processing_at: Mapped[datetime | None] = mapped_column(
+        UTCDateTime, comment="the processing (its time) the entry refers to; NULL: none")
+    changed: Mapped[dict[str, Any]] = mapped_column(JSON, comment="what the entry changed")
+
+
+class SignOff(Base):
+    """A reviewer's sign-off of a run: appended, never edited (a later one supersedes)."""
+
+    __tablename__ = "sign_off"
+
+    id: Mapped[intpk]
+    uid: Mapped[review_uid]
+    run_id: Mapped[run_ref]
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, comment="UTC, when recorded")
+    name: Mapped[str] = mapped_column(String(200))
+    role: Mapped[str] = mapped_column(String(200), default="")
+    decision: Mapped[str] = mapped_column(
+        String(40), comment="accepted, accepted with remarks, not accepted")
+    remarks: Mapped[str] = mapped_column(Text, default="")
+    signed_on: Mapped[str] = mapped_column(String(10), comment="date given, YYYY-MM-DD")
+    processing_at: Mapped[datetime | None] = mapped_column(
+        UTCDateTime, comment="the processing (its time) signed; NULL: none")
+    snapshot: Mapped[dict[str, Any]] = mapped_column(
+        JSON, comment="the reviewed verdict and criticals as signed")

@@ -14,6 +14,10 @@ machine's history from the store onto a laptop to work offline. The rules:
 - **Results** (tach events, speed profile, vectors, cascades, findings) travel with the
   run. When both sides hold the run, the destination's results are replaced only when the
   source's were made later (``processing.created_at``); otherwise they are kept.
+- **Review records** (decisions, annotations, sign-offs: appended rows, each with a
+  uid that is the same in every database) travel with the run; when both sides hold the
+  run, the rows one side lacks are added, so a review made on a laptop reaches the store
+  and the other way round. Nothing of a review is ever overwritten or removed.
 - **One transaction per run**: a run lands whole, with all its chunks and results, or
   not at all. A sync stopped midway (Ctrl-C, a kill, a lost connection) leaves whole runs
   only; running it again skips those and copies the rest.
@@ -42,6 +46,7 @@ from rundash.errors import NotFoundError, StorageError
 from rundash.progress import Progress, no_progress
 from rundash.storage import orm
 from rundash.storage import queries as q
+from rundash.storage import review_queries as rq
 from rundash.storage.engine import Database, lock_key
 
 M, P, R, C, W = q.M, q.P, q.R, q.C, q.W
@@ -78,6 +83,7 @@ class RunOutcome:
     reason: str
     n_chunks: int = 0
     n_bytes: int = 0
+    n_review: int = 0
 
     def line(self) -> str:
         where = f" -> run {self.destination_run_id}" if self.destination_run_id else ""
@@ -114,7 +120,8 @@ class SyncReport:
         return (f"{self.count('copied')} copied, {self.count('results updated')} with results "
                 f"updated, {self.count('skipped')} skipped (already there), "
                 f"{self.count('conflict')} in conflict, {self.count('not complete')} not "
-                f"complete; {self.n_chunks} waveform chunks, {mb:.1f} MB in "
+                f"complete; {sum(r.n_review for r in self.runs)} review records carried; "
+                f"{self.n_chunks} waveform chunks, {mb:.1f} MB in "
                 f"{self.elapsed_s:.1f} s{rate}")
 
     def to_dict(self) -> dict[str, Any]:
@@ -356,16 +363,20 @@ def _sync_run(src: Connection, destination: Database, run_id: int, machine: str,
             by_hash[h] = existing
             src_stamp = _results_stamp(src, run_id)
             dst_stamp = _results_stamp(dst, existing)
+            n_rev = rq.copy_missing_review_rows(src, dst, run_id, existing)
+            said = f"; {n_rev} review records added" if n_rev else ""
             if src_stamp is not None and (dst_stamp is None or src_stamp > dst_stamp):
                 _replace_results(src, dst, run_id, existing)
                 why = ("results copied (the destination had none)" if dst_stamp is None else
                        f"results of {src_stamp:%Y-%m-%d %H:%M:%S} replace those of "
                        f"{dst_stamp:%Y-%m-%d %H:%M:%S}")
-                return RunOutcome("results updated", machine, r.label, run_id, existing, why)
+                return RunOutcome("results updated", machine, r.label, run_id, existing,
+                                  why + said, n_review=n_rev)
             why = "same content already there" + (
                 "" if src_stamp is None or src_stamp == dst_stamp else
-                "; the destination's results are newer, kept")
-            return RunOutcome("skipped", machine, r.label, run_id, existing, why)
+                "; the destination's results are newer, kept") + said
+            return RunOutcome("skipped", machine, r.label, run_id, existing, why,
+                              n_review=n_rev)
         clash = by_name.get(_run_name(r))
         if clash is not None:
             return RunOutcome(
@@ -374,10 +385,13 @@ def _sync_run(src: Connection, destination: Database, run_id: int, machine: str,
                 f"{r.started_at.isoformat() if r.started_at else 'not given'}) but other "
                 "content; neither was changed")
         new_id, n_chunks, n_bytes = _copy_run(src, dst, r, dst_mid, step)
+        n_rev = len(rq.load_decisions(dst, new_id)) + len(rq.load_sign_offs(dst, new_id))
     by_hash[h] = new_id
     by_name.setdefault(_run_name(r), new_id)
     return RunOutcome("copied", machine, r.label, run_id, new_id,
-                      f"{n_chunks} chunks, {n_bytes / 1e6:.1f} MB", n_chunks, n_bytes)
+                      f"{n_chunks} chunks, {n_bytes / 1e6:.1f} MB"
+                      + (f", {n_rev} review records" if n_rev else ""), n_chunks, n_bytes,
+                      n_review=n_rev)
 
 
 def _shown(db: Database) -> str:
