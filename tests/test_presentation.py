@@ -64,11 +64,21 @@ def test_findings_cells_are_the_json_and_every_face_shows_them(demo, capsys):
             assert row["required"].startswith(f"{c['required_margin_pct']:.1f} %") or \
                 row["required"].startswith("none")
             assert row["peak"].endswith(c["amplitude_units"].replace("um", "µm"))
+            # apparent and sweep-free side by side, the governing one marked
+            assert row["apparent"].startswith(f"{c['apparent']['speed_rpm']:,.0f}, AF")
+            if c["governing"] == "sweep-free":
+                assert row["sweep_free"].startswith(f"{c['sweep_free']['speed_rpm']:,.0f}")
+                assert row["sweep_free"].endswith(pr.GOVERNS_MARK)
+                assert row["speed"] == f"{c['sweep_free']['speed_rpm']:,.0f}"
+            elif c["governing"] == "apparent":
+                assert row["apparent"].endswith(pr.GOVERNS_MARK)
+                assert row["governing_reason"]
         judged = [r for r in pr.limit_rows(f) if r["judged"]]
         faces = _faces(db, path, run_id, capsys)
         for name, text in faces.items():
             for row in crit:
-                for key in ("probe", "speed", "peak", "margin", "required", "verdict"):
+                for key in ("probe", "speed", "peak", "margin", "required", "verdict",
+                            "apparent", "sweep_free"):
                     assert row[key] in text, (name, run_id, key, row[key])
                     checked += 1
             for row in judged:

@@ -158,8 +158,20 @@ def cmd_findings(*, db: str | None, run: int, as_json: bool) -> int:
     crit = pr.critical_rows(f, kinds=kinds)
     if crit:
         print_table([tuple(t for _, t in cols)] + [tuple(c[k] for k, _ in cols) for c in crit])
+        print()
+        print("apparent (sweep) and sweep-free readings; the margin uses the one marked"
+              f"{pr.GOVERNS_MARK}:")
+        cols = [("probe", "probe"), ("direction", "dir"), ("apparent", "apparent rpm, AF"),
+                ("sweep_free", "sweep-free rpm, AF"), ("governs", "governs")]
+        print_table([tuple(t for _, t in cols)] + [tuple(c[k] for k, _ in cols) for c in crit])
     else:
         print("no critical speed found in the speed range of the run")
+    lines = pr.modal_model_lines(f) + pr.bearing_mode_lines(f)
+    if lines:
+        print()
+        print("modal model of the run:")
+        for line in lines:
+            print(f"  {line}")
     judged = [x for x in pr.limit_rows(f, kinds=kinds) if x["judged"]]
     if judged:
         print()

@@ -245,21 +245,29 @@ def _findings_section(data) -> str:
     kinds = {c.probe_name: c.kind for c in data["channels"] if c.role == "probe"}
     crit = pr.critical_rows(f, kinds=kinds)
     cols = ("probe", "direction", "speed", "peak", "af_half_power", "af_phase", "af_fit",
-            "af", "classification", "confidence", "margin", "required")
+            "af", "apparent", "sweep_free", "classification", "confidence", "margin",
+            "required")
     rows = [[_e(c[k]) for k in cols] + [_verdict_cell(c["verdict"])] for c in crit]
     out = [f"<h2>3. Findings</h2><p>Run verdict: {_verdict_word(f.get('run_verdict'))}</p>",
            f"<p>{_e(pr.summary_line(f))}</p>",
            f'<div class="caution">{_e(f.get("caution") or CAUTION)}</div>',
            "<h3>Critical speeds and separation margins</h3>"]
     out.append(_table(["probe", "direction", "speed (rpm)", "peak 1X", "AF half-power",
-                       "AF phase", "AF fit", "AF governing", "class", "confidence",
+                       "AF phase", "AF fit", "AF governing", "apparent (sweep): rpm, AF",
+                       "sweep-free (modal fit): rpm, AF", "class", "confidence",
                        "margin found", "required", "verdict"], rows) if rows else
                "<p>No critical speed was found in the speed range of the run.</p>")
     ev = [f"<li><b>{_e(c['probe'])} {_e(c['direction'])} {_e(c['speed'])} rpm</b>: "
-          f"{_e(c['source'])}" + (f"; {_e(c['mode_hint'])}" if c["mode_hint"] else "")
+          f"{_e(c['source'])}" + (f"; {_e(c['governing_reason'])}" if c["governing_reason"]
+                                  else "")
+          + (f"; {_e(c['mode_hint'])}" if c["mode_hint"] else "")
           + (f"; {_e(c['sweep_note'])}" if c["sweep_note"] else "") + "</li>" for c in crit]
     if ev:
         out.append("<h3>Why (per critical)</h3><ul class='small'>" + "".join(ev) + "</ul>")
+    modal = pr.modal_model_lines(f) + pr.bearing_mode_lines(f)
+    if modal:
+        out.append("<h3>Modal model of the run (sweep-free readings)</h3><ul class='small'>"
+                   + "".join(f"<li>{_e(x)}</li>" for x in modal) + "</ul>")
     lim = [[_e(x[k]) for k in ("probe", "direction", "measure", "where", "speed", "value",
                                "limit", "zone", "verdict")]
            + [f'<span class="small">{_e(x["basis"])}; {_e(x["source"])}</span>']

@@ -10,7 +10,6 @@ the README) is what ``rundash findings --json`` prints and the dashboard reads.
 
 from __future__ import annotations
 
-import math
 import warnings
 from dataclasses import replace
 from typing import Any, Sequence
@@ -25,36 +24,32 @@ from rundash.analysis.vectors import mean_vector_near
 from rundash.analysis.verdicts import judge, summarize
 from rundash.conventions import lag_deg_from_phasor
 from rundash.dsp.directions import MIN_BLOCKS, direction_masks
-from rundash.errors import AnalysisError
+from rundash.errors import AnalysisError, SweepRateWarning
 from rundash.ingest.profile_file import load_profile
 from rundash.model import ChannelInfo, MachineDescription, RunInfo
 from rundash.units import (
     LEVEL_CONVENTION, STORAGE_UNIT, VECTOR_AMPLITUDE_CONVENTION, amplitude_label,
     vector_amplitude_factor,
 )
+from rundash.workflows.modal import identify_run, json_number
 
 SCHEMA = "rundash.findings/1"
 # criticals of seismic probes are read on their displacement-equivalent 1X
 _MEASURE = {"proximity": "displacement", "velocity": "velocity", "acceleration": "acceleration"}
 
 
-def json_number(x):
-    """A finite float for the JSON, or None (NaN, inf, None and non-numbers)."""
-    if x is None:
-        return None
-    try:
-        x = float(x)
-    except (TypeError, ValueError):
-        return None
-    return x if math.isfinite(x) else None
-
-
 def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[ChannelInfo],
                    track, compensated: np.ndarray, segments, slow_roll_rpm,
                    processing_notes: Sequence[str] = (),
                    angle_bound_rad: np.ndarray | None = None,
-                   slow_roll_basis: str = "") -> dict[str, Any]:
+                   slow_roll_basis: str = "", revs_per_block: int = 1,
+                   stage=None) -> dict[str, Any]:
     """Findings JSON of one processed run (see the module docstring).
+
+    The run's modal model (:func:`rundash.workflows.modal.identify_run`) is fitted after
+    the quasi-steady criticals; each critical's margin is judged on its governing
+    reading (sweep-free when the fit is good). ``stage(name)`` is a context manager that
+    times the modal fits (the pipeline's stage timer).
 
     ``processing_notes`` (tach repairs, a missing slow-roll window, ...) lead the
     findings' warnings: a reviewer must see what the vectors rest on.
@@ -80,6 +75,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
             prox_at.setdefault(p.bearing, []).append(p.name)
     seismic_ref: dict[str, list[str]] = {}  # seismic probe -> the bearing's proximity probes
     per_probe: dict[tuple[str, str], tuple] = {}  # (probe, direction) -> (crits, speed, vec)
+    sweep_notes: dict[tuple[str, str], list[int]] = {}  # (probe, direction) -> note indices
     if k1 is not None:
         for i, ch in enumerate(probes):
             if ch.kind not in VECTOR_AMPLITUDE_CONVENTION:
@@ -111,6 +107,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                             s, v, time_s=t, amplitude_factor=afac, direction=d,
                             amplitude_floor=floor, measure=measure)
                 for w in caught:
+                    if issubclass(w.category, SweepRateWarning):
+                        sweep_notes.setdefault((ch.probe_name, d), []).append(len(notes))
                     notes.append(f"{ch.probe_name} {d}: {w.message}")
                 per_probe[(ch.probe_name, d)] = (crits, s, v, t, afac, i)
 
@@ -142,6 +140,13 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                           is not None else "phase difference unclear") + "; a hint)")
         hints[(name, d)] = out
 
+    modal = identify_run(track=track, compensated=compensated, probes=probes, k1=k1,
+                         directions=directions, per_probe=per_probe, spec_by_name=spec_by_name,
+                         machine=m, revs_per_block=revs_per_block, seismic_ref=seismic_ref,
+                         stage=stage)
+    if not modal.fitted and per_probe:
+        notes.append(f"sweep-free readings: none ({modal.note}); the apparent readings govern")
+
     margins = []
     level_checks = []
     crit_json: list[dict[str, Any]] = []
@@ -156,7 +161,10 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
         ch = probes[i]
         sp = spec_by_name.get(name)
         units = amplitude_label(ch.kind)
-        mv = judge(crits, min_operating_speed_rpm=m.min_operating_speed_rpm,
+        governed = [modal.govern(c, name) for c in crits]
+        for c, (g, info) in zip(crits, governed):
+            _mark_sweep_note(notes, sweep_notes.get((name, d), ()), c, g, info)
+        mv = judge([g for g, _ in governed], min_operating_speed_rpm=m.min_operating_speed_rpm,
                    max_continuous_speed_rpm=m.max_continuous_speed_rpm, profile=profile,
                    rated_speed_rpm=m.rated_speed_rpm, probe=name, amplitude_units=units,
                    mode_hints=hints[(name, d)])
@@ -168,8 +176,9 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
             mv = tuple(replace(x, reason=f"{why}. {x.reason}") for x in mv)
         else:
             margins.extend(mv)
-        for verdict in mv:
+        for verdict, (_, info) in zip(mv, governed):
             j = verdict.to_json_dict()
+            j.update(info)
             j["counts_for_run_verdict"] = not refs
             c = verdict.critical
             hp = c.half_power
@@ -267,6 +276,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
         "criticals": sorted(crit_json, key=lambda c: (c["direction"], c["speed_rpm"] or 0,
                                                       c["probe"])),
         "bearings": bearings,
+        "bearing_modes": modal.bearings_json(per_probe),
+        "modal_model": modal.model_json(),
         "directions": direction_cmp,
         "rising_at_top": open_top,
         "limits": limits_json,
@@ -275,6 +286,21 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
         "run_verdict": sj["overall"] if directions else "not judged",
         "caution": CAUTION,
     }
+
+
+def _mark_sweep_note(notes, indices, crit, governed, info) -> None:
+    """Say beside a fast-sweep warning whether the modal fit removed the bias."""
+    key = f"critical at {crit.speed_rpm:.0f} rpm:"
+    for k in indices:
+        if key in notes[k]:
+            if info["governing"] == "sweep-free":
+                notes[k] += (f" Removed by the run's modal fit: the sweep-free reading governs "
+                             f"({governed.speed_rpm:.0f} rpm, AF "
+                             + (f"{governed.af_governing:.2f})." if governed.af_governing
+                                is not None else "n/a)."))
+            else:
+                notes[k] += f" The modal fit could not remove it: {info['governing_reason']}."
+            return
 
 
 def _with_displacement_equivalent(crits, s, v, afac, direction, measure):

@@ -93,12 +93,14 @@ class ProcessResult:
 
 class StageTimer:
     """Wall and CPU seconds spent per stage (``with timer("tracking"): ...``), summed over
-    every entry; thread-safe (CPU seconds are the entering thread's own)."""
+    every entry; thread-safe (CPU seconds are the entering thread's own); a stage entered
+    inside another takes its time out of the outer one."""
 
     def __init__(self):
         self.seconds: dict[str, float] = {}
         self.cpu_seconds: dict[str, float] = {}
         self._lock = threading.Lock()
+        self._local = threading.local()
 
     def add(self, stage: str, seconds: float, cpu_seconds: float = 0.0) -> None:
         with self._lock:
@@ -107,11 +109,19 @@ class StageTimer:
 
     @contextmanager
     def __call__(self, stage: str):
+        # nested stages are exclusive: time in an inner stage is not counted in the outer
+        stack = self._local.__dict__.setdefault("stack", [])
         t0, c0 = time.perf_counter(), time.thread_time()
+        stack.append([0.0, 0.0])
         try:
             yield
         finally:
-            self.add(stage, time.perf_counter() - t0, time.thread_time() - c0)
+            dt, dc = time.perf_counter() - t0, time.thread_time() - c0
+            inner = stack.pop()
+            self.add(stage, dt - inner[0], dc - inner[1])
+            if stack:
+                stack[-1][0] += dt
+                stack[-1][1] += dc
 
     def _order(self) -> list[str]:
         known = [s for s in STAGES if s in self.seconds]
@@ -345,7 +355,8 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
             desc=desc, run=run, probes=probes, track=track, compensated=comp,
             segments=segments, slow_roll_rpm=window, processing_notes=notes,
             slow_roll_basis=slow_roll_basis,
-            angle_bound_rad=tq.angle_bound_rad(track.speed_rpm))
+            angle_bound_rad=tq.angle_bound_rad(track.speed_rpm),
+            revs_per_block=tracker.revs_per_block, stage=timer)
         result.findings = findings
 
     progress(0.0, "saving")

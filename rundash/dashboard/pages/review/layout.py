@@ -20,6 +20,8 @@ def probe_kinds(ctx: dict[str, Any]) -> dict[str, str]:
 
 CRITICAL_COLUMNS = [("probe", "Probe"), ("direction", "Direction"), ("speed", "Speed (rpm)"),
                     ("basis", "Speed from"), ("peak", "Peak 1X"), ("af", "AF (method)"),
+                    ("apparent", "Apparent (sweep): rpm, AF"),
+                    ("sweep_free", "Sweep-free (modal fit): rpm, AF"),
                     ("side", "Side (margin from)"), ("margin", "Margin found (% of N)"),
                     ("required", "Required (% of N)"), ("verdict", "Margin verdict"),
                     ("confidence", "Confidence")]
@@ -105,6 +107,14 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
         children.append(html.Div(id=ids.EVIDENCE))
         children += _rising_section(f)
         children += _directions_section(f)
+        modal = pr.modal_model_lines(f)
+        if modal:
+            children.append(html.H3("Modal model of the run (sweep-free)"))
+            children.append(html.Ul([html.Li(x) for x in modal]))
+        split = pr.bearing_mode_lines(f)
+        if split:
+            children.append(html.H3("Criticals per bearing (major axis of the 1X orbit)"))
+            children.append(html.Ul([html.Li(x) for x in split]))
         bearings = pr.bearing_lines(f)
         if bearings:
             children.append(html.H3("Agreement between probes of a bearing"))
