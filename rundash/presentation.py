@@ -244,6 +244,21 @@ def bearing_mode_lines(findings) -> list[str]:
     return out
 
 
+def model_curves(findings, probe: str, *, kind: str, compensated: bool) -> list[dict[str, Any]]:
+    """The run's fitted model as steady 1X curves of one probe, for the Bode and polar
+    plots; none when the data drawn are not what the model was fitted to (proximity
+    probes: slow-roll compensated; seismic probes: as measured).
+
+    >>> f = {"modal_model": {"status": "fitted", "curves": [{"probe": "A", "speed_rpm": [1]}]}}
+    >>> [len(model_curves(f, "A", kind="proximity", compensated=c)) for c in (True, False)]
+    [1, 0]
+    """
+    mm = (findings or {}).get("modal_model") or {}
+    if mm.get("status") != "fitted" or compensated != (kind == "proximity"):
+        return []
+    return [c for c in mm.get("curves") or [] if c.get("probe") == probe]
+
+
 def modal_model_lines(findings) -> list[str]:
     """The run's shared modal model in a few sentences (modes with uncertainties and the
     shape hint, or why there is none)."""

@@ -471,3 +471,35 @@ class TestBodePhase:
         assert "range" not in du["layout"]["yaxis2"]
         assert any("unwrapped" in a["text"] for a in du["layout"]["annotations"])
         assert_allclose(tr["phase_lag_deg"], (track()["phase_lag_deg"] + 300.0) % 360.0)
+
+
+class TestFittedModelOverData:
+    """The run's fitted model (findings ``modal_model.curves``) drawn over the 1X data:
+    here the model is the same closed-form SDOF response as the data (Thomson, 4th ed.,
+    sec. 3.3), so the drawn curves lie on the data; its lags are given a whole turn off
+    (as a stored lag may be) and must be moved back onto the data's unwrapped phase."""
+
+    def _model(self):
+        rpm = np.linspace(2000.0, 4000.0, 241)
+        amp, lag = sdof_unbalance(rpm, 3000.0, 0.1)
+        return [{"probe": "P-X", "speed_rpm": rpm.tolist(), "amplitude": amp.tolist(),
+                 "phase_lag_deg": (lag - 360.0).tolist()}]
+
+    def test_bode_draws_the_model_on_the_data(self):
+        d = figures.bode([track(n=5201)], model=self._model()).to_dict()
+        amp_t, ph_t = [t for t in d["data"] if t.get("meta") == "model"]
+        rpm = arr(amp_t["x"])
+        ref_amp, ref_lag = sdof_unbalance(rpm, 3000.0, 0.1)
+        assert_allclose(arr(amp_t["y"]), ref_amp, rtol=1e-9)
+        assert_allclose(arr(ph_t["y"]), ref_lag, atol=1e-6)
+        assert amp_t["yaxis"] == "y" and ph_t["yaxis"] == "y2"
+
+    def test_other_probes_model_not_drawn(self):
+        d = figures.bode([track(probe="P-Y")], model=self._model()).to_dict()
+        assert not [t for t in d["data"] if t.get("meta") == "model"]
+
+    def test_polar_draws_the_model(self):
+        d = figures.polar([track()], model=self._model()).to_dict()
+        (m,) = [t for t in d["data"] if t.get("meta") == "model"]
+        _, ref_lag = sdof_unbalance(arr(m["customdata"]), 3000.0, 0.1)
+        assert_allclose(arr(m["theta"]), ref_lag % 360.0, atol=1e-6)

@@ -26,7 +26,7 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
          limit_lines: Sequence[Mapping[str, Any]] = (), cursor_rpm: float | None = None,
          compensated: bool = True, phase: PhaseDisplay = "unwrapped",
          title: str | None = None, uirevision: Any = None,
-         max_points: int = MAX_POINTS) -> go.Figure:
+         max_points: int = MAX_POINTS, model: Sequence[Mapping[str, Any]] = ()) -> go.Figure:
     """Bode plot: nX amplitude (top) and phase lag (bottom) versus speed.
 
     Parameters
@@ -58,6 +58,10 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
         Display only.
     max_points : int
         About the most points drawn per trace (:func:`decimate_minmax`; peaks exact).
+    model : sequence of dict
+        The run's fitted modal model as steady 1X curves (findings ``modal_model.curves``:
+        ``probe``, ``speed_rpm``, ``amplitude``, ``phase_lag_deg``), drawn over the 1X data
+        of their probe (``meta='model'``), the phase unwrapped to lie on the data.
 
     Returns
     -------
@@ -71,6 +75,7 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
     shown_probes: list[str] = []
     unit = amplitude_label(kind, system)
     first: dict[str, np.ndarray] | None = None
+    phase_of: dict[str, tuple] = {}
     for (probe, order, direction), group in trace_groups(traces, ("probe", "order", "direction")):
         key = (probe, order)
         if key not in colors:
@@ -81,6 +86,8 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
                               keep_speeds=critical_speeds_of(criticals, probe, direction)
                               if order == 1 else ())
         first = first or arr
+        if order == 1:
+            phase_of.setdefault(probe, (arr["rpm"], arr["phase"]))
         name = f"{probe} {order_name(order)} {direction or ''}".strip()
         line = {"color": colors[key], "dash": direction_style(direction)["dash"],
                 "width": 2.0 if order == 1 else 1.4}
@@ -94,6 +101,8 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
                          showlegend=False, hovertemplate="%{x:.0f} rpm<br>%{y:.0f}° lag"
                          + (" (unwrapped)" if phase == "unwrapped" else "")
                          + f"<extra>{name}</extra>"))
+
+    data += _model_traces(model, shown_probes, phase_of, kind, system, phase)
 
     comp = "slow-roll compensated" if compensated else "uncompensated"
     layout = base_layout(title or f"Bode plot ({comp})", uirevision, 580)
@@ -164,6 +173,41 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
     return make_figure(data, layout)
 
 
+MODEL_LINE = {"color": INK, "dash": "dot", "width": 1.6}
+
+
+def _model_traces(model, probes, phase_of, kind, system, phase) -> list[dict]:
+    """Bode traces of the fitted model's steady response of the probes shown; an
+    unwrapped phase is moved by whole turns onto the probe's first 1X data trace."""
+    out = []
+    unit = amplitude_label(kind, system)
+    for cur in model:
+        probe = cur.get("probe")
+        if probe not in probes or not cur.get("speed_rpm"):
+            continue
+        rpm = np.asarray(cur["speed_rpm"], float)
+        amp = np.asarray(to_display(np.asarray(cur["amplitude"], float), kind, system))
+        lag = np.asarray(cur["phase_lag_deg"], float)
+        if phase == "unwrapped":
+            lag = np.degrees(np.unwrap(np.radians(lag)))
+            ref = phase_of.get(probe)
+            if ref is not None:
+                x, y = np.asarray(ref[0], float), np.asarray(ref[1], float)
+                ok = np.isfinite(x) & np.isfinite(y)
+                if ok.any():
+                    i = int(np.argmin(np.abs(x[ok] - rpm[0])))
+                    lag += 360.0 * np.round((y[ok][i] - lag[0]) / 360.0)
+        name = f"{probe} fitted model (steady state)"
+        common = {"type": "scatter", "mode": "lines", "line": MODEL_LINE, "name": name,
+                  "legendgroup": name, "meta": "model", "x": typed_array(rpm)}
+        out.append(dict(common, y=typed_array(amp), xaxis="x", yaxis="y", showlegend=True,
+                        hovertemplate="%{x:.0f} rpm<br>%{y:.3g} " + unit
+                        + f"<extra>{name}</extra>"))
+        out.append(dict(common, y=typed_array(lag), xaxis="x2", yaxis="y2", showlegend=False,
+                        hovertemplate="%{x:.0f} rpm<br>%{y:.0f}° lag" + f"<extra>{name}</extra>"))
+    return out
+
+
 # ----------------------------------------------------------------------------- polar
 def _nice_step(span: float, n: int = 8) -> float:
     raw = max(span / n, 1e-9)
@@ -192,7 +236,8 @@ def polar(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
           system: UnitSystem = "metric", rotation: str = "ccw",
           criticals: Sequence[Mapping[str, Any]] = (), cursor_rpm: float | None = None,
           label_step_rpm: float | None = None, title: str | None = None,
-          uirevision: Any = None, max_points: int = MAX_POINTS) -> go.Figure:
+          uirevision: Any = None, max_points: int = MAX_POINTS,
+          model: Sequence[Mapping[str, Any]] = ()) -> go.Figure:
     """Polar plot of the nX vector: amplitude as radius, phase lag as angle.
 
     0 deg lag is at the top; lag increases against the direction of rotation (clockwise
@@ -200,7 +245,8 @@ def polar(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
     placed along each curve every ``label_step_rpm`` (a round step giving about eight
     labels when None); criticals are marked on the curve of their probe and direction.
 
-    Parameters are those of :func:`bode` (the same ``traces`` dicts).
+    Parameters are those of :func:`bode` (the same ``traces`` dicts; ``model`` the
+    fitted model's steady curves, drawn over the data of their probe, ``meta='model'``).
     """
     data: list[dict] = []
     colors: dict[tuple, str] = {}
@@ -235,6 +281,18 @@ def polar(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
             "textfont": {"size": 10, "color": colors[key]},
             "marker": {"size": 5, "color": colors[key]}, "name": f"{name} speed labels (rpm)",
             "showlegend": False, "hoverinfo": "skip", "meta": "labels"})
+    probes = {p for p, _, _ in drawn}
+    for cur in model:
+        if cur.get("probe") in probes and cur.get("speed_rpm"):
+            name = f"{cur['probe']} fitted model (steady state)"
+            data.append({
+                "type": "scatterpolar", "mode": "lines", "name": name, "meta": "model",
+                "r": typed_array(np.asarray(to_display(np.asarray(cur["amplitude"], float),
+                                                       kind, system))),
+                "theta": typed_array(np.asarray(cur["phase_lag_deg"], float) % 360.0),
+                "customdata": typed_array(np.asarray(cur["speed_rpm"], float)),
+                "line": MODEL_LINE, "hovertemplate": "%{customdata:.0f} rpm<br>%{r:.3g} " + unit
+                + " ∠ %{theta:.0f}°<extra>" + name + "</extra>"})
     shown = []
     for c in criticals:
         arr = next((a for (p, o, d), a in drawn.items() if p == c.get("probe")

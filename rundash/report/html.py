@@ -114,12 +114,15 @@ def build_figures(data: dict[str, Any]) -> list[tuple[str, Any]]:
         comp = kind == "proximity" and any(t.compensated for t in data["tracks"]
                                            if t.probe_name == probe)
         word = "slow-roll compensated" if comp else "uncompensated"
+        model = pr.model_curves(proc.findings, probe, kind=kind, compensated=comp)
+        if model:
+            word += ", the run's fitted modal model dotted"
         out.append((f"Bode plot of {probe}, 1X ({word}), criticals and margins marked",
                     figures.bode(tr, kind=kind, criticals=pc, operating=op, compensated=comp,
-                                 title=f"Bode plot, {probe} 1X ({word})")))
+                                 title=f"Bode plot, {probe} 1X ({word})", model=model)))
         out.append((f"Polar plot of {probe}, 1X ({word})",
                     figures.polar(tr, kind=kind, rotation=spec.rotation, criticals=pc,
-                                  title=f"Polar plot, {probe} 1X ({word})")))
+                                  title=f"Polar plot, {probe} 1X ({word})", model=model)))
     if data["others"]:
         first = next(iter(kinds), None)
         probe = next((c["probe"] for c in crit), first)

@@ -78,6 +78,7 @@ class RunModal:
     angles: dict[str, float] = field(default_factory=dict)
     pairs: list[tuple[str, str, str]] = field(default_factory=list)  # bearing, X, Y
     axis_of: dict[str, tuple[str, str]] = field(default_factory=dict)  # probe -> (bearing, axis)
+    k_int: list[int] = field(default_factory=list)  # integrations to displacement per probe
 
     def index(self, name: str) -> int | None:
         return self.probe_names.index(name) if name in self.probe_names else None
@@ -279,6 +280,21 @@ class RunModal:
                     between=vs, evidence=list(h.evidence),
                     note="a hint from the fitted mode shape, not a verdict")
 
+    def curves(self, n: int = 241) -> list[dict[str, Any]]:
+        """The fitted model's steady 1X response per probe over the fitted band, in the
+        probe's stored units and phase lag (what the Bode and polar plots draw over the
+        slow-roll compensated data)."""
+        fit = self.modes.fit
+        grid = np.linspace(fit.band_rpm[0], fit.band_rpm[1], n)
+        H = fit.steady(grid)
+        out = []
+        for j, p in enumerate(self.probe_names):
+            h = H[j] * (1j * 2.0 * math.pi * grid / 60.0) ** self.k_int[j] if self.k_int else H[j]
+            out.append(dict(probe=p, speed_rpm=[round(float(x), 2) for x in grid],
+                            amplitude=[float(f"{self.afac[j] * abs(x):.5g}") for x in h],
+                            phase_lag_deg=[round(float(x), 2) for x in lag_deg_from_phasor(h)]))
+        return out
+
     def model_json(self) -> dict[str, Any]:
         base = dict(method=METHOD, basis=self.basis, fitted_probes=list(self.probe_names),
                     sources=list(SOURCES))
@@ -306,6 +322,7 @@ class RunModal:
                      for r in fit.readings]
         return dict(
             base, status="fitted", note=self.note, band_rpm=[json_number(b) for b in fit.band_rpm],
+            curves=self.curves(),
             misfit_ratio=json_number(fit.misfit_ratio), relative_error=json_number(fit.relative_error),
             n_blocks=int(fit.n_blocks), n_boot=int(fit.n_boot), modes=modes,
             probe_readings=per_probe,
@@ -362,7 +379,8 @@ def identify_run(*, track, compensated, probes, k1, directions, per_probe, spec_
         s = np.asarray(track.speed_rpm, dtype=np.float64)
         V = np.asarray(compensated[use, k1, :], dtype=np.complex128)
         if not prox:
-            k_int = np.array([1 if probes[i].kind == "velocity" else 2 for i in use])[:, None]
+            rm.k_int = [1 if probes[i].kind == "velocity" else 2 for i in use]
+            k_int = np.array(rm.k_int)[:, None]
             V = V / (1j * 2.0 * math.pi * s[None, :] / 60.0) ** k_int
         try:
             with warnings.catch_warnings():

@@ -107,6 +107,10 @@ class TestFastSweepSingleMode:
         (mode,) = mm["modes"]
         assert_allclose(mode["natural_frequency_rpm"], self.FN, rtol=5e-3)
         assert_allclose(mode["damping_ratio"], self.ZETA, rtol=0.10)
+        # the curves the Bode and polar plots draw over the data peak at the steady peak
+        for cur in mm["curves"]:
+            k = int(np.argmax(cur["amplitude"]))
+            assert abs(cur["speed_rpm"][k] - peak) <= 2 * (cur["speed_rpm"][1] - cur["speed_rpm"][0])
         (bm,) = f["bearing_modes"]
         (bc,) = bm["criticals"]
         assert_allclose(bc["speed_rpm"], peak, rtol=5e-3)

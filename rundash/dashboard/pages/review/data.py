@@ -15,7 +15,7 @@ import numpy as np
 
 from rundash import figures
 from rundash.errors import RundashError
-from rundash.presentation import operating_range
+from rundash.presentation import model_curves, operating_range
 
 UNIT_SYSTEMS = ("metric", "imperial")
 PHASE_DISPLAYS = ("unwrapped", "wrapped")
@@ -102,7 +102,8 @@ def bode_figure(db, run_id: int, probe: str, orders, compensation: str, system: 
     return figures.bode(traces, kind=kind, system=system, criticals=criticals_of(
         ctx["findings"], probe), operating=operating_of(ctx["machine"]), limit_lines=limits,
         compensated=has_comp, phase=phase if phase in PHASE_DISPLAYS else "unwrapped",
-        uirevision=_uirev(run_id, system), title=f"Bode plot, {probe} ({comp_word})")
+        uirevision=_uirev(run_id, system), title=f"Bode plot, {probe} ({comp_word})",
+        model=model_curves(ctx["findings"], probe, kind=kind, compensated=has_comp))
 
 
 def polar_direct_figures(db, run_id: int, probe: str, compensation: str, system: str, *,
@@ -115,7 +116,10 @@ def polar_direct_figures(db, run_id: int, probe: str, compensation: str, system:
     uirev = _uirev(run_id, system)
     polar = figures.polar(traces, kind=kind, system=system, rotation=spec.rotation,
                           criticals=crit, uirevision=uirev,
-                          title=f"Polar plot, {probe} 1X ({comp_word})")
+                          title=f"Polar plot, {probe} 1X ({comp_word})",
+                          model=model_curves(ctx["findings"], probe, kind=kind,
+                                             compensated=any(t.get("compensated")
+                                                             for t in traces)))
     direct = figures.direct_vs_filtered(
         traces, kind=kind, system=system, limit_lines=limits,
         operating=operating_of(ctx["machine"]), uirevision=uirev,
