@@ -103,10 +103,12 @@ class ProcessingSpec:
     """Processing choices a machine description may fix (``[processing]``).
 
     ``slow_roll_rpm`` is the slow-roll speed band (low, high) in rpm; ``None`` lets
-    processing choose one from the data.
+    processing choose one from the data. ``tracker`` names the tracker of the vectors
+    (``'order'``, ``'vold-kalman'``; ``None``: ``'order'``).
     """
 
     slow_roll_rpm: tuple[float, float] | None = None
+    tracker: str | None = None  # "order" or "vold-kalman"; None: processing's default
 
 
 @dataclass(frozen=True)

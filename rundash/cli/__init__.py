@@ -65,6 +65,11 @@ def build_parser() -> argparse.ArgumentParser:
                    help="revolutions per vector (default 1; 2 or more for half orders)")
     s.add_argument("--slow-roll", metavar="LOW:HIGH", type=parse_window,
                    help="slow-roll speed window in rpm (default: chosen automatically)")
+    s.add_argument("--tracker", choices=("order", "vold-kalman"),
+                   help="how the order vectors are measured: 'order' (computed order tracking, "
+                        "a DFT over each block of whole revolutions) or 'vold-kalman' (every "
+                        "order filtered jointly: close orders, fast sweeps); default: "
+                        "[processing] tracker of the machine description, else 'order'")
     s.add_argument("--quiet", action="store_true", help="no progress bar")
     s.add_argument("--timings", action="store_true",
                    help="print the seconds spent per stage (read, tach, speed, tracking, ...)")

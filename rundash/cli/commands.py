@@ -92,11 +92,12 @@ def cmd_machines(*, db: str | None) -> int:
 
 
 def cmd_process(*, db: str | None, run: int, orders: tuple[float, ...], revs_per_block: int,
-                slow_roll: tuple[float, float] | None, quiet: bool, timings: bool = False) -> int:
+                slow_roll: tuple[float, float] | None, quiet: bool, timings: bool = False,
+                tracker: str | None = None) -> int:
     from rundash.workflows.pipeline import ProcessingParams, process_run
 
     params = ProcessingParams(orders=orders, revs_per_block=revs_per_block,
-                              slow_roll_rpm=slow_roll)
+                              slow_roll_rpm=slow_roll, tracker=tracker)
     database = open_db(db)
     bar = progress_bar(quiet)
     res = process_run(database, run, params=params, progress=bar)

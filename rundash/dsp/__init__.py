@@ -35,6 +35,7 @@ Incremental processing (:mod:`rundash.dsp.incremental`, a record arriving in pie
 
 Vold–Kalman filter (:mod:`rundash.dsp.vold_kalman`)
     vold_kalman         -- second-generation multi-order Vold–Kalman envelopes
+    vold_kalman_at      -- the same over a long record in overlapping pieces, at given times
     VoldKalmanResult    -- its result
 
 Slow roll (:mod:`rundash.dsp.slowroll`)
@@ -65,7 +66,7 @@ from rundash.dsp.speed import (
 from rundash.dsp.tach import (
     OncePerRev, TachQuality, detect_edges, edge_samples, once_per_rev, tach_quality, timing_jitter,
 )
-from rundash.dsp.vold_kalman import VoldKalmanResult, vold_kalman
+from rundash.dsp.vold_kalman import VoldKalmanResult, vold_kalman, vold_kalman_at
 
 __all__ = [
     "detect_edges", "once_per_rev", "OncePerRev", "edge_samples", "timing_jitter",
@@ -74,7 +75,7 @@ __all__ = [
     "track_orders", "OrderTracker", "OrderTrack", "concat_tracks",
     "IncrementalTach", "IncrementalOrders",
     "direction_segments", "split_by_direction", "direction_masks",
-    "vold_kalman", "VoldKalmanResult",
+    "vold_kalman", "vold_kalman_at", "VoldKalmanResult",
     "choose_slow_roll_window", "SlowRollChoice", "auto_slow_roll_window", "slow_roll_vector",
     "compensate",
     "cascade", "cascade_plan", "cascade_rows", "Cascade",

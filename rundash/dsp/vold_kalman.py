@@ -67,7 +67,7 @@ from scipy.signal import firwin, resample_poly
 from rundash.dsp.speed import SpeedProfile
 from rundash.errors import DspError, invalid_value
 
-__all__ = ["VoldKalmanResult", "vold_kalman"]
+__all__ = ["VoldKalmanResult", "vold_kalman", "vold_kalman_at"]
 
 _R2_MAX = 1e12  # largest weight r^2 kept well conditioned in float64 (measured, tests)
 _FLAT_FRACTION = 0.25  # highest order frequency as a fraction of the decimated rate
@@ -111,7 +111,7 @@ def _weights_r2(bw_hz: np.ndarray, fs: float) -> np.ndarray:
 
 def vold_kalman(x, fs: float, speed, orders, *, bandwidth_hz: float | None = None,
                 bandwidth_orders: float | None = None,
-                decimate: int | None = None) -> VoldKalmanResult:
+                decimate: int | None = None, t0_s: float = 0.0) -> VoldKalmanResult:
     """Second-generation Vold–Kalman filter of several orders of one channel.
 
     Parameters
@@ -133,6 +133,9 @@ def vold_kalman(x, fs: float, speed, orders, *, bandwidth_hz: float | None = Non
     decimate : int, optional
         Decimation factor; default: the largest that keeps the highest order frequency
         below a quarter of the decimated rate.
+    t0_s : float
+        Time of the first sample in s (a piece of a longer record: the angle is read
+        from the speed profile at ``t0_s + n / fs``).
 
     Returns
     -------
@@ -183,7 +186,11 @@ def vold_kalman(x, fs: float, speed, orders, *, bandwidth_hz: float | None = Non
     if isinstance(speed, SpeedProfile):
         profile = speed
         rpm_full = None
-        top_rpm = 60.0 / float(np.min(np.diff(profile._t)))
+        ev = profile._t  # the top speed of this stretch of the record sets the decimation
+        i0 = max(int(np.searchsorted(ev, t0_s)) - 1, 0)
+        i1 = min(int(np.searchsorted(ev, t0_s + n / fs)) + 1, ev.size)
+        seg = ev[i0:i1] if i1 - i0 >= 2 else ev
+        top_rpm = 60.0 / float(np.min(np.diff(seg)))
     else:
         profile = None
         rpm_full = np.asarray(speed, dtype=np.float64)
@@ -213,7 +220,7 @@ def vold_kalman(x, fs: float, speed, orders, *, bandwidth_hz: float | None = Non
     else:
         xd = x
     m = xd.size
-    t = np.arange(m) * (q / fs)
+    t = float(t0_s) + np.arange(m) * (q / fs)
     if profile is not None:
         theta = profile._angle(t, extrapolate=True)
         # outside the profile extend linearly with the end speeds
@@ -269,3 +276,81 @@ def vold_kalman(x, fs: float, speed, orders, *, bandwidth_hz: float | None = Non
     env = 2.0 * sol.reshape(m, K).T
     return VoldKalmanResult(time_s=t, speed_rpm=np.asarray(rpm, dtype=np.float64), orders=o,
                             envelopes=env, fs_out=fs_d, decimate=q, bandwidth_hz=bw)
+
+
+def vold_kalman_at(x, fs: float, profile: SpeedProfile, orders, times_s, *,
+                   bandwidth_orders: float = 0.1, piece_s: float | None = None) -> np.ndarray:
+    """Vold–Kalman envelopes of a long record at given times, in overlapping pieces.
+
+    The record is cut into pieces of ``piece_s`` seconds (default: long enough for
+    about 65 000 decimated samples, and at least eight settling times) overlapping by
+    three settling times ``1 / bandwidth`` at the lowest speed on each side; each piece
+    is filtered by :func:`vold_kalman` with the record's speed profile and only its
+    middle, away from the piece's end effects, is kept. The envelopes are interpolated
+    linearly (as complex numbers) to ``times_s``.
+
+    Parameters
+    ----------
+    x, fs :
+        The whole channel (float32 or float64, first sample at t = 0) and its sample
+        rate in Hz.
+    profile : SpeedProfile
+        The record's speed profile (phase referenced to the once-per-rev event).
+    orders : sequence of float
+    times_s : array_like, shape (n,)
+        Times in s where the envelopes are wanted (e.g. the order track's block times).
+    bandwidth_orders : float
+        Full -3 dB bandwidth in orders.
+    piece_s : float, optional
+
+    Returns
+    -------
+    ndarray of complex128, shape (n_orders, n)
+        Envelopes in the phasor convention of :mod:`rundash.conventions`; NaN within three
+        settling times (at the local speed) of the record's ends, where the filter's end
+        effects lie, and where the bandwidth cannot be honoured (a piece whose speeds span too wide a range for one
+        decimation is halved down to two settling times first).
+    """
+    x = np.asarray(x)
+    o = np.atleast_1d(np.asarray(orders, dtype=np.float64))
+    ts = np.asarray(times_s, dtype=np.float64)
+    out = np.full((o.size, ts.size), np.nan + 0j)
+    if x.size < 16 or ts.size == 0:
+        return out
+    rpm = profile.rpm(np.clip(ts, profile.t_start, profile.t_end))
+    settle = 1.0 / max(bandwidth_orders * max(float(np.min(rpm)), 1.0) / 60.0, 1e-6)
+    pad = 3.0 * settle
+    f_top = float(np.max(o)) * float(np.max(rpm)) / 60.0
+    q = max(1, int(np.floor(_FLAT_FRACTION * fs / max(f_top, 1e-9))))
+    span = span0 = max(piece_s or 65536 * q / fs, 8.0 * settle)
+    min_piece_s = 2.0 * settle
+    dur = x.size / fs
+    start = 0.0
+    while start < dur:
+        keep_a, keep_b = start, min(start + span, dur)
+        a = max(0.0, keep_a - pad)
+        b = min(dur, keep_b + pad)
+        ia, ib = int(np.floor(a * fs)), int(np.ceil(b * fs))
+        sel = (ts >= keep_a) & (ts < keep_b) if keep_b < dur else (ts >= keep_a)
+        if np.any(sel) and ib - ia >= 16:
+            try:
+                r = vold_kalman(np.asarray(x[ia:ib], dtype=np.float64), fs, profile, o,
+                                bandwidth_orders=bandwidth_orders, t0_s=ia / fs)
+            except DspError:
+                if keep_b - keep_a > 2.0 * min_piece_s:  # a shorter piece spans less speed
+                    span = 0.5 * (keep_b - keep_a)
+                    continue
+                r = None  # left NaN: the bandwidth cannot be honoured here
+            if r is not None:
+                for k in range(o.size):
+                    env = r.envelopes[k]
+                    out[k, sel] = (np.interp(ts[sel], r.time_s, env.real)
+                                   + 1j * np.interp(ts[sel], r.time_s, env.imag))
+        start = keep_b
+        span = span0
+    # the filter's end effects: three settling times at the speeds of the record's ends
+    ends = profile.rpm(np.array([profile.t_start, profile.t_end]))
+    t_a = 3.0 * 60.0 / max(bandwidth_orders * float(ends[0]), 1e-9)
+    t_b = dur - 3.0 * 60.0 / max(bandwidth_orders * float(ends[1]), 1e-9)
+    out[:, (ts < t_a) | (ts > t_b)] = np.nan
+    return out

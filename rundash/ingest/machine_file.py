@@ -155,17 +155,27 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
                               processing=_processing(ck, raw.get("processing", {}), machine))
 
 
+#: Trackers a machine description may name in ``[processing] tracker`` (the same names
+#: as ``rundash process --tracker``; :data:`rundash.workflows.pipeline.TRACKERS`).
+TRACKER_NAMES = ("order", "vold-kalman")
+
+
 def _processing(ck: TomlChecker, raw, machine: MachineSpec) -> ProcessingSpec:
     """``[processing]``: ``slow_roll_rpm = [low, high]`` in rpm, 0 <= low < high, no higher
-    than the maximum continuous speed."""
+    than the maximum continuous speed; ``tracker`` one of :data:`TRACKER_NAMES`."""
     if not isinstance(raw, dict):
         ck.fail("[processing]", f"expected a table, got {raw!r}")
-    if set(raw) - {"slow_roll_rpm"}:
-        ck.fail(f"[processing].{sorted(set(raw) - {'slow_roll_rpm'})[0]}",
-                "unknown key; allowed keys: slow_roll_rpm")
+    allowed = {"slow_roll_rpm", "tracker"}
+    if set(raw) - allowed:
+        ck.fail(f"[processing].{sorted(set(raw) - allowed)[0]}",
+                "unknown key; allowed keys: slow_roll_rpm, tracker")
+    tracker = raw.get("tracker")
+    if tracker is not None and tracker not in TRACKER_NAMES:
+        ck.fail("[processing].tracker", f"expected one of {', '.join(map(repr, TRACKER_NAMES))}, "
+                                        f"got {tracker!r}")
     band = raw.get("slow_roll_rpm")
     if band is None:
-        return ProcessingSpec()
+        return ProcessingSpec(tracker=tracker)
     kp = "[processing].slow_roll_rpm"
     if (not isinstance(band, list) or len(band) != 2
             or any(isinstance(b, bool) or not isinstance(b, (int, float)) for b in band)):
@@ -177,7 +187,7 @@ def _processing(ck: TomlChecker, raw, machine: MachineSpec) -> ProcessingSpec:
         ck.fail(kp, f"expected a band below the maximum continuous speed "
                     f"{machine.max_continuous_speed_rpm:g} rpm (slow roll is read far below "
                     f"it), got [{lo:g}, {hi:g}]")
-    return ProcessingSpec(slow_roll_rpm=(lo, hi))
+    return ProcessingSpec(slow_roll_rpm=(lo, hi), tracker=tracker)
 
 
 def check_profile(desc: MachineDescription) -> None:

@@ -43,13 +43,14 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                    processing_notes: Sequence[str] = (),
                    angle_bound_rad: np.ndarray | None = None,
                    slow_roll_basis: str = "", revs_per_block: int = 1,
-                   stage=None) -> dict[str, Any]:
+                   stage=None, conjugate_part: bool = True) -> dict[str, Any]:
     """Findings JSON of one processed run (see the module docstring).
 
     The run's modal model (:func:`rundash.workflows.modal.identify_run`) is fitted after
     the quasi-steady criticals; each critical's margin is judged on its governing
     reading (sweep-free when the fit is good). ``stage(name)`` is a context manager that
-    times the modal fits (the pipeline's stage timer).
+    times the modal fits (the pipeline's stage timer); ``conjugate_part`` False for
+    vectors of a narrow-band tracker (Vold–Kalman), which picks up no conjugate part.
 
     ``processing_notes`` (tach repairs, a missing slow-roll window, ...) lead the
     findings' warnings: a reviewer must see what the vectors rest on.
@@ -143,7 +144,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
     modal = identify_run(track=track, compensated=compensated, probes=probes, k1=k1,
                          directions=directions, per_probe=per_probe, spec_by_name=spec_by_name,
                          machine=m, revs_per_block=revs_per_block, seismic_ref=seismic_ref,
-                         stage=stage)
+                         stage=stage, conjugate_part=conjugate_part)
     if not modal.fitted and per_probe:
         notes.append(f"sweep-free readings: none ({modal.note}); the apparent readings govern")
 

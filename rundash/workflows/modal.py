@@ -338,7 +338,7 @@ class RunModal:
 
 def identify_run(*, track, compensated, probes, k1, directions, per_probe, spec_by_name,
                  machine, revs_per_block: int = 1, seismic_ref=(), n_boot: int = N_BOOT,
-                 stage=None) -> RunModal:
+                 stage=None, conjugate_part: bool = True) -> RunModal:
     """Fit the run's modal model (see the module docstring); never raises on a fit that
     fails: the result then says why (``note``) and the apparent readings govern."""
     stage = stage or (lambda name: nullcontext())
@@ -388,7 +388,7 @@ def identify_run(*, track, compensated, probes, k1, directions, per_probe, spec_
                 rm.modes = identify_modes(track.time_s, s, V, candidates=cands,
                                           revs_per_block=revs_per_block,
                                           rev_index=track.rev_index, masks=directions,
-                                          n_boot=n_boot)
+                                          n_boot=n_boot, conjugate_part=conjugate_part)
         except (AnalysisError, np.linalg.LinAlgError, ValueError) as exc:
             rm.note = f"the modal fit failed ({exc})"
             return rm

@@ -24,7 +24,7 @@ import threading
 import time
 import warnings
 from contextlib import contextmanager
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from typing import Any, Iterator
 
 import numpy as np
@@ -34,9 +34,10 @@ from rundash.analysis.criticals import first_candidate_rpm
 from rundash.conventions import lag_deg_from_phasor
 from rundash.dsp import orders as dsp_orders
 from rundash.dsp import slowroll, spectra, speed, tach
+from rundash.dsp.vold_kalman import vold_kalman_at
 from rundash.errors import DspError, StorageError
 from rundash.ingest.importer import prefetched
-from rundash.ingest.machine_file import parse_machine_description
+from rundash.ingest.machine_file import TRACKER_NAMES, parse_machine_description
 from rundash.model import MachineDescription, TachSpec
 from rundash.progress import Progress, no_progress
 from rundash.storage import queries as q
@@ -57,6 +58,7 @@ class ProcessingParams:
     cascade_n_fft: int | None = None  # None: from the sample rate (~0.5 s window)
     cascade_max_order: float = 10.0
     cascade_max_bins: int = 512
+    tracker: str | None = None  # None: [processing] tracker of the machine description, else "order"
 
     def to_dict(self) -> dict[str, Any]:
         d = asdict(self)
@@ -73,6 +75,12 @@ STAGES = ("read", "tach", "speed", "tracking", "cascade", "findings", "modal fit
 #: A tach channel of at most this many samples is kept in memory between the edge
 #: detector's passes (64 MB of float32); a longer one is read again.
 TACH_CACHE_SAMPLES = 1 << 24
+#: The trackers ``rundash process --tracker`` and ``[processing] tracker`` name:
+#: "order", computed order tracking (a DFT over each block of whole revolutions), and
+#: "vold-kalman", the Vold–Kalman filter of all orders jointly (:mod:`rundash.dsp.vold_kalman`).
+TRACKERS = TRACKER_NAMES
+#: Full -3 dB bandwidth of the Vold–Kalman filter in orders (common practice, no source).
+VK_BANDWIDTH_ORDERS = 0.1
 #: Chunks decoded ahead of the tracker by the reader thread.
 PREFETCH_CHUNKS = 2
 
@@ -324,6 +332,30 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
         track = results.track()
     if track.n_blocks < 3:
         raise DspError(f"run {run_id}: only {track.n_blocks} whole revolutions could be tracked")
+    tracker_name = params.tracker or desc.processing.tracker or "order"
+    if tracker_name not in TRACKERS:
+        raise DspError(f"tracker {tracker_name!r}: expected one of {', '.join(TRACKERS)}")
+    params = replace(params, tracker=tracker_name)
+    if tracker_name == "vold-kalman":
+        # the vectors at the block times from the Vold-Kalman filter of each whole channel
+        # (one channel in memory at a time); direct levels and blocks stay the tracker's
+        with db.read() as conn:
+            for i, ch in enumerate(probes):
+                x = np.empty(ch.n_samples, np.float32)
+                for start, block in _timed_chunks(conn, [ch.id], timer):
+                    x[start:start + block.shape[1]] = block[0]
+                with timer("tracking"):
+                    env = vold_kalman_at(x, fs, profile, track.orders, track.time_s,
+                                         bandwidth_orders=VK_BANDWIDTH_ORDERS)
+                    ok = np.isfinite(env)
+                    track.vectors[i][ok] = env[ok]
+                if not ok.all():
+                    notes.append(f"{ch.probe_name}: the Vold-Kalman filter cannot honour its "
+                                 f"bandwidth or settle at {np.count_nonzero(~ok.all(axis=0))} of "
+                                 f"{ok.shape[1]} blocks (near the record's ends, or a speed too "
+                                 f"low for the sample rate): the order tracker's vectors are "
+                                 f"kept there")
+                progress((i + 1) / len(probes), "Vold-Kalman filter")
     progress(1.0, "order tracking")
 
     with timer("findings"):
@@ -356,7 +388,9 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
             segments=segments, slow_roll_rpm=window, processing_notes=notes,
             slow_roll_basis=slow_roll_basis,
             angle_bound_rad=tq.angle_bound_rad(track.speed_rpm),
-            revs_per_block=tracker.revs_per_block, stage=timer)
+            revs_per_block=tracker.revs_per_block, stage=timer,
+            conjugate_part=tracker_name == "order")
+        findings["processing"]["tracker"] = tracker_name
         result.findings = findings
 
     progress(0.0, "saving")

@@ -102,6 +102,14 @@ sensitivity_mv_per_unit = 7.874
             parse_machine_description(self.BASE + f"\n[processing]\nslow_roll_rpm = {value}\n",
                                       "m.toml")
 
+    def test_tracker_is_read_and_checked(self):
+        d = parse_machine_description(self.BASE + '\n[processing]\ntracker = "vold-kalman"\n')
+        assert d.processing.tracker == "vold-kalman"
+        assert parse_machine_description(self.BASE).processing.tracker is None
+        with pytest.raises(ConfigError, match=r"^m\.toml: \[processing\]\.tracker: expected one "
+                                              r"of 'order', 'vold-kalman', got 'kalman'"):
+            parse_machine_description(self.BASE + '\n[processing]\ntracker = "kalman"\n', "m.toml")
+
     def test_unknown_key(self):
         with pytest.raises(ConfigError, match=r"\[processing\]\.slowroll: unknown key"):
             parse_machine_description(self.BASE + "\n[processing]\nslowroll = [1, 2]\n")
