@@ -2,7 +2,10 @@
 
 Every error rundash raises on purpose derives from :class:`RundashError`; the CLI maps it
 to exit code 1 with a single line, the dashboard to a visible alert. Messages name the
-file, channel, row or parameter and say what was expected.
+file, channel, row or parameter and say what was expected. The errors about a value —
+a bad machine description or option, an unreadable file, a signal or data that cannot be
+processed — are also :class:`ValueError`, and a run or machine that is not there is also
+a :class:`LookupError`, so ordinary ``except ValueError`` code catches them.
 """
 
 from __future__ import annotations
@@ -59,12 +62,18 @@ class RundashError(Exception):
         super().__init__(*args)
 
 
-class ConfigError(RundashError):
+class ConfigError(RundashError, ValueError):
     """A machine description, guidance profile or option is invalid."""
 
 
-class InputError(RundashError):
+class InputError(RundashError, ValueError):
     """A data file cannot be read as what it claims to be."""
+
+
+class OptionError(RundashError):
+    """A command-line option's value is invalid. Deliberately not a ValueError: argparse
+    turns a ValueError from an option's type function into its own usage message (exit 2),
+    while this one reaches the CLI's handler, which prints the message in one line (exit 1)."""
 
 
 class StorageError(RundashError):
@@ -75,7 +84,7 @@ class DuplicateRunError(StorageError):
     """The same source file (by content hash) was imported before."""
 
 
-class NotFoundError(StorageError):
+class NotFoundError(StorageError, LookupError):
     """A run, machine or probe asked for does not exist."""
 
 
@@ -87,7 +96,7 @@ class NoDatabaseError(NotFoundError):
         self.path = path
 
 
-class DspError(RundashError):
+class DspError(RundashError, ValueError):
     """Signal processing cannot proceed with the given signal or parameters."""
 
 
@@ -95,7 +104,7 @@ class TachError(DspError):
     """The once-per-rev reference is unusable (too few pulses, no edges, ...)."""
 
 
-class AnalysisError(RundashError):
+class AnalysisError(RundashError, ValueError):
     """Analysis cannot proceed with the given vectors or parameters."""
 
 

@@ -37,7 +37,13 @@ ALLOWED = {
                   "report"},
     "cli": {"workflows", "figures", "presentation", "model", "storage", "ingest", "report",
             "dashboard"},
+    # rundash/api.py, the public Python API: a face for notebooks and scripts
+    "api": {"workflows", "storage", "ingest", "model"},
 }
+# The package root (rundash/__init__.py, a leaf) offers the API's names (rundash.open, ...)
+# through a module __getattr__: it may import the api layer inside a function only (a lazy
+# import, run on first use), never at module level, so `import rundash` stays light.
+ROOT_LAZY = {"api"}
 # the pure layers: no I/O, no tables, no plots (DEVELOPERS.md, "Layers")
 PURE = ("dsp", "analysis")
 NO_IO = {"sqlalchemy", "pandas", "plotly", "dash", "flask", "h5py", "pyarrow", "alembic",
@@ -85,6 +91,12 @@ def _tree(path: Path) -> ast.AST:
     return ast.parse(path.read_text(encoding="utf-8"), filename=str(path))
 
 
+def _lines_inside_functions(tree: ast.AST) -> set[int]:
+    """Line numbers of the imports inside a function body."""
+    return {n.lineno for f in ast.walk(tree) if isinstance(f, (ast.FunctionDef, ast.AsyncFunctionDef))
+            for n in ast.walk(f) if isinstance(n, (ast.Import, ast.ImportFrom))}
+
+
 def test_every_folder_has_a_layer():
     unknown = sorted({layer_of(m) for m, _ in modules()} - set(ALLOWED))
     assert not unknown, (f"folders of rundash/ without a layer in the map: {unknown} "
@@ -96,10 +108,14 @@ def test_imports_follow_the_layer_map():
     for module, path in modules():
         src = layer_of(module)
         allowed = ALLOWED.get(src, set()) | {src, "leaf"}
-        for name, line in imported(_tree(path), module, path.name == "__init__.py"):
+        tree = _tree(path)
+        lazy = _lines_inside_functions(tree) if module == "rundash" else set()
+        for name, line in imported(tree, module, path.name == "__init__.py"):
             if name.split(".")[0] != "rundash":
                 continue
             dst = layer_of(name)
+            if dst in ROOT_LAZY and line in lazy:
+                continue
             if dst not in allowed:
                 bad.append(f"{path.relative_to(ROOT)}:{line}: {src} imports {name} ({dst})")
     assert not bad, "imports against the layer map:\n" + "\n".join(bad)
@@ -133,6 +149,19 @@ def test_pure_layers_do_no_io(layer):
                     and node.func.id in ("open", "print", "input")):
                 bad.append(f"{path.relative_to(ROOT)}:{node.lineno}: calls {node.func.id}()")
     assert not bad, "\n".join(bad)
+
+
+def test_import_rundash_is_light_and_the_api_loads_no_dash(tmp_path):
+    """`import rundash` loads no library at all; the Python API (rundash.open and a
+    DataFrame of runs) loads pandas and SQLAlchemy but neither Dash nor plotly."""
+    code = ("import sys; import rundash; "
+            "print(sorted({m.split('.')[0] for m in sys.modules} & "
+            "{'pandas', 'sqlalchemy', 'numpy', 'dash', 'plotly'})); "
+            f"db = rundash.open({str(tmp_path / 'api.sqlite')!r}, create=True); db.runs(); "
+            "print(sorted(m for m in sys.modules if m.split('.')[0] in ('dash', 'plotly')))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True, cwd=ROOT).stdout.split("\n")
+    assert out[:2] == ["[]", "[]"]
 
 
 def test_import_command_does_not_load_dash():

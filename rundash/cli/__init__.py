@@ -195,7 +195,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     command = next((a for a in argv if a in COMMANDS), "")
     try:
-        args = parser.parse_args(argv)  # argparse types raise InputError: one line, exit 1
+        args = parser.parse_args(argv)  # argparse types raise OptionError: one line, exit 1
         kwargs = {k: v for k, v in vars(args).items() if k not in ("command", "func")}
         func = getattr(args, "func", None) or COMMANDS[args.command]
         return func(**kwargs)

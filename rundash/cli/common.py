@@ -6,7 +6,7 @@ from __future__ import annotations
 import sys
 from datetime import datetime, timezone
 
-from rundash.errors import InputError
+from rundash.errors import OptionError
 
 DEMO_DB = "rundash-demo.sqlite"
 
@@ -16,10 +16,10 @@ def parse_time(text: str) -> datetime:
     try:
         t = datetime.fromisoformat(text.replace("Z", "+00:00"))
     except ValueError:
-        raise InputError(f"Invalid value for '--started': allowed an ISO 8601 time such as "
+        raise OptionError(f"Invalid value for '--started': allowed an ISO 8601 time such as "
                          f"2026-05-01T06:00:00Z, got {text!r}") from None
     if t.tzinfo is None:
-        raise InputError(f"Invalid value for '--started': allowed a time with its zone "
+        raise OptionError(f"Invalid value for '--started': allowed a time with its zone "
                          f"(Z or +hh:mm), got {text!r}")
     return t.astimezone(timezone.utc)
 
@@ -93,7 +93,7 @@ def parse_orders(text: str) -> tuple[float, ...]:
     except ValueError:
         orders = ()
     if not orders or any(not (0 < o <= 40) for o in orders):
-        raise InputError(f"Invalid value for '--orders': allowed a comma-separated list of "
+        raise OptionError(f"Invalid value for '--orders': allowed a comma-separated list of "
                          f"orders between 0 and 40 such as 1,2,3,4 or 0.5,1,2, got {text!r}")
     return orders
 
@@ -105,7 +105,7 @@ def parse_speeds(text: str) -> list[float]:
     except ValueError:
         speeds = []
     if not speeds or any(not v > 0 for v in speeds):
-        raise InputError(f"Invalid value for '--speeds': allowed a comma-separated list of "
+        raise OptionError(f"Invalid value for '--speeds': allowed a comma-separated list of "
                          f"speeds in rpm such as 4400,5460, got {text!r}")
     return speeds
 
@@ -117,7 +117,7 @@ def replicates(text: str) -> int:
     except ValueError:
         n = -1
     if n < 0:
-        raise InputError(f"Invalid value for '--boot': allowed an integer >= 0, got {text!r}")
+        raise OptionError(f"Invalid value for '--boot': allowed an integer >= 0, got {text!r}")
     return n
 
 
@@ -128,6 +128,6 @@ def parse_window(text: str) -> tuple[float, float]:
     except ValueError:
         lo = hi = float("nan")
     if not (0 <= lo < hi):
-        raise InputError(f"Invalid value for '--slow-roll': allowed LOW:HIGH in rpm with "
+        raise OptionError(f"Invalid value for '--slow-roll': allowed LOW:HIGH in rpm with "
                          f"0 <= LOW < HIGH, such as 250:400, got {text!r}")
     return lo, hi

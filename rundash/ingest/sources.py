@@ -448,9 +448,10 @@ def parse_source(text: str, data: DataSpec | None = None) -> Source:
     if kind == "tcp":
         host, _, port = rest.rpartition(":")
         try:
-            return TcpSource(host.strip("[]"), int(port))
+            port_number = int(port)
         except ValueError:
             raise ConfigError(invalid_value("source", text, "tcp:127.0.0.1:PORT")) from None
+        return TcpSource(host.strip("[]"), port_number)  # its own refusals name the key
     if kind == "python":
         mod, _, rest2 = rest.partition(":")
         factory, eq, arg = rest2.partition("=")

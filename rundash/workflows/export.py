@@ -145,9 +145,12 @@ def _flat(entry: Mapping[str, Any]) -> dict[str, Any]:
     return out
 
 
-def _verdict_rows(findings: Mapping[str, Any], key: str, run_id: int) -> pd.DataFrame:
+def verdict_rows(findings: Mapping[str, Any], key: str, run_id: int | None) -> pd.DataFrame:
+    """The entries ``findings[key]`` (``criticals`` or ``limits``) as rows with the run
+    verdict and the caution; one row holding only those when there is no entry."""
     rows = [_flat(e) for e in findings.get(key) or []]
-    head = {"run_id": int(run_id), "run_verdict": findings.get("run_verdict")}
+    head = {"run_id": None if run_id is None else int(run_id),
+            "run_verdict": findings.get("run_verdict")}
     if not rows:  # a table without rows would lose the verdict and the caution
         rows = [{"probe": None}]
     df = pd.DataFrame([{**head, **r} for r in rows])
@@ -167,13 +170,13 @@ def findings_table(db, run_id: int) -> pd.DataFrame:
     """One row per critical speed (probe and direction) with the keys of ``criticals[]``
     of the findings JSON, the run verdict and the caution; one row of the verdict when
     there is no critical."""
-    return _verdict_rows(_findings(db, run_id), "criticals", run_id)
+    return verdict_rows(_findings(db, run_id), "criticals", run_id)
 
 
 def limits_table(db, run_id: int) -> pd.DataFrame:
     """One row per level check with the keys of ``limits[]`` of the findings JSON, the
     run verdict and the caution."""
-    return _verdict_rows(_findings(db, run_id), "limits", run_id)
+    return verdict_rows(_findings(db, run_id), "limits", run_id)
 
 
 def cascade_table(db, run_id: int, *, probe: str | None = None) -> pd.DataFrame:
