@@ -26,12 +26,23 @@ passes (the run's channels): a unit string is never parsed back into a kind.
 from __future__ import annotations
 
 import math
+import re
 from typing import Any, Mapping, Sequence
 
 from rundash.units import LEVEL_CONVENTION, VECTOR_AMPLITUDE_CONVENTION, display_unit, to_display
 
 MISSING = "–"
 Kinds = Mapping[str, str]
+
+
+# ----------------------------------------------------------------------------- text
+_ASCII_UM = re.compile(r"(?<![\w/])um(?=\b)")
+
+
+def display_text(text: Any) -> str:
+    """A message stored in ASCII (events, warnings: ``um``) with the unit spelled as on
+    screen (``µm``); the CLI prints the stored ASCII form."""
+    return _ASCII_UM.sub("µm", str(text))
 
 
 # ----------------------------------------------------------------------------- numbers

@@ -4,6 +4,8 @@
 URL = "url"
 PAGE = "page"
 CAUTION_BAR = "caution-bar"
+PAGE_TITLE = "page-title"
+PAGE_TITLE_SHOWN = "page-title-shown"
 
 # machines and runs
 RUNS_TABLE = "runs-table"

@@ -52,6 +52,19 @@ details.reference table td { color:var(--muted); }
 .warn { background:#fff3e8; border-left:4px solid var(--fail); padding:6px 10px; margin:6px 0; }
 .error { background:#fdecea; border-left:4px solid var(--fail); padding:8px 12px; }
 .ok { background:#e8f6f1; border-left:4px solid var(--pass); padding:8px 12px; }
+.alert-strip { display:flex; flex-wrap:wrap; gap:8px; margin:0 0 12px 0; min-height:30px; }
+.alert { display:inline-block; padding:5px 12px; border-radius:4px; font-size:13px;
+         border-left:4px solid var(--unjudged); background:white; }
+.alert.alarm { background:#fdecea; border-left-color:var(--fail); color:#7a2e00; }
+.alert.warning { background:#fff6e0; border-left-color:var(--attention); }
+.alert.info { background:#eef5fa; border-left-color:var(--accent); }
+.alert.none { color:var(--muted); border-left-color:var(--line); background:transparent; }
+.live-page .row { display:flex; gap:16px; }
+table.events { border-collapse:collapse; width:100%; background:white; }
+table.events th, table.events td { text-align:left; padding:4px 8px;
+                                   border-bottom:1px solid var(--line); font-size:13px; }
+.standing { background:#f3f5f7; border-left:4px solid var(--line); padding:6px 10px;
+            margin:6px 0; color:var(--ink); }
 .drop { border:2px dashed #b8c4cc; border-radius:6px; padding:18px; text-align:center;
         background:#fbfcfd; cursor:pointer; }
 .progress { height:10px; background:#e8e8e8; border-radius:5px; overflow:hidden; }

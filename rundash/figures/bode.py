@@ -10,11 +10,11 @@ import numpy as np
 import plotly.graph_objects as go
 
 from rundash.figures.common import (
-    CURSOR_COLOR, GRID, HALF_POWER_FILL, INK, MARGIN_FILL, MAX_POINTS, PALETTE,
-    PhaseDisplay, UnitSystem, add_hline, add_operating_shapes, add_vline, add_vrect,
-    base_layout, critical_hover, critical_label, critical_speeds_of,
-    direction_style, display_pieces, make_figure, margin_zones, nearest_index, order_name,
-    trace_groups, typed_array,
+    CURSOR_COLOR, HALF_POWER_FILL, INK, MARGIN_FILL, MAX_POINTS, PALETTE, PHASE_FLOOR_NOTE,
+    UNWRAPPED_NOTE, PhaseDisplay, UnitSystem, add_hline, add_operating_shapes, add_vline,
+    add_vrect, base_layout, break_at_wraps, critical_hover, critical_label,
+    critical_speeds_of, direction_style, display_pieces, make_figure, margin_zones,
+    nearest_index, order_name, polar_layout, trace_groups, typed_array,
 )
 from rundash.units import amplitude_label, to_display
 
@@ -84,7 +84,7 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
             shown_probes.append(probe)
         arr = display_pieces(group, kind, system, phase=phase, max_points=max_points,
                               keep_speeds=critical_speeds_of(criticals, probe, direction)
-                              if order == 1 else ())
+                              if order == 1 else (), blank_phase=True)
         first = first or arr
         if order == 1:
             phase_of.setdefault(probe, (arr["rpm"], arr["phase"]))
@@ -97,7 +97,10 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
         data.append(dict(common, y=typed_array(arr["amplitude"]), xaxis="x", yaxis="y",
                          showlegend=True, hovertemplate="%{x:.0f} rpm<br>%{y:.3g} " + unit
                          + f"<extra>{name}</extra>"))
-        data.append(dict(common, y=typed_array(arr["phase"]), xaxis="x2", yaxis="y2",
+        px, py = break_at_wraps(arr["rpm"], arr["phase"]) if phase == "wrapped" \
+            else (arr["rpm"], arr["phase"])
+        data.append(dict(common, x=typed_array(px), customdata=typed_array(px),
+                         y=typed_array(py), xaxis="x2", yaxis="y2",
                          showlegend=False, hovertemplate="%{x:.0f} rpm<br>%{y:.0f}° lag"
                          + (" (unwrapped)" if phase == "unwrapped" else "")
                          + f"<extra>{name}</extra>"))
@@ -120,12 +123,14 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
         margin={"l": 64, "r": 24, "t": 56, "b": 96})
     if phase == "wrapped":
         layout["yaxis2"].update(range=[0, 360], tickvals=[0, 90, 180, 270, 360])
+        note = "lag 0–360°; " + PHASE_FLOOR_NOTE
     else:
         layout["yaxis2"].update(dtick=90)
-        layout["annotations"].append({
-            "text": "phase unwrapped along speed (stored values 0–360°)", "xref": "x2 domain",
-            "yref": "y2 domain", "x": 0.0, "y": 1.0, "xanchor": "left", "yanchor": "bottom",
-            "showarrow": False, "font": {"size": 10, "color": "#666666"}})
+        note = UNWRAPPED_NOTE + "; " + PHASE_FLOOR_NOTE
+    layout["annotations"].append({
+        "text": note, "xref": "x2 domain", "yref": "y2 domain", "x": 0.0, "y": 1.0,
+        "xanchor": "left", "yanchor": "bottom", "showarrow": False,
+        "font": {"size": 10, "color": "#666666"}, "name": "phase-note"})
 
     add_operating_shapes(layout, operating, row=1)
     add_operating_shapes(layout, operating, row=2, label=False)
@@ -319,16 +324,8 @@ def polar(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
                  "name": "cursor", "meta": "cursor", "showlegend": False, "hoverinfo": "skip",
                  "marker": {"symbol": "circle-open", "size": 14, "color": CURSOR_COLOR,
                             "line": {"width": 2}}})
-    layout = base_layout(title or "Polar plot", uirevision, 580)
-    layout.pop("xaxis")
-    layout.pop("yaxis")
-    layout["polar"] = {
-        "domain": {"x": [0, 1], "y": [0.04, 1]},
-        "angularaxis": {"rotation": 90, "direction": "clockwise" if rotation == "ccw"
-                        else "counterclockwise", "dtick": 30, "gridcolor": GRID,
-                        "ticksuffix": "°"},
-        "radialaxis": {"gridcolor": GRID, "angle": 90, "tickangle": 90,
-                       "ticksuffix": " " + unit.split(" ")[0]}}
+    layout = polar_layout(title or "Polar plot", uirevision, 580, rotation=rotation,
+                          radial_suffix=" " + unit.split(" ")[0])
     layout["legend"] = {"orientation": "h", "yanchor": "top", "y": -0.06, "xanchor": "left",
                         "x": 0, "font": {"size": 11}}
     layout["margin"] = {"l": 40, "r": 40, "t": 56, "b": 96}

@@ -33,6 +33,15 @@ MARGIN_FILL = "rgba(213, 94, 0, 0.10)"       # vermillion, light
 HALF_POWER_FILL = "rgba(0, 114, 178, 0.12)"  # blue, light
 CURSOR_COLOR = "#000000"
 MAX_POINTS = 2000
+#: Phase is not drawn where the amplitude is below this fraction of its trace's peak: the
+#: lag of a vector near zero (slow roll after compensation) swings at random (our display
+#: choice; stated on every figure that applies it, see :data:`PHASE_FLOOR_NOTE`).
+PHASE_FLOOR_FRACTION = 0.05
+PHASE_FLOOR_NOTE = (f"phase not drawn where the amplitude is below "
+                    f"{100 * PHASE_FLOOR_FRACTION:.0f} % of its peak (the lag of a near-zero "
+                    "vector is noise)")
+UNWRAPPED_NOTE = ("lag unwrapped: continued past 360° along speed so that a critical's rise "
+                  "reads as one climb (the stored lag is this value less a multiple of 360°)")
 
 
 
@@ -72,6 +81,59 @@ def base_layout(title: str, uirevision: Any, height: int) -> dict[str, Any]:
         "hovermode": "closest", "uirevision": uirevision, "paper_bgcolor": "white",
         "plot_bgcolor": "white", "xaxis": dict(axis), "yaxis": dict(axis),
         "shapes": [], "annotations": []}
+
+
+def message_figure(message: str, *, title: str | None = None, height: int = 300) -> go.Figure:
+    """A figure that says why there is nothing to draw: no axes, one centred message."""
+    layout = base_layout(title or "", None, height)
+    layout["xaxis"] = {"visible": False}
+    layout["yaxis"] = {"visible": False}
+    layout["annotations"].append({"text": message, "showarrow": False, "xref": "paper",
+                                  "yref": "paper", "x": 0.5, "y": 0.5,
+                                  "font": {"size": 14, "color": "#666666"}})
+    return make_figure([], layout)
+
+
+def polar_layout(title: str, uirevision: Any, height: int, *, rotation: str,
+                 radial_suffix: str = "", bottom: float = 0.04) -> dict[str, Any]:
+    """Layout of a polar plot: 0° lag at the top, lag rising against the machine's
+    ``rotation`` (clockwise on screen for ``'ccw'``; common practice, no source)."""
+    layout = base_layout(title, uirevision, height)
+    layout.pop("xaxis")
+    layout.pop("yaxis")
+    layout["polar"] = {
+        "domain": {"x": [0, 1], "y": [bottom, 1]},
+        "angularaxis": {"rotation": 90, "direction": "clockwise" if rotation == "ccw"
+                        else "counterclockwise", "dtick": 30, "gridcolor": GRID,
+                        "ticksuffix": "°"},
+        "radialaxis": {"gridcolor": GRID, "angle": 90, "tickangle": 90,
+                       **({"ticksuffix": radial_suffix} if radial_suffix else {})}}
+    return layout
+
+
+def blank_weak_phase(phase_deg, amplitude, peak: float | None = None, *,
+                     fraction: float = PHASE_FLOOR_FRACTION) -> np.ndarray:
+    """``phase_deg`` with NaN where ``amplitude`` is below ``fraction`` of ``peak`` (the
+    amplitude's own largest value when None); display only."""
+    ph = np.array(phase_deg, dtype=float)
+    a = np.asarray(amplitude, dtype=float)
+    if peak is None:
+        peak = float(np.nanmax(a)) if np.isfinite(a).any() else 0.0
+    with np.errstate(invalid="ignore"):
+        ph[~(a >= fraction * peak)] = np.nan
+    return ph
+
+
+def break_at_wraps(x, phase_deg) -> tuple[np.ndarray, np.ndarray]:
+    """(x, phase) with a NaN point between neighbours whose wrapped lag jumps by more than
+    180° (a wrap through 0/360), so that a line does not cross the plot at each wrap."""
+    x = np.asarray(x, dtype=float)
+    ph = np.asarray(phase_deg, dtype=float)
+    with np.errstate(invalid="ignore"):
+        jumps = np.flatnonzero(np.abs(np.diff(ph)) > 180.0) + 1
+    if jumps.size == 0:
+        return x, ph
+    return np.insert(x, jumps, np.nan), np.insert(ph, jumps, np.nan)
 
 
 def axis_ref(row: int | None) -> tuple[str, str]:
@@ -234,11 +296,16 @@ def join_pieces(pieces: Sequence[dict[str, np.ndarray]]) -> dict[str, np.ndarray
 
 def display_pieces(group: Sequence[Mapping[str, Any]], kind: str, system: UnitSystem, *,
                     phase: PhaseDisplay | None, max_points: int, fields=("amplitude",),
-                    keep_speeds: Sequence[float] = ()) -> dict[str, np.ndarray]:
+                    keep_speeds: Sequence[float] = (), blank_phase: bool = False
+                    ) -> dict[str, np.ndarray]:
     """One trace group in display form: units converted, phase unwrapped (on the full
-    data), decimated per piece (:func:`decimate_minmax`), pieces joined with gaps."""
+    data), with ``blank_phase`` set to NaN where the amplitude is below
+    :data:`PHASE_FLOOR_FRACTION` of the group's peak, decimated per piece
+    (:func:`decimate_minmax`), pieces joined with gaps."""
     share = max(200, max_points // max(1, len(group)))
     pieces = []
+    amps = [np.asarray(tr[fields[0]], dtype=float) for tr in group]
+    peak = max((float(np.nanmax(a)) for a in amps if np.isfinite(a).any()), default=0.0)
     for tr in group:
         rpm = np.asarray(tr["speed_rpm"], dtype=float)
         arrays = {"rpm": rpm}
@@ -246,8 +313,11 @@ def display_pieces(group: Sequence[Mapping[str, Any]], kind: str, system: UnitSy
             arrays[f] = np.asarray(to_display(np.asarray(tr[f], dtype=float), kind, system))
         if phase is not None:
             lag = np.asarray(tr["phase_lag_deg"], dtype=float)
-            arrays["phase"] = unwrap_phase_deg(lag, rpm, arrays["amplitude"]) \
+            shown = unwrap_phase_deg(lag, rpm, arrays["amplitude"]) \
                 if phase == "unwrapped" else lag
+            # weak vectors: no phase drawn (the floor relative to the group's peak)
+            arrays["phase"] = blank_weak_phase(shown, tr[fields[0]], peak) if blank_phase \
+                else shown
         keep = [nearest_index(rpm, s) for s in keep_speeds
                 if np.nanmin(rpm) <= s <= np.nanmax(rpm)]
         idx = decimate_minmax(rpm, *[arrays[k] for k in arrays if k != "rpm"],

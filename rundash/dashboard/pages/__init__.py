@@ -26,15 +26,36 @@ def register(app, db) -> None:
                       dcc.Link("Compare runs", href=compare.PATH)]),
             html.Span("start-up and coast-down review", className="muted")]),
         html.Main(id=ids.PAGE, className="shell-main"),
+        dcc.Store(id=ids.PAGE_TITLE), dcc.Store(id=ids.PAGE_TITLE_SHOWN),
         html.Div(CAUTION, id=ids.CAUTION_BAR, className="caution"),
     ])
 
-    @app.callback(Output(ids.PAGE, "children"), Input(ids.URL, "pathname"))
+    @app.callback(Output(ids.PAGE, "children"), Output(ids.PAGE_TITLE, "data"),
+                  Input(ids.URL, "pathname"))
     def _route(pathname):
-        return route(db, pathname, modules)
+        return route(db, pathname, modules), page_title(pathname, modules)
+
+    # the browser tab names the page (Dash's own title stays "rundash" until this runs)
+    app.clientside_callback("function(t) { if (t) { document.title = t; } return t; }",
+                            Output(ids.PAGE_TITLE_SHOWN, "data"),
+                            Input(ids.PAGE_TITLE, "data"), prevent_initial_call=True)
 
     for m in modules:
         m.register_callbacks(app, db)
+
+
+def page_title(pathname, modules) -> str:
+    """The browser tab's title: the page's name, the run or machine it shows, 'rundash'."""
+    for m in modules:
+        args = m.match(pathname or "/")
+        if args is not None:
+            what = [f"run {args['run_id']}"] if args.get("run_id") is not None else []
+            if args.get("machine_id") is not None:
+                what.append(f"machine {args['machine_id']}")
+            if args.get("run_ids"):
+                what.append("runs " + ", ".join(str(r) for r in args["run_ids"]))
+            return " · ".join([m.TITLE, *what, "rundash"])
+    return "Page not found · rundash"
 
 
 def route(db, pathname, modules):

@@ -52,6 +52,7 @@ def layout(db, run_id: int | None = None):
 def snapshot(db, run_id: int | None) -> dict:
     """Everything the page shows, read in one short read transaction."""
     from rundash.storage import live_queries as lq
+    from rundash.storage import queries as q
 
     with db.read() as conn:
         if run_id is None:
@@ -61,13 +62,15 @@ def snapshot(db, run_id: int | None) -> dict:
         status = lq.load_status(conn, run_id)
         tracks = lq.load_live_tracks(conn, run_id, order=1.0)
         events = lq.load_events(conn, run_id)
+        machine = q.get_machine(conn, q.run_machine_id(conn, run_id))
     bands = []
     for e in events:
         if e.kind == "recording":
             bands = [tuple(b) for b in e.details.get("bands", [])]
             break
     return {"run_id": run_id, "status": status, "tracks": tracks, "events": events,
-            "bands": bands}
+            "bands": bands, "rotation": machine.spec.rotation or "ccw",
+            "machine": machine.spec.name}
 
 
 def active_alerts(events) -> list[tuple[str, str]]:
@@ -93,14 +96,23 @@ def active_alerts(events) -> list[tuple[str, str]]:
 
 
 def figures(snap: dict):
-    """Bode (amplitude and phase lag against speed) and polar figures of the live 1X."""
+    """Bode (amplitude per unit and phase lag against speed) and polar figures of the
+    live 1X, the polar turned with the machine's rotation; a message instead of empty
+    axes when nothing has been recorded."""
     from rundash.figures import live_bode_polar
 
-    return live_bode_polar(snap.get("tracks", []), snap.get("bands", []))
+    if snap.get("run_id") is None:
+        msg = "No run is being recorded: start one with rundash record"
+    else:
+        msg = f"Run {snap['run_id']}: no 1X vectors recorded yet"
+    return live_bode_polar(snap.get("tracks", []), snap.get("bands", []),
+                           rotation=snap.get("rotation", "ccw"), empty_message=msg)
 
 
 def register_callbacks(app, db) -> None:
     from dash import Input, Output, State, html
+
+    from rundash.presentation import display_text
 
     @app.callback(Output(ids.LIVE_STATUS, "children"), Output(ids.LIVE_ALERTS, "children"),
                   Output(ids.LIVE_BODE, "figure"), Output(ids.LIVE_POLAR, "figure"),
@@ -109,8 +121,9 @@ def register_callbacks(app, db) -> None:
     def _poll(_n, run_id):
         snap = snapshot(db, run_id)
         if snap["run_id"] is None:
-            empty = figures({})
-            return ("No run is being recorded (start one with rundash record).", [],
+            empty = figures(snap)
+            return ("No run is being recorded (start one with rundash record).",
+                    [html.Span("no active warning", className="alert none")],
                     empty[0], empty[1], [])
         st = snap["status"]
         if st is None:
@@ -118,14 +131,15 @@ def register_callbacks(app, db) -> None:
         else:
             speed = "-" if st.speed_rpm is None else f"{st.speed_rpm:,.0f} rpm"
             acc = "-" if st.accel_rpm_s is None else f"{st.accel_rpm_s:+,.0f} rpm/s"
-            status = (f"run {snap['run_id']} · {st.state} · t = {st.time_s:.1f} s · speed "
-                      f"{speed} · acceleration {acc} · tach {'ok' if st.tach_ok else 'LOST'} · "
+            status = (f"{snap['machine']} · run {snap['run_id']} · {st.state} · "
+                      f"t = {st.time_s:.1f} s · speed {speed} · acceleration {acc} · tach {'ok' if st.tach_ok else 'LOST'} · "
                       f"{st.n_revs} revolutions")
             silent = (datetime.now(timezone.utc) - st.updated_at).total_seconds()
             if st.state == "recording" and silent > STALE_S:
                 status += (f" · no update for {silent:.0f} s: the recorder may have stopped "
                            "(the run stays incomplete and can be processed)")
-        alerts = [html.Span(text, className=f"alert {sev}")
+        alerts = [html.Span([html.B(f"{sev}: "), display_text(text)],
+                            className=f"alert {sev}", role="alert" if sev == "alarm" else None)
                   for sev, text in active_alerts(snap["events"])]
         if not alerts:
             alerts = [html.Span("no active warning", className="alert none")]
@@ -134,6 +148,6 @@ def register_callbacks(app, db) -> None:
         for e in reversed(snap["events"]):
             rows.append(html.Tr([html.Td(f"{e.time_s:.1f}"),
                                  html.Td("-" if e.speed_rpm is None else f"{e.speed_rpm:,.0f}"),
-                                 html.Td(e.severity), html.Td(e.message)],
+                                 html.Td(e.severity), html.Td(display_text(e.message))],
                                 className=f"event {e.kind}"))
         return status, alerts, bode, polar, rows
