@@ -19,6 +19,10 @@ import html
 from datetime import datetime, timezone
 from typing import Any, Literal, Sequence
 
+from rundash.report.review_section import (
+    has_review, review_section, stored_signoff, verdict_line,
+)
+from rundash.workflows.review import review_in
 from rundash import CAUTION, __version__, figures
 from rundash import presentation as pr
 from rundash.errors import ConfigError, NotFoundError
@@ -62,6 +66,7 @@ def load_report_data(db, run_id: int, compare: Sequence[int] = (), *, n_boot: in
         channels = q.list_channels(conn, run_id)
         tracks = q.load_tracks(conn, run_id, order=1.0)
         prof = q.load_speed_profile(conn, run_id)
+        review = review_in(conn, run_id)
         others = {}
         for rid in compare:
             others[rid] = dict(run=q.get_run(conn, rid),
@@ -77,7 +82,7 @@ def load_report_data(db, run_id: int, compare: Sequence[int] = (), *, n_boot: in
         ids.sort(key=lambda r: (infos[r].started_at or far, r))
         comparison = compare_runs(db, ids, n_boot=n_boot)
     return dict(run=run, machine=machine, proc=proc, channels=channels, tracks=tracks,
-                speed_profile=prof, others=others, comparison=comparison)
+                speed_profile=prof, others=others, comparison=comparison, review=review)
 
 
 def _traces(tracks, segments, probe: str, *, run_label: str | None = None,
@@ -174,6 +179,7 @@ table.kv th { width: 32%; background: #f6f6f6; font-weight: normal; }
 .box { display: inline-block; width: 11px; height: 11px; border: 1px solid #222;
        margin: 0 4px 0 12px; vertical-align: middle; }
 .box.x { background: #222; }
+.earlier { color: #8a1c1c; }
 .sig { color: #c0392b; font-weight: bold; }
 """
 
@@ -393,7 +399,8 @@ def render(data: dict[str, Any], *, flavour: Flavour = "interactive", reviewer: 
                               config={"displaylogo": False, "responsive": True})
             parts.append(f'<div class="fig">{div}<div class="cap">Figure {n_fig}. {_e(cap)}'
                          "</div></div>")
-    n_sec = 5 if data["comparison"] else 4
+    review = data.get("review")
+    n_sec = (5 if data["comparison"] else 4) + (1 if has_review(review) else 0)
     made = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
     title = f"Run review report — {m.spec.name}, run {run.id}"
     return (
@@ -401,9 +408,11 @@ def render(data: dict[str, Any], *, flavour: Flavour = "interactive", reviewer: 
         f"<style>{CSS}</style></head><body>"
         f"<h1>{_e(title)}</h1><p class='muted'>{_e(run.label)} · {_e(run.kind)} · made {made} "
         f"by rundash {__version__}</p>"
-        f"<p>Run verdict: {_verdict_word(f.get('run_verdict'))}</p>"
-        f'<div class="caution">{_e(CAUTION)}</div>'
+        f"<p>Run verdict: {_verdict_word(f.get('run_verdict'))}</p>" + verdict_line(review)
+        + f'<div class="caution">{_e(CAUTION)}</div>'
         + _run_section(data) + _processing_section(data) + _findings_section(data)
-        + _comparison_section(data)
+        + _comparison_section(data) + review_section(review, n_sec - 1)
         + f"<h2>{n_sec}. Plots</h2>" + "".join(parts)
-        + _signoff(reviewer, decision, remarks, role) + "</body></html>")
+        # the stored sign-off fills the block; without one, the fields given (or blanks)
+        + (stored_signoff(review) or _signoff(reviewer, decision, remarks, role))
+        + "</body></html>")

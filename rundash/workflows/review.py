@@ -22,6 +22,7 @@ from rundash.storage import queries as q
 from rundash.storage import review_queries as rq
 from rundash.storage.engine import Database
 
+RECORD_NOTE, REJECT_REASONS = rv.RECORD_NOTE, rv.REJECT_REASONS  # for the faces
 SIGN_OFF_WORDS = {"accepted": "accepted", "accepted-with-remarks": "accepted with remarks",
                   "accepted with remarks": "accepted with remarks",
                   "not-accepted": "not accepted", "not accepted": "not accepted"}

@@ -40,7 +40,10 @@ def machine_rows(db):
 def layout(db):
     from dash import dcc, html
 
+    from rundash.workflows.review import review_states
+
     groups = machine_rows(db)
+    review = review_states(db, [r for _, runs in groups for r in runs])
     if not groups:
         return html.Div(className="card", children=[
             html.H2("No machines yet"),
@@ -54,7 +57,7 @@ def layout(db):
                   f" rpm, rated {s.rated_speed_rpm:,.0f} rpm"
                   + (f", trip {s.trip_speed_rpm:,.0f} rpm" if s.trip_speed_rpm else ""))
         head = html.Tr([html.Th(h) for h in ("Started (UTC)", "Kind", "Run", "Cycle",
-                                            "Processing", "Verdict", "")])
+                                            "Processing", "Verdict", "Review", "")])
         rows = []
         for r in runs:
             state = r.state if r.state != "complete" else (
@@ -68,6 +71,8 @@ def layout(db):
                 html.Td(r.cycle or "–"),
                 html.Td(state),
                 html.Td(verdict_badge(r.verdict, r.processed)),
+                html.Td(review[r.id], className="review-state",
+                        **{"data-run": str(r.id)}),
                 html.Td(dcc.Link("review", href=f"/run/{r.id}")),
             ]))
         body = (html.Table([html.Thead(head), html.Tbody(rows)], className="plain")

@@ -4,6 +4,9 @@
 from __future__ import annotations
 
 from rundash.dashboard import exports, reports
+from rundash.dashboard.pages.review import decisions, housekeeping
+from rundash.figures.review_marks import mark_review
+from rundash.workflows.review import review_of
 from rundash.dashboard.pages.review.data import (
     UNIT_SYSTEMS, bode_figure, campbell_figure, cascade_figure, criticals_of, load_context,
     orbit_figure, polar_direct_figures, speed_figure,
@@ -81,24 +84,31 @@ def register_callbacks(app, db) -> None:
     def _units(units):
         return units if units in UNIT_SYSTEMS else "metric"
 
+    decisions.register_callbacks(app, db)  # the engineer's decisions and sign-off
+    housekeeping.register_callbacks(app, db)  # edit and delete the run
+
     @app.callback(Output(ids.BODE, "figure"),
                   Input(ids.PROBE, "value"), Input(ids.ORDERS, "value"),
                   Input(ids.COMPENSATION, "value"), Input(ids.UNITS, "value"),
-                  Input(ids.PHASE, "value"), State(ids.RUN_ID, "data"))
-    def _bode(probe, orders, compensation, units, phase, run_id):
+                  Input(ids.PHASE, "value"), Input(ids.REVIEW_VERSION, "data"),
+                  State(ids.RUN_ID, "data"))
+    def _bode(probe, orders, compensation, units, phase, _version, run_id):
         if not probe or run_id is None:
             return no_update
-        return bode_figure(db, run_id, probe, orders or [1.0], compensation, _units(units),
-                           phase or "unwrapped", cache=cache)
+        fig = bode_figure(db, run_id, probe, orders or [1.0], compensation, _units(units),
+                          phase or "unwrapped", cache=cache)
+        return mark_review(fig, review_of(db, run_id), probe, plot="bode")
 
     @app.callback(Output(ids.POLAR, "figure"), Output(ids.DIRECT, "figure"),
                   Input(ids.PROBE, "value"), Input(ids.COMPENSATION, "value"),
-                  Input(ids.UNITS, "value"), State(ids.RUN_ID, "data"))
-    def _polar_direct(probe, compensation, units, run_id):
+                  Input(ids.UNITS, "value"), Input(ids.REVIEW_VERSION, "data"),
+                  State(ids.RUN_ID, "data"))
+    def _polar_direct(probe, compensation, units, _version, run_id):
         if not probe or run_id is None:
             return no_update, no_update
-        return polar_direct_figures(db, run_id, probe, compensation, _units(units),
-                                    cache=cache)
+        polar, direct = polar_direct_figures(db, run_id, probe, compensation, _units(units),
+                                             cache=cache)
+        return mark_review(polar, review_of(db, run_id), probe, plot="polar"), direct
 
     @app.callback(Output(ids.CASCADE, "figure"), Input(ids.PROBE, "value"),
                   Input(ids.UNITS, "value"), State(ids.RUN_ID, "data"))

@@ -325,4 +325,10 @@ def layout(db, run_id: int, *, cache=None):
                                  "large dot is the once-per-rev event; whirl is forward when "
                                  "the orbit turns with the shaft.", className="note")])])]),
     ]
-    return html.Div([dcc.Store(id=ids.RUN_ID, data=run_id), head, verdict, controls, *plots])
+    from rundash.dashboard.pages.review.decisions import review_card
+    from rundash.dashboard.pages.review.housekeeping import housekeeping_card
+    from rundash.workflows.review import review_of
+
+    review = review_of(db, run_id)
+    return html.Div([dcc.Store(id=ids.RUN_ID, data=run_id), head, verdict, review_card(review),
+                     controls, *plots, housekeeping_card(run, bool(review["sign_offs"]))])
