@@ -508,3 +508,29 @@ class TestFittedModelOverData:
         (m,) = [t for t in d["data"] if t.get("meta") == "model"]
         _, ref_lag = sdof_unbalance(arr(m["customdata"]), 3000.0, 0.1)
         assert_allclose(arr(m["theta"]), ref_lag % 360.0, atol=1e-6)
+
+
+class TestBearingSplitView:
+    """The split view draws what the findings say (our format, no outside source): the
+    major-axis curve, each mode at its steady peak with its direction and whirl."""
+
+    def test_two_modes_with_directions(self):
+        rpm = np.linspace(2800.0, 4200.0, 241)
+        a1, _ = sdof_unbalance(rpm, 3373.0, 0.055)
+        a2, _ = sdof_unbalance(rpm, 3613.0, 0.055)
+        entry = {"bearing": "A", "probes": ["A-X", "A-Y"], "split": "two modes",
+                 "major_curve": {"speed_rpm": rpm.tolist(), "major_amplitude": np.maximum(a1, a2).tolist()},
+                 "modes": [{"natural_frequency_rpm": 3373.0, "peak_speed_rpm": 3383.3,
+                            "direction_deg": 1.0, "whirl": "planar"},
+                           {"natural_frequency_rpm": 3613.0, "peak_speed_rpm": 3624.0,
+                            "direction_deg": 89.0, "whirl": "planar"}],
+                 "criticals": [{"speed_rpm": 3383.0, "af": 8.9}, {"speed_rpm": 3624.0, "af": 9.0}]}
+        d = figures.bearing_modes(entry).to_dict()
+        (curve,) = [t for t in d["data"] if t.get("meta") == "model"]
+        assert_allclose(arr(curve["y"]), np.maximum(a1, a2))
+        xs = sorted(sh["x0"] for sh in d["layout"]["shapes"])
+        assert xs == [3383.3, 3624.0]
+        texts = " ".join(a["text"] for a in d["layout"]["annotations"])
+        assert "along 1°, planar" in texts and "along 89°, planar" in texts
+        assert d["layout"]["meta"]["split"] == "two modes"
+        assert "two modes" in d["layout"]["title"]["text"]

@@ -14,6 +14,7 @@ Public functions, by figure family (module)
 ``cascade``: campbell  interference diagram: order lines, criticals, natural frequencies
 ``orbit``: orbit    filtered 1X and unfiltered orbit of an X/Y pair, whirl direction
 ``orbit``: whirl_direction  forward or reverse whirl of an orbit
+``orbit``: bearing_modes  split view of a bearing: the fitted model's major-axis response and its modes' directions
 ``comparison``: comparison_trend  critical speed and AF per run against date, cycles
 ``live``: live_bode_polar  the live monitor's Bode and polar figures
 ``segments``: split_by_direction  cut a track into run-up / coast-down / hold pieces
@@ -44,7 +45,7 @@ from rundash.figures.common import (
 from rundash.figures.comparison import comparison_trend
 from rundash.figures.levels import direct_vs_filtered, guidance_lines
 from rundash.figures.live import live_bode_polar
-from rundash.figures.orbit import orbit, whirl_direction
+from rundash.figures.orbit import bearing_modes, orbit, whirl_direction
 from rundash.figures.segments import (
     drawing_segments, split_by_direction, time_in_band, track_pieces,
 )
@@ -52,7 +53,7 @@ from rundash.figures.speed import speed_time
 
 __all__ = [
     "bode", "polar", "speed_time", "direct_vs_filtered", "guidance_lines", "cascade",
-    "campbell", "orbit", "whirl_direction", "comparison_trend", "live_bode_polar",
+    "campbell", "orbit", "whirl_direction", "bearing_modes", "comparison_trend", "live_bode_polar",
     "split_by_direction", "track_pieces", "drawing_segments", "time_in_band", "decimate_minmax",
     "unwrap_phase_deg", "margin_zones", "PALETTE", "DIRECTION_STYLE",
 ]

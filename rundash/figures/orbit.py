@@ -9,9 +9,9 @@ import numpy as np
 import plotly.graph_objects as go
 
 from rundash.figures.common import (
-    PALETTE, UnitSystem, apply_layout,
+    INK, PALETTE, UnitSystem, apply_layout,
 )
-from rundash.units import display_unit, to_display
+from rundash.units import amplitude_label, display_unit, to_display
 
 
 def whirl_direction(u, v) -> Literal["ccw", "cw"]:
@@ -113,4 +113,51 @@ def orbit(x_probe: Mapping[str, Any], y_probe: Mapping[str, Any], *, kind: str =
                        showarrow=False, font={"size": 10})
     fig.update_layout(margin={"b": 80})
     fig.update_layout(meta={"whirl": whirl, "sense": sense})
+    return fig
+
+
+# ----------------------------------------------------------------------------- split view
+def bearing_modes(entry: Mapping[str, Any], *, kind: str = "proximity",
+                  system: UnitSystem = "metric", uirevision: Any = None) -> go.Figure:
+    """The split view of one bearing: the run's fitted model as the major axis of the 1X
+    orbit against speed (findings ``bearing_modes[]``), each fitted mode marked at its
+    steady peak with its direction and whirl, the major-axis criticals with their AF.
+
+    Directions are degrees from the reference sensor in the direction of rotation (the
+    convention of the probe angles); a split critical shows as two modes along different
+    directions.
+    """
+    unit = amplitude_label(kind, system)
+    curve = entry.get("major_curve") or {}
+    rpm = np.asarray(curve.get("speed_rpm") or [], float)
+    amp = np.asarray(to_display(np.asarray(curve.get("major_amplitude") or [], float), kind, system))
+    fig = go.Figure()
+    fig.add_trace(go.Scatter(x=rpm, y=amp, mode="lines", name="major axis, fitted model",
+                             line={"color": PALETTE[0], "width": 2}, meta="model"))
+    top = float(np.max(amp)) if amp.size else 1.0
+    for k, m in enumerate(entry.get("modes") or []):
+        x = m.get("peak_speed_rpm") or m.get("natural_frequency_rpm")
+        if x is None:
+            continue
+        fig.add_vline(x=x, line={"color": PALETTE[(k + 1) % len(PALETTE)], "dash": "dash", "width": 1.5})
+        fig.add_annotation(x=x, y=top * (1.08 - 0.1 * k), showarrow=False, xanchor="left",
+                           text=f" mode {m.get('natural_frequency_rpm', 0):.0f} rpm: along "
+                                f"{m.get('direction_deg', 0):.0f}°, {m.get('whirl', '?')}",
+                           font={"size": 11, "color": INK})
+    crit = entry.get("criticals") or []
+    if crit:
+        xs = [c.get("speed_rpm") for c in crit]
+        ys = [float(np.interp(x, rpm, amp)) if rpm.size else 0.0 for x in xs]
+        fig.add_trace(go.Scatter(
+            x=xs, y=ys, mode="markers+text", name="major-axis criticals", meta="critical",
+            text=[f"{c.get('speed_rpm', 0):.0f} rpm, AF " + (f"{c['af']:.2f}" if c.get("af")
+                                                             else "n/a") for c in crit],
+            textposition="bottom center", marker={"size": 10, "color": INK}))
+    split = entry.get("split") or "one mode"
+    apply_layout(fig, title=f"Bearing {entry.get('bearing', '?')}: major axis of the fitted 1X "
+                            f"orbit ({split})", uirevision=uirevision, height=380)
+    fig.update_xaxes(title_text="speed (rpm)")
+    fig.update_yaxes(title_text=f"major axis ({unit})", rangemode="tozero")
+    fig.update_layout(meta={"split": entry.get("split") or "",
+                            "directions_deg": [m.get("direction_deg") for m in entry.get("modes") or []]})
     return fig

@@ -128,6 +128,11 @@ def build_figures(data: dict[str, Any]) -> list[tuple[str, Any]]:
         out.append((f"Polar plot of {probe}, 1X ({word})",
                     figures.polar(tr, kind=kind, rotation=spec.rotation, criticals=pc,
                                   title=f"Polar plot, {probe} 1X ({word})", model=model)))
+    for b in f.get("bearing_modes") or []:
+        out.append((f"Split view of bearing {b.get('bearing', '?')}: the fitted model's major-axis "
+                    f"response and its modes' directions",
+                    figures.bearing_modes(b, kind=kinds.get((b.get("probes") or [""])[0],
+                                                            "proximity"))))
     if data["others"]:
         first = next(iter(kinds), None)
         probe = next((c["probe"] for c in crit), first)

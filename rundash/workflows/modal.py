@@ -37,7 +37,7 @@ from rundash.analysis.criticals import CRITICALLY_DAMPED_AF
 from rundash.analysis.modes import mode_hint
 from rundash.analysis.transient import METHOD, RunModes, identify_modes
 from rundash.analysis.whirl import (
-    directions_differ, major_axis_readings, mode_direction, pair_shape_hint,
+    directions_differ, major_axis_readings, mode_direction, orbit, pair_shape_hint,
 )
 from rundash.conventions import lag_deg_from_phasor
 from rundash.errors import AnalysisError
@@ -237,8 +237,13 @@ class RunModal:
                                            if cl.band_rpm[0] <= c.speed_rpm <= cl.band_rpm[1])
                             if ap:
                                 evidence.append(f"{p} {d}: apparent peaks at {ap} rpm")
+                grid = np.linspace(cl.band_rpm[0], cl.band_rpm[1], 241)
+                H = fit.steady(grid)
+                major = orbit(H[jx], H[jy], angle_x_deg=ax, angle_y_deg=ay).major
                 out.append(dict(
                     bearing=bearing, probes=[px, py], band_rpm=[json_number(b) for b in cl.band_rpm],
+                    major_curve=dict(speed_rpm=[round(float(x), 2) for x in grid],
+                                     major_amplitude=[float(f"{fac * m:.5g}") for m in major]),
                     criticals=[dict(speed_rpm=json_number(r.speed_rpm), af=json_number(r.af), af_note=r.af_note,
                                     major_amplitude=json_number(fac * r.major), mode=int(r.mode),
                                     speed_std_rpm=json_number(fit.modes[r.mode].peak_speed_std_rpm)

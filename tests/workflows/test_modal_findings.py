@@ -166,3 +166,8 @@ class TestSplitCritical:
                 assert m["whirl"] == "planar"
                 assert abs((m["direction_deg"] - axis + 90.0) % 180.0 - 90.0) < 10.0
         assert len(f["modal_model"]["modes"]) == 2
+        # the split view draws each bearing's entry: its curve and both mode directions
+        from rundash import figures
+        for b in f["bearing_modes"]:
+            meta = figures.bearing_modes(b).to_dict()["layout"]["meta"]
+            assert meta["split"] == "two modes" and len(meta["directions_deg"]) == 2

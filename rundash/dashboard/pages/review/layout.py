@@ -115,6 +115,7 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
         if split:
             children.append(html.H3("Criticals per bearing (major axis of the 1X orbit)"))
             children.append(html.Ul([html.Li(x) for x in split]))
+            children += _split_views(f, system, kinds)
         bearings = pr.bearing_lines(f)
         if bearings:
             children.append(html.H3("Agreement between probes of a bearing"))
@@ -128,6 +129,18 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
     children.append(html.P((f or {}).get("caution") or CAUTION, className="note",
                            style={"fontStyle": "italic", "marginTop": "10px"}))
     return html.Div(children)
+
+
+def _split_views(f, system, kinds) -> list:
+    """The split view of each bearing with an X/Y pair in the run's modal model."""
+    from dash import dcc
+
+    from rundash import figures
+
+    return [dcc.Graph(figure=figures.bearing_modes(
+        b, kind=kinds.get((b.get("probes") or [""])[0], "proximity"), system=system),
+        config={"displaylogo": False}, className="split-view")
+        for b in f.get("bearing_modes") or []]
 
 
 def _rising_section(f) -> list:
