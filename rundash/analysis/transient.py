@@ -50,6 +50,8 @@ __all__ = [
 
 #: Smallest relative drop of the weighted misfit for one more mode to count.
 MIN_GAIN = 0.10
+#: Group means in the model-order fits of one cluster (the final fit uses more).
+ORDER_GROUPS = 300
 
 
 # --------------------------------------------------------------------------- one run
@@ -251,7 +253,8 @@ def identify_modes(time_s, speed_rpm, vectors, *, candidates: Sequence[tuple[flo
         As :func:`sweep_history`.
     masks : dict of str to bool array, optional
         Blocks of each run direction (``'run-up'``, ``'coast-down'``) for the direction
-        refits; the joint fit uses every block in the bands.
+        refits (done with two or more directions); the joint fit uses every block in the
+        bands.
     n_boot, seed :
         Bootstrap replicates and seed for the chosen model.
     max_modes : int
@@ -317,7 +320,9 @@ def identify_modes(time_s, speed_rpm, vectors, *, candidates: Sequence[tuple[flo
         tried, unresolved, cons_af, why_unres = [], False, None, ""
         inside = [(m.fn_rpm, m.zeta) for m in _modes_in(cur, band)]
         others = [(m.fn_rpm, m.zeta) for m in cur.modes if not band[0] <= m.fn_rpm <= band[1]]
-        kwl = dict(base, band_rpm=band, fixed=others)
+        # model order in a cluster's band on coarser group means (all of its fits alike,
+        # so the F test compares like with like); the chosen model is refitted in full
+        kwl = dict(base, band_rpm=band, fixed=others, max_groups=ORDER_GROUPS)
         wl = (cur.weights[0], None)
         curl = _best(args, kwl, [inside], wl, max_nfev=60) if inside else None
         if curl is None:
@@ -371,7 +376,9 @@ def identify_modes(time_s, speed_rpm, vectors, *, candidates: Sequence[tuple[flo
                                        if any(b[0] <= r.speed_rpm <= b[1] for _, b in keep)))
     dirs = []
     w_fin = (fin.weights[0], None)
-    for name, mk in (masks or {}).items():
+    # each run direction alone, to compare them (with one direction there is nothing to
+    # compare: its refit would repeat the joint fit)
+    for name, mk in (masks or {}).items() if len(masks or {}) >= 2 else ():
         mk = np.asarray(mk, dtype=bool)
         sel = mk & (s >= union[0]) & (s <= union[1])
         if np.count_nonzero(sel) < 30:
