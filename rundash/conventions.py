@@ -31,8 +31,15 @@ Probe mounting angle
     say so.
 
 Probe angles and rotation
-    Angles are in degrees measured from the reference sensor in the direction of rotation.
-    ``rotation`` of a machine is ``cw`` or ``ccw`` viewed from the driver end.
+    ``rotation`` of a machine is ``cw`` or ``ccw`` viewed from the driver end. A probe's
+    ``angle_deg`` is in degrees from the once-per-rev (reference) sensor in the direction
+    of rotation; the reference sensor's own ``angle_deg`` is in degrees from top dead
+    centre in the direction of rotation (0: at the top). The trade's form, degrees left or
+    right of top dead centre viewed from the driver end ("45° L"), is accepted in the
+    machine description and shown beside the numbers (:func:`angle_from_top`,
+    :func:`side_of_top`): viewed from the driver end a ``ccw`` shaft turns from the top
+    towards the left, so "L" is the direction of rotation for ``ccw`` and against it for
+    ``cw``.
 
 Amplitudes
     Proximity probes: micrometres peak-to-peak (pp = 2 |c|). Velocity: mm/s peak for
@@ -61,3 +68,33 @@ def lag_deg_from_phasor(c):
 def phasor_from_lag(amplitude_peak, phase_lag_deg):
     """Complex phasor from a peak amplitude and a phase lag in degrees."""
     return np.asarray(amplitude_peak) * np.exp(-1j * np.radians(phase_lag_deg))
+
+
+def angle_from_top(deg: float, side: str, rotation: str) -> float:
+    """Degrees from top dead centre in the direction of rotation, in [0, 360), of a mounting
+    angle ``deg`` to the ``side`` ``'L'`` or ``'R'`` of top dead centre viewed from the
+    driver end (see the module doc).
+
+    >>> angle_from_top(45, "L", "ccw"), angle_from_top(45, "L", "cw"), angle_from_top(45, "R", "cw")
+    (45.0, 315.0, 45.0)
+    """
+    along = (side.upper() == "L") == (rotation == "ccw")
+    return float(wrap_deg(deg if along else -deg))
+
+
+def side_of_top(angle_from_top_deg: float, rotation: str) -> str:
+    """The trade's form of an angle from top dead centre in the direction of rotation:
+    ``'45° L'``, ``'0° (top)'``, ``'180° (bottom)'`` (viewed from the driver end).
+
+    >>> side_of_top(45, "ccw"), side_of_top(315, "ccw"), side_of_top(315, "cw")
+    ('45° L', '45° R', '45° L')
+    """
+    a = float(wrap_deg(round(float(angle_from_top_deg), 6)))
+    if a == 0.0:
+        return "0° (top)"
+    if a == 180.0:
+        return "180° (bottom)"
+    along = a < 180.0
+    deg = a if along else 360.0 - a
+    side = "L" if along == (rotation == "ccw") else "R"
+    return f"{deg:g}° {side}"

@@ -8,6 +8,7 @@ from typing import Any, Literal, Mapping
 import numpy as np
 import plotly.graph_objects as go
 
+from rundash.conventions import side_of_top
 from rundash.figures.common import (
     INK, PALETTE, UnitSystem, apply_layout,
 )
@@ -25,23 +26,25 @@ def whirl_direction(u, v) -> Literal["ccw", "cw"]:
 
 
 # ----------------------------------------------------------------------------- orbit
-def _screen_angle_rad(angle_deg: float, rotation: str) -> float:
-    # the reference sensor sits at the top of the screen (our choice, stated in the
-    # figure); probe angles are measured from it in the direction of rotation, and the
-    # screen shows the machine viewed from the driver end.
+def _screen_angle_rad(angle_deg: float, rotation: str, tach_angle_deg: float = 0.0) -> float:
+    # top dead centre at the top of the screen, the machine viewed from the driver end;
+    # the once-per-rev sensor sits ``tach_angle_deg`` from the top in the direction of
+    # rotation and the probe angles are measured from it in the same direction
+    # (rundash.conventions).
     sign = 1.0 if rotation == "ccw" else -1.0
-    return math.radians(90.0 + sign * angle_deg)
+    return math.radians(90.0 + sign * (tach_angle_deg + angle_deg))
 
 
 def orbit(x_probe: Mapping[str, Any], y_probe: Mapping[str, Any], *, kind: str = "proximity",
           system: UnitSystem = "metric", rotation: str = "ccw", speed_rpm: float | None = None,
-          raw_x=None, raw_y=None, title: str | None = None, n_points: int = 256
-          ) -> go.Figure:
+          raw_x=None, raw_y=None, title: str | None = None, n_points: int = 256,
+          tach_angle_deg: float = 0.0) -> go.Figure:
     """Orbit of an X/Y probe pair: filtered 1X ellipse and one unfiltered revolution.
 
     The probe mounting angles **are applied** here: each probe reads the shaft's motion
     along its own axis, ``d_i = u cos(b_i) + v sin(b_i)`` with ``b_i`` the probe's screen
-    angle (reference sensor at the top, angles in the direction of rotation, machine
+    angle (top dead centre at the top, the once-per-rev sensor ``tach_angle_deg`` from it
+    and the probe angles from the sensor, both in the direction of rotation, machine
     viewed from the driver end), and the two readings are solved for the screen
     coordinates ``(u, v)``. This works for any two non-parallel probes.
 
@@ -62,8 +65,8 @@ def orbit(x_probe: Mapping[str, Any], y_probe: Mapping[str, Any], *, kind: str =
         Traces ``'1X filtered'`` and ``'unfiltered'`` (when given), the once-per-rev mark,
         and the whirl direction in the title (forward: same sense as rotation).
     """
-    bx = _screen_angle_rad(float(x_probe["angle_deg"]), rotation)
-    by = _screen_angle_rad(float(y_probe["angle_deg"]), rotation)
+    bx = _screen_angle_rad(float(x_probe["angle_deg"]), rotation, tach_angle_deg)
+    by = _screen_angle_rad(float(y_probe["angle_deg"]), rotation, tach_angle_deg)
     m = np.array([[math.cos(bx), math.sin(bx)], [math.cos(by), math.sin(by)]])
     if abs(np.linalg.det(m)) < 1e-6:
         raise ValueError("the two probes are parallel: no orbit can be built")
@@ -108,7 +111,15 @@ def orbit(x_probe: Mapping[str, Any], y_probe: Mapping[str, Any], *, kind: str =
                      zerolinecolor="#bbbbbb")
     fig.update_yaxes(title_text=f"vertical ({unit})", range=[-lim, lim], zeroline=True,
                      zerolinecolor="#bbbbbb", scaleanchor="x", scaleratio=1)
-    fig.add_annotation(text="probe mounting angles applied; reference sensor at top; "
+    bt = _screen_angle_rad(0.0, rotation, tach_angle_deg)
+    fig.add_trace(go.Scatter(x=[0.97 * lim * math.cos(bt)], y=[0.97 * lim * math.sin(bt)],
+                             mode="markers", name="once-per-rev sensor", meta="sensor",
+                             marker={"symbol": "triangle-down" if math.sin(bt) > 0.7 else
+                                     "diamond", "size": 10, "color": "#777777"},
+                             hovertext="once-per-rev sensor, "
+                             + side_of_top(tach_angle_deg, rotation), hoverinfo="text"))
+    fig.add_annotation(text="probe mounting angles applied; top dead centre at the top, "
+                       f"once-per-rev sensor at {side_of_top(tach_angle_deg, rotation)}; "
                        "viewed from the driver end", xref="paper", yref="paper", x=0, y=-0.2,
                        showarrow=False, font={"size": 10})
     fig.update_layout(margin={"b": 80})

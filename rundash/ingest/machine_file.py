@@ -9,8 +9,10 @@ as every TOML check is (:mod:`rundash.ingest.toml_check`).
 from __future__ import annotations
 
 import math
+import re
 from pathlib import Path
 
+from rundash.conventions import angle_from_top, wrap_deg
 from rundash.errors import ConfigError, invalid_value
 from rundash.ingest import bounds
 from rundash.ingest.toml_check import TomlChecker, parse_toml
@@ -41,6 +43,35 @@ _DATA_KEYS = {
     "delimiter": (str, False), "decimal": (str, False),
 }
 FORMATS = ("auto", "csv", "wav", "hdf5", "parquet", "mdf")
+_ANGLE_TEXT = re.compile(r"^\s*(\d+(?:\.\d*)?)\s*(?:°|º|deg|degrees?)?\s*"
+                         r"(L|R|left|right)?\s*$", re.IGNORECASE)
+
+
+def _angle_text(ck: TomlChecker, kp: str, text: str, rotation: str) -> float:
+    """A mounting angle in the trade's form (``"45° L"``, ``"30 deg R"``, ``"0°"``, ``"180°"``:
+    degrees left or right of top dead centre viewed from the driver end) as degrees from
+    top dead centre in the direction of rotation (:func:`rundash.conventions.angle_from_top`)."""
+    m = _ANGLE_TEXT.match(text)
+    expected = ("expected a number, or degrees left or right of top dead centre viewed from "
+                "the driver end such as \"45° L\" or \"45° R\"")
+    if m is None:
+        ck.fail(kp, f"{expected}, got {text!r}")
+    deg, side = float(m.group(1)), (m.group(2) or "")[:1].upper()
+    if not side:
+        if deg in (0.0, 180.0):
+            return deg
+        ck.fail(kp, f"{expected} (say L or R for an angle other than 0° or 180°), got {text!r}")
+    if deg > 180.0:
+        ck.fail(kp, f"{expected} (at most 180° to either side), got {text!r}")
+    return angle_from_top(deg, side, rotation)
+
+
+def _pop_angle_text(raw: object) -> tuple[object, str | None]:
+    """(the table without a text ``angle_deg``, that text or None)."""
+    if isinstance(raw, dict) and isinstance(raw.get("angle_deg"), str):
+        raw = dict(raw)
+        return raw, raw.pop("angle_deg")
+    return raw, None
 
 
 def parse_machine_description(text: str, source: str = "<machine file>") -> MachineDescription:
@@ -79,7 +110,11 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
     ck.non_empty("[machine].name", m["name"])
     machine = MachineSpec(**m)
 
-    t = ck.table(raw["tach"], "[tach]", _TACH_KEYS)
+    rotation = m.get("rotation", "ccw")
+    raw_tach, tach_text = _pop_angle_text(raw["tach"])
+    t = ck.table(raw_tach, "[tach]", _TACH_KEYS)
+    if tach_text is not None:  # the sensor's place from top dead centre
+        t["angle_deg"] = _angle_text(ck, "[tach].angle_deg", tach_text, rotation)
     if "edge" in t:
         ck.choice("[tach].edge", t["edge"], ("rising", "falling"))
     if "pulses_per_rev" in t and t["pulses_per_rev"] < 1:
@@ -98,8 +133,12 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
     columns: set[str] = {tach.column}
     for i, rp in enumerate(raw["probes"], start=1):
         where = f"[[probes]] #{i}"
+        rp, angle_text = _pop_angle_text(rp)
         p = ck.table(rp, where, _PROBE_KEYS)
         where = f"[[probes]] {p['name']!r}"
+        if angle_text is not None:  # from top dead centre -> from the once-per-rev sensor
+            top = _angle_text(ck, f"{where}.angle_deg", angle_text, rotation)
+            p["angle_deg"] = float(wrap_deg(top - tach.angle_deg))
         ck.choice(f"{where}.kind", p["kind"], TRANSDUCER_KINDS)
         if p["units"] not in TO_STORAGE:
             ck.fail(f"{where}.units", invalid_value("units", p["units"],

@@ -25,6 +25,7 @@ from rundash.report.review_section import (
 from rundash.workflows.review import review_in
 from rundash import CAUTION, __version__, figures
 from rundash import presentation as pr
+from rundash.conventions import side_of_top
 from rundash.errors import ConfigError, NotFoundError
 
 Flavour = Literal["interactive", "static"]
@@ -197,8 +198,12 @@ def _verdict_word(v: str | None) -> str:
 def _run_section(data) -> str:
     run, m = data["run"], data["machine"]
     s = m.spec
-    probes = ", ".join(f"{p.name} ({p.kind}, {p.bearing or '–'} {p.axis}, {p.angle_deg:g}°)"
-                       for p in m.probes)
+    tach_deg = float(m.tach.angle_deg or 0.0) if m.tach else 0.0
+    probes = ", ".join(
+        f"{p.name} ({p.kind}, {p.bearing or '–'}"
+        + (f" {p.axis}" if p.axis and p.axis != "none" else "")
+        + f", {side_of_top(tach_deg + p.angle_deg, s.rotation)} = {p.angle_deg:g}° from the "
+        "once-per-rev sensor)" for p in m.probes)
     rows = [("machine", _e(s.name)), ("kind", _e(s.kind)),
             ("rated speed", _n(s.rated_speed_rpm, 0, "rpm")),
             ("operating range", f"{_n(s.min_operating_speed_rpm)}–"

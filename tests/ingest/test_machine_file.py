@@ -113,3 +113,68 @@ sensitivity_mv_per_unit = 7.874
     def test_unknown_key(self):
         with pytest.raises(ConfigError, match=r"\[processing\]\.slowroll: unknown key"):
             parse_machine_description(self.BASE + "\n[processing]\nslowroll = [1, 2]\n")
+
+
+class TestMountingAngleText:
+    """Mounting angles in the trade's form: degrees left or right of top dead centre viewed
+    from the driver end (common practice, no source); the numeric form stays."""
+
+    @staticmethod
+    def _parse(tach: str | None, x: str, y: str, rotation: str = "ccw"):
+        text = _edit("angle_deg = 45.0", f"angle_deg = {x}")
+        text = text.replace("angle_deg = 135.0", f"angle_deg = {y}", 1)
+        text = text.replace('rotation = "ccw"', f'rotation = "{rotation}"', 1)
+        if tach is not None:
+            text = text.replace("[tach]\n", f"[tach]\nangle_deg = {tach}\n", 1)
+        return parse_machine_description(text, "m.toml")
+
+    def test_left_and_right_of_top_dead_centre(self):
+        # ccw viewed from the driver end: the shaft turns from the top towards the left,
+        # so 45° L is 45° in the direction of rotation and 45° R is 315°
+        d = self._parse(None, '"45° L"', '"45° R"')
+        assert d.probe("NDE-X").angle_deg == 45.0 and d.probe("NDE-Y").angle_deg == 315.0
+        d = self._parse(None, '"45° L"', '"45° R"', rotation="cw")
+        assert d.probe("NDE-X").angle_deg == 315.0 and d.probe("NDE-Y").angle_deg == 45.0
+
+    @pytest.mark.parametrize("text, deg", [('"45°L"', 45.0), ('"45 deg L"', 45.0),
+                                           ('"30 left"', 30.0), ('"60° r"', 300.0),
+                                           ('"0°"', 0.0), ('"180°"', 180.0), ('"22.5° L"', 22.5)])
+    def test_spellings(self, text, deg):
+        assert self._parse(None, text, "135.0").probe("NDE-X").angle_deg == deg
+
+    def test_numbers_unchanged(self):
+        d = self._parse(None, "45.0", "135.0")
+        assert d.probe("NDE-X").angle_deg == 45.0 and d.probe("NDE-Y").angle_deg == 135.0
+        assert d.tach.angle_deg == 0.0
+
+    def test_probe_angle_counted_from_the_once_per_rev_sensor(self):
+        # sensor at 90° L (90° from the top in the direction of rotation, ccw): a probe at
+        # 45° R of the top is 360 - 45 - 90 = 225° from the sensor
+        d = self._parse('"90° L"', '"45° R"', '"45° L"')
+        assert d.tach.angle_deg == 90.0
+        assert d.probe("NDE-X").angle_deg == 225.0 and d.probe("NDE-Y").angle_deg == 315.0
+
+    @pytest.mark.parametrize("text, match", [
+        ('"45"', r"'NDE-X'\.angle_deg: .*say L or R"),
+        ('"200° L"', r"'NDE-X'\.angle_deg: .*at most 180° to either side"),
+        ('"north"', r"'NDE-X'\.angle_deg: expected a number, or degrees left or right of top dead centre .*"
+                    r"got 'north'"),
+    ])
+    def test_bad_text_names_the_key(self, text, match):
+        with pytest.raises(ConfigError, match=r"m\.toml: \[\[probes\]\] " + match):
+            self._parse(None, text, "135.0")
+
+    def test_bad_tach_text(self):
+        with pytest.raises(ConfigError, match=r"m\.toml: \[tach\]\.angle_deg: expected"):
+            self._parse('"up"', "45.0", "135.0")
+
+
+def test_shown_in_the_trade_form():
+    from rundash.conventions import angle_from_top, side_of_top
+
+    for rot in ("ccw", "cw"):
+        for deg in (10.0, 45.0, 90.0, 179.0):
+            for side in "LR":
+                assert side_of_top(angle_from_top(deg, side, rot), rot) == f"{deg:g}° {side}"
+    assert side_of_top(0.0, "cw") == "0° (top)" and side_of_top(360.0, "ccw") == "0° (top)"
+    assert side_of_top(180.0, "ccw") == "180° (bottom)"

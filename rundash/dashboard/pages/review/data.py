@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 
 from rundash import figures
+from rundash.conventions import side_of_top
 from rundash.errors import RundashError
 from rundash.presentation import model_curves, operating_range
 
@@ -262,18 +263,30 @@ def orbit_figure(db, run_id: int, pair: str | None, speed_rpm, direction: str | 
         raw_x = q.read_channel(conn, cx.id, i0, i1 + 1)
         raw_y = q.read_channel(conn, cy.id, i0, i1 + 1)
     px, py = probes[xname], probes[yname]
+    machine = ctx["machine"]
+    rotation = machine.spec.rotation
+    tach_deg = float(machine.tach.angle_deg or 0.0) if machine.tach else 0.0
     fig = figures.orbit(
         {"name": xname, "angle_deg": px.angle_deg, "amplitude": tx.amplitude[i],
          "phase_lag_deg": tx.phase_lag_deg[i]},
         {"name": yname, "angle_deg": py.angle_deg, "amplitude": ty.amplitude[i],
          "phase_lag_deg": ty.phase_lag_deg[i]},
-        kind=cx.kind or "proximity", system=system, rotation=ctx["machine"].spec.rotation,
-        speed_rpm=float(tx.speed_rpm[i]), raw_x=raw_x, raw_y=raw_y)
+        kind=cx.kind or "proximity", system=system, rotation=rotation,
+        speed_rpm=float(tx.speed_rpm[i]), raw_x=raw_x, raw_y=raw_y, tach_angle_deg=tach_deg)
     note = (f"Revolution {k + 1} at t = {opr[k]:.2f}–{opr[k + 1]:.2f} s, "
             f"{tx.speed_rpm[i]:.0f} rpm (nearest to {target:.0f} rpm); mounting angles "
-            f"{xname} {px.angle_deg:g}°, {yname} {py.angle_deg:g}° applied; filtered 1X "
-            "uncompensated.")
+            f"{xname} {mount_text(px.angle_deg, tach_deg, rotation)}, "
+            f"{yname} {mount_text(py.angle_deg, tach_deg, rotation)} applied, once-per-rev "
+            f"sensor at {side_of_top(tach_deg, rotation)}; filtered 1X uncompensated.")
     return fig, note
+
+
+def mount_text(angle_deg: float, tach_angle_deg: float, rotation: str) -> str:
+    """A probe's mounting angle in both forms: ``'45° L (315° from the once-per-rev
+    sensor)'`` — left or right of top dead centre viewed from the driver end, and the
+    number the machine description stores."""
+    return (f"{side_of_top(tach_angle_deg + angle_deg, rotation)} ({angle_deg:g}° from the "
+            "once-per-rev sensor)")
 
 
 def empty_figure(message: str):

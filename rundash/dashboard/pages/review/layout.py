@@ -8,7 +8,9 @@ from typing import Any
 from rundash import CAUTION
 from rundash import presentation as pr
 from rundash.dashboard import exports, ids, reports
-from rundash.dashboard.pages.review.data import criticals_of, load_context, orbit_pairs
+from rundash.dashboard.pages.review.data import (
+    criticals_of, load_context, mount_text, orbit_pairs,
+)
 from rundash.errors import NotFoundError
 
 
@@ -262,8 +264,12 @@ def layout(db, run_id: int, *, cache=None):
                        children=verdict_panel(ctx, "metric"))
     if proc is None:
         return html.Div([dcc.Store(id=ids.RUN_ID, data=run_id), head, verdict])
-    probe_opts = [{"label": p.name, "title": f"{p.kind}, bearing {p.bearing or '–'}, axis "
-                   f"{p.axis}, mounted at {p.angle_deg:g}°", "value": p.name} for p in probes]
+    tach_deg = float(m.tach.angle_deg or 0.0) if m.tach else 0.0
+    probe_opts = [{"label": p.name, "title": ", ".join(
+        [p.kind, f"bearing {p.bearing or '–'}"]
+        + ([f"axis {p.axis}"] if p.axis and p.axis != "none" else [])
+        + [f"mounted at {mount_text(p.angle_deg, tach_deg, m.spec.rotation)}"]),
+        "value": p.name} for p in probes]
     crit = criticals_of(ctx["findings"])
     first = crit[0]["probe"] if crit and any(p.name == crit[0]["probe"] for p in probes) \
         else probes[0].name
