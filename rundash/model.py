@@ -19,6 +19,11 @@ TransducerKind = Literal["proximity", "velocity", "acceleration"]
 TRANSDUCER_KINDS: tuple[str, ...] = TransducerKind.__args__  # type: ignore[attr-defined]
 RunKind = Literal["run-up", "coast-down", "mixed", "steady"]
 RUN_KINDS: tuple[str, ...] = RunKind.__args__  # type: ignore[attr-defined]
+#: what kind of test a run records: a field start-up or coast-down, a shop (mechanical
+#: running) test on the test stand, an overspeed trip test; the scope of a profile's
+#: rules names these (see rundash.analysis.scope)
+TestKind = Literal["field", "shop-test", "trip-test"]
+TEST_KINDS: tuple[str, ...] = TestKind.__args__  # type: ignore[attr-defined]
 Rotation = Literal["cw", "ccw"]
 Axis = Literal["X", "Y", "none"]
 
@@ -112,6 +117,23 @@ class ProcessingSpec:
 
 
 @dataclass(frozen=True)
+class SiteLevel:
+    """Vibration levels the site or the OEM sets for one probe (``[[levels]]``).
+
+    ``measure`` is ``'direct'`` (unfiltered) or ``'1x'``; ``alert`` and ``trip`` are in the
+    probe's level convention (um p-p for proximity, mm/s rms for velocity), either may be
+    ``None``; ``source`` names the document they come from. The protection system's own
+    setpoints are not these: they are levels a crew watches and a verdict applies.
+    """
+
+    probe: str
+    measure: str
+    alert: float | None
+    trip: float | None
+    source: str
+
+
+@dataclass(frozen=True)
 class MachineDescription:
     """Everything a machine description file says."""
 
@@ -121,6 +143,7 @@ class MachineDescription:
     data: DataSpec = field(default_factory=DataSpec)
     source: str = ""
     processing: ProcessingSpec = field(default_factory=ProcessingSpec)
+    levels: tuple[SiteLevel, ...] = ()
 
     def probe(self, name: str) -> ProbeSpec:
         for p in self.probes:
@@ -161,6 +184,7 @@ class RunInfo:
     duration_s: float = 0.0
     processed: bool = False
     verdict: str | None = None
+    test_kind: str = "field"
 
 
 @dataclass(frozen=True)

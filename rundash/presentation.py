@@ -297,7 +297,8 @@ def modal_model_lines(findings) -> list[str]:
 
 
 _MEASURES = {"direct": "direct (unfiltered)", "1x": "1X", "1X": "1X"}
-_JUDGED = {"exceeds": 0, "fail": 0, "within": 1, "pass": 1}
+# judged verdicts, exceeding first; 'above alert' is a site alert level: said, not a failure
+_JUDGED = {"exceeds": 0, "fail": 0, "above alert": 1, "within": 2, "pass": 2}
 
 
 def limit_rows(findings, system: str = "metric", *, kinds: Kinds | None = None
@@ -322,8 +323,9 @@ def limit_rows(findings, system: str = "metric", *, kinds: Kinds | None = None
             if _finite(limit) else (limit or MISSING),
             "zone": lim.get("zone") or MISSING, "verdict": verdict,
             "basis": lim.get("basis") or MISSING, "source": lim.get("source") or "",
-            "judged": verdict in _JUDGED, "exceeds": _JUDGED.get(verdict) == 0})
-    return sorted(rows, key=lambda r: _JUDGED.get(r["verdict"], 2))
+            "judged": verdict in _JUDGED, "exceeds": _JUDGED.get(verdict) == 0,
+            "alert": verdict == "above alert"})
+    return sorted(rows, key=lambda r: _JUDGED.get(r["verdict"], 3))
 
 
 def direction_rows(findings) -> list[dict[str, str]]:
@@ -374,7 +376,9 @@ def summary_line(findings) -> str:
              f"{mv.count('pass')} margin pass, {mv.count('fail')} fail, "
              f"{len(mv) - mv.count('pass') - mv.count('fail')} not judged",
              f"{len(judged)} limit checks judged: {sum(r['exceeds'] for r in judged)} exceed, "
-             f"{sum(not r['exceeds'] for r in judged)} within",
+             f"{sum(not r['exceeds'] and not r['alert'] for r in judged)} within"
+             + (f", {sum(r['alert'] for r in judged)} above a site alert level"
+                if any(r['alert'] for r in judged) else ""),
              f"{len(lims) - len(judged)} reference only"]
     rising = f.get("rising_at_top") or []
     if rising:

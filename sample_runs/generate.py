@@ -4,7 +4,7 @@ Run ``python sample_runs/generate.py`` from the repository root; it rewrites, in
 folder of this script (or in ``--out DIR``):
 
 * ``tarnwick-k410.toml``  the machine description (tach, probes, data format),
-* ``runs.toml``           the manifest of the runs (file, label, cycle, start, kind, notes),
+* ``runs.toml``           the manifest of the runs (file, label, cycle, start, kind, test kind, notes),
 * ``k410_*.wav``          one 6-channel 16-bit PCM WAV file per run,
 * ``scenario.json``       the ground truth the model was built with.
 
@@ -628,7 +628,10 @@ def runs_toml() -> str:
              f"machine = {_q(MACHINE_SLUG + '.toml')}", ""]
     for r in RUNS:
         lines += ["[[runs]]", f"file = {_q(r.file)}", f"label = {_q(r.label)}", f"cycle = {_q(r.cycle)}",
-                  f"started_at = {_q(r.started_at)}", f"kind = {_q(r.kind)}", f"notes = {_q(r.notes)}", ""]
+                  f"started_at = {_q(r.started_at)}", f"kind = {_q(r.kind)}"]
+        if r.top_rpm > MCS_RPM:  # held above N_mc: an overspeed trip test
+            lines.append('test_kind = "trip-test"')
+        lines += [f"notes = {_q(r.notes)}", ""]
     return "\n".join(lines)
 
 

@@ -33,6 +33,18 @@ class TestImportAndList:
         out = capsys.readouterr().out
         assert "Test rig T-1" in out and "5000-6300" in out and "api617" in out
 
+    def test_kind_marks_a_shop_test(self, db_path, machine_file, csv_file, capsys):
+        # a run marked as a shop (mechanical running) test at import: its direction is
+        # left to processing, its test kind decides which rules are in scope
+        assert main(["import", str(csv_file), "--machine", str(machine_file), "--db",
+                     str(db_path), "--kind", "shop-test", "--quiet"]) == 0
+        capsys.readouterr()
+        assert main(["runs", "--db", str(db_path), "--json"]) == 0
+        (run,) = json.loads(capsys.readouterr().out)
+        assert run["test_kind"] == "shop-test" and run["kind"] == "mixed"
+        assert main(["runs", "--db", str(db_path)]) == 0
+        assert "mixed, shop-test" in capsys.readouterr().out
+
     def test_environment_variable_names_the_database(self, tmp_path, machine_file, csv_file,
                                                      monkeypatch, capsys):
         monkeypatch.setenv("RUNDASH_DB", str(tmp_path / "env.sqlite"))

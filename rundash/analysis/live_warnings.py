@@ -1,7 +1,9 @@
 """Warnings while a run is being recorded: pure logic, fed with the latest state.
 
 :class:`LiveWarnings` is given the critical speeds expected from earlier runs of the
-machine (:func:`expected_bands`), alarm levels per probe, and :class:`WarningSettings`;
+machine (:func:`expected_bands`), watched levels per probe (the site's or OEM's levels
+of the machine description, else a profile limit whose scope is a field run), and
+:class:`WarningSettings`;
 each call of :meth:`LiveWarnings.update` with the current record time, speed,
 acceleration, latest levels and tach state returns the events that became true then:
 
@@ -13,8 +15,10 @@ acceleration, latest levels and tach state returns the events that became true t
     speed inside / out of an expected band (info);
 ``dwell``
     speed inside one band continuously for longer than ``dwell_limit_s``;
-``level-alarm`` / ``level-normal``
-    a probe's level above its alarm value / back below ``rearm_fraction`` of it;
+``level-high`` / ``level-normal``
+    a probe's level above one of its watched levels / back below ``rearm_fraction`` of
+    it (plain words: "above the site alert level"; the protection system's setpoints are
+    its own, and "alarm" is left to it);
 ``tach-lost`` / ``tach-restored``
     the once-per-rev reference stopped / came back.
 
@@ -186,9 +190,10 @@ class LiveWarnings:
     ----------
     bands : sequence of ExpectedBand
         Where criticals are expected.
-    alarms : mapping of probe name -> (alarm level, units, what)
-        Alarm value per probe in the level's units (e.g. um p-p direct), with a short
-        description of where the value comes from.
+    alarms : mapping of probe name -> (level, units, what) or a list of them
+        Watched level(s) per probe in the level's units (e.g. um p-p direct), each with
+        a short description of what it is and where it comes from (e.g. "the site alert
+        level (OEM manual, table 7)").
     settings : WarningSettings
     """
 
@@ -196,12 +201,14 @@ class LiveWarnings:
                  alarms: Mapping[str, tuple[float, str, str]] | None = None,
                  settings: WarningSettings | None = None):
         self.bands = tuple(bands)
-        self.alarms = dict(alarms or {})
+        self.alarms = {p: [tuple(x)] if not isinstance(x, list) else [tuple(y) for y in x]
+                       for p, x in dict(alarms or {}).items()}
         self.settings = settings or WarningSettings()
         self._approach_armed = [True] * len(self.bands)
         self._inside_since: list[float | None] = [None] * len(self.bands)
         self._dwell_done = [False] * len(self.bands)
-        self._alarm_on: dict[str, bool] = {p: False for p in self.alarms}
+        self._alarm_on: dict[tuple[str, int], bool] = {
+            (p, k): False for p, xs in self.alarms.items() for k in range(len(xs))}
         self._tach_ok = True
         self.log: list[LiveEvent] = []
 
@@ -214,7 +221,8 @@ class LiveWarnings:
             if self._inside_since[i] is not None:
                 out.append(f"inside band {b.label}" + (" too long" if self._dwell_done[i]
                                                        else ""))
-        out += [f"{p} above alarm" for p, on in self._alarm_on.items() if on]
+        out += [f"{p} above {self.alarms[p][k][2]}" for (p, k), on in self._alarm_on.items()
+                if on]
         return out
 
     def update(self, *, time_s: float, speed_rpm: float | None, accel_rpm_s: float | None,
@@ -283,15 +291,17 @@ class LiveWarnings:
         for probe, value in (levels or {}).items():
             if probe not in self.alarms or value is None or not math.isfinite(value):
                 continue
-            limit, units, what = self.alarms[probe]
-            if not self._alarm_on[probe] and value > limit:
-                self._alarm_on[probe] = True
-                add("level-alarm", "alarm", f"{probe}: {value:.1f} {units} above the alarm "
-                    f"value {limit:.1f} {units} ({what})", probe=probe, value=value,
-                    limit=limit, units=units)
-            elif self._alarm_on[probe] and value < s.rearm_fraction * limit:
-                self._alarm_on[probe] = False
-                add("level-normal", "info", f"{probe}: {value:.1f} {units} back below the "
-                    f"alarm value", probe=probe, value=value, limit=limit, units=units)
+            for k, (limit, units, what) in enumerate(self.alarms[probe]):
+                key = (probe, k)
+                if not self._alarm_on[key] and value > limit:
+                    self._alarm_on[key] = True
+                    add("level-high", "warning", f"{probe}: {value:.1f} {units} above "
+                        f"{what} {limit:.1f} {units}", probe=probe, value=value,
+                        limit=limit, units=units, level=k)
+                elif self._alarm_on[key] and value < s.rearm_fraction * limit:
+                    self._alarm_on[key] = False
+                    add("level-normal", "info", f"{probe}: {value:.1f} {units} back below "
+                        f"{what} {limit:.1f} {units}", probe=probe, value=value,
+                        limit=limit, units=units, level=k)
         self.log.extend(ev)
         return ev

@@ -25,8 +25,15 @@ File layout (keys not listed are refused, naming the key)::
                         transducer = 'proximity' | 'velocity',
                         formula = 'cap-sqrt-speed' (min(cap, cap sqrt(ref / N_mc)))
                                 | 'constant' (cap), cap, reference_speed_rpm,
-                        applies = 'top-speed' | 'always',
+                        applies = 'top-speed' | 'always' (the speed condition
+                        when no scope table says otherwise),
                         document, edition, clause, confidence
+    [margin.scope] / [limits.scope]   where the rule applies (rundash.analysis.scope):
+                        run_kinds (of 'run-up', 'coast-down', 'steady', 'shop-test',
+                        'trip-test'; default all), speed = 'any' | 'top-speed' |
+                        'hold-at-max-continuous' | 'hold-in-operating-range',
+                        hold_tolerance_pct, hold_min_s, transducers, measures
+                        Outside its scope a rule is shown as 'reference only'.
 
 All results are advisory (see :data:`rundash.CAUTION`).
 """
@@ -37,6 +44,7 @@ import math
 from dataclasses import dataclass
 from typing import Literal
 
+from rundash.analysis.scope import Scope
 from rundash.errors import ConfigError, invalid_value
 
 Confidence = Literal["stated", "from memory", "by analogy"]
@@ -79,6 +87,7 @@ class MarginRule:
     damping_exempt_ratio: float | None
     inside_range: str
     source: Source
+    scope: Scope = Scope()
 
 
 @dataclass(frozen=True)
@@ -92,6 +101,7 @@ class LimitRule:
     reference_speed_rpm: float | None
     applies: str
     source: Source
+    scope: Scope = Scope()
 
     def value(self, max_continuous_speed_rpm: float) -> float:
         """Limit value (um p-p for proximity, mm/s rms for velocity)."""

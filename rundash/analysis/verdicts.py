@@ -36,7 +36,8 @@ class MarginVerdict:
     """Separation-margin verdict of one critical.
 
     ``side`` is ``'below'``, ``'above'`` or ``'inside'`` the operating range;
-    ``verdict`` ``'pass'`` | ``'fail'`` | ``'not judged'`` with ``reason``.
+    ``verdict`` ``'pass'`` | ``'fail'`` | ``'not judged'`` | ``'reference only'``
+    (outside the rule's scope) with ``reason``.
     """
 
     critical: Critical
@@ -221,7 +222,8 @@ def judge_speed(speed_rpm: float, af: float | None, *, profile, min_operating_sp
 
 def judge(criticals, *, min_operating_speed_rpm: float, max_continuous_speed_rpm: float,
           profile, rated_speed_rpm: float | None = None, probe: str = "",
-          amplitude_units: str = "", mode_hints=None) -> tuple[MarginVerdict, ...]:
+          amplitude_units: str = "", mode_hints=None,
+          run_kind: str | None = None) -> tuple[MarginVerdict, ...]:
     """Separation-margin verdict of each critical against a guidance profile.
 
     Parameters
@@ -238,6 +240,10 @@ def judge(criticals, *, min_operating_speed_rpm: float, max_continuous_speed_rpm
         Labels carried into the output (given by the caller).
     mode_hints : sequence of str or None, optional
         A mode-shape hint per critical, carried into the output.
+    run_kind : str, optional
+        What the stretch is (``'run-up'``, ``'coast-down'``, ``'shop-test'``,
+        ``'trip-test'``, :mod:`rundash.analysis.scope`): outside the margin rule's scope
+        each verdict is ``'reference only'``. ``None`` applies the rule.
 
     Returns
     -------
@@ -261,9 +267,14 @@ def judge(criticals, *, min_operating_speed_rpm: float, max_continuous_speed_rpm
             damping_ratio=c.fit.zeta if c.fit is not None else None,
             confirmed=c.classification != "amplitude-only",
             af_basis=(f"AF {af:.2f} by {c.af_method}" if af is not None else None))
+        verdict, reason = margin.verdict, margin.reason
+        if run_kind is not None and not prof.margin.scope.covers(run_kind):
+            verdict = "reference only"
+            reason = (f"the margin rule applies to: {prof.margin.scope.describe()}; this run "
+                      f"is a {run_kind}, so the margin is shown for reference only. {reason}")
         out.append(MarginVerdict(c, probe, c.direction, amplitude_units, margin.side,
                                  margin.reference_speed_rpm, margin.separation_margin_pct,
-                                 margin.required_margin_pct, margin.verdict, margin.reason,
+                                 margin.required_margin_pct, verdict, reason,
                                  prof.name, None if mode_hints is None else mode_hints[k]))
     return tuple(out)
 
@@ -289,6 +300,12 @@ def summarize(margins, *, profile, min_operating_speed_rpm: float, max_continuou
         overall = "not judged"
     else:
         overall = "pass"
+    alert = [c for c in checks if c.status == "above alert"]
+    if alert:
+        worst = max(alert, key=lambda c: c.level)
+        notes.append(f"site alert level exceeded {len(alert)} time(s), highest {worst.level:.3g} "
+                     f"{worst.units} at {worst.speed_rpm:.0f} rpm ({worst.where}; "
+                     f"{worst.note}; {worst.source}): not a failure of the run, to be reviewed")
     if short:
         notes.append(f"the run never reached the operating range: top speed {top_speed_rpm:.0f} "
                      f"rpm, range {float(min_operating_speed_rpm):.0f}-"
@@ -296,9 +313,10 @@ def summarize(margins, *, profile, min_operating_speed_rpm: float, max_continuou
                      f"be seen, so the run is not judged")
     if not margins:
         notes.append("no critical speed found in the speed range of the run")
-    if any(c.status == "reference only" for c in checks):
-        notes.append("zone and limit values marked 'reference only' are shown for orientation; "
-                     "they are not verdicts during transients")
+    if any(c.status == "reference only" for c in checks) or "reference only" in verdicts:
+        notes.append("values marked 'reference only' are shown for orientation: each rule is "
+                     "judged only inside its scope (run kind, speed condition, transducer, "
+                     "measure), and zones are not verdicts during transients")
     return RunVerdict(prof.name, prof.title, prof.needs_confirmation, prof.margin.source.cite(),
                       float(min_operating_speed_rpm), float(max_continuous_speed_rpm), overall,
                       margins, checks, tuple(notes))

@@ -45,8 +45,11 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--notes", default="", help="free text kept with the run")
     s.add_argument("--started", type=parse_time,
                    help="start time of the record, ISO 8601 with zone")
-    s.add_argument("--kind", default="mixed", choices=["run-up", "coast-down", "mixed", "steady"],
-                   help="what the run is (processing corrects it from the speed profile)")
+    s.add_argument("--kind", default="mixed",
+                   choices=["run-up", "coast-down", "mixed", "steady", "shop-test", "trip-test"],
+                   help="what the run is: a field run's direction (processing corrects it "
+                        "from the speed profile), or a shop (mechanical running) test or an "
+                        "overspeed trip test, which decides the rules in scope")
     s.add_argument("--force", action="store_true", help="import a file imported before")
     s.add_argument("--process", action="store_true", help="process the run right after import")
     s.add_argument("--quiet", action="store_true", help="no progress bar")

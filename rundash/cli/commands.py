@@ -15,15 +15,16 @@ from rundash.errors import InputError, RundashError
 def cmd_import(*, db: str | None, data: str, machine: str, label: str, cycle: str, notes: str,
                started: datetime | None, kind: str, force: bool, process: bool, quiet: bool
                ) -> int:
-    from rundash.ingest.importer import import_run
+    from rundash.ingest.importer import import_run, split_import_kind
     from rundash.ingest.machine_file import load_machine_description
 
+    kind, test_kind = split_import_kind(kind)
     desc, text = load_machine_description(machine)
     database = open_db(db, create=True)
     bar = progress_bar(quiet)
     res = import_run(database, data, desc, description_text=text, label=label, cycle=cycle,
                      notes=notes, started_at=started, kind=kind, force=force,
-                     progress=bar)
+                     progress=bar, test_kind=test_kind)
     bar.close()
     if not quiet and res.time_base:
         print(f"time base: {res.time_base}", file=sys.stderr)
@@ -55,7 +56,8 @@ def cmd_runs(*, db: str | None, machine: str | None, as_json: bool) -> int:
     review = review_states(database, runs)
     if as_json:
         print(json.dumps([{
-            "id": r.id, "machine": r.machine_name, "kind": r.kind, "label": r.label,
+            "id": r.id, "machine": r.machine_name, "kind": r.kind, "test_kind": r.test_kind,
+            "label": r.label,
             "cycle": r.cycle, "started_at": r.started_at.isoformat() if r.started_at else None,
             "state": r.state, "source": r.source_name, "duration_s": round(r.duration_s, 3),
             "processed": r.processed, "verdict": r.verdict, "review": review[r.id]}
@@ -64,7 +66,8 @@ def cmd_runs(*, db: str | None, machine: str | None, as_json: bool) -> int:
     rows = [("id", "machine", "kind", "started (UTC)", "cycle", "label", "state", "processed",
              "verdict", "review")]
     for r in runs:
-        rows.append((str(r.id), r.machine_name, r.kind,
+        rows.append((str(r.id), r.machine_name,
+                     r.kind if r.test_kind == "field" else f"{r.kind}, {r.test_kind}",
                      r.started_at.strftime("%Y-%m-%d %H:%M") if r.started_at else "-",
                      r.cycle or "-", r.label, r.state, "yes" if r.processed else "no",
                      r.verdict or "-", review[r.id]))

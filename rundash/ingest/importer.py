@@ -15,7 +15,7 @@ from rundash.ingest import open_reader
 from rundash.ingest.base import listing
 from rundash.ingest.bounds import SAMPLE_RATE_HZ, out_of_range
 from rundash.ingest.machine_file import check_profile
-from rundash.model import RUN_KINDS, MachineDescription
+from rundash.model import RUN_KINDS, TEST_KINDS, MachineDescription
 from rundash.progress import Progress, no_progress
 from rundash.storage import queries as q
 from rundash.storage.engine import Database
@@ -187,21 +187,42 @@ def channel_plan(desc: MachineDescription, channels: tuple[str, ...], name: str,
     return plan
 
 
+#: what ``--kind`` (and the dashboard's import page) accepts: a field run's direction
+#: (corrected by processing from the speed profile), or a marked shop (mechanical
+#: running) test or overspeed trip test
+IMPORT_KINDS: tuple[str, ...] = RUN_KINDS + tuple(k for k in TEST_KINDS if k != "field")
+
+
+def split_import_kind(kind: str) -> tuple[str, str]:
+    """``(direction, test_kind)`` of an :data:`IMPORT_KINDS` value: ``'shop-test'`` ->
+    ``('mixed', 'shop-test')``, ``'run-up'`` -> ``('run-up', 'field')``."""
+    if kind not in IMPORT_KINDS:
+        raise InputError(f"Invalid value for 'kind': allowed {', '.join(IMPORT_KINDS)}, "
+                         f"got {kind!r}")
+    return (kind, "field") if kind in RUN_KINDS else ("mixed", kind)
+
+
 def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
                description_text: str = "", label: str = "", cycle: str = "",
                notes: str = "", started_at: datetime | None = None, kind: str = "mixed",
-               force: bool = False, progress: Progress = no_progress) -> ImportResult:
+               force: bool = False, progress: Progress = no_progress,
+               test_kind: str = "field") -> ImportResult:
     """Import ``data_path`` as a new run of the machine ``desc`` describes.
 
     The file is streamed block by block into waveform chunks of
     :data:`~rundash.storage.queries.CHUNK_SAMPLES` samples. Every row is written in one
     write transaction; any error rolls it back and leaves the database as it was.
-    ``kind`` may be corrected by processing once the speed profile is known.
+    ``kind`` (the direction) may be corrected by processing once the speed profile is
+    known; ``test_kind`` (``'field'``, ``'shop-test'``, ``'trip-test'``) is what the run
+    records, and decides which of the profile's rules are in scope.
     """
     path = Path(data_path)
     check_profile(desc)
     if kind not in RUN_KINDS:
         raise InputError(f"Invalid value for 'kind': allowed {', '.join(RUN_KINDS)}, got {kind!r}")
+    if test_kind not in TEST_KINDS:
+        raise InputError(f"Invalid value for 'test_kind': allowed {', '.join(TEST_KINDS)}, "
+                         f"got {test_kind!r}")
     if started_at is not None and started_at.tzinfo is None:
         raise InputError("Invalid value for 'started_at': allowed a UTC time with its zone "
                          f"(e.g. 2026-05-01T06:00:00Z), got {started_at.isoformat()!r}")
@@ -228,7 +249,8 @@ def import_run(db: Database, data_path: str | Path, desc: MachineDescription, *,
         with db.write() as conn:
             mid, _ = q.upsert_machine(conn, desc)
             run_id = q.create_run(
-                conn, machine_id=mid, kind=kind, label=label or path.stem, cycle=cycle,
+                conn, machine_id=mid, kind=kind, test_kind=test_kind, label=label or path.stem,
+                cycle=cycle,
                 notes=notes, started_at=started_at, source_name=path.name, source_sha256="",
                 sample_rate_hz=fs, description_toml=description_text)
             ch_ids = []

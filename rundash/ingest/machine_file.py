@@ -18,7 +18,7 @@ from rundash.ingest import bounds
 from rundash.ingest.toml_check import TomlChecker, parse_toml
 from rundash.model import (
     MACHINE_KINDS, TRANSDUCER_KINDS, DataSpec, MachineDescription, MachineSpec,
-    ProcessingSpec, ProbeSpec, TachSpec,
+    ProcessingSpec, ProbeSpec, SiteLevel, TachSpec,
 )
 from rundash.units import TO_STORAGE
 
@@ -78,10 +78,10 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
     """Parse and validate the text of a machine description file."""
     ck = TomlChecker(source)
     raw = parse_toml(text, source)
-    unknown = sorted(set(raw) - {"machine", "tach", "probes", "data", "processing"})
+    unknown = sorted(set(raw) - {"machine", "tach", "probes", "data", "processing", "levels"})
     if unknown:
         ck.fail(unknown[0], "unknown table; allowed: [machine], [tach], [[probes]], [data], "
-                            "[processing]")
+                            "[processing], [[levels]]")
     for key in ("machine", "tach", "probes"):
         if key not in raw:
             ck.fail(f"[{key}]" if key != "probes" else "[[probes]]", "missing required table")
@@ -191,7 +191,60 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
                         "sensitivity (or set signal_units = 'engineering')")
     return MachineDescription(machine=machine, tach=tach, probes=tuple(probes), data=data,
                               source=source,
-                              processing=_processing(ck, raw.get("processing", {}), machine))
+                              processing=_processing(ck, raw.get("processing", {}), machine),
+                              levels=_levels(ck, raw.get("levels", []), probes))
+
+
+_LEVEL_KEYS = {"probe": (str, False), "bearing": (str, False), "measure": (str, False),
+               "alert": (float, False), "trip": (float, False), "source": (str, True)}
+
+
+def _levels(ck: TomlChecker, raw, probes) -> tuple[SiteLevel, ...]:
+    """``[[levels]]``: site or OEM levels for one probe (``probe``) or every proximity and
+    velocity probe of a bearing (``bearing``), ``measure`` 'direct' (default) or '1x',
+    ``alert`` and/or ``trip`` in the probe's level convention (um p-p proximity, mm/s rms
+    velocity), ``source`` the document they come from."""
+    if not isinstance(raw, list) or not all(isinstance(x, dict) for x in raw):
+        ck.fail("[[levels]]", f"expected an array of tables, got {raw!r}")
+    out: list[SiteLevel] = []
+    seen: set[tuple[str, str]] = set()
+    by_name = {p.name: p for p in probes}
+    for i, item in enumerate(raw, start=1):
+        where = f"[[levels]] #{i}"
+        t = ck.table(item, where, _LEVEL_KEYS)
+        if ("probe" in t) == ("bearing" in t):
+            ck.fail(where, "name either probe = \"...\" or bearing = \"...\" (one of them)")
+        measure = t.get("measure", "direct")
+        ck.choice(f"{where}.measure", measure, ("direct", "1x"))
+        alert, trip = t.get("alert"), t.get("trip")
+        if alert is None and trip is None:
+            ck.fail(where, "give alert = ... or trip = ... (or both), in the probe's level "
+                           "units: um p-p for proximity, mm/s rms for velocity")
+        ck.positive(f"{where}.alert", alert)
+        ck.positive(f"{where}.trip", trip)
+        if alert is not None and trip is not None and not alert < trip:
+            ck.fail(f"{where}.trip", f"expected a level above alert ({alert:g}), got {trip:g}")
+        if not t["source"].strip():
+            ck.fail(f"{where}.source", "expected the document the levels come from, got ''")
+        if "probe" in t:
+            if t["probe"] not in by_name:
+                ck.fail(f"{where}.probe", f"names no probe: {t['probe']!r}")
+            names = [t["probe"]]
+        else:
+            names = [p.name for p in probes if p.bearing == t["bearing"]
+                     and p.kind in ("proximity", "velocity")]
+            if not names:
+                ck.fail(f"{where}.bearing", f"no proximity or velocity probe at bearing "
+                                            f"{t['bearing']!r}")
+        for n in names:
+            if by_name[n].kind not in ("proximity", "velocity"):
+                ck.fail(f"{where}.probe", f"levels are checked for proximity and velocity "
+                                          f"probes; {n!r} is {by_name[n].kind}")
+            if (n, measure) in seen:
+                ck.fail(where, f"probe {n!r} already has {measure} levels")
+            seen.add((n, measure))
+            out.append(SiteLevel(n, measure, alert, trip, t["source"].strip()))
+    return tuple(out)
 
 
 #: Trackers a machine description may name in ``[processing] tracker`` (the same names

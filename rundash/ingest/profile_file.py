@@ -18,6 +18,7 @@ from pathlib import Path
 from rundash.analysis.profiles import (
     CONFIDENCES, REFERENCE_SPEEDS, LimitRule, MarginRule, Profile, SideRule, Source,
 )
+from rundash.analysis.scope import SCOPE_RUN_KINDS, SPEED_CONDITIONS, Scope
 from rundash.errors import ConfigError, invalid_value
 from rundash.ingest.toml_check import TABLES, TomlChecker, parse_toml
 
@@ -30,13 +31,45 @@ _TOP_KEYS = {"name": (str, True), "title": (str, False), "machine_kinds": (list,
              "reference_speeds": (dict, False), "margin": (dict, True), "limits": (TABLES, False)}
 _MARGIN_KEYS = {"rule": (str, True), "no_margin_below_af": (float, False),
                 "damping_exempt_ratio": (float, False), "inside_range": (str, False),
-                "below": (dict, True), "above": (dict, True), **_SOURCE_KEYS}
+                "below": (dict, True), "above": (dict, True), "scope": (dict, False),
+                **_SOURCE_KEYS}
 _SIDE_KEYS = {"fixed": {"pct": (float, True)},
               "af-curve": {"base_pct": (float, True), "coefficient_pct": (float, True),
                            "af_offset": (float, True), "cap_pct": (float, True)}}
 _LIMIT_KEYS = {"id": (str, True), "title": (str, False), "quantity": (str, True),
                "transducer": (str, True), "formula": (str, True), "cap": (float, True),
-               "reference_speed_rpm": (float, False), "applies": (str, False), **_SOURCE_KEYS}
+               "reference_speed_rpm": (float, False), "applies": (str, False),
+               "scope": (dict, False), **_SOURCE_KEYS}
+_SCOPE_KEYS = {"run_kinds": (list, False), "speed": (str, False),
+               "hold_tolerance_pct": (float, False), "hold_min_s": (float, False),
+               "transducers": (list, False), "measures": (list, False)}
+_TRANSDUCERS = ("proximity", "velocity", "acceleration")
+_MEASURES = ("direct", "1x")
+
+
+def _scope(ck: TomlChecker, raw, where: str, *, speed: str, transducers=_TRANSDUCERS,
+           measures=_MEASURES) -> Scope:
+    """The ``scope`` table of a rule; ``speed``, ``transducers`` and ``measures`` are the
+    defaults when the table leaves them out (a limit's own transducer and quantity)."""
+    t = ck.table(raw or {}, where, _SCOPE_KEYS)
+    kinds = tuple(t.get("run_kinds", SCOPE_RUN_KINDS))
+    for n, k in enumerate(kinds):
+        ck.choice(f"{where}.run_kinds[{n}]", k, SCOPE_RUN_KINDS)
+    if not kinds:
+        ck.fail(f"{where}.run_kinds", "an empty list: name at least one run kind")
+    speed = t.get("speed", speed)
+    ck.choice(f"{where}.speed", speed, SPEED_CONDITIONS)
+    tol = t.get("hold_tolerance_pct", 1.0)
+    ck.in_range(f"{where}.hold_tolerance_pct", tol, 0.0, 10.0, open_lo=True)
+    hold_s = t.get("hold_min_s", 0.0)
+    ck.in_range(f"{where}.hold_min_s", hold_s, 0.0, 86400.0)
+    tr = tuple(t.get("transducers", transducers))
+    for n, k in enumerate(tr):
+        ck.choice(f"{where}.transducers[{n}]", k, _TRANSDUCERS)
+    ms = tuple(t.get("measures", measures))
+    for n, k in enumerate(ms):
+        ck.choice(f"{where}.measures[{n}]", k, _MEASURES)
+    return Scope(kinds, speed, float(tol), float(hold_s), tr, ms)
 
 
 def _source(ck: TomlChecker, t: dict, where: str) -> Source:
@@ -75,7 +108,9 @@ def parse_profile(data: dict, where: str) -> Profile:
     src = _source(ck, m, "margin")
     margin = MarginRule(m["rule"], _side(ck, m["below"], "margin.below", m["rule"]),
                         _side(ck, m["above"], "margin.above", m["rule"]),
-                        m.get("no_margin_below_af"), m.get("damping_exempt_ratio"), inside, src)
+                        m.get("no_margin_below_af"), m.get("damping_exempt_ratio"), inside, src,
+                        _scope(ck, m.get("scope"), "margin.scope", speed="any",
+                               measures=("1x",)))
     limits = []
     for n, item in enumerate(top.get("limits", [])):
         w = f"limits[{n}]"
@@ -90,8 +125,12 @@ def parse_profile(data: dict, where: str) -> Profile:
         if ref is None and lt["formula"] == "cap-sqrt-speed":
             ck.fail(f"{w}.reference_speed_rpm", "missing required key")
         ck.in_range(f"{w}.reference_speed_rpm", ref, 0.0, open_lo=True)
+        scope = _scope(ck, lt.get("scope"), f"{w}.scope",
+                       speed="top-speed" if applies == "top-speed" else "any",
+                       transducers=(lt["transducer"],), measures=(lt["quantity"],))
         limits.append(LimitRule(lt["id"], lt.get("title", ""), lt["quantity"], lt["transducer"],
-                                lt["formula"], lt["cap"], ref, applies, _source(ck, lt, w)))
+                                lt["formula"], lt["cap"], ref, applies, _source(ck, lt, w),
+                                scope))
     return Profile(top["name"], top.get("title", ""), top.get("machine_kinds", ()),
                    top.get("needs_confirmation", False), top.get("notes", ""), below_ref,
                    above_ref, margin, tuple(limits), where)

@@ -116,6 +116,8 @@ class Run(Base):
     machine_id: Mapped[int] = mapped_column(ForeignKey("machine.id", ondelete="CASCADE"), index=True)
     started_at: Mapped[datetime | None] = mapped_column(UTCDateTime, comment="UTC")
     kind: Mapped[str] = mapped_column(String(20), comment="run-up, coast-down, mixed, steady")
+    test_kind: Mapped[str] = mapped_column(String(20), default="field", server_default="field",
+                                           comment="field, shop-test, trip-test")
     label: Mapped[str] = mapped_column(String(200), default="")
     cycle: Mapped[str] = mapped_column(String(200), default="", comment="overhaul-cycle tag")
     notes: Mapped[str] = mapped_column(Text, default="")

@@ -117,9 +117,10 @@ def find_run_by_hash(conn: Connection, sha256: str) -> int | None:
 
 def create_run(conn: Connection, *, machine_id: int, kind: str, label: str, cycle: str,
                notes: str, started_at: datetime | None, source_name: str, source_sha256: str,
-               sample_rate_hz: float, description_toml: str, state: str = "importing") -> int:
+               sample_rate_hz: float, description_toml: str, state: str = "importing",
+               test_kind: str = "field") -> int:
     return conn.execute(insert(R).values(
-        machine_id=machine_id, kind=kind, label=label, cycle=cycle, notes=notes,
+        machine_id=machine_id, kind=kind, test_kind=test_kind, label=label, cycle=cycle, notes=notes,
         started_at=started_at, source_name=source_name, source_sha256=source_sha256,
         state=state, sample_rate_hz=sample_rate_hz, description_toml=description_toml,
         warnings=[], imported_at=orm.utcnow())).inserted_primary_key[0]
@@ -182,7 +183,7 @@ def _run_info(conn: Connection, row) -> RunInfo:
         cycle=row.cycle, started_at=row.started_at, state=row.state, source_name=row.source_name,
         source_sha256=row.source_sha256, notes=row.notes, n_channels=n_ch,
         duration_s=row.n_samples / row.sample_rate_hz if row.sample_rate_hz else 0.0,
-        processed=proc is not None, verdict=verdict)
+        processed=proc is not None, verdict=verdict, test_kind=row.test_kind or "field")
 
 
 def _run_select():

@@ -47,7 +47,7 @@ def build_demo(db: Database, *, progress: Progress = no_progress,
             res = import_run(db, path, desc, description_text=text, label=entry["label"],
                              cycle=entry.get("cycle", ""), notes=entry.get("notes", ""),
                              started_at=started, kind=entry.get("kind", "mixed"),
-                             progress=progress)
+                             test_kind=entry.get("test_kind", "field"), progress=progress)
             run_id = res.run_id
             log(f"imported {path.name} as run {run_id}")
         except DuplicateRunError:

@@ -18,7 +18,8 @@ import numpy as np
 
 from rundash import CAUTION
 from rundash.analysis import criticals as crit_mod
-from rundash.analysis.limits import check_levels
+from rundash.analysis.limits import ZONE_SCOPE, check_holds, check_levels
+from rundash.analysis.scope import find_holds
 from rundash.analysis.modes import mode_hint
 from rundash.analysis.vectors import mean_vector_near
 from rundash.analysis.verdicts import judge, summarize
@@ -152,12 +153,11 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
     level_checks = []
     crit_json: list[dict[str, Any]] = []
     limits_json: list[dict[str, Any]] = []
-    # a hold at the top speed within the operating range (not a hold at trip speed)
-    n_mc_tol = m.max_continuous_speed_rpm * 1.005
-    inside = track.speed_rpm[track.speed_rpm <= n_mc_tol]
-    top_in = float(inside.max()) if inside.size else float(track.speed_rpm.max())
-    steady_top = any(s.kind == "steady" and abs(s.rpm_start - top_in) <= 0.01 * top_in
-                     and s.rpm_start <= n_mc_tol for s in segments)
+    # what the run records decides which rules are in scope: a field run's stretches by
+    # their direction (holds as 'steady'), a marked shop or trip test as such
+    test_kind = getattr(run, "test_kind", "field") or "field"
+    holds = _holds(track, profile)
+    hold_kind = "steady" if test_kind == "field" else test_kind
     for (name, d), (crits, s, v, t, afac, i) in per_probe.items():
         ch = probes[i]
         sp = spec_by_name.get(name)
@@ -168,7 +168,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
         mv = judge([g for g, _ in governed], min_operating_speed_rpm=m.min_operating_speed_rpm,
                    max_continuous_speed_rpm=m.max_continuous_speed_rpm, profile=profile,
                    rated_speed_rpm=m.rated_speed_rpm, probe=name, amplitude_units=units,
-                   mode_hints=hints[(name, d)])
+                   mode_hints=hints[(name, d)],
+                   run_kind=d if test_kind == "field" else test_kind)
         refs = seismic_ref.get(name)
         if refs:
             why = (f"not counted in the run verdict: bearing {sp.bearing}'s margins are judged "
@@ -195,16 +196,29 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                                   criticals=crits,
                                   kind=ch.kind, amplitude_factor=afac,
                                   max_continuous_speed_rpm=m.max_continuous_speed_rpm,
-                                  profile=profile, top_speed_is_steady=steady_top)
+                                  profile=profile,
+                                  run_kind=d if test_kind == "field" else test_kind,
+                                  site_levels=[x for x in desc.levels if x.probe == name])
             level_checks.extend(checks)
-            for lc in checks:
-                lj = lc.to_json_dict()
-                limits_json.append(dict(
-                    probe=name, direction=d, measure=lj["quantity"], where=lj["where"],
-                    band_rpm=lj["band_rpm"], speed_rpm=json_number(lj["speed_rpm"]),
-                    value=json_number(lj["level"]), units=lj["units"], limit=json_number(lj["limit_value"]),
-                    limit_id=lj["limit"], zone=lj["zone"], verdict=lj["status"],
-                    basis=lj["note"], source=lj["source"]))
+            _limit_rows(limits_json, checks, name, d)
+
+    # steady holds (the whole run, not one direction): the rules whose scope is a hold
+    if k1 is not None and holds:
+        for i, ch in enumerate(probes):
+            if ch.kind not in ("proximity", "velocity"):
+                continue
+            direct = track.direct_pp[i] if ch.kind == "proximity" else track.direct_rms[i]
+            checks = check_holds(track.time_s, track.speed_rpm, holds,
+                                 vector=np.asarray(compensated[i, k1], np.complex128),
+                                 direct=np.asarray(direct, np.float64), kind=ch.kind,
+                                 amplitude_factor=vector_amplitude_factor(ch.kind),
+                                 min_operating_speed_rpm=m.min_operating_speed_rpm,
+                                 max_continuous_speed_rpm=m.max_continuous_speed_rpm,
+                                 profile=profile, run_kind=hold_kind,
+                                 site_levels=[x for x in desc.levels
+                                              if x.probe == ch.probe_name])
+            level_checks.extend(checks)
+            _limit_rows(limits_json, checks, ch.probe_name, "steady")
 
     bearings = []
     by_bearing: dict[tuple[str, str], dict[str, Any]] = {}
@@ -259,14 +273,19 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
     return {
         "schema": SCHEMA,
         "run": dict(id=run.id, machine=run.machine_name, label=run.label, cycle=run.cycle,
-                    kind=run.kind, started_at=run.started_at.isoformat() if run.started_at
+                    kind=run.kind, test_kind=test_kind, started_at=run.started_at.isoformat() if run.started_at
                     else None, source=run.source_name),
         "machine": dict(rated_speed_rpm=m.rated_speed_rpm,
                         min_operating_speed_rpm=m.min_operating_speed_rpm,
                         max_continuous_speed_rpm=m.max_continuous_speed_rpm,
                         trip_speed_rpm=m.trip_speed_rpm, kind=m.kind),
         "profile": dict(sj["profile"], rules=_profile_rules(profile)),
+        "site_levels": [dict(probe=x.probe, measure=x.measure, alert=x.alert, trip=x.trip,
+                             source=x.source) for x in desc.levels],
         "processing": dict(slow_roll_rpm=list(slow_roll_rpm) if slow_roll_rpm else None,
+                           holds=[dict(t_start_s=h.t_start_s, t_end_s=h.t_end_s,
+                                       speed_rpm=h.speed_rpm, lo_rpm=h.lo_rpm,
+                                       hi_rpm=h.hi_rpm) for h in holds],
                            slow_roll_basis=slow_roll_basis,
                            speed_range_rpm=[json_number(track.speed_rpm.min()),
                                             json_number(track.speed_rpm.max())]),
@@ -304,6 +323,29 @@ def _mark_sweep_note(notes, indices, crit, governed, info) -> None:
             return
 
 
+def _limit_rows(rows: list, checks, probe: str, direction: str) -> None:
+    for lc in checks:
+        lj = lc.to_json_dict()
+        rows.append(dict(
+            probe=probe, direction=direction, measure=lj["quantity"], where=lj["where"],
+            band_rpm=lj["band_rpm"], speed_rpm=json_number(lj["speed_rpm"]),
+            value=json_number(lj["level"]), units=lj["units"],
+            limit=json_number(lj["limit_value"]), limit_id=lj["limit"], zone=lj["zone"],
+            verdict=lj["status"], basis=lj["note"], source=lj["source"], scope=lj["scope"]))
+
+
+def _holds(track, profile):
+    """Steady holds of the run's speed profile, at the widest tolerance and shortest time
+    any hold-scoped rule (or the ISO zones) asks for; each rule then checks its own."""
+    scopes = [ZONE_SCOPE] + [lim.scope for lim in profile.limits if lim.scope.needs_hold]
+    t = np.asarray(track.time_s, np.float64)
+    if t.size < 2:
+        return ()
+    return find_holds(t, np.asarray(track.speed_rpm, np.float64),
+                      tolerance_pct=max(sc.hold_tolerance_pct for sc in scopes),
+                      min_duration_s=min(sc.hold_min_s for sc in scopes))
+
+
 def _with_displacement_equivalent(crits, s, v, afac, direction, measure):
     """Add to each critical of a seismic probe, read as measured, the speed its
     displacement-equivalent 1X (integrated) puts it at."""
@@ -330,11 +372,11 @@ def _profile_rules(profile) -> list[dict[str, Any]]:
     m = profile.margin
     rules = [dict(rule="separation margin", document=m.source.document,
                   edition=m.source.edition, clause=m.source.clause,
-                  confidence=m.source.confidence)]
+                  confidence=m.source.confidence, scope=m.scope.describe())]
     for lim in profile.limits:
-        rules.append(dict(rule=lim.title, document=lim.source.document,
+        rules.append(dict(rule=lim.title, id=lim.id, document=lim.source.document,
                           edition=lim.source.edition, clause=lim.source.clause,
-                          confidence=lim.source.confidence))
+                          confidence=lim.source.confidence, scope=lim.scope.describe()))
     return rules
 
 

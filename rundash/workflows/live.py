@@ -58,7 +58,9 @@ class LiveParams:
     context_revs: int = 16
     speed_window_s: float = 1.0
     warnings: lw.WarningSettings = field(default_factory=lw.WarningSettings)
-    alarms: dict[str, tuple[float, str, str]] | None = None  # None: from the profile
+    # levels watched per probe; None: the machine description's site levels, else the
+    # profile's field-run limits (profile_alarms)
+    alarms: dict[str, Any] | None = None
     process_at_end: bool = True
 
 
@@ -167,30 +169,57 @@ def earlier_bands(db: Database, machine_name: str, *, exclude_run: int | None = 
     return lw.expected_bands(rows or fallback)
 
 
-def profile_alarms(desc: MachineDescription) -> tuple[dict[str, tuple[float, str, str]], list[str]]:
-    """Alarm values per probe from the machine's guidance profile: its direct-level limits
-    for the probe's transducer kind (used live by analogy: the profile states them for
-    the test stand or top speed)."""
+def profile_alarms(desc: MachineDescription) -> tuple[dict[str, list[tuple[float, str, str]]], list[str]]:
+    """Levels watched live per probe: the site's or OEM's direct levels of the machine
+    description (``[[levels]]``) where given, they govern; else the profile's direct-level
+    limits whose scope is a field run at any speed (a rule scoped to a shop test or a
+    steady hold is never watched live: it would raise what is only a reference)."""
     from rundash.ingest.profile_file import load_profile
 
+    units_of = {"proximity": "um pp", "velocity": "mm/s rms", "acceleration": "m/s2 rms"}
     notes: list[str] = []
+    out: dict[str, list[tuple[float, str, str]]] = {}
+    for lv in desc.levels:
+        if lv.measure != "direct":
+            continue
+        u = units_of[desc.probe(lv.probe).kind]
+        watch = []
+        if lv.alert is not None:
+            watch.append((lv.alert, u, f"the site alert level ({lv.source})"))
+        if lv.trip is not None:
+            watch.append((lv.trip, u, f"the site trip-style level ({lv.source})"))
+        out[lv.probe] = watch
     try:
         prof = load_profile(desc.machine.profile)
     except RundashError as exc:
-        return {}, [f"no alarm values: the guidance profile could not be loaded ({exc})"]
-    out: dict[str, tuple[float, str, str]] = {}
+        if not out:
+            notes.append(f"no levels watched: the guidance profile could not be loaded ({exc})")
+        return out, notes
+    skipped = []
     for p in desc.probes:
+        if p.name in out:
+            continue
         for rule in prof.limits:
             if rule.quantity == "direct" and rule.transducer == p.kind:
-                units = "um pp" if p.kind == "proximity" else \
-                    ("mm/s rms" if p.kind == "velocity" else "m/s2 rms")
-                out[p.name] = (rule.value(desc.machine.max_continuous_speed_rpm), units,
-                               f"profile {prof.name} limit {rule.id}, {rule.source.document}, "
-                               "used live by analogy")
+                # a live record is a field run moving through speeds: a rule scoped to a
+                # shop test or a steady hold is not used (reference only, never raised)
+                sc = rule.scope
+                if sc.needs_hold or not (sc.covers("run-up") or sc.covers("coast-down")):
+                    if rule.id not in skipped:
+                        skipped.append(rule.id)
+                    continue
+                out[p.name] = [(rule.value(desc.machine.max_continuous_speed_rpm),
+                                units_of[p.kind],
+                                f"profile {prof.name} limit {rule.id} ({rule.source.document})")]
                 break
+    for rid in skipped:
+        rule = next(r for r in prof.limits if r.id == rid)
+        notes.append(f"profile {prof.name} limit {rid} is not watched live: it applies to "
+                     f"{rule.scope.describe()}")
     if not out:
-        notes.append(f"the profile {desc.machine.profile!r} gives no direct-level limit: "
-                     "no level alarms")
+        notes.append("no levels watched live: the machine description gives no site levels "
+                     f"([[levels]]) and the profile {desc.machine.profile!r} no direct-level "
+                     "limit for a field run")
     return out, notes
 
 

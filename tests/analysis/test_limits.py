@@ -56,7 +56,9 @@ def test_check_levels_bands_and_top_speed():
     peak_1x = next(c for c in band if c.quantity == "1x" and c.limit_id == "iso-shaft-zones")
     # SDOF closed form: 2 x 20 x 10.01 um p-p at the peak (Thomson & Dahleh 5th ed. 3.3)
     assert_allclose(peak_1x.level, 40.0 / (2 * 0.05 * np.sqrt(1 - 0.05 ** 2)), rtol=1e-3)
-    # top speed: API-style direct limit min(25.4, 25.4 sqrt(12000/10000)) = 25.4 applies
+    # top speed: API-style direct limit min(25.4, 25.4 sqrt(12000/10000)) = 25.4; a
+    # shop-test rule judged only in a hold at N_mc, so on this field run-up it is a
+    # reference (rule scope, rundash/analysis/profiles/api617.toml)
     api = next(c for c in top if c.limit_id == "shaft-direct-pp-test-stand")
     assert_allclose(api.limit_value, 25.4)
     # highest direct level in the top 1 % of speed: at its low end (the response falls)
@@ -64,7 +66,7 @@ def test_check_levels_bands_and_top_speed():
     r = api.speed_rpm / 3000.0
     expected = 40 * r * r / np.hypot(1 - r * r, 0.1 * r) + 5.0
     assert_allclose(api.level, expected, rtol=1e-9)
-    assert api.status == ("within" if expected <= 25.4 else "exceeds")
+    assert api.status == "reference only" and "shop" in api.note
     assert "from memory" in api.source
 
 

@@ -101,7 +101,7 @@ class TestLiveWarnings:
         lv = np.array([10, 49, 51, 60, 48, 46, 44, 60, 30], float)
         ev = _drive(mon, np.arange(lv.size, dtype=float), np.full(lv.size, 1000.0), 0.0, lv)
         assert [(e.kind, e.time_s) for e in ev] == [
-            ("level-alarm", 2.0), ("level-normal", 6.0), ("level-alarm", 7.0),
+            ("level-high", 2.0), ("level-normal", 6.0), ("level-high", 7.0),
             ("level-normal", 8.0)]
 
     def test_tach_lost_and_back(self):

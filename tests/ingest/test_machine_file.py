@@ -178,3 +178,34 @@ def test_shown_in_the_trade_form():
                 assert side_of_top(angle_from_top(deg, side, rot), rot) == f"{deg:g}° {side}"
     assert side_of_top(0.0, "cw") == "0° (top)" and side_of_top(360.0, "ccw") == "0° (top)"
     assert side_of_top(180.0, "ccw") == "180° (bottom)"
+
+
+class TestSiteLevels:
+    LEVEL = '\n[[levels]]\nbearing = "NDE"\nalert = 75.0\ntrip = 110.0\nsource = "OEM manual 7-2"\n'
+
+    def test_a_bearing_names_its_proximity_and_velocity_probes(self):
+        d = parse_machine_description(EXAMPLE_MACHINE + self.LEVEL, "m.toml")
+        assert [(x.probe, x.measure, x.alert, x.trip, x.source) for x in d.levels] == [
+            (n, "direct", 75.0, 110.0, "OEM manual 7-2") for n in ("NDE-X", "NDE-Y", "NDE-V")]
+
+    @pytest.mark.parametrize("table, match", [
+        ('probe = "NDE-X"\nbearing = "NDE"\nalert = 1.0\nsource = "s"',
+         r"\[\[levels\]\] #1: name either probe"),
+        ('probe = "NOPE"\nalert = 1.0\nsource = "s"', r"#1\.probe: names no probe: 'NOPE'"),
+        ('probe = "NDE-X"\nsource = "s"', r"give alert = \.\.\. or trip"),
+        ('probe = "NDE-X"\nalert = 5.0\ntrip = 4.0\nsource = "s"',
+         r"#1\.trip: expected a level above alert"),
+        ('probe = "NDE-X"\nalert = 5.0', r"#1\.source: missing required key"),
+        ('probe = "NDE-X"\nalert = 5.0\nsource = " "', r"#1\.source: expected the document"),
+        ('probe = "NDE-X"\nalert = 5.0\nmeasure = "rms"\nsource = "s"', r"#1\.measure"),
+        ('probe = "NDE-X"\nalarm = 5.0\nsource = "s"', r"#1\.alarm: unknown key"),
+    ])
+    def test_bad_levels_name_the_key(self, table, match):
+        with pytest.raises(ConfigError, match=match):
+            parse_machine_description(EXAMPLE_MACHINE + "\n[[levels]]\n" + table + "\n",
+                                      "m.toml")
+
+    def test_one_probe_one_measure_once(self):
+        text = EXAMPLE_MACHINE + self.LEVEL + '\n[[levels]]\nprobe = "NDE-X"\nalert = 1.0\nsource = "s"\n'
+        with pytest.raises(ConfigError, match="'NDE-X' already has direct levels"):
+            parse_machine_description(text, "m.toml")

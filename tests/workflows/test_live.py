@@ -123,13 +123,13 @@ class TestWarnings:
         # = 3007.5 rpm (DEVELOPERS.md "Reference values", closed form), half-power band ~ +-5 %
         assert abs(crit - 3007.5) < 0.01 * 3007.5
         assert lo < 3000 < hi
-        order = [k for k in kinds if k in ("approaching", "entered-band", "level-alarm",
+        order = [k for k in kinds if k in ("approaching", "entered-band", "level-high",
                                             "dwell", "left-band", "level-normal")]
         # expected order: the approach warning (lead 10 s = 1000 rpm before the band),
         # the alarm where 2 |H| crosses 300 um (about 2600 rpm, below the band), the band
         n_cross = brentq(lambda n: 2 * abs(live_synth.response_um(n)) - alarm_um, 2000, 3000)
         assert lo - 1000 < n_cross < lo
-        assert order[:3] == ["approaching", "level-alarm", "entered-band"]
+        assert order[:3] == ["approaching", "level-high", "entered-band"]
         assert "dwell" in order and order.index("dwell") < order.index("left-band")
         assert kinds[0] == "recording" and kinds[-1] == "recording-ended"
         ev = {k: next(e for e in events if e.kind == k) for k in set(kinds)}
@@ -148,11 +148,37 @@ class TestWarnings:
         assert 8.0 < d.time_s - e.time_s < 8.0 + 0.6
         assert kinds.count("dwell") == 1
         # level alarm: where the closed-form 1X p-p (2 |H|) crosses the alarm value
-        la = ev["level-alarm"]
+        la = ev["level-high"]
         assert n_cross - 30 <= la.speed_rpm <= n_cross + 80
         assert la.details["probe"] == "A-X"
         left = ev["left-band"]
         assert hi <= left.speed_rpm <= hi + 60
+
+    def test_site_levels_are_watched_and_a_shop_test_limit_is_not(self, db, tmp_path):
+        # A-X has site levels; A-Y has none, and the profile's only direct limit (api617,
+        # mechanical running test) is scoped to a shop test: nothing is watched on A-Y
+        text = live_synth.MACHINE + (
+            '\n[[levels]]\nprobe = "A-X"\nalert = 300.0\ntrip = 600.0\n'
+            'source = "OEM manual, table 7 (invented for the test)"\n')
+        p = tmp_path / "levels.toml"
+        p.write_text(text, encoding="utf-8")
+        machine = load_machine_description(p)
+        wav = tmp_path / "up.wav"
+        live_synth.write_run(wav, [0, 50], [600, 5600], seed=6)
+        res = _replay(db, machine, wav, params=LiveParams(process_at_end=False))
+        with db.read() as conn:
+            events = lq.load_events(conn, res.run_id)
+        high = [e for e in events if e.kind == "level-high"]
+        # the quasi-steady 1X p-p 2 |H| peaks at 2 x 50 / (2 x 0.05) = 1000 um (closed
+        # form, live_synth.response_um): both levels are crossed, on A-X only
+        assert [e.details["probe"] for e in high] == ["A-X", "A-X"]
+        assert "site alert level" in high[0].message and "site trip-style" in high[1].message
+        for e, level in zip(high, (300.0, 600.0)):
+            n = brentq(lambda n: 2 * abs(live_synth.response_um(n)) - level, 1000, 3000)
+            assert n - 30 <= e.speed_rpm <= n + 80
+            assert e.severity == "warning" and "alarm" not in e.message
+        notes = [e.message for e in events if e.kind == "note"]
+        assert any("shaft-direct-pp-test-stand is not watched live" in n for n in notes)
 
     def test_tach_lost_and_restored(self, db, machine, tmp_path):
         wav = tmp_path / "gap.wav"

@@ -32,7 +32,13 @@ MAX_UPLOAD_MB = 64
 MAX_UPLOAD_BYTES = MAX_UPLOAD_MB * 1024 * 1024
 MAX_DESCRIPTION_BYTES = 256 * 1024
 DATA_SUFFIXES = (".wav", ".csv", ".txt", ".h5", ".hdf5", ".parquet", ".pq")
-KINDS = ("mixed", "run-up", "coast-down", "steady")
+# a field run's direction (processing corrects it), or a marked shop (mechanical running)
+# test or trip test: the kind decides which rules of the profile are in scope
+KINDS = ("mixed", "run-up", "coast-down", "steady", "shop-test", "trip-test")
+KIND_LABELS = {"mixed": "field run (mixed)", "run-up": "field run-up",
+               "coast-down": "field coast-down", "steady": "field, steady",
+               "shop-test": "shop test (mechanical running test)",
+               "trip-test": "overspeed trip test"}
 
 
 def match(pathname: str):
@@ -230,11 +236,12 @@ class ImportJobs:
 
     def _work(self, job_id, progress, *, filename, data, description_text, label, cycle, kind,
               started_at, process, stored_description) -> None:
-        from rundash.ingest.importer import import_run
+        from rundash.ingest.importer import import_run, split_import_kind
         from rundash.ingest.machine_file import parse_machine_description
 
         try:
             desc = parse_machine_description(description_text, "machine description")
+            kind, test_kind = split_import_kind(kind)
             if not stored_description:
                 check_uploaded_profile(desc)
             with tempfile.TemporaryDirectory(prefix="rundash-upload-") as tmp:
@@ -242,7 +249,8 @@ class ImportJobs:
                 path.write_bytes(data)
                 res = import_run(self._db, path, desc, description_text=description_text,
                                  label=label or path.stem, cycle=cycle, kind=kind,
-                                 started_at=started_at, progress=progress)
+                                 test_kind=test_kind, started_at=started_at,
+                                 progress=progress)
             msgs = [f"imported as run {res.run_id}: {res.n_channels} channels, "
                     f"{res.n_samples / res.sample_rate_hz:.1f} s at {res.sample_rate_hz:g} Hz",
                     *res.warnings]
@@ -389,9 +397,12 @@ def layout(db):
                 html.Div([html.Label("Overhaul cycle", className="head"),
                           dcc.Input(id=ids.CYCLE, type="text", style=field_style,
                                     placeholder="e.g. 2025 overhaul")]),
-                html.Div([html.Label("Kind (processing corrects it)", className="head"),
-                          dcc.Dropdown(id=ids.KIND, options=list(KINDS), value="mixed",
-                                       clearable=False, style={"width": "160px"})]),
+                html.Div([html.Label("Kind of run (a field run's direction is corrected "
+                                     "by processing)", className="head"),
+                          dcc.Dropdown(id=ids.KIND, value="mixed", clearable=False,
+                                       options=[{"label": KIND_LABELS[k], "value": k}
+                                                for k in KINDS],
+                                       style={"width": "260px"})]),
                 html.Div([html.Label("Started (UTC)", className="head"),
                           dcc.Input(id=ids.STARTED, type="text", style={"width": "180px"},
                                     placeholder="2025-06-03 06:15")]),

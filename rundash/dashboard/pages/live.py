@@ -86,10 +86,10 @@ def active_alerts(events) -> list[tuple[str, str]]:
             on[f"band{d.get('band')}"] = (e.severity, e.message)
         elif e.kind == "left-band":
             on.pop(f"band{d.get('band')}", None)
-        elif e.kind == "level-alarm":
-            on[f"level{d.get('probe')}"] = (e.severity, e.message)
+        elif e.kind == "level-high":
+            on[f"level{d.get('probe')}-{d.get('level', 0)}"] = (e.severity, e.message)
         elif e.kind == "level-normal":
-            on.pop(f"level{d.get('probe')}", None)
+            on.pop(f"level{d.get('probe')}-{d.get('level', 0)}", None)
         elif e.kind == "recording-ended":
             on.pop("tach", None)
     return list(on.values())
