@@ -52,6 +52,9 @@ __all__ = [
 MIN_GAIN = 0.10
 #: Group means in the model-order fits of one cluster (the final fit uses more).
 ORDER_GROUPS = 300
+#: Two modes whose shapes across the probes correlate above this are one mode (our own
+#: threshold: a split's modes along different directions correlate far less).
+SAME_SHAPE = 0.98
 
 
 # --------------------------------------------------------------------------- one run
@@ -197,6 +200,28 @@ def _guards(fit: TransientFit, band, n_expected: int) -> str:
     return ""
 
 
+def _same_shape(fit: TransientFit, band, limit: float = SAME_SHAPE) -> str:
+    """Why the modes of ``band`` are one mode, not a split ('' when they are not): with
+    two or more probes, two modes whose complex shapes across the probes are parallel
+    (normalised correlation above ``limit``) cannot be told apart by the probes; a
+    second mode of the same shape absorbs a departure of the response from the model's
+    line shape (seen at very high signal-to-noise ratios), not a split, whose modes lie
+    along different directions."""
+    if fit.n_probes < 2:
+        return ""
+    ms = _modes_in(fit, band)
+    for i, a in enumerate(ms):
+        for b in ms[i + 1:]:
+            ra, rb = np.asarray(a.participation), np.asarray(b.participation)
+            den = float(np.linalg.norm(ra) * np.linalg.norm(rb))
+            corr = abs(complex(np.vdot(ra, rb))) / den if den > 0 else 1.0
+            if corr > limit:
+                return (f"the modes at {a.fn_rpm:.0f} and {b.fn_rpm:.0f} rpm have the same shape "
+                        f"across the probes (correlation {corr:.3f}): one mode whose response "
+                        f"departs from the model, not a split")
+    return ""
+
+
 def _best(args, kw, inits, weights, max_nfev=40):
     best = None
     for init in inits:
@@ -229,7 +254,9 @@ def identify_modes(time_s, speed_rpm, vectors, *, candidates: Sequence[tuple[flo
     misfit by more
     than ``ln(n)`` per added parameter in units of the residual variance (an F test at the
     Schwarz/BIC threshold) and by at least ``MIN_GAIN`` (10 %), and its modes are
-    acceptable: inside the band, damping not at a bound, separated by more than three
+    acceptable (and, with two or more probes, not of parallel shapes across the probes,
+    :func:`_same_shape`: then it is one mode, not a split): inside the band, damping not
+    at a bound, separated by more than three
     sigma and 0.2 %, each carrying at least 5 % of the response; when the misfit test
     passes but the modes are not acceptable, the cluster keeps fewer modes and reports an
     *unresolved split* with the largest AF among the candidate modes (the conservative
@@ -350,12 +377,14 @@ def identify_modes(time_s, speed_rpm, vectors, *, candidates: Sequence[tuple[flo
             # removed 98-99.9 % of the misfit in the tests, a spurious one 0.1-3 %
             passes = F > thr and gain >= MIN_GAIN
             why = _guards(nxt, band, n_in + 1) if passes else ""
+            same = _same_shape(nxt, band) if passes and not why else ""
             got = ", ".join(f"{m.fn_rpm:.0f}" for m in nxt.modes)
             tried.append(f"{n_in + 1} modes ({got} rpm): misfit {100 * gain:.1f} % lower, "
                          f"F {F:.3g} against {thr:.3g}"
-                         + ("; taken" if passes and not why else
+                         + (f"; not taken: {same}" if same else
+                            "; taken" if passes and not why else
                             (f"; not taken: {why}" if why else "; not taken: no significant gain")))
-            if not passes:
+            if not passes or same:
                 break
             if why:
                 unresolved, why_unres = True, why
