@@ -206,7 +206,8 @@ class TestLimits:
         assert names == ["P-X run-up direct", "P-X run-up 1X"]
         assert d["layout"]["yaxis"]["title"]["text"] == "amplitude (µm pp)"
         dv = figures.direct_vs_filtered([track()], kind="velocity").to_dict()
-        assert dv["layout"]["yaxis"]["title"]["text"] == "amplitude (mm/s; direct rms, 1X pk)"
+        # one convention per axis: the velocity 1X drawn as rms (tests/figures/test_levels.py)
+        assert dv["layout"]["yaxis"]["title"]["text"] == "amplitude (mm/s rms; 1X as rms)"
 
 
 class TestCascade:

@@ -13,7 +13,7 @@ from rundash.figures.common import (
     CURSOR_COLOR, HALF_POWER_FILL, INK, MARGIN_FILL, MAX_POINTS, PALETTE, PHASE_FLOOR_NOTE,
     UNWRAPPED_NOTE, PhaseDisplay, UnitSystem, add_hline, add_operating_shapes, add_vline,
     add_vrect, base_layout, break_at_wraps, critical_hover, critical_label,
-    critical_speeds_of, direction_style, display_pieces, make_figure, margin_zones,
+    critical_speeds_of, direction_style, display_pieces, limit_label, make_figure, margin_zones,
     nearest_index, order_name, polar_layout, trace_groups, typed_array,
 )
 from rundash.units import amplitude_label, to_display
@@ -164,7 +164,7 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
         if ln.get("measure") == "1X" and ln.get("value") is not None:
             add_hline(layout, float(to_display(float(ln["value"]), kind, system)),
                    {"color": "#D55E00", "dash": "longdash", "width": 1.5}, row=1,
-                   text=ln.get("label", "limit"))
+                   text=limit_label(ln, kind, system))
     xs, ya, yp = [], [], []
     if cursor_rpm is not None and first is not None:
         i = nearest_index(first["rpm"], cursor_rpm)

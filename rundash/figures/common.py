@@ -83,6 +83,20 @@ def base_layout(title: str, uirevision: Any, height: int) -> dict[str, Any]:
         "shapes": [], "annotations": []}
 
 
+def limit_label(line: Mapping[str, Any], kind: str, system: UnitSystem) -> str:
+    """A limit line's legend text with its value in the display system (``title`` and
+    ``value`` of :func:`rundash.figures.guidance_lines`; its stored ``label`` otherwise)."""
+    from rundash.units import LEVEL_CONVENTION, VECTOR_AMPLITUDE_CONVENTION, display_unit
+
+    if line.get("title") is None or line.get("value") is None:
+        return str(line.get("label", "limit"))
+    conv = (VECTOR_AMPLITUDE_CONVENTION if line.get("measure") == "1X" else LEVEL_CONVENTION)
+    unit = display_unit(kind, system).replace("um", "µm")
+    value = float(to_display(float(line["value"]), kind, system))
+    digits = 2 if system == "imperial" else 1
+    return f"{line['title']}: {value:.{digits}f} {unit} {conv[kind]}"
+
+
 def message_figure(message: str, *, title: str | None = None, height: int = 300) -> go.Figure:
     """A figure that says why there is nothing to draw: no axes, one centred message."""
     layout = base_layout(title or "", None, height)

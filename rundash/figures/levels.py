@@ -10,7 +10,7 @@ import plotly.graph_objects as go
 
 from rundash.figures.common import (
     MAX_POINTS, PALETTE, UnitSystem, add_hline, add_operating_shapes, base_layout,
-    direction_style, display_pieces, make_figure, trace_groups, typed_array,
+    direction_style, display_pieces, limit_label, make_figure, trace_groups, typed_array,
 )
 from rundash.units import display_unit, to_display
 
@@ -24,9 +24,12 @@ def direct_vs_filtered(traces: Sequence[Mapping[str, Any]], *, kind: str = "prox
     """Direct (unfiltered) level and 1X amplitude versus speed on one axis, with limits.
 
     ``traces`` as in :func:`bode` plus ``direct`` (storage units: um p-p or mm/s rms).
-    For proximity probes both are p-p; for velocity the 1X is peak and the direct rms
-    (the axis title says so). ``limit_lines`` with ``value`` are drawn as horizontal
-    lines, those with ``speed_rpm``/``values`` as curves (reference zones).
+    One convention per axis: for proximity probes both are p-p; for velocity and
+    acceleration the direct level is rms and the 1X (stored as peak) is drawn as its rms,
+    peak/√2 (a sinusoid's rms), so that it can never rise above the overall level it is
+    part of (the rms of one component is at most the rms of the whole, Parseval). The
+    axis title and the trace names say so. ``limit_lines`` with ``value`` are drawn as
+    horizontal lines, those with ``speed_rpm``/``values`` as curves (reference zones).
     """
     data: list[dict] = []
     layout = base_layout(title or "Direct (unfiltered) level beside 1X", uirevision, 480)
@@ -37,11 +40,13 @@ def direct_vs_filtered(traces: Sequence[Mapping[str, Any]], *, kind: str = "prox
                               fields=("direct", "amplitude"))
         base = f"{probe} {direction or ''}".strip()
         x = typed_array(arr["rpm"])
+        one_x = arr["amplitude"] if kind == "proximity" else arr["amplitude"] / np.sqrt(2.0)
         data.append({"type": "scatter", "x": x, "y": typed_array(arr["direct"]), "mode": "lines",
                      "name": f"{base} direct", "meta": "data",
                      "line": {"color": color, "dash": dash, "width": 2.2}})
-        data.append({"type": "scatter", "x": x, "y": typed_array(arr["amplitude"]), "mode": "lines",
-                     "name": f"{base} 1X", "meta": "data", "opacity": 0.75,
+        data.append({"type": "scatter", "x": x, "y": typed_array(one_x), "mode": "lines",
+                     "name": f"{base} 1X" + ("" if kind == "proximity" else " (rms = pk/√2)"),
+                     "meta": "data", "opacity": 0.75,
                      "line": {"color": color, "dash": dash, "width": 1}})
     add_operating_shapes(layout, operating)
     add_limit_lines(data, layout, limit_lines, kind, system)
@@ -53,7 +58,7 @@ def direct_vs_filtered(traces: Sequence[Mapping[str, Any]], *, kind: str = "prox
         layout["yaxis"]["range"] = [0, 1.25 * max(tops)]
     u = display_unit(kind, system).replace("um", "µm")
     ytitle = (f"amplitude ({u} pp)" if kind == "proximity"
-              else f"amplitude ({u}; direct rms, 1X pk)")
+              else f"amplitude ({u} rms; 1X as rms)")
     layout.update(legend={"orientation": "h", "yanchor": "top", "y": -0.18, "x": 0,
                           "xanchor": "left"}, margin={"l": 64, "r": 24, "t": 56, "b": 120})
     layout["xaxis"]["title"] = {"text": "speed (rpm)"}
@@ -69,13 +74,13 @@ def add_limit_lines(data, layout, limit_lines, kind, system) -> None:
             y = float(to_display(float(ln["value"]), kind, system))
             if x0 is None:
                 add_hline(layout, y, {"color": color, "dash": "longdash", "width": 1.5},
-                       text=ln.get("label", "limit"))
+                       text=limit_label(ln, kind, system))
             else:
                 data.append({"type": "scatter", "x": [x0, x1], "y": [y, y],
-                             "mode": "lines+text", "name": ln.get("label", "limit"),
+                             "mode": "lines+text", "name": limit_label(ln, kind, system),
                              "meta": "limit",
                              "line": {"color": color, "dash": "longdash", "width": 2},
-                             "text": ["", ln.get("label", "limit")],
+                             "text": ["", limit_label(ln, kind, system)],
                              "textposition": "top left", "textfont": {"size": 10},
                              "hovertext": ln.get("source", ""), "hoverinfo": "text"})
         elif ln.get("speed_rpm") is not None:
@@ -122,7 +127,7 @@ def guidance_lines(profile, *, kind: str, max_continuous_speed_rpm: float,
         value = lim.value(max_continuous_speed_rpm)
         unit = "µm pp" if kind == "proximity" else "mm/s rms"
         line: dict[str, Any] = {
-            "label": f"{lim.title}: {value:.1f} {unit}", "id": lim.id,
+            "label": f"{lim.title}: {value:.1f} {unit}", "title": lim.title, "id": lim.id,
             "measure": "1X" if lim.quantity.lower() == "1x" else "direct", "value": value,
             "source": lim.source.cite(), "verdict_line": True}
         if lim.applies == "top-speed":

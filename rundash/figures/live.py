@@ -101,7 +101,8 @@ def live_bode_polar(tracks: Sequence[Any] = (), bands: Sequence[Sequence[float]]
         lag = blank_weak_phase(tr.phase_lag_deg, amp)
         px, py = break_at_wraps(rpm, lag)
         group = f"probe {tr.probe_name}"
-        data.append({"type": "scatter", "mode": "lines", "x": typed_array(rpm), "y": typed_array(amp),
+        data.append({"type": "scatter", "mode": "lines", "x": typed_array(rpm),
+                     "y": typed_array(amp),
                      "xaxis": f"x{sfx}", "yaxis": f"y{sfx}", "name": tr.probe_name,
                      "legendgroup": group, "meta": "data", "line": {"color": colour,
                                                                       "width": 2},

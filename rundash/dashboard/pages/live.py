@@ -132,7 +132,8 @@ def register_callbacks(app, db) -> None:
             speed = "-" if st.speed_rpm is None else f"{st.speed_rpm:,.0f} rpm"
             acc = "-" if st.accel_rpm_s is None else f"{st.accel_rpm_s:+,.0f} rpm/s"
             status = (f"{snap['machine']} · run {snap['run_id']} · {st.state} · "
-                      f"t = {st.time_s:.1f} s · speed {speed} · acceleration {acc} · tach {'ok' if st.tach_ok else 'LOST'} · "
+                      f"t = {st.time_s:.1f} s · speed {speed} · acceleration {acc} · "
+                      f"tach {'ok' if st.tach_ok else 'LOST'} · "
                       f"{st.n_revs} revolutions")
             silent = (datetime.now(timezone.utc) - st.updated_at).total_seconds()
             if st.state == "recording" and silent > STALE_S:

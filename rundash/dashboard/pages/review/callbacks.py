@@ -91,12 +91,12 @@ def register_callbacks(app, db) -> None:
                   Input(ids.PROBE, "value"), Input(ids.ORDERS, "value"),
                   Input(ids.COMPENSATION, "value"), Input(ids.UNITS, "value"),
                   Input(ids.PHASE, "value"), Input(ids.REVIEW_VERSION, "data"),
-                  State(ids.RUN_ID, "data"))
-    def _bode(probe, orders, compensation, units, phase, _version, run_id):
+                  Input(ids.BODE_PAIR, "value"), State(ids.RUN_ID, "data"))
+    def _bode(probe, orders, compensation, units, phase, _version, pair, run_id):
         if not probe or run_id is None:
             return no_update
         fig = bode_figure(db, run_id, probe, orders or [1.0], compensation, _units(units),
-                          phase or "unwrapped", cache=cache)
+                          phase or "unwrapped", cache=cache, with_pair=bool(pair))
         return mark_review(fig, review_of(db, run_id), probe, plot="bode")
 
     @app.callback(Output(ids.POLAR, "figure"), Output(ids.DIRECT, "figure"),

@@ -95,15 +95,36 @@ def _vector_setup(db, run_id, probe, orders, compensation, system, cache):
     return ctx, traces, kind, comp_word, has_comp, limits
 
 
+def pair_partner(probes, probe: str) -> str | None:
+    """The other probe of ``probe``'s X/Y pair at its bearing (the description's ``pair``,
+    either way round), or None."""
+    by = {p.name: p for p in probes}
+    me = by.get(probe)
+    if me is not None and me.pair in by:
+        return me.pair
+    return next((p.name for p in probes if p.pair == probe), None)
+
+
 def bode_figure(db, run_id: int, probe: str, orders, compensation: str, system: str,
-                phase: str = "unwrapped", *, cache=None):
-    """The Bode plot of one probe (orders chosen, 1X always), phase unwrapped or wrapped."""
+                phase: str = "unwrapped", *, cache=None, with_pair: bool = False):
+    """The Bode plot of one probe (orders chosen, 1X always), phase unwrapped or wrapped;
+    with ``with_pair`` the 1X of the other probe of its X/Y pair on the same axes (its own
+    colour), so that X and Y of one bearing can be compared directly."""
     ctx, traces, kind, comp_word, has_comp, limits = _vector_setup(
         db, run_id, probe, orders, compensation, system, cache)
-    return figures.bode(traces, kind=kind, system=system, criticals=criticals_of(
-        ctx["findings"], probe), operating=operating_of(ctx["machine"]), limit_lines=limits,
+    partner = pair_partner(ctx["probes"], probe) if with_pair else None
+    crit = criticals_of(ctx["findings"], probe)
+    title = f"Bode plot, {probe} ({comp_word})"
+    if partner is not None:
+        more, _ = vector_traces(db, run_id, partner, [1.0], compensation == "compensated",
+                                cache=result_source(db, cache), ctx=ctx)
+        traces = traces + more
+        crit = crit + criticals_of(ctx["findings"], partner)
+        title = f"Bode plot, {probe} and {partner} 1X ({comp_word})"
+    return figures.bode(traces, kind=kind, system=system, criticals=crit,
+        operating=operating_of(ctx["machine"]), limit_lines=limits,
         compensated=has_comp, phase=phase if phase in PHASE_DISPLAYS else "unwrapped",
-        uirevision=_uirev(run_id, system), title=f"Bode plot, {probe} ({comp_word})",
+        uirevision=_uirev(run_id, system), title=title,
         model=model_curves(ctx["findings"], probe, kind=kind, compensated=has_comp))
 
 

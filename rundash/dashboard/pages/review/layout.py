@@ -295,6 +295,10 @@ def layout(db, run_id: int, *, cache=None):
                   _radio(ids.PHASE, [
                       {"label": "unwrapped (continuous along speed)", "value": "unwrapped"},
                       {"label": "wrapped 0–360°", "value": "wrapped"}], "unwrapped")]),
+        html.Div([html.Label("X and Y", className="head"),
+                  dcc.Checklist(id=ids.BODE_PAIR, value=[], options=[
+                      {"label": " both probes of the bearing on the Bode (1X)",
+                       "value": "pair"}])]),
     ])
     plots = [
         html.Div(className="grid2", children=[
