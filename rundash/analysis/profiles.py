@@ -62,7 +62,13 @@ class Source:
     confidence: str
 
     def cite(self) -> str:
-        return f"{self.document}, {self.edition}, {self.clause} ({self.confidence})"
+        """'document, edition, clause': the confidence is said once for the whole profile
+        (:meth:`Profile.confidence_note`), not on every line that cites the rule."""
+        return f"{self.document}, {self.edition}, {self.clause}"
+
+    def cite_full(self) -> str:
+        """:meth:`cite` with the confidence flag, for the profile's table of rules."""
+        return f"{self.cite()} ({self.confidence})"
 
 
 @dataclass(frozen=True)
@@ -124,6 +130,24 @@ class Profile:
     margin: MarginRule
     limits: tuple[LimitRule, ...]
     origin: str
+
+    def confidence_note(self) -> str | None:
+        """One statement of how sure the profile's values are and what to confirm, or
+        None when every rule is stated (checked against its text) and the profile does
+        not ask for confirmation. Said once, at the top of the findings, the dashboard's
+        verdict and the report."""
+        rules = [("the separation-margin rule", self.margin.source)] + [
+            (f"the limit '{lim.title or lim.id}'", lim.source) for lim in self.limits]
+        doubtful = [(what, src) for what, src in rules if src.confidence != "stated"]
+        if not doubtful and not self.needs_confirmation:
+            return None
+        how = sorted({src.confidence for _, src in doubtful})
+        what = "; ".join(f"{w} ({src.document}, {src.clause})" for w, src in doubtful)
+        return (f"Guidance profile {self.name!r}: its values are "
+                f"{' or '.join(how) if how else 'to be confirmed'}, not checked against the "
+                f"text of the standard. Confirm against the edition your purchase "
+                f"specification cites before relying on the verdict: {what}."
+                + (f" {self.notes}" if self.notes else ""))
 
 
 def as_profile(profile) -> Profile:

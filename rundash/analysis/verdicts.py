@@ -290,8 +290,9 @@ def summarize(margins, *, profile, min_operating_speed_rpm: float, max_continuou
     prof = as_profile(profile)
     margins, checks = tuple(margins), tuple(level_checks)
     notes = []
-    if prof.needs_confirmation:
-        notes.append(f"profile {prof.name!r} needs the user's confirmation: {prof.notes}")
+    conf = prof.confidence_note()
+    if conf:
+        notes.append(conf)
     verdicts = [m.verdict for m in margins]
     short = top_speed_rpm is not None and top_speed_rpm < float(min_operating_speed_rpm)
     if "fail" in verdicts or any(c.status == "exceeds" for c in checks):
@@ -317,6 +318,6 @@ def summarize(margins, *, profile, min_operating_speed_rpm: float, max_continuou
         notes.append("values marked 'reference only' are shown for orientation: each rule is "
                      "judged only inside its scope (run kind, speed condition, transducer, "
                      "measure), and zones are not verdicts during transients")
-    return RunVerdict(prof.name, prof.title, prof.needs_confirmation, prof.margin.source.cite(),
+    return RunVerdict(prof.name, prof.title, conf is not None, prof.margin.source.cite_full(),
                       float(min_operating_speed_rpm), float(max_continuous_speed_rpm), overall,
                       margins, checks, tuple(notes))

@@ -146,6 +146,9 @@ def cmd_findings(*, db: str | None, run: int, as_json: bool) -> int:
           f"{pr.number(mach['max_continuous_speed_rpm'])} rpm; profile {f['profile']['name']}: "
           f"{f['profile']['title']}")
     print(f"verdict: {f['run_verdict'].upper()}")
+    conf = (f.get("profile") or {}).get("confidence_note")
+    if conf:  # how sure the profile is: said once, under the verdict
+        print(f"profile confidence: {conf}")
     rv = f["review"]
     if rv["state"] != "processed":
         print(f"review: {rv['state']}; verdict after the engineer's review: "
@@ -184,7 +187,8 @@ def cmd_findings(*, db: str | None, run: int, as_json: bool) -> int:
                 ("zone", "zone"), ("verdict", "result")]
         print_table([tuple(t for _, t in cols)] + [tuple(x[k] for k, _ in cols) for x in judged])
     for w in f["warnings"]:
-        print(f"note: {w}")
+        if w != conf:
+            print(f"note: {w}")
     print()
     print(f["caution"])
     return 0

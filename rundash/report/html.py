@@ -304,10 +304,15 @@ def _findings_section(data) -> str:
               _e(r.get("clause")), _e(r.get("confidence"))] for r in prof.get("rules") or []]
     out.append(f"<h3>Guidance profile: {_e(prof.get('name'))} — {_e(prof.get('title'))}</h3>")
     if prof.get("needs_confirmation"):
-        out.append("<p><b>This profile needs your confirmation: its values are of low "
-                   "confidence.</b></p>")
+        out.append("<p>How sure these rules are is said at the top of the report.</p>")
     out.append(_table(["rule", "document", "edition", "clause", "confidence"], rules))
     return "".join(out)
+
+
+def _confidence_line(f) -> str:
+    """The profile's confidence statement, once, under the verdict."""
+    note = ((f or {}).get("profile") or {}).get("confidence_note")
+    return f'<p class="confidence"><b>{_e(note)}</b></p>' if note else ""
 
 
 def _comparison_section(data) -> str:
@@ -419,6 +424,7 @@ def render(data: dict[str, Any], *, flavour: Flavour = "interactive", reviewer: 
         f"<h1>{_e(title)}</h1><p class='muted'>{_e(run.label)} · {_e(run.kind)} · made {made} "
         f"by rundash {__version__}</p>"
         f"<p>Run verdict: {_verdict_word(f.get('run_verdict'))}</p>" + verdict_line(review)
+        + _confidence_line(f)
         + f'<div class="caution">{_e(CAUTION)}</div>'
         + _run_section(data) + _processing_section(data) + _findings_section(data)
         + _comparison_section(data) + review_section(review, n_sec - 1)

@@ -279,7 +279,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                         min_operating_speed_rpm=m.min_operating_speed_rpm,
                         max_continuous_speed_rpm=m.max_continuous_speed_rpm,
                         trip_speed_rpm=m.trip_speed_rpm, kind=m.kind),
-        "profile": dict(sj["profile"], rules=_profile_rules(profile)),
+        "profile": dict(sj["profile"], rules=_profile_rules(profile),
+                        confidence_note=profile.confidence_note()),
         "site_levels": [dict(probe=x.probe, measure=x.measure, alert=x.alert, trip=x.trip,
                              source=x.source) for x in desc.levels],
         "processing": dict(slow_roll_rpm=list(slow_roll_rpm) if slow_roll_rpm else None,
@@ -301,7 +302,9 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
         "directions": direction_cmp,
         "rising_at_top": open_top,
         "limits": limits_json,
-        "warnings": notes + list(sj["notes"]),
+        # how sure the profile is, said once and first
+        "warnings": [n for n in sj["notes"] if n == profile.confidence_note()] + notes
+        + [n for n in sj["notes"] if n != profile.confidence_note()],
         # nothing to judge (no run-up or coast-down long enough): never a silent pass
         "run_verdict": sj["overall"] if directions else "not judged",
         "caution": CAUTION,

@@ -67,7 +67,9 @@ def test_check_levels_bands_and_top_speed():
     expected = 40 * r * r / np.hypot(1 - r * r, 0.1 * r) + 5.0
     assert_allclose(api.level, expected, rtol=1e-9)
     assert api.status == "reference only" and "shop" in api.note
-    assert "from memory" in api.source
+    assert api.source.startswith("API 617") and "from memory" not in api.source
+    # said once, for the whole profile (issue 12: not on every line)
+    assert "from memory" in load_profile("api617").confidence_note()
 
 
 def test_steady_top_speed_gives_zone_verdict():

@@ -119,3 +119,21 @@ def test_unknown_profile_and_bad_toml(tmp_path):
         load_profile(f)
     with pytest.raises(ConfigError, match="Invalid value for 'side'"):
         required_margin_pct("api617", 5.0, "left")
+
+
+def test_confidence_said_once_with_what_to_confirm():
+    # every rule of the API 617-style profile is from memory: the profile says so, once,
+    # naming each rule and its document; a profile of stated rules says nothing
+    p = load_profile("api617")
+    assert p.needs_confirmation
+    note = p.confidence_note()
+    assert note.startswith("Guidance profile 'api617': its values are from memory, not "
+                           "checked against the text of the standard.")
+    assert "the separation-margin rule (API 617" in note
+    assert "Unfiltered shaft vibration p-p" in note
+    import dataclasses
+
+    stated = dataclasses.replace(p.margin.source, confidence="stated")
+    q = dataclasses.replace(p, needs_confirmation=False, limits=(),
+                            margin=dataclasses.replace(p.margin, source=stated))
+    assert q.confidence_note() is None

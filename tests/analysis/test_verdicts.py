@@ -35,7 +35,9 @@ def test_margin_below_and_above():
     assert v_low.side == "below" and v_low.verdict == "pass"  # 24.8 % >= 14.9 %
     assert v_high.side == "above" and v_high.verdict == "pass"  # 33.5 % >= 24.9 %
     assert v_near.side == "above" and v_near.verdict == "fail"  # 13.6 % < 24.9 %
-    assert "required" in v_near.reason and "from memory" in v_near.reason
+    assert "required" in v_near.reason and "API 617" in v_near.reason
+    # the confidence is said once for the profile, not on every reason
+    assert "from memory" not in v_near.reason
 
 
 def test_inside_range_fails_and_critically_damped_passes():
@@ -74,7 +76,8 @@ def test_json_schema_and_caution():
     assert d["schema"] == "rundash.run-verdict/1"
     assert d["caution"] == rundash.CAUTION and vs[0].caution == rundash.CAUTION
     assert d["profile"]["needs_confirmation"] is True
-    assert any("needs the user's confirmation" in n for n in d["notes"])
+    (conf,) = [n for n in d["notes"] if n.startswith("Guidance profile 'api610'")]
+    assert "from memory" in conf and "Confirm against the edition" in conf
     (crit,) = d["criticals"]
     for key in ("probe", "direction", "speed_rpm", "peak_amplitude", "amplitude_units",
                 "phase_change_deg", "af_half_power", "af_phase", "af_fit", "damping_ratio_fit",

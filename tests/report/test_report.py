@@ -76,6 +76,11 @@ class TestPdf:
         for r in findings["profile"]["rules"]:
             assert r["document"] in text
         assert "Once-per-rev reference (tach) and its repairs" in text
+        # the profile's confidence said once, at the top (the demo machine uses api617,
+        # whose rules are from memory)
+        note = findings["profile"]["confidence_note"]
+        assert note and _words(note) in text and text.count(_words(note)) == 1
+        assert text.index(_words(note)) < text.index("Critical speeds and separation margins")
 
     def test_holds_the_caution_and_the_sign_off(self, pdf_text):
         _, text = pdf_text

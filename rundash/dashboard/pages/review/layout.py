@@ -89,10 +89,14 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
         if reasons:
             children.append(html.Div(className="reasons", id=ids.VERDICT_REASONS, children=[
                 html.Strong("What fails:"), html.Ul([html.Li(r) for r in reasons])]))
-        children.append(html.P([f"Guidance profile: {prof.get('title') or prof.get('name') or '–'}",
-                                html.Span(" · needs your confirmation: the profile's values "
-                                          "are of low confidence", className="warn")
-                                if prof.get("needs_confirmation") else ""], className="muted"))
+        children.append(html.P(f"Guidance profile: {prof.get('title') or prof.get('name') or '–'}",
+                               className="muted"))
+        if prof.get("confidence_note"):  # how sure the profile is: said once, here
+            children.append(html.P(prof["confidence_note"], className="warn",
+                                   id=ids.PROFILE_CONFIDENCE))
+        elif prof.get("needs_confirmation"):
+            children.append(html.P("The guidance profile needs your confirmation.",
+                                   className="warn", id=ids.PROFILE_CONFIDENCE))
         crit = pr.critical_rows(f, system, kinds=kinds)
         children.append(html.H3(f"Critical speeds found ({len(crit)})"))
         if crit:
