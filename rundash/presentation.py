@@ -301,12 +301,35 @@ _MEASURES = {"direct": "direct (unfiltered)", "1x": "1X", "1X": "1X"}
 _JUDGED = {"exceeds": 0, "fail": 0, "above alert": 1, "within": 2, "pass": 2}
 
 
+def top_speed_note(findings) -> str | None:
+    """Which speed the top-speed checks use and why, when the run went above N_mc (an
+    overspeed trip test): the limits apply up to N_mc, so the check reads the highest
+    speed up to it, and the speeds above are shown for reference only."""
+    f = findings or {}
+    n_mc = (f.get("machine") or {}).get("max_continuous_speed_rpm")
+    above = [lim for lim in f.get("limits") or [] if lim.get("where") == "above N_mc"
+             and lim.get("band_rpm")]
+    tops = [lim for lim in f.get("limits") or [] if lim.get("where") == "top speed"
+            and lim.get("band_rpm")]
+    if not above or not tops or n_mc is None:
+        return None
+    reached = max(float(lim["band_rpm"][1]) for lim in above)
+    used = max(float(lim["band_rpm"][1]) for lim in tops)
+    return (f"the run reached {number(reached)} rpm; the top-speed checks use "
+            f"{number(used)} rpm, the highest speed up to the maximum continuous speed "
+            f"N_mc {number(n_mc)} rpm, because the limits apply within the operating range; "
+            "the speeds above N_mc are shown for reference only")
+
+
 def limit_rows(findings, system: str = "metric", *, kinds: Kinds | None = None
                ) -> list[dict[str, Any]]:
     """Rows of the limit checks, judged rows first (exceeds before within), then the
     reference-only rows, each group in the findings' order. Levels and limits are in the
-    probe's level convention (p-p displacement, rms seismic), as the checks compare them."""
+    probe's level convention (p-p displacement, rms seismic), as the checks compare them.
+    Each row's ``where_note`` says which speed a top-speed check uses and why when the run
+    went above N_mc (:func:`top_speed_note`)."""
     k = probe_kinds(findings, kinds)
+    note = top_speed_note(findings)
     rows = []
     for lim in (findings or {}).get("limits") or []:
         kind = k.get(lim.get("probe"))
@@ -324,7 +347,8 @@ def limit_rows(findings, system: str = "metric", *, kinds: Kinds | None = None
             "zone": lim.get("zone") or MISSING, "verdict": verdict,
             "basis": lim.get("basis") or MISSING, "source": lim.get("source") or "",
             "judged": verdict in _JUDGED, "exceeds": _JUDGED.get(verdict) == 0,
-            "alert": verdict == "above alert"})
+            "alert": verdict == "above alert",
+            "where_note": note if lim.get("where") == "top speed" else None})
     return sorted(rows, key=lambda r: _JUDGED.get(r["verdict"], 3))
 
 
@@ -337,11 +361,54 @@ def direction_rows(findings) -> list[dict[str, str]]:
              "note": d.get("note") or ""} for d in (findings or {}).get("directions") or []]
 
 
+_SPLIT = "; possible split critical with the other probe's "
+_CRIT_AT = re.compile(r"^critical at [\d.,]+ rpm ")
+_SPLIT_PCT = re.compile(r"\(([+-]?\d+(?:\.\d+)?) %\)")
+
+
 def bearing_lines(findings) -> list[str]:
-    """Agreement of the X and Y probes of each bearing, one sentence each."""
-    return [f"{b.get('bearing', '?')} {b.get('direction', '')}: {number(b.get('speed_rpm'))} "
-            f"rpm, {b.get('agreement', MISSING)}" + (f" ({b['note']})" if b.get("note") else "")
-            for b in (findings or {}).get("bearings") or []]
+    """Agreement of the X and Y probes of each bearing, one sentence each; a possible
+    split critical (a critical seen by X only beside one seen by Y only) is said once per
+    pair, not once from each side."""
+    out: list[str] = []
+    split: dict[tuple, list[tuple[dict, str, str]]] = {}
+    for b in (findings or {}).get("bearings") or []:
+        note = b.get("note") or ""
+        if _SPLIT in note:
+            base, _, rest = note.partition(_SPLIT)
+            key = (b.get("bearing"), b.get("direction"))
+            if key not in split:
+                out.append(key)  # placeholder: the pair's line goes where its first side was
+            split.setdefault(key, []).append((b, base, rest))
+            continue
+        out.append(f"{b.get('bearing', '?')} {b.get('direction', '')}: "
+                   f"{number(b.get('speed_rpm'))} rpm, {b.get('agreement', MISSING)}"
+                   + (f" ({note})" if note else ""))
+    lines = []
+    for item in out:
+        if not isinstance(item, tuple):
+            lines.append(item)
+            continue
+        sides = split[item]
+        pct = _SPLIT_PCT.search(sides[0][2])
+        seen = " and ".join(f"{number(b.get('speed_rpm'))} rpm "
+                            + _CRIT_AT.sub("", base).strip() for b, base, _ in sides)
+        lines.append(f"{item[0] or '?'} {item[1] or ''}: possible split critical, {seen}"
+                     + (f", {pct.group(1)} % apart" if pct else "")
+                     + " (e.g. anisotropic supports)")
+    return lines
+
+
+#: Notes that stand with every run of a kind (not warnings about this run's data): shown
+#: as notes, not styled as warnings.
+STANDING_PREFIXES = ("values marked 'reference only'",
+                     "zone and limit values marked 'reference only'")
+
+
+def split_standing(lines: Sequence[str]) -> tuple[list[str], list[str]]:
+    """(warnings, standing notes) of the findings' warning lines."""
+    warn = [w for w in lines if not str(w).startswith(STANDING_PREFIXES)]
+    return warn, [w for w in lines if str(w).startswith(STANDING_PREFIXES)]
 
 
 def rising_lines(findings) -> list[tuple[str, str]]:
@@ -402,7 +469,8 @@ def verdict_reasons(findings, system: str = "metric", *, kinds: Kinds | None = N
         if r["exceeds"]:
             out.append(f"{r['probe']} {r['direction']}: {r['measure']} at {r['where']} "
                        f"({r['speed']} rpm) is {r['value']}, above the limit {r['limit']} "
-                       f"({r['basis']}).")
+                       f"({r['basis']})."
+                       + (f" Speed used: {r['where_note']}." if r.get("where_note") else ""))
     return out
 
 

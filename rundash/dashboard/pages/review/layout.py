@@ -127,11 +127,15 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
             children.append(html.H3("Agreement between probes of a bearing"))
             children.append(html.Ul([html.Li(b) for b in bearings]))
         children += _limits_section(f, system, kinds)
-    warn = pr.warnings_of(f, proc.warnings if proc else [])
+    warn, standing = pr.split_standing(pr.warnings_of(f, proc.warnings if proc else []))
     if warn:
         children.append(html.H3(f"Warnings ({len(warn)})"))
         children.append(html.Div(id=ids.WARNINGS, children=[
             html.Div(w, className="warn") for w in warn]))
+    if standing:  # notes that hold for every run: not styled as warnings
+        children.append(html.H3("Notes"))
+        children.append(html.Div(id=ids.STANDING_NOTES, children=[
+            html.Div(w, className="standing") for w in standing]))
     children.append(html.P((f or {}).get("caution") or CAUTION, className="note",
                            style={"fontStyle": "italic", "marginTop": "10px"}))
     return html.Div(children)
@@ -188,6 +192,9 @@ def _limits_section(f, system, kinds) -> list:
         return out + [html.P("No limit applies to this run's probes.", className="muted")]
     if judged:
         out.append(_table(LIMIT_COLUMNS, judged, ids.LIMITS_TABLE))
+    note = next((r["where_note"] for r in lims if r.get("where_note")), None)
+    if note:  # which speed the top-speed checks use, and why
+        out.append(html.P(f"Top speed: {note}.", className="note", id=ids.TOP_SPEED_NOTE))
     else:
         out.append(html.P("No limit check is judged for this run (all are for reference).",
                           className="muted", id=ids.LIMITS_TABLE))
