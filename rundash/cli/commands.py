@@ -114,6 +114,12 @@ def cmd_process(*, db: str | None, run: int, orders: tuple[float, ...], revs_per
     if res.findings is not None:
         print(f"verdict: {res.findings.get('run_verdict')} "
               f"({len(res.findings.get('criticals', []))} critical-speed findings)")
+    from rundash.workflows.review import review_of
+
+    rv = review_of(database, run)
+    if rv["sign_off"] and not rv["sign_off"]["current"]:
+        print(f"note: {rv['sign_off']['note']} ('rundash review {run}' shows what was signed)",
+              file=sys.stderr)
     if timings:
         print(f"stage times, wall and CPU s ('read' runs beside 'tracking' in a second "
               f"thread), wall {res.wall_s:.2f} s:")

@@ -137,6 +137,7 @@ SIGN_DATE = "review-sign-date"
 SIGN_BUTTON = "review-sign-button"
 
 # run review: housekeeping (edit, delete)
+RUN_EDIT_BY = "run-edit-by"
 RUN_EDIT_LABEL = "run-edit-label"
 RUN_EDIT_CYCLE = "run-edit-cycle"
 RUN_EDIT_NOTES = "run-edit-notes"

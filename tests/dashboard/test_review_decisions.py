@@ -166,7 +166,7 @@ def test_edit_and_delete_a_signed_run(dash_duo, reviewed):
     wr.sign_off(reviewed.db, reviewed.run_id, name="R. Okafor", role="", decision="accepted")
     _open(dash_duo, reviewed)
     _click(dash_duo, "#run-housekeeping summary")
-    _type(dash_duo, f"#{ids.REVIEW_BY}", "A. Engineer")
+    _type(dash_duo, f"#{ids.RUN_EDIT_BY}", "A. Engineer")
     _type(dash_duo, f"#{ids.RUN_EDIT_LABEL}", "First start, relabelled")
     _click(dash_duo, f"#{ids.RUN_EDIT_SAVE}")
     dash_duo.wait_for_contains_text(f"#{ids.RUN_HOUSEKEEPING_MESSAGE}", "Saved: label",

@@ -72,3 +72,18 @@ def test_edit_and_delete(db_path, capsys):
     assert "deleted" in capsys.readouterr().err
     assert main(["runs", *db, "--json"]) == 0
     assert json.loads(capsys.readouterr().out) == []
+
+
+def test_processing_a_signed_run_says_the_sign_off_is_of_an_earlier_processing(
+        reviewed, capsys):
+    run, db = str(reviewed.run_id), ["--db", str(reviewed.path)]
+    assert main(["review", run, *db, "sign", "--name", "R. Okafor", "--decision",
+                 "accepted"]) == 0
+    capsys.readouterr()
+    assert main(["process", run, *db, "--quiet"]) == 0
+    err = capsys.readouterr().err
+    assert "signed off on an earlier processing" in err
+    assert main(["runs", *db, "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)[0]["review"] == "signed off (earlier processing)"
+    assert main(["findings", run, *db]) == 0
+    assert "signed off (earlier processing)" in capsys.readouterr().out

@@ -27,6 +27,8 @@ def housekeeping_card(run, signed: bool):
     return html.Details(className="card", id="run-housekeeping", children=[
         html.Summary("Edit or delete this run"),
         html.Div(className="controls", children=[
+            html.Div([html.Label("Your name (kept with the change)", className="head"),
+                      dcc.Input(id=ids.RUN_EDIT_BY, **field)]),
             html.Div([html.Label("Label", className="head"),
                       dcc.Input(id=ids.RUN_EDIT_LABEL, value=run.label, **field)]),
             html.Div([html.Label("Cycle", className="head"),
@@ -39,8 +41,8 @@ def housekeeping_card(run, signed: bool):
             html.Div([html.Label("Start (UTC, ISO 8601)", className="head"),
                       dcc.Input(id=ids.RUN_EDIT_STARTED, value=started, **field)]),
             html.Button("Save changes", id=ids.RUN_EDIT_SAVE, n_clicks=0)]),
-        html.P("Changes are kept in the run's review log (who is the reviewer named in the "
-               "review card).", className="note"),
+        html.P("Changes are kept in the run's review log with the name given here.",
+               className="note"),
         dcc.Checklist(id=ids.RUN_DELETE_CONFIRM, options=box, value=[],
                       inputStyle={"marginRight": "6px"}),
         html.Button("Delete this run", id=ids.RUN_DELETE, n_clicks=0, className="danger"),
@@ -92,7 +94,7 @@ def register_callbacks(app, db) -> None:
 
     @app.callback(Output(ids.RUN_HOUSEKEEPING_MESSAGE, "children"),
                   Input(ids.RUN_EDIT_SAVE, "n_clicks"), Input(ids.RUN_DELETE, "n_clicks"),
-                  State(ids.RUN_ID, "data"), State(ids.REVIEW_BY, "value"),
+                  State(ids.RUN_ID, "data"), State(ids.RUN_EDIT_BY, "value"),
                   State(ids.RUN_EDIT_LABEL, "value"), State(ids.RUN_EDIT_CYCLE, "value"),
                   State(ids.RUN_EDIT_NOTES, "value"), State(ids.RUN_EDIT_KIND, "value"),
                   State(ids.RUN_EDIT_STARTED, "value"), State(ids.RUN_DELETE_CONFIRM, "value"),

@@ -274,7 +274,10 @@ def layout(db, run_id: int, *, cache=None):
     verdict = html.Div(id=ids.VERDICT_PANEL, className="card",
                        children=verdict_panel(ctx, "metric"))
     if proc is None:
-        return html.Div([dcc.Store(id=ids.RUN_ID, data=run_id), head, verdict])
+        from rundash.dashboard.pages.review.housekeeping import housekeeping_card
+
+        return html.Div([dcc.Store(id=ids.RUN_ID, data=run_id), head, verdict,
+                         housekeeping_card(run, False)])
     tach_deg = float(m.tach.angle_deg or 0.0) if m.tach else 0.0
     probe_opts = [{"label": p.name, "title": ", ".join(
         [p.kind, f"bearing {p.bearing or '–'}"]
