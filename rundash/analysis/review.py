@@ -72,15 +72,23 @@ def _same_time(a, b) -> bool:
     return a is not None and b is not None and a == b
 
 
-def _margin(speed, af, machine, profile, *, confirmed=True, damping=None, basis=None):
+def _margin(speed, af, machine, profile, *, confirmed=True, damping=None, basis=None,
+            run_kind=None):
     m = judge_speed(speed, af, profile=profile,
                     min_operating_speed_rpm=machine["min_operating_speed_rpm"],
                     max_continuous_speed_rpm=machine["max_continuous_speed_rpm"],
                     rated_speed_rpm=machine.get("rated_speed_rpm"), damping_ratio=damping,
                     confirmed=confirmed, af_basis=basis)
+    verdict, reason = m.verdict, m.reason
+    scope = getattr(profile.margin, "scope", None)
+    if run_kind and scope is not None and not scope.covers(run_kind):
+        # outside the rule's scope the margin is shown, never judged (as judge() does)
+        verdict = "reference only"
+        reason = (f"the margin rule applies to: {scope.describe()}; this run is a {run_kind}, "
+                  f"so the margin is shown for reference only. {reason}")
     return dict(side=m.side, separation_margin_pct=m.separation_margin_pct,
-                required_margin_pct=m.required_margin_pct, margin_verdict=m.verdict,
-                margin_reason=m.reason)
+                required_margin_pct=m.required_margin_pct, margin_verdict=verdict,
+                margin_reason=reason)
 
 
 def _who(e: dict[str, Any], processing_at) -> dict[str, Any]:
@@ -140,6 +148,10 @@ def apply_review(findings: dict[str, Any] | None, entries: Sequence[dict[str, An
         return out
     machine = findings.get("machine", {})
     auto = findings.get("criticals", [])
+    test_kind = (findings.get("run") or {}).get("test_kind") or "field"
+
+    def kind_of(direction):  # the run kind a margin rule's scope is checked against
+        return direction if test_kind == "field" else test_kind
     decision_of: dict[int, dict[str, Any]] = {}
     for e in live:
         if e.get("action") not in DECISIONS:
@@ -180,6 +192,7 @@ def apply_review(findings: dict[str, Any] | None, entries: Sequence[dict[str, An
                 af = c.get("af_governing")
                 row.update(_margin(c["speed_rpm"], af, machine, profile,
                                    damping=c.get("damping_ratio_fit"),
+                                   run_kind=kind_of(c.get("direction")),
                                    basis=(f"AF {af:.2f} by {c.get('af_method')}; accepted by "
                                           f"{e.get('reviewer', '')}") if af is not None
                                    else None))
@@ -191,7 +204,8 @@ def apply_review(findings: dict[str, Any] | None, entries: Sequence[dict[str, An
                     else f"AF {af:.2f} by {c.get('af_method')}, speed read by "
                          f"{e.get('reviewer', '')}")
                 row.update(speed_rpm=speed, af=af, source="engineer",
-                           **_margin(speed, af, machine, profile, basis=basis))
+                           **_margin(speed, af, machine, profile, basis=basis,
+                                     run_kind=kind_of(c.get("direction"))))
         decided.append(row)
     for e in live:
         if e.get("action") != "add" or e.get("speed_rpm") is None:
@@ -202,7 +216,8 @@ def apply_review(findings: dict[str, Any] | None, entries: Sequence[dict[str, An
             probe=e.get("probe_name", ""), direction=e.get("direction", ""), automatic=None,
             decision="added", reason="", source="engineer", counts_for_run_verdict=True,
             speed_rpm=e["speed_rpm"], af=af,
-            **_margin(e["speed_rpm"], af, machine, profile, basis=basis),
+            **_margin(e["speed_rpm"], af, machine, profile, basis=basis,
+                      run_kind=kind_of(e.get("direction"))),
             **_who(e, processing_at)))
     limits = findings.get("limits", [])
     top = (findings.get("processing", {}).get("speed_range_rpm") or [None, None])[1]
