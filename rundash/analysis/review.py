@@ -113,6 +113,8 @@ def run_verdict(decided: Sequence[dict[str, Any]], limits: Sequence[dict[str, An
                if c.get("counts_for_run_verdict") and c.get("decision") != "rejected"]
     if "fail" in counted or any(x.get("verdict") == "exceeds" for x in limits):
         return "fail"
+    if "borderline" in counted:
+        return "borderline"
     if "not judged" in counted or short or structural:
         return "not judged"
     return "pass"

@@ -16,6 +16,7 @@ import math
 from dataclasses import dataclass, field
 
 from rundash import CAUTION
+from rundash.analysis.borderline import af_readings, borderline_reason, half_power_at_edge
 from rundash.analysis.criticals import Critical
 from rundash.analysis.limits import LevelCheck
 from rundash.analysis.profiles import Profile, as_profile, required_margin_pct
@@ -36,8 +37,9 @@ class MarginVerdict:
     """Separation-margin verdict of one critical.
 
     ``side`` is ``'below'``, ``'above'`` or ``'inside'`` the operating range;
-    ``verdict`` ``'pass'`` | ``'fail'`` | ``'not judged'`` | ``'reference only'``
-    (outside the rule's scope) with ``reason``.
+    ``verdict`` ``'pass'`` | ``'fail'`` | ``'borderline'`` (the verdict turns on which
+    AF reading is taken) | ``'not judged'`` | ``'reference only'`` (outside the rule's
+    scope) with ``reason``.
     """
 
     critical: Critical
@@ -102,7 +104,8 @@ class MarginVerdict:
 @dataclass(frozen=True)
 class RunVerdict:
     """Summary of one run's verdicts; ``overall`` is ``'fail'`` if any margin or applying
-    limit fails, else ``'not judged'`` if any critical was not judged, else ``'pass'``."""
+    limit fails, else ``'borderline'`` if any margin verdict turns on the AF reading, else
+    ``'not judged'`` if any critical was not judged, else ``'pass'``."""
 
     profile: str
     profile_title: str
@@ -223,7 +226,7 @@ def judge_speed(speed_rpm: float, af: float | None, *, profile, min_operating_sp
 def judge(criticals, *, min_operating_speed_rpm: float, max_continuous_speed_rpm: float,
           profile, rated_speed_rpm: float | None = None, probe: str = "",
           amplitude_units: str = "", mode_hints=None,
-          run_kind: str | None = None) -> tuple[MarginVerdict, ...]:
+          run_kind: str | None = None, data_range_rpm=None) -> tuple[MarginVerdict, ...]:
     """Separation-margin verdict of each critical against a guidance profile.
 
     Parameters
@@ -244,6 +247,14 @@ def judge(criticals, *, min_operating_speed_rpm: float, max_continuous_speed_rpm
         What the stretch is (``'run-up'``, ``'coast-down'``, ``'shop-test'``,
         ``'trip-test'``, :mod:`rundash.analysis.scope`): outside the margin rule's scope
         each verdict is ``'reference only'``. ``None`` applies the rule.
+    data_range_rpm : (float, float), optional
+        Lowest and highest speed of the data the criticals were found in: half-power
+        points nearer its ends than :data:`rundash.analysis.borderline.EDGE_FRACTION` of
+        the bandwidth are at the edge (:mod:`rundash.analysis.borderline`).
+
+    A verdict that turns on which AF reading is taken (the AF straddling the rule's
+    threshold, or the margin found within the spread of the margin required) is
+    ``'borderline'``, with both readings in the reason.
 
     Returns
     -------
@@ -268,6 +279,18 @@ def judge(criticals, *, min_operating_speed_rpm: float, max_continuous_speed_rpm
             confirmed=c.classification != "amplitude-only",
             af_basis=(f"AF {af:.2f} by {c.af_method}" if af is not None else None))
         verdict, reason = margin.verdict, margin.reason
+        if verdict in ("pass", "fail") and c.classification != "amplitude-only":
+            def one(a, z, c=c):
+                mm = judge_speed(c.speed_rpm, a, profile=prof, min_operating_speed_rpm=n_min,
+                                 max_continuous_speed_rpm=n_mc, rated_speed_rpm=rated_speed_rpm,
+                                 damping_ratio=z, af_basis=f"AF {a:.2f}")
+                return mm.verdict, mm.reason
+            why = borderline_reason(c, af_readings(c, data_range_rpm), one)
+            edge = half_power_at_edge(c, data_range_rpm)
+            if why:
+                verdict, reason = "borderline", why + (f". {edge}" if edge else "")
+            elif edge:
+                reason += f"; {edge}, and every reading gives this verdict"
         if run_kind is not None and not prof.margin.scope.covers(run_kind):
             verdict = "reference only"
             reason = (f"the margin rule applies to: {prof.margin.scope.describe()}; this run "
@@ -297,6 +320,8 @@ def summarize(margins, *, profile, min_operating_speed_rpm: float, max_continuou
     short = top_speed_rpm is not None and top_speed_rpm < float(min_operating_speed_rpm)
     if "fail" in verdicts or any(c.status == "exceeds" for c in checks):
         overall = "fail"
+    elif "borderline" in verdicts:
+        overall = "borderline"
     elif "not judged" in verdicts or short:
         overall = "not judged"
     else:

@@ -169,7 +169,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                    max_continuous_speed_rpm=m.max_continuous_speed_rpm, profile=profile,
                    rated_speed_rpm=m.rated_speed_rpm, probe=name, amplitude_units=units,
                    mode_hints=hints[(name, d)],
-                   run_kind=d if test_kind == "field" else test_kind)
+                   run_kind=d if test_kind == "field" else test_kind,
+                   data_range_rpm=(float(np.nanmin(s)), float(np.nanmax(s))))
         refs = seismic_ref.get(name)
         if refs:
             why = (f"not counted in the run verdict: bearing {sp.bearing}'s margins are judged "
