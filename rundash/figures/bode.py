@@ -123,10 +123,10 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
         margin={"l": 64, "r": 24, "t": 56, "b": 96})
     if phase == "wrapped":
         layout["yaxis2"].update(range=[0, 360], tickvals=[0, 90, 180, 270, 360])
-        note = "lag 0–360°; " + PHASE_FLOOR_NOTE
+        note = "lag 0–360°<br>" + PHASE_FLOOR_NOTE
     else:
         layout["yaxis2"].update(dtick=90)
-        note = UNWRAPPED_NOTE + "; " + PHASE_FLOOR_NOTE
+        note = UNWRAPPED_NOTE + "<br>" + PHASE_FLOOR_NOTE
     layout["annotations"].append({
         "text": note, "xref": "x2 domain", "yref": "y2 domain", "x": 0.0, "y": 1.0,
         "xanchor": "left", "yanchor": "bottom", "showarrow": False,
@@ -223,11 +223,16 @@ def _nice_step(span: float, n: int = 8) -> float:
     return 10 * mag
 
 
-def _spread_labels(marks, li, r, theta_deg, min_gap: float = 0.04):
+def _spread_labels(marks, li, r, theta_deg, min_gap: float = 0.08, taken=None,
+                   r_max: float | None = None):
     """Speed labels that would sit on top of an earlier one (closer than ``min_gap`` of
-    the largest radius, e.g. piled at the centre at slow roll) are left out."""
-    r_max = float(np.nanmax(r)) if len(r) else 0.0
-    kept_m, kept_i, pts = [], [], []
+    the largest radius, e.g. piled at the centre at slow roll) are left out; ``taken``
+    (a list, extended here) holds the labels of the curves drawn before, so that the
+    labels of several runs on one polar plot do not pile up either."""
+    if r_max is None:
+        r_max = float(np.nanmax(r)) if len(r) else 0.0
+    pts = taken if taken is not None else []
+    kept_m, kept_i = [], []
     for m, i in zip(marks, li):
         z = r[i] * np.exp(1j * np.radians(theta_deg[i]))
         if all(abs(z - p) >= min_gap * r_max for p in pts):
@@ -261,6 +266,11 @@ def polar(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
     step = label_step_rpm or _nice_step(float(np.ptp(all_rpm)) if all_rpm.size else 1.0)
     unit = amplitude_label(kind, system)
     drawn: dict[tuple, dict[str, np.ndarray]] = {}
+    taken: list[complex] = []  # speed labels placed so far, over every curve
+    amps = [to_display(np.asarray(t["amplitude"], float), kind, system)
+            for _, g in groups for t in g]
+    r_all = max((float(np.nanmax(a)) for a in amps if np.size(a) and np.isfinite(a).any()),
+                default=0.0)
     for (probe, order, direction), group in groups:
         key = (probe, order)
         colors.setdefault(key, group[0].get("color") or PALETTE[len(colors) % len(PALETTE)])
@@ -278,7 +288,8 @@ def polar(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
         rpm = arr["rpm"]
         marks = np.arange(math.ceil(np.nanmin(rpm) / step) * step, np.nanmax(rpm) + 1e-9, step)
         li = [nearest_index(rpm, m) for m in marks]
-        marks, li = _spread_labels(marks, li, arr["amplitude"], arr["phase"])
+        marks, li = _spread_labels(marks, li, arr["amplitude"], arr["phase"], taken=taken,
+                                   r_max=r_all)
         data.append({
             "type": "scatterpolar", "r": arr["amplitude"][li].tolist(),
             "theta": arr["phase"][li].tolist(), "mode": "markers+text",

@@ -75,7 +75,9 @@ def cascade(speed_rpm, freq_hz, amplitude, *, kind: str = "proximity",
         n_end = min(top, 60.0 * fmax / o)
         data.append({"type": "scatter", "x": [0, o * n_end / 60.0], "y": [0, n_end],
                      "mode": "lines+text", "name": f"{order_name(o)} line", "meta": "order",
-                     "text": ["", order_name(o)], "textposition": "middle right",
+                     "text": ["", order_name(o)], "cliponaxis": False,
+                     # at the top edge the label sits above the line's end, not cut in half
+                     "textposition": "top center" if n_end >= top else "middle right",
                      "line": {"color": "white", "width": 1, "dash": "dot"},
                      "textfont": {"color": INK, "size": 11}, "showlegend": False,
                      "hoverinfo": "skip"})
@@ -106,6 +108,7 @@ def campbell(max_speed_rpm: float, *, orders: Sequence[float] = (1, 2, 3, 4),
         data.append({"type": "scatter", "x": [0, top], "y": [0, o * top / 60.0],
                      "mode": "lines+text", "name": f"{order_name(o)}", "meta": "order",
                      "text": ["", order_name(o)], "textposition": "top left",
+                     "cliponaxis": False,
                      "line": {"color": PALETTE[k % len(PALETTE)], "width": 1.5}})
     fmax = max(orders) * top / 60.0 if orders else top / 60.0
     layout = base_layout(title or "Campbell (interference) diagram", uirevision, 460)

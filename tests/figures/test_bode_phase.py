@@ -49,3 +49,23 @@ def test_helpers():
     assert np.isnan(x[2]) and np.isnan(p[2]) and x.size == 5
     x, p = break_at_wraps([1.0, 2.0], [10.0, 20.0])
     assert x.size == 2
+
+
+def test_polar_speed_labels_of_several_runs_do_not_pile_up():
+    # two runs of one probe, one 2.3 x the other (as the demo's two cycles): near the
+    # centre their speed labels would sit on top of each other
+    from tests.test_figures import track
+
+    a, b = track(), track()
+    b["amplitude"] = b["amplitude"] * 2.3
+    a["probe"], b["probe"] = "run 1", "run 3"
+    d = figures.polar([a, b]).to_dict()
+    pts = []
+    r_max = max(float(np.max(a["amplitude"])), float(np.max(b["amplitude"])))
+    for t in d["data"]:
+        if t.get("meta") == "labels":
+            for r, th in zip(t["r"], t["theta"]):
+                pts.append(r * np.exp(1j * np.radians(th)))
+    assert len(pts) >= 5
+    gaps = [abs(p - q) for i, p in enumerate(pts) for q in pts[i + 1:]]
+    assert min(gaps) >= 0.08 * r_max  # the stated minimum gap (our display choice)

@@ -49,3 +49,14 @@ def test_limit_legend_follows_the_unit_system(system, unit, digits):
         assert any(f"{ln['title']}: {v:.{digits}f} {unit}" in t for t in texts), texts
     if system == "imperial":
         assert not any("µm" in t for t in texts if "ISO zone" not in t)
+
+
+def test_order_line_labels_not_clipped():
+    rpm = np.linspace(300.0, 6000.0, 40)
+    f = np.linspace(0.0, 500.0, 200)
+    amp = np.ones((rpm.size, f.size))
+    casc = figures.cascade(rpm, f, amp, orders=(1, 2, 3, 4)).to_dict()
+    camp = figures.campbell(6000.0, orders=(1, 2, 3, 4)).to_dict()
+    for d in (casc, camp):
+        labels = [t for t in d["data"] if t.get("meta") == "order"]
+        assert len(labels) == 4 and all(t["cliponaxis"] is False for t in labels)
