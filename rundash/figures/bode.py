@@ -123,10 +123,10 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
         margin={"l": 64, "r": 24, "t": 56, "b": 96})
     if phase == "wrapped":
         layout["yaxis2"].update(range=[0, 360], tickvals=[0, 90, 180, 270, 360])
-        note = "lag 0–360°<br>" + PHASE_FLOOR_NOTE
+        note = "lag 0–360°; " + PHASE_FLOOR_NOTE
     else:
         layout["yaxis2"].update(dtick=90)
-        note = UNWRAPPED_NOTE + "<br>" + PHASE_FLOOR_NOTE
+        note = UNWRAPPED_NOTE + "; " + PHASE_FLOOR_NOTE
     layout["annotations"].append({
         "text": note, "xref": "x2 domain", "yref": "y2 domain", "x": 0.0, "y": 1.0,
         "xanchor": "left", "yanchor": "bottom", "showarrow": False,

@@ -37,10 +37,9 @@ MAX_POINTS = 2000
 #: lag of a vector near zero (slow roll after compensation) swings at random (our display
 #: choice; stated on every figure that applies it, see :data:`PHASE_FLOOR_NOTE`).
 PHASE_FLOOR_FRACTION = 0.05
-PHASE_FLOOR_NOTE = (f"no phase where the amplitude is below {100 * PHASE_FLOOR_FRACTION:.0f} % "
-                    "of its peak (the lag of a near-zero vector is noise)")
-UNWRAPPED_NOTE = ("lag unwrapped: continued past 360° so that a critical's rise reads as "
-                  "one climb (stored lag = shown − k·360°)")
+PHASE_FLOOR_NOTE = (f"no phase below {100 * PHASE_FLOOR_FRACTION:.0f} % of its peak amplitude "
+                    "(noise)")
+UNWRAPPED_NOTE = "lag unwrapped: continued past 360° (stored lag = shown − k·360°)"
 
 
 
