@@ -531,7 +531,13 @@ def run_name(run: Mapping[str, Any]) -> str:
 def _significance(shift) -> str:
     if not shift or shift.get("significant") is None:
         return "not judged"
-    return "significant" if shift["significant"] else "not significant"
+    if not shift["significant"]:
+        return "not significant"
+    if shift.get("flagged", True):
+        return "significant"
+    units = shift.get("units") or ""
+    return (f"within the engineering floor ({number(shift.get('floor'), 2, units)}): "
+            "not counted")
 
 
 def _pair_speeds(a, b) -> str:
@@ -573,7 +579,9 @@ def shift_rows(comparison: Mapping[str, Any], probe: str | None = None
                              f"{amplitude(b.get('peak_amplitude'), kind, conv)}"
                     if kind else f"{number(a.get('peak_amplitude'), 1)} → "
                                  f"{number(b.get('peak_amplitude'), 1)} {pr.get('units', '')}",
-                    "peak_shift": plus_minus(pk.get("delta"), pk.get("sigma"), 2, sign=True),
+                    "peak_shift": plus_minus(pk.get("delta"), pk.get("sigma"), 2,
+                                             (pk.get("units") or pr.get("units") or "")
+                                             .replace("um", "µm"), sign=True),
                     "peak_sig": _significance(m.get("peak_amplitude")),
                     "hints": "; ".join(m.get("hints") or []) or MISSING,
                     "notes": "; ".join(list(m.get("notes") or []) + list(pr.get("notes") or [])),
@@ -604,7 +612,7 @@ def slow_roll_rows(pair: Mapping[str, Any]) -> list[dict[str, Any]]:
         units = s.get("units") or ""
 
         def vec(amp, lag):
-            return f"{number(amp, 2)} {units} ∠{number(lag)}°"
+            return f"{number(amp, 2)} {units} at lag {number(lag)}°"
         out.append({"probe": s["probe"], "a": vec(s.get("a_amplitude"), s.get("a_lag_deg")),
                     "b": vec(s.get("b_amplitude"), s.get("b_lag_deg")),
                     "change": plus_minus(s.get("change"), s.get("sigma"), 2, units, sign=True),

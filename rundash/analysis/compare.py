@@ -4,7 +4,9 @@ Pure numpy/scipy. Inputs are one probe's per-revolution 1X phasors in one run di
 (see :mod:`rundash.conventions`: ``c = |c| exp(-i lag)``), as
 :func:`rundash.analysis.criticals.find_criticals` takes them. Every number compared
 carries a one-sigma uncertainty from a bootstrap over revolutions, and a change counts
-as *significant* only when it is larger than its uncertainty by the rule below.
+as *significant* only when it is larger than its uncertainty by the rule below, and is
+*flagged* (counted as a change) only when it is significant and at least its engineering
+floor (:mod:`rundash.analysis.significance`, each floor with its source).
 
 Public functions
 ----------------
@@ -47,6 +49,7 @@ import numpy as np
 from scipy import signal
 
 from rundash.analysis.criticals import Critical, find_criticals
+from rundash.analysis.significance import amplitude_floor, af_floor, phase_floor, speed_floor
 from rundash.analysis.vectors import mean_vector_near
 from rundash.errors import AnalysisError, invalid_value
 
@@ -80,11 +83,23 @@ class Shift:
     sigma: float | None
     significant: bool | None
     k: float
+    floor: float | None = None
+    floor_source: str = ""
+
+    @property
+    def flagged(self) -> bool:
+        """Significant and at least the engineering floor (:mod:`rundash.analysis.
+        significance`); a change without a floor is flagged when significant."""
+        if not self.significant:
+            return False
+        return self.floor is None or abs(self.delta) >= self.floor
 
     def to_json_dict(self) -> dict:
-        return {k: getattr(self, k) for k in (
+        out = {k: getattr(self, k) for k in (
             "quantity", "units", "a", "b", "a_std", "b_std", "delta", "delta_pct", "sigma",
-            "significant", "k")}
+            "significant", "k", "floor", "floor_source")}
+        out["flagged"] = self.flagged
+        return out
 
 
 @dataclass(frozen=True)
@@ -175,8 +190,8 @@ class CurveComparison:
     """Result of :func:`compare_curves`.
 
     ``like_with_like`` is False when the runs differ in direction or in sweep rate
-    (``notes`` say how); ``verdict`` is ``'changed'`` when any shift is significant,
-    else ``'no significant change'``.
+    (``notes`` say how); ``verdict`` is ``'changed'`` when any shift is flagged
+    (significant and at least its engineering floor), else ``'no significant change'``.
     """
 
     matches: tuple[CriticalMatch, ...]
@@ -226,7 +241,7 @@ class VectorChange:
 # ----------------------------------------------------------------------------- helpers
 def shift(quantity: str, a: float | None, b: float | None, a_std: float | None,
           b_std: float | None, *, units: str = "", k: float = K_SIGMA,
-          circular: bool = False) -> Shift:
+          circular: bool = False, floor=None) -> Shift:
     """The change ``b - a`` of one quantity with its combined uncertainty.
 
     Parameters
@@ -241,6 +256,9 @@ def shift(quantity: str, a: float | None, b: float | None, a_std: float | None,
         Factor of the significance rule ``|b - a| > k sqrt(a_std^2 + b_std^2)``.
     circular : bool
         The quantity is an angle in degrees: the change is wrapped to (-180, 180].
+    floor : Floor or None
+        The engineering floor (:mod:`rundash.analysis.significance`): the change is
+        ``flagged`` only when significant and at least the floor.
 
     Returns
     -------
@@ -255,7 +273,8 @@ def shift(quantity: str, a: float | None, b: float | None, a_std: float | None,
     if not (math.isfinite(k) and k > 0):
         raise AnalysisError(invalid_value("k", k, "a positive factor"))
     if a is None or b is None or not (math.isfinite(a) and math.isfinite(b)):
-        return Shift(quantity, units, a, b, a_std, b_std, None, None, None, None, k)
+        return Shift(quantity, units, a, b, a_std, b_std, None, None, None, None, k,
+                     floor.value if floor else None, floor.source if floor else "")
     d = b - a
     if circular:
         d = (d + 180.0) % 360.0 - 180.0
@@ -267,7 +286,8 @@ def shift(quantity: str, a: float | None, b: float | None, a_std: float | None,
     if a_std is not None and b_std is not None and math.isfinite(a_std) and math.isfinite(b_std):
         sig = math.hypot(a_std, b_std)
         significant = bool(abs(d) > k * sig)
-    return Shift(quantity, units, a, b, a_std, b_std, d, pct, sig, significant, k)
+    return Shift(quantity, units, a, b, a_std, b_std, d, pct, sig, significant, k,
+                 floor.value if floor else None, floor.source if floor else "")
 
 
 def vector_mean(vectors) -> VectorMean:
@@ -551,7 +571,7 @@ def estimate_curve(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
 # ----------------------------------------------------------------------------- compare
 def _hints(m_speed: Shift | None, m_af: Shift | None, m_peak: Shift | None) -> list[str]:
     hints = []
-    if m_speed is not None and m_speed.significant:
+    if m_speed is not None and m_speed.flagged:
         if m_speed.delta < 0:
             hints.append(f"hint: the critical speed moved down {abs(m_speed.delta_pct):.1f} %: "
                          "a loss of stiffness is one possible cause (e.g. bearing clearance "
@@ -560,7 +580,7 @@ def _hints(m_speed: Shift | None, m_af: Shift | None, m_peak: Shift | None) -> l
             hints.append(f"hint: the critical speed moved up {m_speed.delta_pct:.1f} %: a "
                          "stiffer support or oil film is one possible cause (e.g. a tighter "
                          "clearance, a colder oil)")
-    if m_af is not None and m_af.significant:
+    if m_af is not None and m_af.flagged:
         if m_af.delta > 0:
             hints.append(f"hint: the amplification factor rose from {m_af.a:.1f} to "
                          f"{m_af.b:.1f}: a loss of damping is one possible cause (e.g. worn "
@@ -568,7 +588,7 @@ def _hints(m_speed: Shift | None, m_af: Shift | None, m_peak: Shift | None) -> l
         else:
             hints.append(f"hint: the amplification factor fell from {m_af.a:.1f} to "
                          f"{m_af.b:.1f}: more damping, or a blunter peak from a faster sweep")
-    if m_peak is not None and m_peak.significant and m_peak.delta > 0:
+    if m_peak is not None and m_peak.flagged and m_peak.delta > 0:
         hints.append(f"hint: the peak 1X rose {m_peak.delta_pct:.0f} %: more unbalance or "
                      "less damping is a possible cause")
     return hints
@@ -576,7 +596,8 @@ def _hints(m_speed: Shift | None, m_af: Shift | None, m_peak: Shift | None) -> l
 
 def compare_curves(a: CurveEstimate, b: CurveEstimate, *,
                    match_tolerance_pct: float = 10.0, k: float = K_SIGMA,
-                   sweep_rate_tolerance: float = SWEEP_RATE_TOLERANCE) -> CurveComparison:
+                   sweep_rate_tolerance: float = SWEEP_RATE_TOLERANCE,
+                   kind: str | None = None, amplitude_units: str = "") -> CurveComparison:
     """Match the criticals of two estimates (one probe, run ``a`` then run ``b``) and
     report each shift with its uncertainty.
 
@@ -669,24 +690,27 @@ def compare_curves(a: CurveEstimate, b: CurveEstimate, *,
             continue
         m_notes = []
         sp = shift("critical speed", ca.speed_rpm, cb.speed_rpm, ca.speed_std_rpm,
-                   cb.speed_std_rpm, units="rpm", k=k)
+                   cb.speed_std_rpm, units="rpm", k=k, floor=speed_floor(ca.speed_rpm))
         if ca.af_method == cb.af_method:
-            af = shift(f"AF ({ca.af_method})", ca.af, cb.af, ca.af_std, cb.af_std, k=k)
+            af = shift(f"AF ({ca.af_method})", ca.af, cb.af, ca.af_std, cb.af_std, k=k,
+                       floor=af_floor(ca.af))
         elif ca.af_half_power is not None and cb.af_half_power is not None:
             af = shift("AF (half-power)", ca.af_half_power, cb.af_half_power,
-                       ca.af_half_power_std, cb.af_half_power_std, k=k)
+                       ca.af_half_power_std, cb.af_half_power_std, k=k,
+                       floor=af_floor(ca.af_half_power))
         else:
             af = shift(f"AF ({ca.af_method} vs {cb.af_method})", ca.af, cb.af, None, None, k=k)
             m_notes.append(f"the AFs come from different methods ({ca.af_method}, "
                            f"{cb.af_method}): their change is not judged")
         pk = shift("peak amplitude", ca.peak_amplitude, cb.peak_amplitude,
-                   ca.peak_amplitude_std, cb.peak_amplitude_std, k=k)
+                   ca.peak_amplitude_std, cb.peak_amplitude_std, k=k, units=amplitude_units,
+                   floor=amplitude_floor(kind, ca.speed_rpm))
         for c, which in ((ca, "earlier"), (cb, "later")):
             if not c.stable:
                 m_notes.append(f"the {which} run's critical was found again in only "
                                f"{c.n_found} of {c.n_boot} bootstrap replicates: its "
                                "uncertainty is doubtful")
-        changed = any(x is not None and x.significant for x in (sp, af, pk))
+        changed = any(x is not None and x.flagged for x in (sp, af, pk))
         any_sig |= changed
         h = _hints(sp, af, pk)
         all_hints += h
@@ -699,10 +723,11 @@ def compare_curves(a: CurveEstimate, b: CurveEstimate, *,
         if q is None:
             continue
         ph = shift(f"lag at {p.speed_rpm:.0f} rpm", p.lag_deg, q.lag_deg, p.lag_std_deg,
-                   q.lag_std_deg, units="deg", k=k, circular=True)
+                   q.lag_std_deg, units="deg", k=k, circular=True, floor=phase_floor())
         am = shift(f"1X at {p.speed_rpm:.0f} rpm", p.amplitude, q.amplitude, p.amplitude_std,
-                   q.amplitude_std, k=k)
+                   q.amplitude_std, k=k, units=amplitude_units,
+                   floor=amplitude_floor(kind, p.speed_rpm))
         phase += [ph, am]
-        any_sig |= bool(ph.significant) or bool(am.significant)
+        any_sig |= ph.flagged or am.flagged
     return CurveComparison(tuple(matches), tuple(phase), like, tuple(notes), tuple(all_hints),
                            "changed" if any_sig else "no significant change")

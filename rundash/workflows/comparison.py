@@ -190,7 +190,7 @@ def compare_runs(db: Database, run_ids: Sequence[int], *,
             if db_ != da and any(n == name and dd == db_ for (n, dd) in estimates[ref.id]):
                 continue  # the other direction of the reference is compared with it
             kind = curves[ref.id][(name, da)]["kind"]
-            res = cmp.compare_curves(ea, eb, k=k)
+            res = cmp.compare_curves(ea, eb, k=k, kind=kind, amplitude_units=amplitude_label(kind))
             crit = []
             for m in res.matches:
                 crit.append(dict(
