@@ -57,3 +57,33 @@ def test_direct_plot_velocity_one_convention(demo_db):
     a, b = _arr(one_x["y"]), _arr(direct_tr["y"])
     ok = np.isfinite(a) & np.isfinite(b)
     assert np.all(a[ok] <= b[ok])
+
+
+def test_review_page_pair_and_imperial_in_the_browser(dash_duo, demo_db):
+    """Headless Chromium: X and Y of one bearing on one Bode from the checkbox; imperial
+    mode changes the direct plot's limit legend too; the tab names the page."""
+    from rundash.dashboard import ids
+    from rundash.dashboard.app import create_app
+    from tests.dashboard.test_browser import _click, _severe, _shot
+
+    dash_duo.start_server(create_app(demo_db.db))
+    dash_duo.wait_for_page(url=f"{dash_duo.server_url}/run/{demo_db.run_id}", timeout=20)
+    dash_duo.wait_for_element(f"#{ids.BODE} .js-plotly-plot", timeout=20)
+    assert dash_duo.driver.title == f"Run review · run {demo_db.run_id} · rundash"
+    _click(dash_duo, f"#{ids.BODE_PAIR} input")
+    dash_duo.wait_for_contains_text(f"#{ids.BODE} .gtitle", "K410-DE-X and K410-DE-Y",
+                                    timeout=20)
+    names = dash_duo.driver.execute_script(
+        "return document.querySelector('#%s .js-plotly-plot').data"
+        ".filter(t => t.meta === 'data').map(t => t.name);" % ids.BODE)
+    assert any(n.startswith("K410-DE-Y 1X") for n in names)
+    _click(dash_duo, f"#{ids.UNITS} input[value='imperial']")
+    dash_duo.wait_for_contains_text(f"#{ids.DIRECT} .ytitle", "mil pp", timeout=20)
+    texts = dash_duo.driver.execute_script(
+        "const g = document.querySelector('#%s .js-plotly-plot');"
+        "return g.data.map(t => t.name || '').concat("
+        "(g.layout.annotations || []).map(a => a.text || ''));" % ids.DIRECT)
+    limits = [t for t in texts if t.startswith("Unfiltered")]
+    assert limits and all("mil pp" in t and "µm" not in t for t in limits), limits
+    _shot(dash_duo, "review-pair-imperial")
+    assert _severe(dash_duo) == []
