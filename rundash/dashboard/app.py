@@ -18,8 +18,13 @@ from rundash.storage.engine import Database
 LOOPBACK = ("127.0.0.1", "localhost", "::1")
 
 
-def create_app(db: Database, *, password: str | None = None):
-    """The app; with ``password`` every request needs HTTP basic auth (see security.py)."""
+def create_app(db: Database, *, password: str | None = None, local_files: bool = False):
+    """The app; with ``password`` every request needs HTTP basic auth (see security.py).
+
+    ``local_files``: the import page may import a file already on this computer by its
+    path (no upload, no size cap): only for a server bound to the loopback, and then only
+    for requests from the loopback (:func:`rundash.dashboard.pages.importer.local_files_allowed`).
+    """
     import dash
 
     from rundash.dashboard import pages, security
@@ -30,6 +35,7 @@ def create_app(db: Database, *, password: str | None = None):
                     use_pages=False, update_title=None)
     app.index_string = INDEX
     security.secure(app, password=password, max_upload_bytes=MAX_UPLOAD_BYTES)
+    app.server.config["RUNDASH_LOCAL_FILES"] = bool(local_files)
     pages.register(app, db)
     return app
 
@@ -40,7 +46,7 @@ def serve(db: Database, *, host: str = "127.0.0.1", port: int = 8050, debug: boo
     from rundash.dashboard import security
 
     security.check_serve_options(host, password=password, debug=debug)
-    app = create_app(db, password=password)
+    app = create_app(db, password=password, local_files=security.is_loopback(host))
     for line in security.instructions(host, port, password=password):
         print(line, file=sys.stderr)
     if debug:

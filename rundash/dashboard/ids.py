@@ -61,6 +61,8 @@ POLL = "import-poll"
 STATUS = "import-status"
 PROGRESS = "import-progress"
 RESULT = "import-result"
+LOCAL_PATH = "import-local-path"
+PROCESS = "import-process"
 
 # live monitor
 LIVE_RUN = "live-run"

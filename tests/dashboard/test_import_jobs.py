@@ -117,7 +117,8 @@ class TestCraftedForm:
     @pytest.mark.parametrize("field, value", [
         ("filename", {"a": 1}), ("filename", ["x.wav", "y.wav"]), ("contents", 12345),
         ("label", ["a"]), ("machine_source", "machine:abc"), ("machine_source", 7),
-        ("kind", {"k": "mixed"}), ("started", 3.5)])
+        ("kind", {"k": "mixed"}), ("started", 3.5), ("local_path", {"p": "/etc"}),
+        ("local_path", "/etc/passwd")])
     def test_start_with_a_crafted_field_answers_with_a_message(self, client, field, value,
                                                                demo_db):
         c, deps = client
@@ -125,13 +126,14 @@ class TestCraftedForm:
         good = base64.b64encode((demo_db.folder / "k410_2025_trip.wav").read_bytes()[:4000])
         form = {"contents": "data:audio/wav;base64," + good.decode(), "filename": "t.wav",
                 "machine_source": "machine:1", "machine": None, "label": "", "cycle": "",
-                "kind": "mixed", "started": ""}
+                "kind": "mixed", "started": "", "local_path": None, "process": ["process"]}
         form[field] = value
         order = [("contents", ids.UPLOAD_DATA, "contents"), ("filename", ids.UPLOAD_DATA, "filename"),
                  ("machine_source", ids.MACHINE_SOURCE, "value"),
                  ("machine", ids.UPLOAD_MACHINE, "contents"), ("label", ids.LABEL, "value"),
                  ("cycle", ids.CYCLE, "value"), ("kind", ids.KIND, "value"),
-                 ("started", ids.STARTED, "value")]
+                 ("started", ids.STARTED, "value"), ("local_path", ids.LOCAL_PATH, "value"),
+                 ("process", ids.PROCESS, "value")]
         body = {"output": cb["output"], "outputs": outputs,
                 "inputs": [{"id": ids.START, "property": "n_clicks", "value": 1}],
                 "state": [{"id": i, "property": p, "value": form[k]} for k, i, p in order],

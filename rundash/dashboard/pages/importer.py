@@ -1,6 +1,9 @@
 """Import a run: upload a data file and a machine description, import it, process it.
 
-The upload is saved under a sanitised name in a temporary folder, imported with
+A data file comes as an upload (capped at :data:`MAX_UPLOAD_MB`) or, when the dashboard
+serves only this computer, by the path of a file already on it (read in place: no copy,
+no cap; :func:`local_files_allowed`). The upload is saved under a sanitised name in a
+temporary folder, imported with
 :func:`rundash.ingest.importer.import_run` and processed with
 :func:`rundash.workflows.pipeline.process_run` in a worker thread; a status line polls its progress.
 The jobs live in an :class:`ImportJobs` owned by the app (made in ``register_callbacks``),
@@ -31,7 +34,7 @@ TITLE = "Import a run"
 MAX_UPLOAD_MB = 64
 MAX_UPLOAD_BYTES = MAX_UPLOAD_MB * 1024 * 1024
 MAX_DESCRIPTION_BYTES = 256 * 1024
-DATA_SUFFIXES = (".wav", ".csv", ".txt", ".h5", ".hdf5", ".parquet", ".pq")
+DATA_SUFFIXES = (".wav", ".csv", ".txt", ".h5", ".hdf5", ".parquet", ".pq", ".mf4", ".mdf")
 # a field run's direction (processing corrects it), or a marked shop (mechanical running)
 # test or trip test: the kind decides which rules of the profile are in scope
 KINDS = ("mixed", "run-up", "coast-down", "steady", "shop-test", "trip-test")
@@ -146,6 +149,45 @@ def check_uploaded_profile(desc) -> None:
             "file of your own is used from the command line (rundash import --machine FILE)")
 
 
+def local_files_allowed() -> bool:
+    """Whether this request may import a file by its path: the app was made for a server
+    bound to the loopback (``create_app(..., local_files=True)``, which ``serve`` sets for
+    127.0.0.1 / ::1 / localhost) and the request itself comes from the loopback. A
+    dashboard that others can reach never opens a path a browser names."""
+    from flask import current_app, has_request_context, request
+
+    from rundash.dashboard.security import is_loopback
+
+    if not has_request_context() or not current_app.config.get("RUNDASH_LOCAL_FILES"):
+        return False
+    return is_loopback(request.remote_addr or "")
+
+
+def local_file(text: str | None) -> Path:
+    """The data file a path field names: an absolute path (``~`` expanded) of a regular,
+    readable file with a data-file ending; :class:`~rundash.errors.InputError` otherwise,
+    naming the path. Nothing is read here."""
+    import os
+
+    raw = (text or "").strip().strip('"').strip("'")
+    if not raw:
+        raise InputError("give the path of the data file on this computer")
+    path = Path(raw).expanduser()
+    if not path.is_absolute():
+        raise InputError(f"{raw}: give the full path of the file (it is opened by the "
+                         "server, whose working folder may not be yours)")
+    if path.suffix.lower() not in DATA_SUFFIXES:
+        raise InputError(f"Invalid value for 'data file path': allowed a file ending in "
+                         f"{', '.join(DATA_SUFFIXES)}, got {raw!r}")
+    if not path.exists():
+        raise InputError(f"{path}: no such file on this computer")
+    if not path.is_file():
+        raise InputError(f"{path}: not a regular file")
+    if not os.access(path, os.R_OK):
+        raise InputError(f"{path}: the dashboard may not read this file (permissions)")
+    return path
+
+
 @dataclass(frozen=True)
 class JobState:
     """What a status line shows: stage, fraction done, outcome."""
@@ -187,22 +229,24 @@ class ImportJobs:
         with self._lock:
             self._jobs[job_id] = replace(self._jobs[job_id], **changes)
 
-    def start(self, *, filename: str, data: bytes, description_text: str, label: str,
+    def start(self, *, filename: str, data: bytes | None, description_text: str, label: str,
               cycle: str, kind: str, started_at: datetime | None, process: bool = True,
-              stored_description: bool = False) -> str:
+              stored_description: bool = False, path: Path | None = None) -> str:
         """Start one job; returns its id. Errors are reported through :meth:`get`.
 
         ``stored_description``: the description is one stored with an earlier run (checked
         when that run was imported), not an upload, so it may name a profile file.
+        ``path``: import this file on this computer in place (``data`` is then None).
         """
         job_id = uuid.uuid4().hex
         with self._lock:
-            self._jobs[job_id] = JobState(job_id=job_id, stage="saving upload")
+            self._jobs[job_id] = JobState(job_id=job_id, stage="reading the file" if path
+                                          else "saving upload")
         t = threading.Thread(target=self._run, name=f"rundash-import-{job_id[:8]}", daemon=True,
                              kwargs=dict(job_id=job_id, filename=filename, data=data,
                                          description_text=description_text, label=label,
                                          cycle=cycle, kind=kind, started_at=started_at,
-                                         process=process,
+                                         process=process, path=path,
                                          stored_description=stored_description))
         with self._lock:
             self._threads[job_id] = t
@@ -218,7 +262,7 @@ class ImportJobs:
         return self.get(job_id)
 
     def _run(self, *, job_id, filename, data, description_text, label, cycle, kind,
-             started_at, process=True, stored_description=False) -> None:
+             started_at, process=True, stored_description=False, path=None) -> None:
         from rundash.storage.engine import hearing_lock_waits
 
         def progress(fraction: float, stage: str) -> None:
@@ -232,10 +276,10 @@ class ImportJobs:
             self._work(job_id, progress, filename=filename, data=data,
                        description_text=description_text, label=label, cycle=cycle,
                        kind=kind, started_at=started_at, process=process,
-                       stored_description=stored_description)
+                       stored_description=stored_description, local=path)
 
     def _work(self, job_id, progress, *, filename, data, description_text, label, cycle, kind,
-              started_at, process, stored_description) -> None:
+              started_at, process, stored_description, local=None) -> None:
         from rundash.ingest.importer import import_run, split_import_kind
         from rundash.ingest.machine_file import parse_machine_description
 
@@ -244,11 +288,13 @@ class ImportJobs:
             kind, test_kind = split_import_kind(kind)
             if not stored_description:
                 check_uploaded_profile(desc)
+            src = local  # a file on this computer, read in place; else the saved upload
             with tempfile.TemporaryDirectory(prefix="rundash-upload-") as tmp:
-                path = Path(tmp) / sanitise_filename(filename)
-                path.write_bytes(data)
-                res = import_run(self._db, path, desc, description_text=description_text,
-                                 label=label or path.stem, cycle=cycle, kind=kind,
+                if src is None:
+                    src = Path(tmp) / sanitise_filename(filename)
+                    src.write_bytes(data)
+                res = import_run(self._db, src, desc, description_text=description_text,
+                                 label=label or src.stem, cycle=cycle, kind=kind,
                                  test_kind=test_kind, started_at=started_at,
                                  progress=progress)
             msgs = [f"imported as run {res.run_id}: {res.n_channels} channels, "
@@ -319,9 +365,22 @@ def form_text(value: Any, what: str, *, max_chars: int | None = 10_000) -> str |
 
 
 def start_import(jobs: ImportJobs, db, *, data_contents, data_name, machine_source,
-                 machine_contents, label, cycle, kind, started) -> tuple[str | None, str | None]:
-    """Check the form and start a job: (job id, None) or (None, error message)."""
+                 machine_contents, label, cycle, kind, started, local_path=None,
+                 local_allowed: bool = False, process=True) -> tuple[str | None, str | None]:
+    """Check the form and start a job: (job id, None) or (None, error message).
+
+    A non-empty ``local_path`` imports that file on this computer instead of the upload,
+    only when ``local_allowed`` (:func:`local_files_allowed`)."""
     try:
+        local_path = form_text(local_path, "data file path", max_chars=4096)
+        local = None
+        if local_path and local_path.strip():
+            if not local_allowed:
+                raise InputError("a file is imported by its path only when the dashboard "
+                                 "serves this computer alone (rundash serve on 127.0.0.1) "
+                                 "and the browser runs on it; upload the file instead")
+            local = local_file(local_path)
+            data_name, data_contents = local.name, None
         data_contents = form_text(data_contents, "data file", max_chars=None)
         data_name = form_text(data_name, "data file name", max_chars=1000)
         machine_source = form_text(machine_source, "machine description source", max_chars=100)
@@ -336,7 +395,8 @@ def start_import(jobs: ImportJobs, db, *, data_contents, data_name, machine_sour
         if Path(safe).suffix.lower() not in DATA_SUFFIXES:
             raise InputError(f"Invalid value for 'data file': allowed {', '.join(DATA_SUFFIXES)}"
                              f", got {data_name!r}")
-        data = decode_upload(data_contents, what="data file", max_bytes=MAX_UPLOAD_BYTES)
+        data = None if local is not None else decode_upload(
+            data_contents, what="data file", max_bytes=MAX_UPLOAD_BYTES)
         text, _ = machine_description_text(db, machine_source, machine_contents)
         stored = bool(machine_source and machine_source.startswith("machine:"))
         from rundash.ingest.machine_file import parse_machine_description
@@ -350,7 +410,7 @@ def start_import(jobs: ImportJobs, db, *, data_contents, data_name, machine_sour
         return None, str(exc)
     job = jobs.start(filename=safe, data=data, description_text=text, label=label or "",
                      cycle=cycle or "", kind=kind, started_at=started_at,
-                     stored_description=stored)
+                     stored_description=stored, path=local, process=process is not False)
     return job, None
 
 
@@ -372,15 +432,32 @@ def layout(db):
                           style_reject={"borderColor": "#D55E00", "background": "#fdecea"})
 
     field_style = {"width": "260px"}
+    if local_files_allowed():
+        local = [
+            html.P("Or a file already on this computer, read where it lies (no copy, no size "
+                   "limit; this dashboard serves this computer only): its full path.",
+                   className="note", style={"marginTop": "10px"}),
+            dcc.Input(id=ids.LOCAL_PATH, type="text", debounce=False,
+                      style={"width": "100%", "maxWidth": "720px"},
+                      placeholder="/data/k101/startup-2026-05-01.wav")]
+    else:
+        local = [html.P("Importing a file by its path is offered only when the dashboard "
+                        "serves this computer alone (rundash serve on 127.0.0.1) and is "
+                        "opened on it.", className="note"),
+                 dcc.Input(id=ids.LOCAL_PATH, type="text", disabled=True,
+                           style={"display": "none"})]
     return html.Div([
         html.H1(TITLE, style={"fontSize": "22px"}),
         html.Div(className="card", children=[
             html.H3("1 · Data file"),
-            html.P(f"A recorder file: WAV, CSV, HDF5 or Parquet, at most {MAX_UPLOAD_MB} MB. "
-                   "Larger files: use the command line (rundash import).", className="note"),
+            html.P(f"A recorder file: WAV, CSV, HDF5, Parquet or MDF. An upload is capped at "
+                   f"{MAX_UPLOAD_MB} MB (also from other computers); larger files: give the "
+                   "path below on this computer, or use the command line (rundash import).",
+                   className="note"),
             drop(ids.UPLOAD_DATA, "Drop the data file here, or click to choose it",
                  ",".join(DATA_SUFFIXES), MAX_UPLOAD_BYTES),
             html.Div(id=ids.UPLOAD_DATA_NAME, className="note"),
+            *local,
             html.H3("2 · Machine description", style={"marginTop": "14px"}),
             dcc.RadioItems(id=ids.MACHINE_SOURCE, options=sources,
                            value=sources[1]["value"] if len(sources) > 1 else "upload",
@@ -406,7 +483,10 @@ def layout(db):
                 html.Div([html.Label("Started (UTC)", className="head"),
                           dcc.Input(id=ids.STARTED, type="text", style={"width": "180px"},
                                     placeholder="2025-06-03 06:15")]),
-                html.Button("Import and process", id=ids.START, n_clicks=0,
+                dcc.Checklist(id=ids.PROCESS, value=["process"],
+                              options=[{"label": "process after import", "value": "process"}],
+                              inputStyle={"marginRight": "4px"}),
+                html.Button("Import", id=ids.START, n_clicks=0,
                             style={"padding": "7px 16px", "fontWeight": "600"}),
             ]),
         ]),
@@ -451,11 +531,15 @@ def register_callbacks(app, db) -> None:
                   State(ids.UPLOAD_DATA, "contents"), State(ids.UPLOAD_DATA, "filename"),
                   State(ids.MACHINE_SOURCE, "value"), State(ids.UPLOAD_MACHINE, "contents"),
                   State(ids.LABEL, "value"), State(ids.CYCLE, "value"), State(ids.KIND, "value"),
-                  State(ids.STARTED, "value"), prevent_initial_call=True)
-    def _start(n, data, name, source, machine, label, cycle, kind, started):
+                  State(ids.STARTED, "value"), State(ids.LOCAL_PATH, "value"),
+                  State(ids.PROCESS, "value"), prevent_initial_call=True)
+    def _start(n, data, name, source, machine, label, cycle, kind, started, local_path,
+               process):
         job, error = start_import(jobs, db, data_contents=data, data_name=name,
                                   machine_source=source, machine_contents=machine, label=label,
-                                  cycle=cycle, kind=kind, started=started)
+                                  cycle=cycle, kind=kind, started=started,
+                                  local_path=local_path, local_allowed=local_files_allowed(),
+                                  process=isinstance(process, list) and "process" in process)
         if error:
             return None, True, html.Div(error, className="error"), "Not started."
         return job, False, "", "Starting…"
