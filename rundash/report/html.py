@@ -430,5 +430,6 @@ def render(data: dict[str, Any], *, flavour: Flavour = "interactive", reviewer: 
         + _comparison_section(data) + review_section(review, n_sec - 1)
         + f"<h2>{n_sec}. Plots</h2>" + "".join(parts)
         # the stored sign-off fills the block; without one, the fields given (or blanks)
-        + (stored_signoff(review) or _signoff(reviewer, decision, remarks, role))
+        + (stored_signoff(review, typed=bool(reviewer or decision or remarks or role))
+           or _signoff(reviewer, decision, remarks, role))
         + "</body></html>")

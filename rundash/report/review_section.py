@@ -73,8 +73,10 @@ def review_section(review: dict[str, Any] | None, number: int) -> str:
     return "".join(out)
 
 
-def stored_signoff(review: dict[str, Any] | None) -> str:
-    """The sign-off block filled from the stored sign-off, or "" when there is none."""
+def stored_signoff(review: dict[str, Any] | None, *, typed: bool = False) -> str:
+    """The sign-off block filled from the stored sign-off, or "" when there is none;
+    ``typed``: reviewer fields were given for this report (they are not used, and the
+    block says so)."""
     s = (review or {}).get("sign_off")
     if not s:
         return ""
@@ -97,5 +99,7 @@ def stored_signoff(review: dict[str, Any] | None) -> str:
         f'<tr><th>Record</th><td>recorded {_e(str(s["created_at"])[:19].replace("T", " "))} '
         f'UTC on the processing of {_e(s["processing_at"])}; entry {_e(s["uid"])}</td></tr>'
         '</table>' + where
+        + ('<p class="small">The run has a stored sign-off: this block shows it; the '
+           'reviewer fields given for this report are not used.</p>' if typed else "")
         + f'<p class="small">{_e(review["record_note"])}</p>'
         f'<p class="small">{_e(CAUTION)}</p></div>')

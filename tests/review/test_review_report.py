@@ -38,6 +38,10 @@ def test_report_carries_the_review_and_the_signed_block(reviewed, tmp_path):
     assert '<span class="box x"></span>accepted with remarks' in block
     assert "watch DE-Y" in block and "not an electronic signature" in block
     assert "earlier processing" not in block
+    typed = _text(write_report(db, run, tmp_path / "t.html", n_boot=0, reviewer="Someone Else"))
+    block = typed[typed.index('id="signoff-record"'):]
+    assert "R. Okafor" in block and "Someone Else" not in block
+    assert "the reviewer fields given for this report are not used" in block
 
 
 def test_report_says_the_sign_off_is_of_an_earlier_processing(reviewed, tmp_path):
