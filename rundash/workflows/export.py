@@ -44,7 +44,8 @@ COMPARISON_COLUMNS = ("machine", "reference", "run_a", "run_b", "pair_verdict",
                       "like_with_like", "probe", "bearing", "axis", "kind", "direction_a",
                       "direction_b", "section", "critical", "quantity", "units", "a", "b",
                       "a_std", "b_std", "a_lag_deg", "b_lag_deg", "delta", "delta_pct",
-                      "sigma", "significant", "k", "changed", "hints", "notes", "caution")
+                      "sigma", "significant", "k", "floor", "floor_source", "flagged",
+                      "changed", "hints", "notes", "caution")
 
 
 def _directions(time_s: np.ndarray, segments) -> np.ndarray:
@@ -132,7 +133,7 @@ def speed_table(db, run_id: int) -> pd.DataFrame:
 
 def _flat(entry: Mapping[str, Any]) -> dict[str, Any]:
     """A findings entry as one row: ``band_rpm`` as ``band_lo_rpm``/``band_hi_rpm``, other
-    lists joined by '; ', nested objects left out."""
+    lists joined by '; ', a nested object's plain values as ``<key>_<inner key>``."""
     out: dict[str, Any] = {}
     for k, v in entry.items():
         if k == "band_rpm":
@@ -140,7 +141,11 @@ def _flat(entry: Mapping[str, Any]) -> dict[str, Any]:
             out["band_lo_rpm"], out["band_hi_rpm"] = lo, hi
         elif isinstance(v, (list, tuple)):
             out[k] = "; ".join(str(x) for x in v)
-        elif not isinstance(v, Mapping):
+        elif isinstance(v, Mapping):
+            for k2, v2 in v.items():
+                if v2 is None or isinstance(v2, (str, int, float, bool)):
+                    out[f"{k}_{k2}"] = v2
+        else:
             out[k] = v
     return out
 
@@ -230,7 +235,7 @@ def run_table(db, run_id: int, what: str, *, orders: Sequence[float] | None = No
 def _shift_row(s: Mapping[str, Any] | None) -> dict[str, Any]:
     s = s or {}
     return {k: s.get(k) for k in ("a", "b", "a_std", "b_std", "delta", "delta_pct", "sigma",
-                                  "significant", "k")}
+                                  "significant", "k", "floor", "floor_source", "flagged")}
 
 
 def comparison_table(comparison: Mapping[str, Any]) -> pd.DataFrame:
