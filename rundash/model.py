@@ -134,6 +134,21 @@ class SiteLevel:
 
 
 @dataclass(frozen=True)
+class ZoneSpec:
+    """``[zones]``: which ISO part and class the vibration zones come from (None: the
+    default, said in the findings). ``part`` '10816-3' | '10816-7' | '10816-2'; ``group``
+    'group1' | 'group2'; ``support`` 'rigid' | 'flexible'; ``pump_category`` 'I' | 'II';
+    ``pump_power`` 'above-200kW' | 'up-to-200kW'; ``new_machine``: zone A expected."""
+
+    part: str | None = None
+    group: str | None = None
+    support: str | None = None
+    pump_category: str | None = None
+    pump_power: str | None = None
+    new_machine: bool | None = None
+
+
+@dataclass(frozen=True)
 class MachineDescription:
     """Everything a machine description file says."""
 
@@ -144,6 +159,7 @@ class MachineDescription:
     source: str = ""
     processing: ProcessingSpec = field(default_factory=ProcessingSpec)
     levels: tuple[SiteLevel, ...] = ()
+    zones: ZoneSpec = field(default_factory=ZoneSpec)
 
     def probe(self, name: str) -> ProbeSpec:
         for p in self.probes:

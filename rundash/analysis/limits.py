@@ -22,7 +22,7 @@ import numpy as np
 
 from rundash.analysis.profiles import as_profile
 from rundash.analysis.scope import Scope, qualifying_hold
-from rundash.analysis.zones import BEARING_VELOCITY, SHAFT_DISPLACEMENT
+from rundash.analysis.zones import BEARING_VELOCITY, SHAFT_DISPLACEMENT, ZoneSettings
 from rundash.analysis.zones import cite as _cite
 from rundash.errors import AnalysisError, invalid_value
 
@@ -99,7 +99,7 @@ def check_levels(speed_rpm, *, vector=None, direct=None, criticals=(), kind: Lit
                  machine_group: Literal["group1", "group2"] = "group1",
                  support: Literal["rigid", "flexible"] = "rigid",
                  top_speed_is_steady: bool = False, top_window_pct: float = 1.0,
-                 run_kind: str = "run-up", site_levels=()
+                 run_kind: str = "run-up", site_levels=(), zones: ZoneSettings | None = None
                  ) -> tuple[LevelCheck, ...]:
     """Highest direct and 1X level through each critical band and at the top speed.
 
@@ -128,7 +128,11 @@ def check_levels(speed_rpm, *, vector=None, direct=None, criticals=(), kind: Lit
     profile : Profile or None
         Profile whose ``[[limits]]`` apply, in addition to the ISO reference zones.
     machine_group, support :
-        ISO 10816-3 machine group and support class for velocity zones.
+        ISO 10816-3 machine group and support class for velocity zones (when ``zones``
+        is not given).
+    zones : ZoneSettings, optional
+        The ISO part and class of the zones and whether a new machine's zone A is
+        expected (:class:`rundash.analysis.zones.ZoneSettings`); stated in each note.
     top_speed_is_steady : bool
         True when the top speed was held steady: the ISO zones then give a verdict there.
     top_window_pct : float
@@ -155,6 +159,7 @@ def check_levels(speed_rpm, *, vector=None, direct=None, criticals=(), kind: Lit
     if not (max_continuous_speed_rpm > 0):
         raise AnalysisError(invalid_value("max_continuous_speed_rpm", max_continuous_speed_rpm, "a positive speed in rpm"))
     series, units = _series(s, vector, direct, kind, amplitude_factor)
+    zs = zones if zones is not None else ZoneSettings(group=machine_group, support=support)
     prof = as_profile(profile) if profile is not None else None
     windows = []
     for c in criticals:
@@ -182,7 +187,7 @@ def check_levels(speed_rpm, *, vector=None, direct=None, criticals=(), kind: Lit
             level, at = got
             steady = where == "top speed" and top_speed_is_steady
             out += _with_site(_zone_check(where, (lo, hi), at, quantity, level, units, kind,
-                                          machine_group, support, steady),
+                                          zs, steady),
                               site_levels, run_kind)
             if prof is None:
                 continue
@@ -208,8 +213,8 @@ def check_holds(time_s, speed_rpm, holds, *, vector=None, direct=None,
                 amplitude_factor: float = 2.0, min_operating_speed_rpm: float,
                 max_continuous_speed_rpm: float, profile=None, run_kind: str = "steady",
                 machine_group: Literal["group1", "group2"] = "group1",
-                support: Literal["rigid", "flexible"] = "rigid", site_levels=()
-                ) -> tuple[LevelCheck, ...]:
+                support: Literal["rigid", "flexible"] = "rigid", site_levels=(),
+                zones: ZoneSettings | None = None) -> tuple[LevelCheck, ...]:
     """Highest direct and 1X level during each steady hold, against the rules whose
     scope is a hold (and the ISO zones, whose scope is steady operation in the range).
 
@@ -235,6 +240,7 @@ def check_holds(time_s, speed_rpm, holds, *, vector=None, direct=None,
     if t.shape != s.shape or s.ndim != 1:
         raise AnalysisError(invalid_value("time_s", f"shape {t.shape}", f"the shape of speed_rpm {s.shape}"))
     series, units = _series(s, vector, direct, kind, amplitude_factor)
+    zs = zones if zones is not None else ZoneSettings(group=machine_group, support=support)
     prof = as_profile(profile) if profile is not None else None
     n_min, n_mc = float(min_operating_speed_rpm), float(max_continuous_speed_rpm)
     out = []
@@ -252,7 +258,7 @@ def check_holds(time_s, speed_rpm, holds, *, vector=None, direct=None,
                 continue
             level, at = got
             zc = _zone_check("steady hold", band, at, quantity, level, units, kind,
-                             machine_group, support, in_range)
+                             zs, in_range)
             if not in_range:
                 zc = replace(zc, note=f"zone {zc.zone} for reference: the hold is shorter "
                                       f"than the zones' scope ({ZONE_SCOPE.describe()})")
@@ -365,25 +371,31 @@ def _highest(mask, lvl, s):
     return float(vals[k]), float(s[k])
 
 
-def _zone_check(where, band, at, quantity, level, units, kind, machine_group, support,
+def _zone_check(where, band, at, quantity, level, units, kind, zs: ZoneSettings,
                 steady) -> LevelCheck:
     if kind == "proximity":
         bounds = tuple(float(b) for b in shaft_zone_boundaries_um_pp(at))
         src = _cite(SHAFT_DISPLACEMENT)
         zid = "iso-shaft-zones"
     else:
-        bounds = velocity_zone_boundaries_mm_s(machine_group, support)
-        row = next(r for r in BEARING_VELOCITY
-                   if r["group"] == machine_group and r["support"] == support)
+        row = zs.velocity_row(at)
+        bounds = (float(row["ab"]), float(row["bc"]), float(row["cd"]))
         src = _cite(row)
-        zid = f"iso-velocity-zones-{machine_group}-{support}"
+        zid = {"10816-3": f"iso-velocity-zones-{zs.group}-{zs.support}",
+               "10816-7": f"iso-pump-zones-{zs.pump_category}-{zs.pump_power}",
+               "10816-2": "iso-large-set-zones"}[zs.part]
     zone = zone_of(level, bounds)
+    settings = zs.describe() if kind != "proximity" else (
+        "shaft zones; zone A expected for a new machine" if zs.new_machine else
+        "shaft zones; zones A and B acceptable for long-term operation") + (
+        " (default)" if "new_machine" in zs.defaulted else "")
     if steady:
-        status = "within" if zone in ("A", "B") else "exceeds"
-        note = f"zone {zone} (boundaries {', '.join(f'{b:.3g}' for b in bounds)} {units})"
+        status = "within" if zs.acceptable(zone) else "exceeds"
+        note = (f"zone {zone} (boundaries {', '.join(f'{b:.3g}' for b in bounds)} {units}; "
+                f"{settings})")
     else:
         status = "reference only"
         note = (f"zone {zone} for reference: the zones are for steady operation, not "
-                f"for transients")
+                f"for transients ({settings})")
     return LevelCheck(where, band, at, quantity, level, units, zid, bounds[1], zone, status,
                       note, src, ZONE_SCOPE.describe())

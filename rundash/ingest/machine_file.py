@@ -18,7 +18,7 @@ from rundash.ingest import bounds
 from rundash.ingest.toml_check import TomlChecker, parse_toml
 from rundash.model import (
     MACHINE_KINDS, TRANSDUCER_KINDS, DataSpec, MachineDescription, MachineSpec,
-    ProcessingSpec, ProbeSpec, SiteLevel, TachSpec,
+    ProcessingSpec, ProbeSpec, SiteLevel, TachSpec, ZoneSpec,
 )
 from rundash.units import TO_STORAGE
 
@@ -78,10 +78,11 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
     """Parse and validate the text of a machine description file."""
     ck = TomlChecker(source)
     raw = parse_toml(text, source)
-    unknown = sorted(set(raw) - {"machine", "tach", "probes", "data", "processing", "levels"})
+    unknown = sorted(set(raw) - {"machine", "tach", "probes", "data", "processing", "levels",
+                                 "zones"})
     if unknown:
         ck.fail(unknown[0], "unknown table; allowed: [machine], [tach], [[probes]], [data], "
-                            "[processing], [[levels]]")
+                            "[processing], [[levels]], [zones]")
     for key in ("machine", "tach", "probes"):
         if key not in raw:
             ck.fail(f"[{key}]" if key != "probes" else "[[probes]]", "missing required table")
@@ -192,7 +193,35 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
     return MachineDescription(machine=machine, tach=tach, probes=tuple(probes), data=data,
                               source=source,
                               processing=_processing(ck, raw.get("processing", {}), machine),
-                              levels=_levels(ck, raw.get("levels", []), probes))
+                              levels=_levels(ck, raw.get("levels", []), probes),
+                              zones=_zones(ck, raw.get("zones", {}), machine))
+
+
+_ZONE_KEYS = {"part": (str, False), "group": (str, False), "support": (str, False),
+              "pump_category": (str, False), "pump_power": (str, False),
+              "new_machine": (bool, False)}
+_ZONE_CHOICES = {"part": ("10816-3", "10816-7", "10816-2"), "group": ("group1", "group2"),
+                 "support": ("rigid", "flexible"), "pump_category": ("I", "II"),
+                 "pump_power": ("above-200kW", "up-to-200kW")}
+
+
+def _zones(ck: TomlChecker, raw, machine: MachineSpec) -> ZoneSpec:
+    """``[zones]``: the ISO part and class of the vibration zones (module doc of
+    :mod:`rundash.analysis.zones`); keys left out take the defaults, said in the output."""
+    t = ck.table(raw, "[zones]", _ZONE_KEYS)
+    for k, allowed in _ZONE_CHOICES.items():
+        if k in t:
+            ck.choice(f"[zones].{k}", t[k], allowed)
+    part = t.get("part")
+    wrong = {"10816-3": ("pump_category", "pump_power"), "10816-7": ("group", "support"),
+             "10816-2": ("group", "support", "pump_category", "pump_power")}
+    if part is None:
+        part = "10816-7" if machine.kind == "pump" else "10816-3"
+    for k in wrong[part]:
+        if k in t:
+            ck.fail(f"[zones].{k}", f"does not apply to ISO {part} (the part "
+                    f"{'given' if 'part' in t else 'taken for a ' + machine.kind}); remove it")
+    return ZoneSpec(**t)
 
 
 _LEVEL_KEYS = {"probe": (str, False), "bearing": (str, False), "measure": (str, False),

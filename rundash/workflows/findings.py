@@ -20,6 +20,7 @@ from rundash import CAUTION
 from rundash.analysis import criticals as crit_mod
 from rundash.analysis.limits import ZONE_SCOPE, check_holds, check_levels
 from rundash.analysis.scope import find_holds
+from rundash.analysis.zones import ZoneSettings
 from rundash.analysis.modes import mode_hint
 from rundash.analysis.vectors import mean_vector_near
 from rundash.analysis.verdicts import judge, summarize
@@ -156,6 +157,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
     # what the run records decides which rules are in scope: a field run's stretches by
     # their direction (holds as 'steady'), a marked shop or trip test as such
     test_kind = getattr(run, "test_kind", "field") or "field"
+    zones = ZoneSettings.for_machine(m.kind, **vars(desc.zones))
     holds = _holds(track, profile)
     hold_kind = "steady" if test_kind == "field" else test_kind
     for (name, d), (crits, s, v, t, afac, i) in per_probe.items():
@@ -199,7 +201,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                                   max_continuous_speed_rpm=m.max_continuous_speed_rpm,
                                   profile=profile,
                                   run_kind=d if test_kind == "field" else test_kind,
-                                  site_levels=[x for x in desc.levels if x.probe == name])
+                                  site_levels=[x for x in desc.levels if x.probe == name],
+                                  zones=zones)
             level_checks.extend(checks)
             _limit_rows(limits_json, checks, name, d)
 
@@ -217,7 +220,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                                  max_continuous_speed_rpm=m.max_continuous_speed_rpm,
                                  profile=profile, run_kind=hold_kind,
                                  site_levels=[x for x in desc.levels
-                                              if x.probe == ch.probe_name])
+                                              if x.probe == ch.probe_name], zones=zones)
             level_checks.extend(checks)
             _limit_rows(limits_json, checks, ch.probe_name, "steady")
 
@@ -282,6 +285,10 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                         trip_speed_rpm=m.trip_speed_rpm, kind=m.kind),
         "profile": dict(sj["profile"], rules=_profile_rules(profile),
                         confidence_note=profile.confidence_note()),
+        "zones": dict(settings=zones.describe(), part=zones.part, group=zones.group,
+                      support=zones.support, pump_category=zones.pump_category,
+                      pump_power=zones.pump_power, new_machine=zones.new_machine,
+                      defaulted=list(zones.defaulted)),
         "site_levels": [dict(probe=x.probe, measure=x.measure, alert=x.alert, trip=x.trip,
                              source=x.source) for x in desc.levels],
         "processing": dict(slow_roll_rpm=list(slow_roll_rpm) if slow_roll_rpm else None,
