@@ -109,3 +109,28 @@ def test_comparison_cells_are_the_same_in_cli_page_and_report(demo, capsys):
         for row in rows:
             for key in ("probe", "speed_shift", "af_shift"):
                 assert row[key] in text, (name, key, row[key])
+
+
+def test_sweep_free_uncertainty_said_statistical_only_when_the_fit_is_poor():
+    """A modal model that leaves a systematic misfit (several times the noise) errs by
+    more than a bootstrap over independent residuals says: its ± are marked as
+    statistical only (common practice, no source): the reading's cell drops them and says
+    the fit is poor, the model's summary says so."""
+    from rundash.presentation.modal import modal_model_lines, reading_cells
+    from rundash.workflows.modal import UNCERTAINTY_NOTE
+
+    crit = {"apparent": {"speed_rpm": 3487.0, "af": 5.86}, "governing": "apparent",
+            "sweep_free": {"speed_rpm": 3479.0, "speed_std_rpm": 0.4, "af": 5.82,
+                           "af_std": 0.0078, "fit_good": False,
+                           "uncertainty_note": UNCERTAINTY_NOTE}}
+    cells = reading_cells(crit)
+    assert cells["sweep_free"] == "3,479, AF 5.82; fit poor"
+    assert "(governs)" in cells["apparent"]
+    good = dict(crit, sweep_free=dict(crit["sweep_free"], fit_good=True,
+                                      uncertainty_note=None))
+    assert reading_cells(good)["sweep_free"] == "3,479 ± 0.4, AF 5.82 ± 0.0078"
+    mm = {"modal_model": {"status": "fitted", "fitted_probes": ["A"], "misfit_ratio": 26.5,
+                          "modes": []}}
+    assert "statistical only" in modal_model_lines(mm)[0]
+    mm["modal_model"]["misfit_ratio"] = 1.1
+    assert "statistical only" not in modal_model_lines(mm)[0]

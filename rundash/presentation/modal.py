@@ -23,7 +23,10 @@ def reading_cells(c: Mapping[str, Any]) -> dict[str, str]:
     sf = c.get("sweep_free")
     gov = c.get("governing") or "apparent"
     app = f"{number(ap.get('speed_rpm'))}, AF {number(ap.get('af'), 2)}"
-    if sf:
+    if sf and sf.get("uncertainty_note"):
+        # the bootstrap's +/- would understate a systematic misfit: no +/- is shown
+        free = f"{number(sf.get('speed_rpm'))}, AF {number(sf.get('af'), 2)}; fit poor"
+    elif sf:
         free = (f"{plus_minus(sf.get('speed_rpm'), sf.get('speed_std_rpm'), 0)}, AF "
                 f"{plus_minus(sf.get('af'), sf.get('af_std'), 2)}")
     else:
@@ -86,7 +89,9 @@ def modal_model_lines(findings) -> list[str]:
     if mm.get("status") != "fitted":
         return [f"no modal model: {mm.get('note') or 'not fitted'}"]
     out = [f"one model for {', '.join(mm.get('fitted_probes') or [])} ({mm.get('basis', '')}); "
-           f"misfit {number(mm.get('misfit_ratio'), 2)} × the noise"]
+           f"misfit {number(mm.get('misfit_ratio'), 2)} × the noise"
+           + ("; the ± below are statistical only: with a systematic misfit this large the "
+              "real errors are larger" if (mm.get("misfit_ratio") or 0) > 2 else "")]
     for m in mm.get("modes") or []:
         h = m.get("shape_hint") or {}
         out.append(

@@ -46,6 +46,13 @@ from rundash.units import vector_amplitude_factor
 #: Bootstrap replicates of the run's modal model.
 N_BOOT = 20
 #: A sweep-free reading belongs to a quasi-steady critical within this fraction of speed.
+#: What the sweep-free +/- mean when the fit of the band is not good. The bootstrap
+#: spreads the residuals as if they were independent from block to block; a model that
+#: leaves a smooth, systematic misfit (several times the noise) errs by more than that
+#: spread says (common practice, no source).
+UNCERTAINTY_NOTE = ("the ± are statistical only: the model leaves a systematic misfit in "
+                    "this band, so the reading's real error is larger than they say")
+
 MATCH_FRACTION = 0.08
 
 SOURCES = ("F. M. Lewis, Trans. ASME 54 (1932): sweep shift of the apparent critical",
@@ -133,6 +140,8 @@ class RunModal:
                   unresolved_split=bool(cl.unresolved_split) if cl else False,
                   conservative_af=json_number(cl.conservative_af) if cl else None,
                   notes=list(cl.notes) if cl else [])
+        if cl is None or not cl.good:
+            sf["uncertainty_note"] = UNCERTAINTY_NOTE
         out["sweep_free"] = sf
         shift = 100.0 * (crit.speed_rpm / r.speed_rpm - 1.0)
         if cl is None or not cl.good:
