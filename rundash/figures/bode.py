@@ -154,7 +154,8 @@ def bode(traces: Sequence[Mapping[str, Any]], *, kind: str = "proximity",
             "x": [c["speed_rpm"] for c in shown],
             "y": [float(a) if a is not None else ymax for a in amps],
             "mode": "markers+text", "name": "critical speeds", "meta": "critical",
-            "text": [critical_label(c) for c in shown], "textposition": "top center",
+            "text": [critical_label(c) for c in shown],
+            "textposition": _label_sides([float(c["speed_rpm"]) for c in shown]),
             "textfont": {"size": 11}, "cliponaxis": False,
             "marker": {"symbol": [direction_style(c.get("direction"))["symbol"] for c in shown],
                        "size": 11, "color": INK, "line": {"color": "white", "width": 1}},
@@ -211,6 +212,20 @@ def _model_traces(model, probes, phase_of, kind, system, phase) -> list[dict]:
         out.append(dict(common, y=typed_array(lag), xaxis="x2", yaxis="y2", showlegend=False,
                         hovertemplate="%{x:.0f} rpm<br>%{y:.0f}° lag" + f"<extra>{name}</extra>"))
     return out
+
+
+def _label_sides(speeds_rpm: Sequence[float], close_pct: float = 5.0) -> list[str]:
+    """Text positions of the critical labels: centred above each marker, but a label
+    within ``close_pct`` % in speed of its neighbour goes to the left of the lower one and
+    the right of the higher one, so two close criticals (X and Y of one bearing) do not
+    print on top of each other."""
+    pos = ["top center"] * len(speeds_rpm)
+    order = sorted(range(len(speeds_rpm)), key=lambda i: speeds_rpm[i])
+    for a, b in zip(order, order[1:]):
+        if abs(speeds_rpm[b] - speeds_rpm[a]) <= close_pct / 100.0 * max(speeds_rpm[a], 1.0):
+            pos[a] = "top left" if pos[a] == "top center" else pos[a]
+            pos[b] = "top right"
+    return pos
 
 
 # ----------------------------------------------------------------------------- polar

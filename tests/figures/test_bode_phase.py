@@ -69,3 +69,13 @@ def test_polar_speed_labels_of_several_runs_do_not_pile_up():
     assert len(pts) >= 5
     gaps = [abs(p - q) for i, p in enumerate(pts) for q in pts[i + 1:]]
     assert min(gaps) >= 0.08 * r_max  # the stated minimum gap (our display choice)
+
+
+def test_close_critical_labels_do_not_overprint():
+    from tests.test_figures import critical
+
+    a, b = track(), track(probe="P-Y")
+    d = figures.bode([a, b], criticals=[critical("P-X", 3500.0), critical("P-Y", 3520.0),
+                                        critical("P-X", 4800.0)]).to_dict()
+    crit = next(t for t in d["data"] if t.get("name") == "critical speeds")
+    assert list(crit["textposition"]) == ["top left", "top right", "top center"]
