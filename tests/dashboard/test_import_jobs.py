@@ -297,3 +297,20 @@ def test_an_uploaded_description_of_nested_arrays_is_a_message(demo_db):
     assert job is None
     assert err == ("machine description: not a usable TOML file: arrays or tables are nested "
                    "hundreds of levels deep; expected plain keys and tables")
+
+
+@pytest.mark.parametrize("kind, direction, test_kind", [
+    ("shop-test", "mixed", "shop-test"), ("trip-test", "mixed", "trip-test"),
+    ("run-up", "run-up", "field")])
+def test_the_import_page_marks_a_shop_or_trip_test(db, kind, direction, test_kind):
+    # the kind chosen on the import page: a field run's direction, or a marked shop
+    # (mechanical running) test or trip test, stored as the run's test kind
+    from tests.badinput.make_corpus import csv_text
+    assert kind in importer.KINDS and kind in importer.KIND_LABELS
+    st = importer.ImportJobs(db).run_sync(
+        filename="r.csv", data=csv_text(signals()).encode(), description_text=machine_text(),
+        label="", cycle="", kind=kind, started_at=None, process=False)
+    assert st.done and st.error is None
+    with db.read() as conn:
+        run = q.get_run(conn, st.run_id)
+    assert (run.kind, run.test_kind) == (direction, test_kind)
