@@ -1,4 +1,6 @@
-"""Critical speeds from a 1X response versus speed: find, confirm, classify, compare.
+"""Critical speeds from a 1X response versus speed: find, confirm, classify (pairing X/Y
+and run directions in :mod:`rundash.analysis.critical_pairs`, readings at the top of a run
+in :mod:`rundash.analysis.run_edges`; both importable from here).
 
 Input is one probe and one run direction: shaft speeds in rpm and the slow-roll
 compensated complex 1X phasors ``c`` of :mod:`rundash.conventions` (``|c|`` peak amplitude
@@ -26,6 +28,10 @@ from rundash.analysis.amplification import (
     phase_af,
 )
 from rundash.errors import AnalysisError, SweepRateWarning, invalid_value
+
+__all__ = ["Critical", "find_criticals", "CRITICALLY_DAMPED_AF", "QUASI_STEADY_RATIO",
+           "CriticalPair", "combine_bearing", "compare_directions", "RisingAtTop",
+           "rising_at_top", "first_candidate_rpm"]
 
 Direction = Literal["run-up", "coast-down"]
 Measure = Literal["displacement", "velocity", "acceleration"]
@@ -782,228 +788,10 @@ def _phase_only(curve, bands, s_raw, t_raw, cd_af, ratio_min, do_fit, direction,
 
 
 # --------------------------------------------------------------------------- comparisons
-@dataclass(frozen=True)
-class CriticalPair:
-    """Two criticals matched by speed (either may be missing).
-
-    ``speed_difference_pct = 100 (b - a) / a`` and ``af_difference = af_b - af_a`` when
-    both exist; ``agreement`` is ``'agree'``, ``'differ'`` or ``'one side only'``.
-    """
-
-    a: Critical | None
-    b: Critical | None
-    speed_difference_pct: float | None
-    af_difference: float | None
-    agreement: str
-    note: str
 
 
-def _pair(first, second, tol_pct, af_tol, names):
-    left, right = list(first), list(second)
-    pairs = []
-    used = set()
-    for ca in left:
-        best, best_d = None, None
-        for j, cb in enumerate(right):
-            if j in used:
-                continue
-            d = 100.0 * (cb.speed_rpm - ca.speed_rpm) / ca.speed_rpm
-            if abs(d) <= tol_pct and (best_d is None or abs(d) < abs(best_d)):
-                best, best_d = j, d
-        if best is None:
-            pairs.append((ca, None, None))
-        else:
-            used.add(best)
-            pairs.append((ca, right[best], best_d))
-    pairs += [(None, cb, None) for j, cb in enumerate(right) if j not in used]
-    out = []
-    for ca, cb, d in pairs:
-        if ca is None or cb is None:
-            only = names[0] if cb is None else names[1]
-            c = ca or cb
-            out.append(CriticalPair(ca, cb, None, None, "one side only",
-                                    f"critical at {c.speed_rpm:.0f} rpm seen by {only} only"))
-            continue
-        daf = (cb.af_governing - ca.af_governing
-               if ca.af_governing is not None and cb.af_governing is not None else None)
-        ok = abs(d) <= tol_pct / 2 and (daf is None or abs(daf) <= af_tol * max(ca.af_governing, 1))
-        note = (f"{names[0]} {ca.speed_rpm:.0f} rpm, {names[1]} {cb.speed_rpm:.0f} rpm "
-                f"({d:+.1f} %)" + (f", AF difference {daf:+.2f}" if daf is not None else ""))
-        out.append(CriticalPair(ca, cb, d, daf, "agree" if ok else "differ", note))
-    return tuple(sorted(out, key=lambda p: (p.a or p.b).speed_rpm))
-
-
-def combine_bearing(criticals_x, criticals_y, *, match_tolerance_pct: float = 5.0,
-                    af_tolerance: float = 0.25, split_window_pct: float = 20.0
-                    ) -> tuple[CriticalPair, ...]:
-    """Combine the criticals of the X and Y probes of one bearing.
-
-    Criticals are matched by speed within ``match_tolerance_pct``; a pair agrees when the
-    speeds differ by at most half that and the AFs by at most ``af_tolerance`` of the X
-    AF. An X-only and a Y-only critical within ``split_window_pct`` of each other are
-    noted as a possible split critical (stiffer support in one direction; common
-    practice, no source).
-    """
-    if not match_tolerance_pct > 0:
-        raise AnalysisError(invalid_value("match_tolerance_pct", match_tolerance_pct, "a positive percentage"))
-    pairs = list(_pair(criticals_x, criticals_y, match_tolerance_pct, af_tolerance, ("X", "Y")))
-    # indices, not the pairs themselves: a pair's note grows with each partner, and one
-    # X-only critical may sit in the split window of two Y-only ones (or the reverse)
-    xs = [k for k, p in enumerate(pairs) if p.b is None]
-    ys = [k for k, p in enumerate(pairs) if p.a is None]
-    notes = {k: [] for k in xs + ys}
-    for kx in xs:
-        cx = pairs[kx].a
-        for ky in ys:
-            cy = pairs[ky].b
-            d = 100.0 * (cy.speed_rpm - cx.speed_rpm) / cx.speed_rpm
-            if abs(d) <= split_window_pct:
-                notes[kx].append((cy.speed_rpm, d))
-                notes[ky].append((cx.speed_rpm, d))
-    for k, partners in notes.items():
-        if partners:
-            p = pairs[k]
-            pairs[k] = CriticalPair(p.a, p.b, None, None, p.agreement, p.note + "".join(
-                f"; possible split critical with the other probe's {sp:.0f} rpm ({d:+.1f} %), "
-                "e.g. anisotropic supports" for sp, d in partners))
-    return tuple(pairs)
-
-
-def compare_directions(run_up, coast_down, *, match_tolerance_pct: float = 5.0,
-                       af_tolerance: float = 0.25) -> tuple[CriticalPair, ...]:
-    """Match run-up and coast-down criticals of one probe and report their differences.
-
-    ``a`` is the run-up critical, ``b`` the coast-down one. A finite sweep rate shifts the
-    apparent peak in the sweep direction (F. M. Lewis, Trans. ASME, 1932), so a run-up
-    peak reading above the coast-down one is expected when sweeps are fast.
-    """
-    if not match_tolerance_pct > 0:
-        raise AnalysisError(invalid_value("match_tolerance_pct", match_tolerance_pct, "a positive percentage"))
-    return _pair(run_up, coast_down, match_tolerance_pct, af_tolerance, ("run-up", "coast-down"))
-
-
-@dataclass(frozen=True)
-class RisingAtTop:
-    """The 1X response still climbs at the top of a run's speed range.
-
-    A critical may lie above the highest speed reached; it cannot be located or judged
-    from this run. ``rise_pct`` is the amplitude rise over ``from_rpm``..``to_rpm``;
-    ``lag_change_deg`` the lag change over the same span (rising lag points to a
-    resonance ahead; common practice, no source).
-    """
-
-    from_rpm: float
-    to_rpm: float
-    amplitude_from: float
-    amplitude_to: float
-    rise_pct: float
-    lag_change_deg: float
-    note: str
-
-
-def rising_at_top(speed_rpm, vector, *, amplitude_factor: float = 2.0,
-                  top_fraction: float = 0.1, min_rise: float = 0.25,
-                  min_points: int = 10) -> RisingAtTop | None:
-    """Say whether the 1X amplitude still rises at the top speed of a run.
-
-    Compares the mean amplitude in the lowest and highest ``top_fraction / 4`` of the top
-    ``top_fraction`` of the speed range; a rise of at least ``min_rise`` (relative) with an
-    amplitude that grows across the span (more than two thirds of the bins above the
-    first) gives a :class:`RisingAtTop`, else None.
-
-    Parameters
-    ----------
-    speed_rpm : array_like, shape (n,)
-    vector : array_like of complex, shape (n,)
-        1X phasors (:mod:`rundash.conventions`), slow-roll compensated.
-    amplitude_factor : float
-        Amplitude reported = ``amplitude_factor * |vector|`` (2 for p-p).
-    top_fraction : float
-        Part of the speed range (from the top) examined, 0 < top_fraction < 1.
-    min_rise : float
-        Relative rise that counts.
-    min_points : int
-        Fewer points than this in the span: None.
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> s = np.linspace(1000, 3000, 2000)
-    >>> r = s / 3300.0                      # a critical at 3300 rpm, above the top
-    >>> v = r**2 / (1 - r**2 + 0.1j * r)
-    >>> rising_at_top(s, v) is not None
-    True
-    >>> rising_at_top(s, np.full(s.size, 1.0 + 0j)) is None
-    True
-    """
-    s = np.asarray(speed_rpm, dtype=float).ravel()
-    v = np.asarray(vector, dtype=complex).ravel()
-    if s.shape != v.shape:
-        raise AnalysisError(invalid_value("vector", f"shape {v.shape}", f"the shape of speed_rpm {s.shape}"))
-    if not 0 < top_fraction < 1:
-        raise AnalysisError(invalid_value("top_fraction", top_fraction, "a fraction between 0 and 1"))
-    ok = np.isfinite(s) & np.isfinite(v)
-    s, v = s[ok], v[ok]
-    if s.size < min_points:
-        return None
-    top = float(s.max())
-    lo = top - top_fraction * (top - float(s.min()))
-    sel = s >= lo
-    if sel.sum() < min_points:
-        return None
-    ss, vv = s[sel], v[sel]
-    order = np.argsort(ss)
-    ss, vv = ss[order], vv[order]
-    edges = np.linspace(lo, top, 9)
-    idx = np.clip(np.searchsorted(edges, ss, side="right") - 1, 0, 7)
-    amp = amplitude_factor * np.abs(vv)
-    bins = np.array([amp[idx == k].mean() if np.any(idx == k) else np.nan for k in range(8)])
-    first, last = bins[0], np.nanmean(bins[-2:])
-    if not (np.isfinite(first) and np.isfinite(last)) or first <= 0:
-        return None
-    rise = last / first - 1.0
-    growing = np.nanmean(bins[1:] > first) > 2 / 3
-    if rise < min_rise or not growing:
-        return None
-    lag = np.degrees(np.unwrap(-np.angle(vv)))
-    k = max(1, lag.size // 8)
-    dlag = float(np.mean(lag[-k:]) - np.mean(lag[:k]))
-    note = (f"the 1X amplitude still rises at the top of the run: +{100 * rise:.0f} % from "
-            f"{lo:.0f} to {top:.0f} rpm (lag change {dlag:+.0f} deg); a critical may lie above "
-            f"{top:.0f} rpm and cannot be located or judged from this run")
-    return RisingAtTop(lo, top, float(first), float(last), 100 * rise, dlag, note)
-
-
-def first_candidate_rpm(speed_rpm, vectors, *, amplitude_factor: float = 2.0) -> float | None:
-    """Lowest confirmed critical speed in uncompensated 1X vectors, for choosing where
-    slow roll may be read (:func:`rundash.dsp.slowroll.choose_slow_roll_window`).
-
-    Runout adds a constant vector, which shifts neither a resonance's amplitude peak much
-    nor its phase rise; only peaks the phase confirms count, so a runout or noise bump
-    at low speed cannot push the slow-roll band down. No modal fit (a candidate only).
-
-    Parameters
-    ----------
-    speed_rpm : array_like, shape (n,)
-    vectors : array_like of complex, shape (n_channels, n) or (n,)
-
-    Returns
-    -------
-    float or None
-        None when no channel shows a confirmed critical (or the data are too few).
-    """
-    s = np.asarray(speed_rpm, dtype=float).ravel()
-    v = np.asarray(vectors, dtype=complex)
-    v = v[None, :] if v.ndim == 1 else v
-    best = None
-    for row in v:
-        try:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
-                found = find_criticals(s, row, amplitude_factor=amplitude_factor, fit=False)
-        except AnalysisError:
-            continue
-        for c in found:
-            if c.classification == "confirmed" and (best is None or c.speed_rpm < best):
-                best = float(c.speed_rpm)
-    return best
+# pairing and the edges of a run, importable from here as before the split
+from rundash.analysis.critical_pairs import (  # noqa: E402
+    CriticalPair, combine_bearing, compare_directions,
+)
+from rundash.analysis.run_edges import RisingAtTop, first_candidate_rpm, rising_at_top  # noqa: E402
