@@ -106,7 +106,10 @@ def _poll_storage(db, stop, log):
 def _poll_http(port, stop, log):
     base = f"http://127.0.0.1:{port}"
     route = json.dumps({
-        "output": "page.children", "outputs": {"id": "page", "property": "children"},
+        # the router's two outputs: the page and the browser tab's title
+        "output": "..page.children...page-title.data..",
+        "outputs": [{"id": "page", "property": "children"},
+                    {"id": "page-title", "property": "data"}],
         "inputs": [{"id": "url", "property": "pathname", "value": "/"}],
         "changedPropIds": ["url.pathname"], "state": []}).encode()
     while not stop.is_set():
