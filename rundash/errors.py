@@ -136,3 +136,16 @@ def invalid_value(name: str, got: object, allowed: str) -> str:
     "Invalid value for 'edge': allowed 'rising' or 'falling', got 'up'"
     """
     return f"Invalid value for {name!r}: allowed {allowed}, got {plain(got)}"
+
+
+def require_positive(name: str, value: float, allowed: str,
+                     error: type[Exception] = AnalysisError) -> None:
+    """Raise ``error`` worded by :func:`invalid_value` unless ``value > 0`` (NaN fails).
+
+    >>> require_positive("match_tolerance_pct", -1.0, "a positive percentage")
+    Traceback (most recent call last):
+    ...
+    rundash.errors.AnalysisError: Invalid value for 'match_tolerance_pct': allowed a positive percentage, got -1.0
+    """
+    if not value > 0:
+        raise error(invalid_value(name, value, allowed))

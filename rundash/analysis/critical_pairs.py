@@ -7,7 +7,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from rundash.analysis.criticals import Critical
-from rundash.errors import AnalysisError, invalid_value
+from rundash.errors import require_positive
 
 __all__ = ["CriticalPair", "combine_bearing", "compare_directions"]
 
@@ -74,8 +74,7 @@ def combine_bearing(criticals_x, criticals_y, *, match_tolerance_pct: float = 5.
     noted as a possible split critical (stiffer support in one direction; common
     practice, no source).
     """
-    if not match_tolerance_pct > 0:
-        raise AnalysisError(invalid_value("match_tolerance_pct", match_tolerance_pct, "a positive percentage"))
+    require_positive("match_tolerance_pct", match_tolerance_pct, "a positive percentage")
     pairs = list(_pair(criticals_x, criticals_y, match_tolerance_pct, af_tolerance, ("X", "Y")))
     # indices, not the pairs themselves: a pair's note grows with each partner, and one
     # X-only critical may sit in the split window of two Y-only ones (or the reverse)
@@ -107,6 +106,5 @@ def compare_directions(run_up, coast_down, *, match_tolerance_pct: float = 5.0,
     apparent peak in the sweep direction (F. M. Lewis, Trans. ASME, 1932), so a run-up
     peak reading above the coast-down one is expected when sweeps are fast.
     """
-    if not match_tolerance_pct > 0:
-        raise AnalysisError(invalid_value("match_tolerance_pct", match_tolerance_pct, "a positive percentage"))
+    require_positive("match_tolerance_pct", match_tolerance_pct, "a positive percentage")
     return _pair(run_up, coast_down, match_tolerance_pct, af_tolerance, ("run-up", "coast-down"))

@@ -44,7 +44,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rundash.errors import AnalysisError, invalid_value
+from rundash.errors import AnalysisError, invalid_value, require_positive
 
 SCOPE_RUN_KINDS = ("run-up", "coast-down", "steady", "shop-test", "trip-test")
 SPEED_CONDITIONS = ("any", "top-speed", "hold-at-max-continuous", "hold-in-operating-range")
@@ -156,8 +156,7 @@ def find_holds(time_s, speed_rpm, *, tolerance_pct: float, min_duration_s: float
     if t.shape != s.shape or t.ndim != 1:
         raise AnalysisError(invalid_value("time_s/speed_rpm", f"shapes {t.shape}, {s.shape}",
                                           "two 1-D arrays of one length"))
-    if not (tolerance_pct > 0):
-        raise AnalysisError(invalid_value("tolerance_pct", tolerance_pct, "a positive percentage"))
+    require_positive("tolerance_pct", tolerance_pct, "a positive percentage")
     ok = np.isfinite(t) & np.isfinite(s) & (s > 0)
     t, s = t[ok], s[ok]
     n = s.size
