@@ -6,7 +6,9 @@ Input is one probe and one run direction: shaft speeds in rpm and the slow-roll
 compensated complex 1X phasors ``c`` of :mod:`rundash.conventions` (``|c|`` peak amplitude
 in storage units, lag ``= conventions.lag_deg_from_phasor(c)``). Per-revolution data
 (thousands of noisy points, speed not uniformly spaced, not monotonic at the ends) are
-averaged as complex vectors into speed bins, then smoothed, before anything is read.
+averaged as complex vectors into speed bins, then smoothed, before anything is read
+(:mod:`rundash.analysis.response_curve`, with the readings of one band); what the sweep
+rate does to a reading is :mod:`rundash.analysis.sweep_rate`.
 """
 
 from __future__ import annotations
@@ -23,9 +25,21 @@ from rundash.analysis.amplification import (
     HalfPower,
     Mode,
     PhaseAF,
-    fit_modes,
     half_power,
     phase_af,
+)
+from rundash.analysis.response_curve import (
+    band_edges,
+    fit_band,
+    polar_loop,
+    prepare_curve,
+    quadrature_speed,
+    stalled_side,
+)
+from rundash.analysis.sweep_rate import (
+    QUASI_STEADY_RATIO,
+    drop_beating,
+    sweep_reading,
 )
 from rundash.errors import AnalysisError, SweepRateWarning, invalid_value
 
@@ -41,9 +55,6 @@ Confidence = Literal["high", "medium", "low"]
 
 #: AF below which a mode counts as critically damped (API 617 rule, from memory).
 CRITICALLY_DAMPED_AF = 2.5
-#: Default quasi-steady rule: the half-power band must take at least this many modal
-#: decay times ``1/(zeta*omega_n)`` to cross (our own choice; see find_criticals).
-QUASI_STEADY_RATIO = 20.0
 
 
 @dataclass(frozen=True)
@@ -118,237 +129,6 @@ class Critical:
     evidence: tuple[str, ...]
     direction: str
     amplitude_factor: float
-
-
-# --------------------------------------------------------------------------- preparation
-@dataclass(frozen=True)
-class _Curve:
-    speed: np.ndarray  # uniform grid, rpm
-    vector: np.ndarray  # smoothed complex phasor (|c| units)
-    amp: np.ndarray  # amplitude_factor * |vector|
-    lag: np.ndarray  # unwrapped lag, deg
-    noise: np.ndarray  # 1-sigma noise of the smoothed amplitude per bin, amplitude_factor units
-    floor: np.ndarray  # bound of the error the scatter does not show, per bin, same units
-    smoothed: bool
-    window_bins: int  # smoothing window in bins (1 when not smoothed)
-
-
-def _bin(speed: np.ndarray, vector: np.ndarray, bin_rpm: float | None, floor=None):
-    """Average complex vectors into speed bins; return centres, means, counts, point sigma,
-    the bin width and the mean ``floor`` per bin (zeros without one).
-
-    The point sigma (per real component) is pooled from the scatter inside bins holding
-    two or more points (the upper 5 % of bins trimmed against steep signal slopes);
-    ``None`` when no bin holds two points.
-    """
-    order = np.argsort(speed, kind="stable")
-    s, v = speed[order], vector[order]
-    if bin_rpm is None:
-        d = np.diff(s)
-        d = d[d > 0]
-        step = float(np.median(d)) if d.size else 1.0
-        bin_rpm = max(step, (s[-1] - s[0]) / 4000.0)
-    elif not (np.isfinite(bin_rpm) and bin_rpm > 0):
-        raise AnalysisError(invalid_value("bin_rpm", bin_rpm, "a positive bin width in rpm or None"))
-    n_bins = int(math.floor((s[-1] - s[0]) / bin_rpm + 0.5)) + 1
-    centres = s[0] + bin_rpm * np.arange(n_bins)
-    k = np.clip(np.floor((s - s[0]) / bin_rpm + 0.5).astype(int), 0, n_bins - 1)
-    count = np.bincount(k, minlength=n_bins)
-    re = np.bincount(k, v.real, minlength=n_bins)
-    im = np.bincount(k, v.imag, minlength=n_bins)
-    pw = np.bincount(k, np.abs(v) ** 2, minlength=n_bins)
-    filled = count > 0
-    mean = (re[filled] + 1j * im[filled]) / count[filled]
-    sigma_point = None
-    multi = count >= 2
-    if np.count_nonzero(multi) >= 10:
-        n = count[multi]
-        m = (re[multi] + 1j * im[multi]) / n
-        var = np.clip(pw[multi] / n - np.abs(m) ** 2, 0.0, None) * n / (n - 1)  # E|v - m|^2
-        keep = var <= np.quantile(var, 0.95)
-        sigma_point = float(np.sqrt(np.sum((n[keep] - 1) * var[keep]) / np.sum(n[keep] - 1) / 2.0))
-    x = centres[filled]
-    out = np.interp(centres, x, mean.real) + 1j * np.interp(centres, x, mean.imag)
-    fl = np.zeros(n_bins)
-    if floor is not None:
-        fb = np.bincount(k, floor[order], minlength=n_bins)[filled] / count[filled]
-        fl = np.interp(centres, x, fb)
-    return centres, out, np.maximum(count, 1), sigma_point, float(bin_rpm), fl
-
-
-def _prepare(speed, vector, amplitude_factor, bin_rpm, smooth_rpm, floor=None) -> _Curve:
-    grid, v, count, sigma_point, w, fl = _bin(speed, vector, bin_rpm, floor)
-    if sigma_point is not None:
-        sig2 = sigma_point ** 2 / count
-    else:  # one point per bin: noise from second differences (white noise: var 6 sigma^2)
-        d2 = v[:-2] - 2 * v[1:-1] + v[2:]
-        sig = 1.4826 * float(np.median(np.abs(np.concatenate([d2.real, d2.imag])))) / math.sqrt(6.0)
-        sig2 = np.full(grid.size, sig * sig)
-    vmax = float(np.max(np.abs(v))) or 1.0
-    if smooth_rpm is None:
-        noisy = float(np.sqrt(np.median(sig2))) > 1e-4 * vmax
-        smooth_rpm = 0.004 * float(grid[-1]) if noisy else 0.0
-    if smooth_rpm < 0:
-        raise AnalysisError(invalid_value("smooth_rpm", smooth_rpm, "a window >= 0 rpm or None"))
-    n_win = int(round(smooth_rpm / w)) | 1
-    smoothed = 5 <= n_win < grid.size
-    if smoothed:
-        coeffs = signal.savgol_coeffs(n_win, 2)
-        sig2 = np.convolve(np.pad(sig2, n_win // 2, mode="edge"), coeffs ** 2, mode="valid")
-        v = signal.savgol_filter(v.real, n_win, 2) + 1j * signal.savgol_filter(v.imag, n_win, 2)
-        fl = np.convolve(np.pad(fl, n_win // 2, mode="edge"), np.ones(n_win) / n_win, mode="valid")
-    lag = np.degrees(np.unwrap(-np.angle(v)))
-    return _Curve(grid, v, amplitude_factor * np.abs(v), lag, amplitude_factor * np.sqrt(sig2),
-                  amplitude_factor * fl, smoothed, n_win if smoothed else 1)
-
-
-def _band_edges(amp: np.ndarray, i: int, frac: float, tol: float) -> tuple[int, int]:
-    """Indices where the amplitude first falls below ``frac`` x peak, or its valley if it
-    turns up (by more than ``tol``) first, or the data end."""
-    target = frac * amp[i]
-    out = []
-    for step in (-1, 1):
-        j, jmin = i, i
-        while 0 <= j + step < amp.size:
-            j += step
-            if amp[j] < target:
-                jmin = j
-                break
-            if amp[j] < amp[jmin]:
-                jmin = j
-            elif amp[j] > amp[jmin] + tol:
-                break
-        else:
-            jmin = j
-        out.append(jmin)
-    return out[0], out[1]
-
-
-def _stall(curve: _Curve, i: int, hp: HalfPower, width_frac: float = 0.02,
-           k_sigma: float = 3.0) -> str:
-    """Side on which a noisy descent from the peak stalls before the half-power level.
-
-    Walking from 95 % of the peak to N1 (N2) in chunks 2 % of Nc wide, the chunk means of a
-    single mode keep falling; a pair that does not fall by ``k_sigma`` noise sigmas of the
-    difference is a plateau held up by a neighbouring mode, which residual noise may hide
-    as a bump. Returns ``'low'``, ``'high'`` or ``''``.
-    """
-    sp, amp = curve.speed, curve.amp
-    width = max(width_frac * hp.nc_rpm, (hp.n2_rpm - hp.n1_rpm) / 8.0)
-    for side, edge in (("low", hp.n1_rpm), ("high", hp.n2_rpm)):
-        if side == "low":
-            idx = np.arange(i, -1, -1)
-            idx = idx[sp[idx] >= edge]
-        else:
-            idx = np.arange(i, sp.size)
-            idx = idx[sp[idx] <= edge]
-        idx = idx[amp[idx] <= 0.95 * hp.peak_amplitude]
-        if idx.size == 0:
-            continue
-        d = np.abs(sp[idx] - sp[idx[0]])
-        n_chunks = int(d[-1] // width)
-        if n_chunks < 2:
-            continue
-        means, sig = [], []
-        for k in range(n_chunks):
-            m = (d >= k * width) & (d < (k + 1) * width)
-            if not np.any(m):
-                return ""  # a gap in the grid: no verdict on a plateau
-            n_ind = max(np.count_nonzero(m) / curve.window_bins, 1.0)
-            means.append(float(np.mean(amp[idx[m]])))
-            sig.append(float(np.mean(curve.noise[idx[m]])) / math.sqrt(n_ind))
-        for k in range(n_chunks - 1):
-            if means[k] - means[k + 1] < k_sigma * math.hypot(sig[k], sig[k + 1]):
-                return side
-    return ""
-
-
-def _polar_loop(v: np.ndarray) -> tuple[bool | None, str]:
-    """Kasa circle fit of the complex vectors; a loop if they sweep >= 90 deg on a circle."""
-    if v.size < 8:
-        return None, ""
-    x, y = v.real, v.imag
-    a = np.column_stack([x, y, np.ones_like(x)])
-    b = x * x + y * y
-    (p, q, r), *_ = np.linalg.lstsq(a, b, rcond=None)
-    xc, yc = p / 2, q / 2
-    rad = math.sqrt(max(r + xc * xc + yc * yc, 0.0))
-    if rad == 0:
-        return False, ""
-    dist = np.hypot(x - xc, y - yc)
-    misfit = float(np.sqrt(np.mean((dist - rad) ** 2)) / rad)
-    arc = float(np.ptp(np.degrees(np.unwrap(np.angle((x - xc) + 1j * (y - yc))))))
-    ok = arc >= 90.0 and misfit <= 0.1
-    return ok, (f"the polar plot {'traces' if ok else 'does not trace'} a circular loop "
-                f"through the band (arc {arc:.0f} deg, radial misfit {100 * misfit:.0f} % of "
-                f"the radius)")
-
-
-def _sweep(speed, time_s, band, zeta, nc, ratio_min):
-    if time_s is None:
-        return None, None, ""
-    m = (speed >= band[0]) & (speed <= band[1])
-    if np.count_nonzero(m) < 3 or np.ptp(time_s[m]) <= 0:
-        return None, None, "too few samples in the band to measure the sweep rate"
-    rate = float(np.polyfit(time_s[m], speed[m], 1)[0])
-    if rate == 0 or zeta is None or not zeta > 0:
-        return rate, None, ""
-    width = band[1] - band[0]
-    t_band = width / abs(rate)
-    tau = 1.0 / (zeta * 2 * math.pi * nc / 60.0)
-    ratio = t_band / tau
-    note = ""
-    if ratio < ratio_min:
-        note = (f"sweep too fast for a quasi-steady reading: the band ({width:.0f} rpm) is "
-                f"crossed in {t_band:.2f} s, {ratio:.1f} modal decay times (rule: at least "
-                f"{ratio_min:g}); " + _shift_words(rate) + " (F. M. Lewis, Trans. ASME, 1932)")
-    return rate, ratio, note
-
-
-def _shift_words(rate: float) -> str:
-    """Which way a fast sweep moves the apparent reading (Lewis 1932): with the sweep.
-
-    The peak moves in the sweep direction, so a run-up reads the critical high and a
-    coast-down reads it low; the half-power AF is distorted either way (in SDOF sweeps
-    integrated with scipy, fn 3000 rpm, zeta 0.05, the AF read 10.3 / 9.5 on run-ups at
-    300 / 1000 rpm/s and 9.2 / 7.6 on coast-downs, against 9.90 steady).
-    """
-    if rate > 0:
-        return ("on this run-up the apparent peak reads above the steady-state critical "
-                "and its half-power AF is distorted (high or low)")
-    return ("on this coast-down the apparent peak reads below the steady-state critical and "
-            "its half-power AF is distorted (usually low)")
-
-
-def _quadrature(curve: _Curve, lo: int, hi: int, base: float, near: float) -> float | None:
-    s, rel = curve.speed[lo:hi + 1], curve.lag[lo:hi + 1] - base
-    d = rel - 90.0
-    idx = np.nonzero((d[:-1] < 0) & (d[1:] >= 0))[0]
-    if idx.size == 0:
-        return None
-    xs = s[idx] + (s[idx + 1] - s[idx]) * (-d[idx]) / (d[idx + 1] - d[idx])
-    return float(xs[np.argmin(np.abs(xs - near))])
-
-
-def _fit_band(curve: _Curve, lo: int, hi: int, initial) -> Mode | None:
-    idx = np.arange(lo, hi + 1)
-    if idx.size < 12:
-        return None
-    if idx.size > 400:
-        idx = idx[np.linspace(0, idx.size - 1, 400).astype(int)]
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            res = fit_modes(curve.speed[idx], curve.vector[idx], n_modes=1, initial=(initial,),
-                            residual="linear")
-    except (AnalysisError, ValueError, np.linalg.LinAlgError):
-        return None
-    m = res.modes[0]
-    s0, s1 = curve.speed[lo], curve.speed[hi]
-    if not (res.success and res.relative_error < 0.15 and s0 <= m.fn_rpm <= s1
-            and 0 < m.zeta < 1.5 and m.af_std < 0.5 * m.af):
-        return None
-    return m
 
 
 def _governing(hp: HalfPower | None, fit: Mode | None, pa: PhaseAF):
@@ -555,7 +335,7 @@ def _as_measured(c: Critical, k: int, measure: str) -> Critical:
 
 def _find(s, v, t, afac, direction, min_prominence, min_height, phase_confirm_deg, bin_rpm,
           smooth_rpm, critically_damped_af, quasi_steady_ratio, fit, floor) -> list[Critical]:
-    curve = _prepare(s, v, afac, bin_rpm, smooth_rpm, floor)
+    curve = prepare_curve(s, v, afac, bin_rpm, smooth_rpm, floor)
     amp = curve.amp
     idx, props = signal.find_peaks(amp, prominence=1e-12 * amp.max())
     # significance: 8 noise sigmas of the smoothed curve, twice the floor
@@ -569,7 +349,7 @@ def _find(s, v, t, afac, direction, min_prominence, min_height, phase_confirm_de
         found.append(_from_peak(curve, int(i), s, t, 8.0 * curve.noise[i], phase_confirm_deg, critically_damped_af,
                                 quasi_steady_ratio, fit, direction, afac))
         bands.append(found[-1].band_rpm)
-    found = _drop_beating(found)
+    found = drop_beating(found)
     found.extend(_phase_only(curve, bands, s, t, critically_damped_af, quasi_steady_ratio, fit,
                              direction, afac))
     return found
@@ -582,21 +362,21 @@ def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min,
     hp = half_power(sp, amp, peak_index=i, rise_tolerance=rel_tol,
                     peak_fit_fraction=0.95 if curve.smoothed else None)
     if curve.smoothed and hp.determinable:
-        side = _stall(curve, i, hp)
+        side = stalled_side(curve, i, hp)
         if side:
             hp = HalfPower(None, hp.n1_rpm if side == "high" else None,
                            hp.n2_rpm if side == "low" else None, hp.nc_rpm, hp.peak_amplitude,
                            False, f"not determinable by half-power: {side} side merges with a "
                            f"neighbouring peak (the amplitude stalls on a plateau before "
                            f"falling to the half-power level)")
-    lo, hi = _band_edges(amp, i, 0.25, tol)
+    lo, hi = band_edges(amp, i, 0.25, tol)
     band = (float(sp[lo]), float(sp[hi]))
     evidence = [f"amplitude peak of {hp.peak_amplitude:.3g} at {hp.nc_rpm:.0f} rpm"]
     change = float(lag[hi] - lag[lo])
     mode = None
     if do_fit:
         z0 = 0.5 / hp.af if hp.af else 0.1
-        mode = _fit_band(curve, lo, hi, (hp.nc_rpm * math.sqrt(max(1 - 2 * z0 * z0, 0.5)), z0))
+        mode = fit_band(curve, lo, hi, (hp.nc_rpm * math.sqrt(max(1 - 2 * z0 * z0, 0.5)), z0))
     if mode is not None:
         base = float(-np.degrees(np.angle(mode.residue)))
         base_src = "the modal fit"
@@ -609,7 +389,7 @@ def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min,
         base_src = "the low edge of the band"
     lag_pk = float(np.interp(hp.nc_rpm, sp, lag))
     rel_pk = lag_pk - base
-    quad = _quadrature(curve, lo, hi, base, hp.nc_rpm)
+    quad = quadrature_speed(curve, lo, hi, base, hp.nc_rpm)
     if hi - lo >= 2:
         pa = phase_af(sp[lo:hi + 1], lag[lo:hi + 1], nc_rpm=quad or hp.nc_rpm, baseline_deg=base)
     else:
@@ -625,7 +405,7 @@ def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min,
     if not phase_ok:
         evidence.append("the phase does not confirm a rotor critical: a structural resonance "
                         "or a runout artefact is possible")
-    loop, loop_txt = _polar_loop(curve.vector[lo:hi + 1])
+    loop, loop_txt = polar_loop(curve.vector[lo:hi + 1])
     if loop_txt:
         evidence.append(loop_txt)
     af, method, reason = _governing(hp, mode, pa)
@@ -634,61 +414,13 @@ def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min,
         evidence.append(hp.reason)
     zeta = mode.zeta if mode is not None else (0.5 / af if af else None)
     hb = (hp.n1_rpm, hp.n2_rpm) if hp.determinable else band
-    rate, ratio, note = _sweep(s_raw, t_raw, hb, zeta, hp.nc_rpm, ratio_min)
+    rate, ratio, note = sweep_reading(s_raw, t_raw, hb, zeta, hp.nc_rpm, ratio_min)
     cd = _closing_evidence(evidence, rate, note, af, cd_af)
     confidence = _confidence(classification, loop, hp.determinable or mode is not None, note)
     return Critical(hp.nc_rpm, "amplitude peak", hp.nc_rpm, quad, hp.peak_amplitude, change,
                     float(lag_pk % 360.0), rel_pk, float(base % 360.0), band, hp, pa, mode,
                     af, method, reason, cd, rate, ratio, note, loop, classification,
                     confidence, tuple(evidence), direction, afac)
-
-
-#: Decay times of the free vibration after a fast sweep within which a ripple of the 1X
-#: on the sweep side of a critical is read as beating (our own choice: e^-5 = 0.7 %).
-BEAT_DECAY_TIMES = 5.0
-
-
-def _drop_beating(found: list[Critical]) -> list[Critical]:
-    """Remove ripples that are post-resonance beating, not criticals.
-
-    After a sweep too fast for a quasi-steady reading, the free vibration at the
-    natural frequency outlasts the passage and beats with the 1X: the amplitude ripples
-    on the sweep side of the critical (above it on a run-up, below on a coast-down)
-    while the free vibration decays with ``exp(-zeta omega_n t)`` (F. M. Lewis, Trans.
-    ASME 54, 1932). A peak without phase confirmation, lower than a confirmed critical
-    whose sweep was too fast, on its sweep side, within the speed the sweep covers in
-    :data:`BEAT_DECAY_TIMES` decay times beyond its band, is such a ripple: it is
-    dropped and named in the critical's evidence.
-    """
-    out = list(found)
-    for j, main in enumerate(found):
-        if (main.classification != "confirmed" or not main.sweep_note
-                or not main.sweep_rate_rpm_s or main.peak_amplitude is None):
-            continue
-        zeta = main.fit.zeta if main.fit is not None else (
-            0.5 / main.af_governing if main.af_governing else None)
-        if not zeta or zeta <= 0:
-            continue
-        sign = math.copysign(1.0, main.sweep_rate_rpm_s)
-        wn = 2.0 * math.pi * main.speed_rpm / 60.0
-        reach = abs(main.sweep_rate_rpm_s) * BEAT_DECAY_TIMES / (zeta * wn)
-        edge = main.band_rpm[1] if sign > 0 else main.band_rpm[0]
-        ripples = [c for c in out if c is not main and c.classification == "amplitude-only"
-                   and c.peak_amplitude is not None and c.peak_amplitude < main.peak_amplitude
-                   and 0 < sign * (c.speed_rpm - main.speed_rpm)
-                   and sign * (c.speed_rpm - edge) <= reach]
-        if not ripples:
-            continue
-        speeds = ", ".join(f"{c.speed_rpm:.0f}" for c in sorted(ripples, key=lambda c: c.speed_rpm))
-        side = "above" if sign > 0 else "below"
-        sentence = (f"the amplitude ripple at {speeds} rpm {side} it is post-resonance beating "
-                    f"(the free vibration at the natural frequency, decaying over "
-                    f"{1.0 / (zeta * wn):.2f} s, beats with the 1X after the fast sweep; "
-                    f"F. M. Lewis, 1932), not a critical")
-        k = out.index(main)
-        out[k] = replace(main, evidence=main.evidence + (sentence,))
-        out = [c for c in out if c not in ripples]
-    return out
 
 
 def _closing_evidence(evidence: list, rate, note: str, af, cd_af: float) -> bool:
@@ -751,7 +483,7 @@ def _phase_only(curve, bands, s_raw, t_raw, cd_af, ratio_min, do_fit, direction,
             continue
         j0, j1 = (int(np.searchsorted(sp, b)) for b in band)
         j1 = min(j1, sp.size - 1)
-        mode = _fit_band(curve, j0, j1, (float(nc_[i]), 0.5)) if do_fit else None
+        mode = fit_band(curve, j0, j1, (float(nc_[i]), 0.5)) if do_fit else None
         base = float(-np.degrees(np.angle(mode.residue))) if mode is not None else float(lag_c[lo])
         base = base + 360.0 * round((lag_c[lo] - base) / 360.0)
         rel = lag_c[lo:hi + 1] - base
@@ -770,7 +502,7 @@ def _phase_only(curve, bands, s_raw, t_raw, cd_af, ratio_min, do_fit, direction,
             if hi - lo >= 2 else PhaseAF(None, None, None, None, None, None, None, base, "band too short")
         af, method, reason = _governing(None, mode, pa)
         zeta = mode.zeta if mode is not None else (0.5 / af if af else None)
-        rate, ratio, note = _sweep(s_raw, t_raw, band, zeta, nc, ratio_min)
+        rate, ratio, note = sweep_reading(s_raw, t_raw, band, zeta, nc, ratio_min)
         ev = [f"phase lag rises by {change:.0f} deg over {band[0]:.0f}-{band[1]:.0f} rpm with no "
               f"prominent amplitude peak: a heavily damped critical",
               f"measured lag is 90 deg above the baseline at {quad:.0f} rpm" if quad is not None
