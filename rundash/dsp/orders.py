@@ -82,7 +82,7 @@ import numpy as np
 from rundash.dsp.speed import SpeedProfile
 from rundash.errors import DspError, invalid_value
 
-__all__ = ["OrderTrack", "OrderTracker", "track_orders", "concat_tracks"]
+__all__ = ["OrderTrack", "OrderTracker", "track_orders", "concat_tracks", "first_samples"]
 
 #: Samples per chunk when a whole record is tracked in one call (bounds the memory).
 CHUNK_SAMPLES = 1 << 18
@@ -183,6 +183,21 @@ def _check_orders(orders, revs_per_block) -> tuple[np.ndarray, int]:
             f"orders that make whole cycles in revs_per_block={R} revolutions "
             "(half orders need an even revs_per_block)"))
     return o, R
+
+
+def first_samples(t_k, fs: float) -> np.ndarray:
+    """Record index of the first sample at or after each time ``t_k`` s (sample n is at
+    time ``n / fs``), exact in the float64 arithmetic used for sample times: a block of
+    revolutions starts at the first sample of its first revolution.
+
+    >>> first_samples(np.array([0.0, 0.0101, 0.02]), 100.0).tolist()
+    [0, 2, 2]
+    """
+    t_k = np.asarray(t_k, dtype=np.float64)
+    n = np.ceil(t_k * fs)
+    n -= (n - 1.0) / fs >= t_k
+    n += n / fs < t_k
+    return n.astype(np.int64)
 
 
 class OrderTracker:
@@ -334,13 +349,7 @@ class OrderTracker:
         return buf[:size].reshape(shape)
 
     def _first_samples(self, t_k: np.ndarray) -> np.ndarray:
-        """Record index of the first sample at or after each time ``t_k`` (sample n is
-        at time ``n / fs``), exact in the float64 arithmetic used for sample times."""
-        fs = self.fs
-        n = np.ceil(t_k * fs)
-        n -= (n - 1.0) / fs >= t_k
-        n += n / fs < t_k
-        return n.astype(np.int64)
+        return first_samples(t_k, self.fs)
 
     def _process(self, data: np.ndarray, base: int) -> tuple[OrderTrack, int]:
         """Blocks whose samples (one more on each side) all lie in ``data`` (whose

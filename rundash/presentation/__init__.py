@@ -10,7 +10,8 @@ Numbers
     significant digits), :func:`amplitude` (a level in the chosen unit system with its
     unit and pp / pk / rms).
 Findings (schema ``rundash.findings/1``)
-    :func:`critical_rows`, :func:`limit_rows`, :func:`direction_rows`,
+    :func:`critical_rows`, :func:`limit_rows` (a velocity overall with its band),
+    :func:`level_title`, :func:`direction_rows`,
     :func:`bearing_lines`, :func:`rising_lines`, :func:`summary_line`,
     :func:`verdict_reasons`, :func:`evidence_rows`, :func:`warnings_of`.
 Comparison (schema ``rundash.comparison/1``)
@@ -210,6 +211,29 @@ _MEASURES = {"direct": "direct (unfiltered)", "1x": "1X", "1X": "1X"}
 _JUDGED = {"exceeds": 0, "fail": 0, "above alert": 1, "within": 2, "pass": 2}
 
 
+def _measure_text(lim: Mapping[str, Any]) -> str:
+    """'direct (unfiltered)', '1X', or a velocity overall with its band
+    ('overall 10–1000 Hz'): findings written before the band carry none, and their
+    velocity overall was the rms as recorded."""
+    band = lim.get("level_band")
+    if lim.get("measure") == "direct" and band:
+        return f"overall {str(band).replace('-', '–')}"
+    return _MEASURES.get(lim.get("measure"), lim.get("measure") or MISSING)
+
+
+def level_title(findings, probe: str) -> str:
+    """What a probe's level is: 'Direct (unfiltered) level', or for a velocity probe
+    whose overall is band-limited 'Overall level (10–1000 Hz)'.
+
+    >>> level_title({"probes": [{"name": "DE-VEL", "level_band": "10-1000 Hz"}]}, "DE-VEL")
+    'Overall level (10–1000 Hz)'
+    """
+    for p in (findings or {}).get("probes") or []:
+        if p.get("name") == probe and p.get("level_band"):
+            return f"Overall level ({str(p['level_band']).replace('-', '–')})"
+    return "Direct (unfiltered) level"
+
+
 def top_speed_note(findings) -> str | None:
     """Which speed the top-speed checks use and why, when the run went above N_mc (an
     overspeed trip test): the limits apply up to N_mc, so the check reads the highest
@@ -248,7 +272,7 @@ def limit_rows(findings, system: str = "metric", *, kinds: Kinds | None = None
         verdict = lim.get("verdict") or MISSING
         rows.append({
             "probe": lim.get("probe") or MISSING, "direction": lim.get("direction") or MISSING,
-            "measure": _MEASURES.get(lim.get("measure"), lim.get("measure") or MISSING),
+            "measure": _measure_text(lim),
             "where": lim.get("where") or MISSING, "speed": number(lim.get("speed_rpm")),
             "value": amplitude(lim.get("value"), kind, conv, system, fallback_units=units),
             "limit": amplitude(limit, kind, conv, system, fallback_units=units)

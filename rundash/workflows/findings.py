@@ -45,7 +45,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                    processing_notes: Sequence[str] = (),
                    angle_bound_rad: np.ndarray | None = None,
                    slow_roll_basis: str = "", revs_per_block: int = 1,
-                   stage=None, conjugate_part: bool = True) -> dict[str, Any]:
+                   stage=None, conjugate_part: bool = True,
+                   velocity_band=None) -> dict[str, Any]:
     """Findings JSON of one processed run (see the module docstring).
 
     The run's modal model (:func:`rundash.workflows.modal.identify_run`) is fitted after
@@ -56,6 +57,10 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
 
     ``processing_notes`` (tach repairs, a missing slow-roll window, ...) lead the
     findings' warnings: a reviewer must see what the vectors rest on.
+
+    ``velocity_band`` (:class:`rundash.dsp.overall.OverallBand`) is the band of the
+    velocity probes' overall level (``track.direct_rms`` of those probes, band-limited by
+    the pipeline); it is stated in the findings and on each velocity overall check.
     """
     m = desc.machine
     profile = load_profile(m.profile)
@@ -204,7 +209,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                                   site_levels=[x for x in desc.levels if x.probe == name],
                                   zones=zones)
             level_checks.extend(checks)
-            _limit_rows(limits_json, checks, name, d)
+            _limit_rows(limits_json, checks, name, d, _band_of(ch.kind, velocity_band))
 
     # steady holds (the whole run, not one direction): the rules whose scope is a hold
     if k1 is not None and holds:
@@ -222,7 +227,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                                  site_levels=[x for x in desc.levels
                                               if x.probe == ch.probe_name], zones=zones)
             level_checks.extend(checks)
-            _limit_rows(limits_json, checks, ch.probe_name, "steady")
+            _limit_rows(limits_json, checks, ch.probe_name, "steady",
+                        _band_of(ch.kind, velocity_band))
 
     bearings = []
     by_bearing: dict[tuple[str, str], dict[str, Any]] = {}
@@ -296,11 +302,14 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                                        speed_rpm=h.speed_rpm, lo_rpm=h.lo_rpm,
                                        hi_rpm=h.hi_rpm) for h in holds],
                            slow_roll_basis=slow_roll_basis,
+                           velocity_overall=velocity_band.to_json_dict()
+                           if velocity_band is not None else None,
                            speed_range_rpm=[json_number(track.speed_rpm.min()),
                                             json_number(track.speed_rpm.max())]),
         "probes": [dict(name=ch.probe_name, kind=ch.kind, unit=STORAGE_UNIT.get(ch.kind, ""),
                         vector_convention=VECTOR_AMPLITUDE_CONVENTION.get(ch.kind, ""),
-                        level_convention=LEVEL_CONVENTION.get(ch.kind, ""))
+                        level_convention=LEVEL_CONVENTION.get(ch.kind, ""),
+                        level_band=_band_of(ch.kind, velocity_band))
                    for ch in probes],
         "criticals": sorted(crit_json, key=lambda c: (c["direction"], c["speed_rpm"] or 0,
                                                       c["probe"])),
@@ -334,15 +343,25 @@ def _mark_sweep_note(notes, indices, crit, governed, info) -> None:
             return
 
 
-def _limit_rows(rows: list, checks, probe: str, direction: str) -> None:
+def _band_of(kind: str, band) -> str | None:
+    """The band of a probe's overall level in words ('10-1000 Hz'), None when the level
+    is as recorded (displacement p-p, acceleration rms, or no band given)."""
+    return band.label() if kind == "velocity" and band is not None and band.applied else None
+
+
+def _limit_rows(rows: list, checks, probe: str, direction: str,
+                level_band: str | None = None) -> None:
     for lc in checks:
         lj = lc.to_json_dict()
+        band = level_band if lj["quantity"] == "direct" else None
         rows.append(dict(
             probe=probe, direction=direction, measure=lj["quantity"], where=lj["where"],
             band_rpm=lj["band_rpm"], speed_rpm=json_number(lj["speed_rpm"]),
             value=json_number(lj["level"]), units=lj["units"],
             limit=json_number(lj["limit_value"]), limit_id=lj["limit"], zone=lj["zone"],
-            verdict=lj["status"], basis=lj["note"], source=lj["source"], scope=lj["scope"]))
+            verdict=lj["status"],
+            basis=lj["note"] + (f"; overall {band}" if band else ""),
+            source=lj["source"], scope=lj["scope"], level_band=band))
 
 
 def _holds(track, profile):

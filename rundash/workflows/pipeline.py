@@ -5,8 +5,8 @@ detector (:class:`rundash.dsp.tach.EdgeDetector`: a level pass, then an edge pas
 channel is held in memory between the two only when it is short), builds the
 once-per-rev reference and the speed profile, then streams every probe channel chunk by
 chunk through the order tracker and the cascade (a reader thread decodes the next chunks
-while the current one is tracked), compensates slow roll on proximity probes, finds the
-critical speeds and judges them, and replaces the run's results in one write
+while the current one is tracked), compensates slow roll on proximity probes (velocity probes'
+overall is band-limited on the way, :mod:`rundash.dsp.overall`), finds the critical speeds and judges them, and replaces the run's results in one write
 transaction.
 
 Memory: the samples are never held whole (a few chunks of every channel at a time); the
@@ -33,7 +33,7 @@ from rundash import __version__
 from rundash.analysis.criticals import first_candidate_rpm
 from rundash.conventions import lag_deg_from_phasor
 from rundash.dsp import orders as dsp_orders
-from rundash.dsp import slowroll, spectra, speed, tach
+from rundash.dsp import overall, slowroll, spectra, speed, tach
 from rundash.dsp.vold_kalman import vold_kalman_at
 from rundash.errors import DspError, StorageError
 from rundash.ingest.importer import prefetched
@@ -296,6 +296,14 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
     row_first = np.round(row_t * fs).astype(np.int64) - n_fft // 2  # first sample of each row
     freq_hz = None
     results = _Results(len(probes), tracker.orders, profile.n_revs // tracker.revs_per_block)
+    # velocity channels: the overall judged by the housing-velocity rules is band-limited
+    vel = [i for i, c in enumerate(probes) if c.kind == "velocity"]
+    band = overall.velocity_band(fs, rated_speed_rpm=desc.machine.rated_speed_rpm) if vel else None
+    band_rms = overall.BandOverall(band, profile, fs, len(vel),
+                                   revs_per_block=tracker.revs_per_block) \
+        if band is not None and band.applied else None
+    if band is not None and band.note:
+        notes.append(band.note)
     tail = None
     tail_start = 0
     total = max(tach_ch.n_samples, 1)
@@ -304,6 +312,8 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
             tr = tracker.feed(block, start)
             if tr.n_blocks:
                 results.add(tr)
+            if band_rms is not None:
+                band_rms.feed(block[vel], start)
         with timer("cascade"):
             # cascade rows need n_fft samples around their time: keep an overlap
             if tail is not None:
@@ -330,6 +340,8 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
     with timer("tracking"):
         tracker.finish()
         track = results.track()
+        if band_rms is not None:
+            track.direct_rms[vel] = band_rms.rms(track.rev_index // tracker.revs_per_block)
     if track.n_blocks < 3:
         raise DspError(f"run {run_id}: only {track.n_blocks} whole revolutions could be tracked")
     tracker_name = params.tracker or desc.processing.tracker or "order"
@@ -389,7 +401,7 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
             slow_roll_basis=slow_roll_basis,
             angle_bound_rad=tq.angle_bound_rad(track.speed_rpm),
             revs_per_block=tracker.revs_per_block, stage=timer,
-            conjugate_part=tracker_name == "order")
+            conjugate_part=tracker_name == "order", velocity_band=band)
         findings["processing"]["tracker"] = tracker_name
         result.findings = findings
 

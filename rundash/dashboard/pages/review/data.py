@@ -16,7 +16,7 @@ import numpy as np
 from rundash import figures
 from rundash.conventions import side_of_top
 from rundash.errors import RundashError
-from rundash.presentation import model_curves, operating_range
+from rundash.presentation import level_title, model_curves, operating_range
 
 UNIT_SYSTEMS = ("metric", "imperial")
 PHASE_DISPLAYS = ("unwrapped", "wrapped")
@@ -145,7 +145,7 @@ def polar_direct_figures(db, run_id: int, probe: str, compensation: str, system:
     direct = figures.direct_vs_filtered(
         traces, kind=kind, system=system, limit_lines=limits,
         operating=operating_of(ctx["machine"]), uirevision=uirev,
-        title=f"Direct (unfiltered) level beside 1X, {probe}")
+        title=f"{level_title(ctx['findings'], probe)} beside 1X, {probe}")
     return polar, direct
 
 
