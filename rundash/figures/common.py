@@ -47,11 +47,21 @@ UNWRAPPED_NOTE = "lag unwrapped: continued past 360° (stored lag = shown − k�
 # Figures are assembled as plain dicts (the form plotly.js reads) and wrapped in a
 # go.Figure without plotly.py's per-property validation, which costs ~50 ms per figure of
 # a few traces; tests/test_figures.py validates every builder's output with go.Figure.
+#: The trace types rundash draws; the template keeps only their defaults.
+TRACE_TYPES = ("scatter", "scatterpolar", "heatmap", "bar")
+
+
 @functools.lru_cache(maxsize=1)
 def plot_template() -> dict:
+    """plotly's "simple_white" template cut to what rundash's figures use (2-D and polar
+    axes, the trace types in :data:`TRACE_TYPES`): the full one is ~8.6 kB that every
+    figure copies on the server and sends to the browser; this one ~3 kB, drawn the same."""
     import plotly.io as pio
 
-    return pio.templates["simple_white"].to_plotly_json()
+    t = pio.templates["simple_white"].to_plotly_json()
+    layout = {k: v for k, v in t["layout"].items() if k not in ("ternary", "scene", "geo")}
+    data = {k: v for k, v in t["data"].items() if k in TRACE_TYPES}
+    return {"layout": layout, "data": data}
 
 
 def make_figure(data: list[dict], layout: dict) -> go.Figure:
@@ -187,20 +197,6 @@ def add_hline(layout, y, line, *, row=None, text=None) -> None:
 
 
 # ----------------------------------------------------------------------------- helpers
-def apply_layout(fig: go.Figure, *, title: str, uirevision: Any = None, height: int = 420) -> None:
-    fig.update_layout(
-        title={"text": title, "x": 0.01, "xanchor": "left", "font": {"size": 15}},
-        template="simple_white", font={"family": "Inter, 'Segoe UI', Arial, sans-serif",
-                                       "size": 12, "color": INK},
-        height=height, margin={"l": 64, "r": 24, "t": 56, "b": 48},
-        legend={"orientation": "h", "yanchor": "bottom", "y": 1.0, "xanchor": "right",
-                "x": 1.0, "font": {"size": 11}},
-        hovermode="closest", uirevision=uirevision, paper_bgcolor="white",
-        plot_bgcolor="white")
-    fig.update_xaxes(showgrid=True, gridcolor=GRID, zeroline=False, ticks="outside")
-    fig.update_yaxes(showgrid=True, gridcolor=GRID, zeroline=False, ticks="outside")
-
-
 def fmt_number(x: Any, digits: int = 0, unit: str = "") -> str:
     if x is None or (isinstance(x, float) and not math.isfinite(x)):
         return "–"

@@ -10,7 +10,7 @@ import plotly.graph_objects as go
 
 from rundash.conventions import side_of_top
 from rundash.figures.common import (
-    INK, PALETTE, UnitSystem, apply_layout,
+    INK, PALETTE, UnitSystem, add_vline, base_layout, make_figure, typed_array,
 )
 from rundash.units import amplitude_label, display_unit, to_display
 
@@ -83,48 +83,54 @@ def orbit(x_probe: Mapping[str, Any], y_probe: Mapping[str, Any], *, kind: str =
         return np.asarray(to_display(uv[0], kind, system)), np.asarray(to_display(uv[1], kind, system))
 
     u, v = to_screen(filt(x_probe), filt(y_probe))
-    fig = go.Figure()
-    fig.add_trace(go.Scatter(x=u, y=v, mode="lines", name="1X filtered", meta="data",
-                             line={"color": PALETTE[0], "width": 2.5}))
-    fig.add_trace(go.Scatter(x=[u[0]], y=[v[0]], mode="markers", name="once-per-rev mark",
-                             meta="mark", marker={"size": 10, "color": PALETTE[0],
-                                                  "symbol": "circle", "line": {"color": "white",
-                                                                               "width": 1}}))
+    data: list[dict[str, Any]] = [
+        {"type": "scatter", "x": typed_array(u), "y": typed_array(v), "mode": "lines",
+         "name": "1X filtered", "meta": "data", "line": {"color": PALETTE[0], "width": 2.5}},
+        {"type": "scatter", "x": [float(u[0])], "y": [float(v[0])], "mode": "markers",
+         "name": "once-per-rev mark", "meta": "mark",
+         "marker": {"size": 10, "color": PALETTE[0], "symbol": "circle",
+                    "line": {"color": "white", "width": 1}}}]
     whirl = whirl_direction(u, v)
+    parts = [u, v]
     if raw_x is not None and raw_y is not None and len(raw_x) > 3:
         rx = np.asarray(raw_x, dtype=float)
         ry = np.asarray(raw_y, dtype=float)
         n = min(rx.size, ry.size)
         ru, rv = to_screen(rx[:n] - rx[:n].mean(), ry[:n] - ry[:n].mean())
-        fig.add_trace(go.Scatter(x=ru, y=rv, mode="lines", name="unfiltered (one revolution)",
-                                 meta="raw", line={"color": PALETTE[1], "width": 1.2}))
-        fig.add_trace(go.Scatter(x=[ru[0]], y=[rv[0]], mode="markers", meta="mark",
-                                 name="once-per-rev mark (unfiltered)", showlegend=False,
-                                 marker={"size": 9, "color": PALETTE[1]}))
+        parts += [ru, rv]
+        data.append({"type": "scatter", "x": typed_array(ru), "y": typed_array(rv),
+                     "mode": "lines", "name": "unfiltered (one revolution)", "meta": "raw",
+                     "line": {"color": PALETTE[1], "width": 1.2}})
+        data.append({"type": "scatter", "x": [float(ru[0])], "y": [float(rv[0])],
+                     "mode": "markers", "meta": "mark", "showlegend": False,
+                     "name": "once-per-rev mark (unfiltered)",
+                     "marker": {"size": 9, "color": PALETTE[1]}})
     sense = "forward" if whirl == rotation else "reverse"
     unit = display_unit(kind, system).replace("um", "µm")
     sp = f" at {speed_rpm:.0f} rpm" if speed_rpm is not None else ""
-    apply_layout(fig, title=title or f"Orbit{sp}: {sense} whirl ({whirl})", height=480)
-    lim = float(np.nanmax(np.abs(np.concatenate([u, v] + ([ru, rv] if len(fig.data) > 2
-                                                          else []))))) * 1.15 or 1.0
-    fig.update_xaxes(title_text=f"horizontal ({unit})", range=[-lim, lim], zeroline=True,
-                     zerolinecolor="#bbbbbb")
-    fig.update_yaxes(title_text=f"vertical ({unit})", range=[-lim, lim], zeroline=True,
-                     zerolinecolor="#bbbbbb", scaleanchor="x", scaleratio=1)
+    layout = base_layout(title or f"Orbit{sp}: {sense} whirl ({whirl})", None, 480)
+    lim = float(np.nanmax(np.abs(np.concatenate(parts)))) * 1.15 or 1.0
+    layout["xaxis"].update(title={"text": f"horizontal ({unit})"}, range=[-lim, lim],
+                           zeroline=True, zerolinecolor="#bbbbbb")
+    layout["yaxis"].update(title={"text": f"vertical ({unit})"}, range=[-lim, lim],
+                           zeroline=True, zerolinecolor="#bbbbbb", scaleanchor="x",
+                           scaleratio=1)
     bt = _screen_angle_rad(0.0, rotation, tach_angle_deg)
-    fig.add_trace(go.Scatter(x=[0.97 * lim * math.cos(bt)], y=[0.97 * lim * math.sin(bt)],
-                             mode="markers", name="once-per-rev sensor", meta="sensor",
-                             marker={"symbol": "triangle-down" if math.sin(bt) > 0.7 else
-                                     "diamond", "size": 10, "color": "#777777"},
-                             hovertext="once-per-rev sensor, "
-                             + side_of_top(tach_angle_deg, rotation), hoverinfo="text"))
-    fig.add_annotation(text="probe mounting angles applied; top dead centre at the top, "
-                       f"once-per-rev sensor at {side_of_top(tach_angle_deg, rotation)}; "
-                       "viewed from the driver end", xref="paper", yref="paper", x=0, y=-0.2,
-                       showarrow=False, font={"size": 10})
-    fig.update_layout(margin={"b": 80})
-    fig.update_layout(meta={"whirl": whirl, "sense": sense})
-    return fig
+    data.append({"type": "scatter", "x": [0.97 * lim * math.cos(bt)],
+                 "y": [0.97 * lim * math.sin(bt)], "mode": "markers",
+                 "name": "once-per-rev sensor", "meta": "sensor",
+                 "marker": {"symbol": "triangle-down" if math.sin(bt) > 0.7 else "diamond",
+                            "size": 10, "color": "#777777"},
+                 "hovertext": "once-per-rev sensor, " + side_of_top(tach_angle_deg, rotation),
+                 "hoverinfo": "text"})
+    layout["annotations"].append({
+        "text": "probe mounting angles applied; top dead centre at the top, once-per-rev "
+                f"sensor at {side_of_top(tach_angle_deg, rotation)}; viewed from the driver end",
+        "xref": "paper", "yref": "paper", "x": 0, "y": -0.2, "showarrow": False,
+        "font": {"size": 10}})
+    layout["margin"]["b"] = 80
+    layout["meta"] = {"whirl": whirl, "sense": sense}
+    return make_figure(data, layout)
 
 
 # ----------------------------------------------------------------------------- split view
@@ -142,33 +148,38 @@ def bearing_modes(entry: Mapping[str, Any], *, kind: str = "proximity",
     curve = entry.get("major_curve") or {}
     rpm = np.asarray(curve.get("speed_rpm") or [], float)
     amp = np.asarray(to_display(np.asarray(curve.get("major_amplitude") or [], float), kind, system))
-    fig = go.Figure()
-    fig.add_trace(go.Scatter(x=rpm, y=amp, mode="lines", name="major axis, fitted model",
-                             line={"color": PALETTE[0], "width": 2}, meta="model"))
+    split = entry.get("split") or "one mode"
+    layout = base_layout(f"Bearing {entry.get('bearing', '?')}: major axis of the fitted 1X "
+                         f"orbit ({split})", uirevision, 380)
+    data: list[dict[str, Any]] = [
+        {"type": "scatter", "x": typed_array(rpm), "y": typed_array(amp), "mode": "lines",
+         "name": "major axis, fitted model", "line": {"color": PALETTE[0], "width": 2},
+         "meta": "model"}]
     top = float(np.max(amp)) if amp.size else 1.0
-    for k, m in enumerate(entry.get("modes") or []):
+    modes = entry.get("modes") or []
+    for k, m in enumerate(modes):
         x = m.get("peak_speed_rpm") or m.get("natural_frequency_rpm")
         if x is None:
             continue
-        fig.add_vline(x=x, line={"color": PALETTE[(k + 1) % len(PALETTE)], "dash": "dash", "width": 1.5})
-        fig.add_annotation(x=x, y=top * (1.08 - 0.1 * k), showarrow=False, xanchor="left",
-                           text=f" mode {m.get('natural_frequency_rpm', 0):.0f} rpm: along "
-                                f"{m.get('direction_deg', 0):.0f}°, {m.get('whirl', '?')}",
-                           font={"size": 11, "color": INK})
+        add_vline(layout, x, {"color": PALETTE[(k + 1) % len(PALETTE)], "dash": "dash",
+                              "width": 1.5})
+        layout["annotations"].append({
+            "x": x, "y": top * (1.08 - 0.1 * k), "xref": "x", "yref": "y", "showarrow": False,
+            "xanchor": "left", "font": {"size": 11, "color": INK},
+            "text": f" mode {m.get('natural_frequency_rpm', 0):.0f} rpm: along "
+                    f"{m.get('direction_deg', 0):.0f}°, {m.get('whirl', '?')}"})
     crit = entry.get("criticals") or []
     if crit:
         xs = [c.get("speed_rpm") for c in crit]
         ys = [float(np.interp(x, rpm, amp)) if rpm.size else 0.0 for x in xs]
-        fig.add_trace(go.Scatter(
-            x=xs, y=ys, mode="markers+text", name="major-axis criticals", meta="critical",
-            text=[f"{c.get('speed_rpm', 0):.0f} rpm, AF " + (f"{c['af']:.2f}" if c.get("af")
-                                                             else "n/a") for c in crit],
-            textposition="bottom center", marker={"size": 10, "color": INK}))
-    split = entry.get("split") or "one mode"
-    apply_layout(fig, title=f"Bearing {entry.get('bearing', '?')}: major axis of the fitted 1X "
-                            f"orbit ({split})", uirevision=uirevision, height=380)
-    fig.update_xaxes(title_text="speed (rpm)")
-    fig.update_yaxes(title_text=f"major axis ({unit})", rangemode="tozero")
-    fig.update_layout(meta={"split": entry.get("split") or "",
-                            "directions_deg": [m.get("direction_deg") for m in entry.get("modes") or []]})
-    return fig
+        data.append({
+            "type": "scatter", "x": xs, "y": ys, "mode": "markers+text",
+            "name": "major-axis criticals", "meta": "critical",
+            "text": [f"{c.get('speed_rpm', 0):.0f} rpm, AF " + (f"{c['af']:.2f}" if c.get("af")
+                                                                else "n/a") for c in crit],
+            "textposition": "bottom center", "marker": {"size": 10, "color": INK}})
+    layout["xaxis"]["title"] = {"text": "speed (rpm)"}
+    layout["yaxis"].update(title={"text": f"major axis ({unit})"}, rangemode="tozero")
+    layout["meta"] = {"split": entry.get("split") or "",
+                      "directions_deg": [m.get("direction_deg") for m in modes]}
+    return make_figure(data, layout)

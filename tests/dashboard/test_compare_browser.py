@@ -58,6 +58,14 @@ def test_compare_and_download(dash_duo, demo_full, ups):  # noqa: F811
     # the review page's HTML download lands a file
     dash_duo.driver.get(dash_duo.server_url + f"/run/{ups[1]}")
     dash_duo.wait_for_element(f"#{ids.REPORT_HTML}", timeout=10)
+    # the per-bearing split views are folded, built and drawn when first opened
+    split = dash_duo.find_element(f"#{ids.SPLIT_VIEWS}")
+    assert split.get_attribute("open") is None
+    assert not dash_duo.find_elements(f"#{ids.SPLIT_VIEWS_BODY} .split-view")
+    _click(dash_duo, f"#{ids.SPLIT_VIEWS_SUMMARY}")
+    dash_duo.wait_for_element(f"#{ids.SPLIT_VIEWS_BODY} .split-view .main-svg", timeout=15)
+    # the demo machine's two bearings, each with an X/Y pair (sample_runs/tarnwick-k410.toml)
+    assert len(dash_duo.find_elements(f"#{ids.SPLIT_VIEWS_BODY} .split-view")) == 2
     _click(dash_duo, f"#{ids.REPORT_HTML}")
     dash_duo.wait_for_contains_text(f"#{ids.REPORT_STATUS}", "ready", timeout=30)
     name = f"rundash-run-{ups[1]}-2025-06-03.html"

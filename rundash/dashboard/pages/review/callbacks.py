@@ -12,7 +12,7 @@ from rundash.dashboard.pages.review.data import (
     orbit_figure, polar_direct_figures, speed_figure,
 )
 from rundash.dashboard.pages.review.layout import (
-    CRITICAL_ROW, evidence_panel, probe_kinds, verdict_panel,
+    CRITICAL_ROW, evidence_panel, probe_kinds, split_views, verdict_panel,
 )
 from rundash.dashboard import ids
 
@@ -144,6 +144,15 @@ def register_callbacks(app, db) -> None:
                   State(ids.RUN_ID, "data"), prevent_initial_call=True)
     def _verdict(units, run_id):
         return verdict_panel(load_context(db, run_id, cache=cache), _units(units))
+
+    @app.callback(Output(ids.SPLIT_VIEWS_BODY, "children"),
+                  Input(ids.SPLIT_VIEWS_SUMMARY, "n_clicks"), State(ids.UNITS, "value"),
+                  State(ids.RUN_ID, "data"), prevent_initial_call=True)
+    def _split_views(n_clicks, units, run_id):
+        if not n_clicks or n_clicks > 1:  # drawn on the first opening, kept after
+            return no_update
+        ctx = load_context(db, run_id, cache=cache)
+        return split_views(ctx["findings"] or {}, _units(units), probe_kinds(ctx))
 
     @app.callback(Output(ids.EVIDENCE, "children"),
                   Input({"type": CRITICAL_ROW, "index": ALL}, "n_clicks"),

@@ -121,7 +121,7 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
         if split:
             children.append(html.H3("Criticals per bearing (major axis of the 1X orbit)"))
             children.append(html.Ul([html.Li(x) for x in split]))
-            children += _split_views(f, system, kinds)
+            children += _split_views_fold(f)
         bearings = pr.bearing_lines(f)
         if bearings:
             children.append(html.H3("Agreement between probes of a bearing"))
@@ -141,7 +141,23 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
     return html.Div(children)
 
 
-def _split_views(f, system, kinds) -> list:
+def _split_views_fold(f) -> list:
+    """The per-bearing split views, folded: each is a plotly figure the browser takes
+    ~0.1–0.3 s to draw, so they are built and drawn when the fold is first opened
+    (:func:`split_views`, the callback on the summary's clicks)."""
+    from dash import html
+
+    n = len(f.get("bearing_modes") or [])
+    if not n:
+        return []
+    return [html.Details(id=ids.SPLIT_VIEWS, className="reference", children=[
+        html.Summary(f"Split view of {'each of the ' + str(n) + ' bearings' if n > 1 else 'the bearing'}: "
+                     "the fitted major axis of the 1X orbit against speed (drawn when "
+                     "opened)", id=ids.SPLIT_VIEWS_SUMMARY, n_clicks=0),
+        html.Div(id=ids.SPLIT_VIEWS_BODY)])]
+
+
+def split_views(f, system, kinds) -> list:
     """The split view of each bearing with an X/Y pair in the run's modal model."""
     from dash import dcc
 
