@@ -11,6 +11,10 @@ from datetime import datetime
 from rundash import CAUTION
 from rundash.cli.common import open_db, parse_time, print_table
 from rundash.errors import InputError
+from rundash.model import TEST_KINDS
+
+#: what ``rundash edit --kind`` takes: a direction, or a test kind
+EDIT_KINDS = ("run-up", "coast-down", "mixed", "steady") + TEST_KINDS
 
 REVIEWER_ENV = "RUNDASH_REVIEWER"
 
@@ -85,11 +89,15 @@ def add_parsers(sub, with_db) -> None:
 
     s = with_db(sub.add_parser("edit", help="change a run's label, cycle, notes, kind or start "
                                             "time (kept in its review log)"))
+    # a direction sets the run's kind; field, shop-test or trip-test its test kind (the
+    # rules in scope), as --kind of the import marks them
     s.add_argument("run", type=int)
     s.add_argument("--label")
     s.add_argument("--cycle")
     s.add_argument("--notes")
-    s.add_argument("--kind", choices=["run-up", "coast-down", "mixed", "steady"])
+    s.add_argument("--kind", choices=EDIT_KINDS,
+                   help="a direction (run-up, coast-down, mixed, steady), or what the run "
+                        "records: field, shop-test (mechanical running test), trip-test")
     s.add_argument("--started", type=parse_time, help="ISO 8601 with zone")
     s.add_argument("--by", default=None, help=f"who edits (default: ${REVIEWER_ENV})")
     s.set_defaults(func=cmd_edit)
@@ -208,8 +216,10 @@ def cmd_edit(*, db: str | None, run: int, label: str | None, cycle: str | None,
              by: str | None) -> int:
     from rundash.workflows.housekeeping import edit_run
 
-    changes = {k: v for k, v in dict(label=label, cycle=cycle, notes=notes, kind=kind,
-                                     started_at=started).items() if v is not None}
+    direction, test_kind = (None, kind) if kind in TEST_KINDS else (kind, None)
+    changes = {k: v for k, v in dict(label=label, cycle=cycle, notes=notes, kind=direction,
+                                     test_kind=test_kind, started_at=started).items()
+               if v is not None}
     if not changes:
         raise InputError("say what to change: --label, --cycle, --notes, --kind or --started")
     diff = edit_run(open_db(db), run, by=_by(by), **changes)
@@ -218,6 +228,11 @@ def cmd_edit(*, db: str | None, run: int, label: str | None, cycle: str | None,
     for k, pair in diff.items():
         old, new = (x.isoformat() if isinstance(x, datetime) else x for x in pair)
         print(f"run {run}: {k} {old!r} -> {new!r}")
+    if "test_kind" in diff:
+        from rundash.workflows.housekeeping import REPROCESS_NOTE
+
+        print(f"run {run}: {REPROCESS_NOTE.format(old=diff['test_kind'][0])} "
+              f"(rundash process {run})")
     return 0
 
 

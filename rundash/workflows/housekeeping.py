@@ -1,4 +1,5 @@
-"""Run housekeeping: edit a run's label, cycle, notes, kind and start time; delete a run.
+"""Run housekeeping: edit a run's label, cycle, notes, kind, test kind and start time;
+delete a run.
 
 An edit is kept in the run's review log (an ``edit-run`` entry saying what changed from
 what), so a signed run is never changed silently. Deleting takes every row of the run
@@ -12,23 +13,32 @@ from datetime import datetime, timezone
 from typing import Any
 
 from rundash.errors import InputError, invalid_value
+from rundash.model import TEST_KINDS
 from rundash.storage import queries as q
 from rundash.storage import review_queries as rq
 from rundash.storage.engine import Database
 
 KINDS = ("run-up", "coast-down", "mixed", "steady")
-EDITABLE = ("label", "cycle", "notes", "kind", "started_at")
+EDITABLE = ("label", "cycle", "notes", "kind", "test_kind", "started_at")
+#: what a changed test kind leaves stale: the verdicts were judged with the old one
+REPROCESS_NOTE = ("the verdicts stay those of the last processing, judged as {old}, until "
+                  "the run is processed again")
 
 
 def edit_run(db: Database, run_id: int, *, by: str = "", **changes: Any) -> dict[str, list]:
-    """Change the given fields (``label``, ``cycle``, ``notes``, ``kind``, ``started_at``
-    as a UTC-aware datetime or None); returns ``{field: [before, after]}`` of the fields
-    that changed (nothing stored when none did)."""
+    """Change the given fields (``label``, ``cycle``, ``notes``, ``kind`` the run's
+    direction, ``test_kind`` — ``field``, ``shop-test`` (mechanical running test) or
+    ``trip-test``, which decides the rules in scope — ``started_at`` as a UTC-aware
+    datetime or None); returns ``{field: [before, after]}`` of the fields that changed
+    (nothing stored when none did). A changed test kind takes effect on the verdicts when
+    the run is processed again (:data:`REPROCESS_NOTE`)."""
     unknown = set(changes) - set(EDITABLE)
     if unknown:
         raise InputError(invalid_value("field", sorted(unknown)[0], ", ".join(EDITABLE)))
     if "kind" in changes and changes["kind"] not in KINDS:
         raise InputError(invalid_value("kind", changes["kind"], ", ".join(KINDS)))
+    if "test_kind" in changes and changes["test_kind"] not in TEST_KINDS:
+        raise InputError(invalid_value("test_kind", changes["test_kind"], ", ".join(TEST_KINDS)))
     t = changes.get("started_at")
     if t is not None:
         if not isinstance(t, datetime) or t.tzinfo is None:

@@ -87,3 +87,29 @@ def test_processing_a_signed_run_says_the_sign_off_is_of_an_earlier_processing(
     assert json.loads(capsys.readouterr().out)[0]["review"] == "signed off (earlier processing)"
     assert main(["findings", run, *db]) == 0
     assert "signed off (earlier processing)" in capsys.readouterr().out
+
+
+def test_edit_marks_a_shop_or_trip_test_and_processing_judges_it_so(reviewed, capsys):
+    # run.test_kind (revision 0006) decides which rules of the profile are in scope; edit
+    # sets it as the import's --kind does, and a direction still sets only the direction
+    run, db = str(reviewed.run_id), ["--db", str(reviewed.path)]
+    assert main(["edit", run, *db, "--kind", "shop-test", "--by", "R. Okafor"]) == 0
+    out = capsys.readouterr().out
+    assert "test_kind 'field' -> 'shop-test'" in out
+    assert "until the run is processed again" in out and f"rundash process {run}" in out
+    assert main(["runs", *db, "--json"]) == 0
+    (r,) = json.loads(capsys.readouterr().out)
+    assert r["test_kind"] == "shop-test" and r["kind"] == "run-up"
+    assert main(["review", run, *db, "log"]) == 0
+    assert "test_kind" in capsys.readouterr().out
+    assert main(["process", run, *db, "--quiet"]) == 0
+    capsys.readouterr()
+    assert main(["findings", run, *db, "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["run"]["test_kind"] == "shop-test"
+    assert main(["edit", run, *db, "--kind", "coast-down"]) == 0
+    assert "kind 'run-up' -> 'coast-down'" in capsys.readouterr().out
+    assert main(["edit", run, *db, "--kind", "field"]) == 0
+    assert "test_kind 'shop-test' -> 'field'" in capsys.readouterr().out
+    assert main(["runs", *db, "--json"]) == 0
+    (r,) = json.loads(capsys.readouterr().out)
+    assert (r["kind"], r["test_kind"]) == ("coast-down", "field")

@@ -52,3 +52,24 @@ def test_marks_are_shapes_and_annotations_only(db_path):
     assert any("look here" in t for t in texts)
     assert any(t.startswith("engineer: 3,550 rpm, AF 4.00") for t in texts)
     db.dispose()
+
+
+def test_run_edit_sets_the_test_kind(db_path):
+    from rundash.dashboard.pages.review.housekeeping import housekeeping_card, save
+
+    db = open_database(str(db_path), create=True)
+    run = make_run(db)
+    with db.read() as conn:
+        info = q.get_run(conn, run)
+    card = housekeeping_card(info, signed=False)
+    assert "run-edit-test-kind" in _ids(card)
+    msg = save(db, run, by="R. Okafor", label=info.label, cycle=info.cycle, notes=info.notes,
+               kind=info.kind, started="2026-05-01T06:00:00Z", test_kind="trip-test")
+    assert msg.startswith("Saved: ") and "test_kind" in msg
+    assert "judged as field run, until the run is processed again" in msg
+    with db.read() as conn:
+        assert q.get_run(conn, run).test_kind == "trip-test"
+    msg = save(db, run, by="", label=info.label, cycle=info.cycle, notes=info.notes,
+               kind=info.kind, started=None, test_kind="bench")
+    assert msg.startswith("Not saved: ") and "'test_kind'" in msg
+    db.dispose()

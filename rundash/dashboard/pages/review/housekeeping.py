@@ -1,4 +1,5 @@
-"""Run review, housekeeping: edit the run's label, cycle, notes, kind and start time;
+"""Run review, housekeeping: edit the run's label, cycle, notes, kind, test kind (field,
+shop test, trip test: the rules in scope) and start time;
 delete the run (a tick to confirm, a second one when the run was signed off). The same
 functions as ``rundash edit`` and ``rundash delete``."""
 
@@ -10,6 +11,8 @@ from rundash.dashboard import ids
 from rundash.errors import RundashError
 
 KINDS = ("run-up", "coast-down", "mixed", "steady")
+TEST_KIND_LABELS = {"field": "field run", "shop-test": "shop test (mechanical running test)",
+                    "trip-test": "overspeed trip test"}
 CONFIRM = "confirm"
 SIGNED_TOO = "signed-off-too"
 
@@ -38,6 +41,12 @@ def housekeeping_card(run, signed: bool):
             html.Div([html.Label("Kind", className="head"),
                       dcc.Dropdown(id=ids.RUN_EDIT_KIND, options=list(KINDS), value=run.kind,
                                    clearable=False, style={"width": "160px"})]),
+            html.Div([html.Label("Test kind", className="head"),
+                      dcc.Dropdown(id=ids.RUN_EDIT_TEST_KIND,
+                                   options=[{"label": v, "value": k}
+                                            for k, v in TEST_KIND_LABELS.items()],
+                                   value=getattr(run, "test_kind", "field") or "field",
+                                   clearable=False, style={"width": "280px"})]),
             html.Div([html.Label("Start (UTC, ISO 8601)", className="head"),
                       dcc.Input(id=ids.RUN_EDIT_STARTED, value=started, **field)]),
             html.Button("Save changes", id=ids.RUN_EDIT_SAVE, n_clicks=0)]),
@@ -62,16 +71,23 @@ def _time(text: str | None):
     return t.astimezone(timezone.utc)
 
 
-def save(db, run_id: int, *, by: str, label, cycle, notes, kind, started) -> str:
-    from rundash.workflows.housekeeping import edit_run
+def save(db, run_id: int, *, by: str, label, cycle, notes, kind, started,
+         test_kind=None) -> str:
+    from rundash.workflows.housekeeping import REPROCESS_NOTE, edit_run
 
+    more = {} if test_kind is None else {"test_kind": test_kind}
     try:
         diff = edit_run(db, run_id, by=by or "", label=label or "", cycle=cycle or "",
-                        notes=notes or "", kind=kind, started_at=_time(started))
+                        notes=notes or "", kind=kind, started_at=_time(started), **more)
     except (RundashError, ValueError) as exc:
         return f"Not saved: {exc}"
-    return ("Nothing changed." if not diff else
-            "Saved: " + ", ".join(sorted(diff)) + " (kept in the review log).")
+    if not diff:
+        return "Nothing changed."
+    msg = "Saved: " + ", ".join(sorted(diff)) + " (kept in the review log)."
+    if "test_kind" in diff:
+        old = TEST_KIND_LABELS.get(diff["test_kind"][0], diff["test_kind"][0])
+        msg += f" Note: {REPROCESS_NOTE.format(old=old)} (rundash process {run_id})."
+    return msg
 
 
 def delete(db, run_id: int, ticks) -> tuple[str, bool]:
@@ -98,10 +114,12 @@ def register_callbacks(app, db) -> None:
                   State(ids.RUN_EDIT_LABEL, "value"), State(ids.RUN_EDIT_CYCLE, "value"),
                   State(ids.RUN_EDIT_NOTES, "value"), State(ids.RUN_EDIT_KIND, "value"),
                   State(ids.RUN_EDIT_STARTED, "value"), State(ids.RUN_DELETE_CONFIRM, "value"),
+                  State(ids.RUN_EDIT_TEST_KIND, "value"),
                   prevent_initial_call=True)
-    def _housekeeping(_save, _delete, run_id, by, label, cycle, notes, kind, started, ticks):
+    def _housekeeping(_save, _delete, run_id, by, label, cycle, notes, kind, started, ticks,
+                      test_kind):
         if ctx.triggered_id == ids.RUN_DELETE:
             msg, done = delete(db, run_id, ticks)
             return [msg, " ", dcc.Link("Back to the runs", href="/")] if done else msg
         return html.Span(save(db, run_id, by=by, label=label, cycle=cycle, notes=notes,
-                              kind=kind, started=started))
+                              kind=kind, started=started, test_kind=test_kind))
