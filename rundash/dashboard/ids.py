@@ -27,6 +27,7 @@ STANDING_NOTES = "review-standing-notes"
 SPLIT_VIEWS = "review-split-views"  # the folded per-bearing split views
 SPLIT_VIEWS_SUMMARY = "review-split-views-summary"
 SPLIT_VIEWS_BODY = "review-split-views-body"
+LIMITS_REFERENCE_SUMMARY = "review-limits-reference-summary"
 TOP_SPEED_NOTE = "review-top-speed-note"
 PHASE = "review-phase"
 BODE_PAIR = "review-bode-pair"

@@ -79,6 +79,29 @@ class TestReview:
         assert "test warning" in text
         assert CAUTION in text
 
+    def test_many_reference_rows_built_when_opened(self, demo_db):
+        """A fold of more than EAGER_ROWS reference-only rows comes empty with the page
+        and is built by the fold's first opening (layout.reference_limits_table, what the
+        callback returns); a short fold keeps its rows in the page."""
+        import importlib
+
+        lay = importlib.import_module("rundash.dashboard.pages.review.layout")
+
+        ctx = review.load_context(demo_db.db, demo_db.run_id)
+        f = ctx["findings"]
+        ref = [r for r in f["limits"] if r["verdict"] == "reference only"]
+        many = dict(f, limits=[dict(ref[i % len(ref)], speed_rpm=3000.0 + i)
+                               for i in range(lay.EAGER_ROWS + 10)] + f["limits"])
+        panel = review.verdict_panel(dict(ctx, findings=many))
+        body = _find(panel, ids.LIMITS_REFERENCE_BODY)
+        assert body.children == []
+        assert f"{lay.EAGER_ROWS + 12} reference-only rows" in _text(_find(panel, ids.LIMITS_REFERENCE))
+        kinds = lay.probe_kinds(ctx)
+        table = lay.reference_limits_table(many, "metric", kinds)
+        assert len(table.children[1].children) == lay.EAGER_ROWS + 12
+        assert _text(table).count("reference only") == lay.EAGER_ROWS + 12
+        assert lay.reference_limits_table(f, "metric", kinds) is None  # 2 rows: in the page
+
     def test_judged_limits_first_reference_rows_folded(self, demo_db):
         ctx = review.load_context(demo_db.db, demo_db.run_id)
         panel = review.verdict_panel(ctx)

@@ -12,7 +12,8 @@ from rundash.dashboard.pages.review.data import (
     orbit_figure, polar_direct_figures, speed_figure,
 )
 from rundash.dashboard.pages.review.layout import (
-    CRITICAL_ROW, evidence_panel, probe_kinds, split_views, verdict_panel,
+    CRITICAL_ROW, evidence_panel, probe_kinds, reference_limits_table, split_views,
+    verdict_panel,
 )
 from rundash.dashboard import ids
 
@@ -145,14 +146,22 @@ def register_callbacks(app, db) -> None:
     def _verdict(units, run_id):
         return verdict_panel(load_context(db, run_id, cache=cache), _units(units))
 
-    @app.callback(Output(ids.SPLIT_VIEWS_BODY, "children"),
-                  Input(ids.SPLIT_VIEWS_SUMMARY, "n_clicks"), State(ids.UNITS, "value"),
-                  State(ids.RUN_ID, "data"), prevent_initial_call=True)
-    def _split_views(n_clicks, units, run_id):
-        if not n_clicks or n_clicks > 1:  # drawn on the first opening, kept after
-            return no_update
-        ctx = load_context(db, run_id, cache=cache)
-        return split_views(ctx["findings"] or {}, _units(units), probe_kinds(ctx))
+    def built_when_opened(summary_id, body_id, build):
+        """Fill a fold's body on the fold's first opening (its summary's first click) with
+        ``build(findings, units, kinds)``; None from ``build`` leaves the body as it is."""
+        @app.callback(Output(body_id, "children"), Input(summary_id, "n_clicks"),
+                      State(ids.UNITS, "value"), State(ids.RUN_ID, "data"),
+                      prevent_initial_call=True)
+        def _fill(n_clicks, units, run_id):
+            if n_clicks != 1:  # built on the first opening, kept after
+                return no_update
+            ctx = load_context(db, run_id, cache=cache)
+            got = build(ctx["findings"] or {}, _units(units), probe_kinds(ctx))
+            return no_update if got is None else got
+
+    built_when_opened(ids.SPLIT_VIEWS_SUMMARY, ids.SPLIT_VIEWS_BODY, split_views)
+    built_when_opened(ids.LIMITS_REFERENCE_SUMMARY, ids.LIMITS_REFERENCE_BODY,
+                      reference_limits_table)
 
     @app.callback(Output(ids.EVIDENCE, "children"),
                   Input({"type": CRITICAL_ROW, "index": ALL}, "n_clicks"),

@@ -32,6 +32,10 @@ LIMIT_COLUMNS = [("probe", "Probe"), ("direction", "Direction"), ("measure", "Me
                  ("limit", "Limit"), ("zone", "Zone"), ("verdict", "Verdict"),
                  ("basis", "Basis")]
 CRITICAL_ROW = "review-critical-row"  # pattern-matching id type of the criticals rows
+#: A folded table of more rows than this is built when the fold is first opened: every
+#: component on the page slows each of the page's updates in the browser (a 16-channel
+#: run has ~150 reference-only limit rows, ~1600 table cells).
+EAGER_ROWS = 30
 
 
 def _table(columns, rows, table_id=None, *, clickable: bool = False):
@@ -214,13 +218,21 @@ def _limits_section(f, system, kinds) -> list:
     else:
         out.append(html.P("No limit check is judged for this run (all are for reference).",
                           className="muted", id=ids.LIMITS_TABLE))
-    if ref:  # folded by the browser (a details element): no callback needed
+    if ref:  # folded by the browser (a details element)
         out.append(html.Details(id=ids.LIMITS_REFERENCE, className="reference", children=[
             html.Summary(f"{len(ref)} reference-only rows: zones and limits shown for "
                          "orientation (meant for steady operation or for the top speed), "
-                         "not verdicts"),
-            html.Div(_table(LIMIT_COLUMNS, ref), id=ids.LIMITS_REFERENCE_BODY)]))
+                         "not verdicts", id=ids.LIMITS_REFERENCE_SUMMARY, n_clicks=0),
+            html.Div(_table(LIMIT_COLUMNS, ref) if len(ref) <= EAGER_ROWS else [],
+                     id=ids.LIMITS_REFERENCE_BODY)]))
     return out
+
+
+def reference_limits_table(f, system, kinds):
+    """The folded reference-only limit rows as a table, or None when the fold was filled
+    with the page (no more than :data:`EAGER_ROWS` rows)."""
+    ref = [r for r in pr.limit_rows(f, system, kinds=kinds) if not r["judged"]]
+    return _table(LIMIT_COLUMNS, ref) if len(ref) > EAGER_ROWS else None
 
 
 def evidence_panel(findings, index: int | None, system: str = "metric", *, kinds=None):
