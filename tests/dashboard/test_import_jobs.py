@@ -198,9 +198,10 @@ class TestWaitingForTheDatabase:
 
 @pytest.mark.skipif(__import__("shutil").which("chromedriver") is None,
                     reason="chromedriver is not installed (see .ci/run)")
-def test_a_failing_upload_ends_with_a_visible_error_in_the_browser(dash_duo, demo_db, tmp_path):
+def test_a_failing_upload_ends_with_a_visible_error_in_the_browser(dash_duo, db, tmp_path):
     """The real server in headless Chromium: a file whose processing fails (no tach pulses)
-    ends the status line with the error, and the page stops polling."""
+    ends the status line with the error, and the page stops polling. On a database of its
+    own: the machine it imports must not become the session's demo database's default."""
     from rundash.dashboard.app import create_app
     from tests.badinput.make_corpus import csv_text
     from tests.dashboard.conftest import ARTIFACTS
@@ -209,7 +210,7 @@ def test_a_failing_upload_ends_with_a_visible_error_in_the_browser(dash_duo, dem
     data.write_text(csv_text(signals(tach="flat")), encoding="utf-8")
     machine = tmp_path / "rig.toml"
     machine.write_text(machine_text(), encoding="utf-8")
-    dash_duo.start_server(create_app(demo_db.db))
+    dash_duo.start_server(create_app(db))
     dash_duo.driver.get(dash_duo.server_url + "/import")
     dash_duo.wait_for_element(f"#{ids.UPLOAD_DATA} input[type=file]", timeout=10)
     dash_duo.find_element(f"#{ids.UPLOAD_DATA} input[type=file]").send_keys(str(data))
