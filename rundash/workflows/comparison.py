@@ -10,10 +10,17 @@ Vectors are the ones the findings use: slow-roll-compensated 1X for proximity pr
 uncompensated for seismic ones, cut into run-up and coast-down by the stored segments.
 The standard error of each run's slow-roll vector enters the bootstrap as an offset
 uncertainty, and the slow-roll vectors themselves are compared (runout, bow).
+
+Run-to-run repeatability (:data:`REPEATABILITY`): where the runs compared include others
+of one cycle (same machine, cycle, test kind, probe and run direction), a run's
+uncertainties add the scatter between those runs beyond their own bootstrap noise; the
+other run of the pair being judged is left out of that scatter.
 """
 
 from __future__ import annotations
 
+import math
+from dataclasses import replace
 from typing import Any, Sequence
 
 import numpy as np
@@ -37,6 +44,88 @@ METHOD = ("one-sigma uncertainties from a dependent wild bootstrap over revoluti
           "re-run on each replicate. The uncertainty covers the noise in the data, not "
           "biases the runs share (sweep-rate shift of the apparent peak): compare like "
           "with like.")
+
+
+REPEATABILITY = (
+    "run-to-run repeatability: where the runs compared include two or more of one cycle "
+    "(same machine, cycle and test kind; same probe and run direction), each of their "
+    "one-sigma uncertainties adds sigma_rep, the scatter between those runs beyond their "
+    "own bootstrap noise: sigma_rep^2 = max(0, s^2 - mean(sigma_boot^2)), s the standard "
+    "deviation of the runs' values (a one-way random-effects model solved by moments, as "
+    "ISO 5725-2 separates repeatability from between-run scatter; from memory). The "
+    "other run of the pair judged is left out of the scatter, so a difference is never "
+    "its own uncertainty; with two values the scatter rests on one degree of freedom.")
+#: criticals of two runs of one cycle are the same critical within this (as compare_curves)
+_REP_MATCH_PCT = 10.0
+
+
+def _cycle_key(run) -> tuple[str, str] | None:
+    """Runs of one cycle: the same cycle (given) and the same test kind."""
+    return (run.cycle, getattr(run, "test_kind", "field") or "field") if run.cycle else None
+
+
+def _rep_sigma(values, sigmas, *, circular: bool = False) -> float | None:
+    """sigma_rep of :data:`REPEATABILITY` from the runs' values and bootstrap sigmas
+    (None with fewer than two values)."""
+    pairs = [(v, sd) for v, sd in zip(values, sigmas) if v is not None and math.isfinite(v)]
+    if len(pairs) < 2:
+        return None
+    v = np.array([p[0] for p in pairs], float)
+    if circular:  # degrees: deviations wrapped about the first value
+        v = v[0] + (v - v[0] + 180.0) % 360.0 - 180.0
+    boot = np.array([p[1] if p[1] is not None and math.isfinite(p[1]) else 0.0
+                     for p in pairs], float)
+    return float(math.sqrt(max(0.0, float(np.var(v, ddof=1)) - float(np.mean(boot ** 2)))))
+
+
+def _plus(sd, rep):
+    if rep is None or sd is None:
+        return sd
+    return float(math.hypot(sd, rep))
+
+
+def _with_repeatability(est, group):
+    """``est`` with each critical's and phase point's sigmas widened by the scatter over
+    ``est`` and ``group`` (the other runs of its cycle), and sigma_rep per critical:
+    ``(estimate, [{quantity: sigma_rep, 'n_runs': n} per critical])``."""
+    if not group:
+        return est, [None] * len(est.criticals)
+    crits, reps = [], []
+    for c in est.criticals:
+        near = []
+        for g in group:
+            cand = [x for x in g.criticals
+                    if abs(x.speed_rpm - c.speed_rpm) <= _REP_MATCH_PCT / 100 * c.speed_rpm]
+            if cand:
+                near.append(min(cand, key=lambda x: abs(x.speed_rpm - c.speed_rpm)))
+        allc = [c] + near
+        r = {f: _rep_sigma([getattr(x, f) for x in allc], [getattr(x, sd) for x in allc])
+             for f, sd in (("speed_rpm", "speed_std_rpm"), ("af", "af_std"),
+                           ("af_half_power", "af_half_power_std"),
+                           ("peak_amplitude", "peak_amplitude_std"))}
+        r["n_runs"] = len(allc)
+        reps.append(r)
+        crits.append(replace(c, speed_std_rpm=_plus(c.speed_std_rpm, r["speed_rpm"]),
+                             af_std=_plus(c.af_std, r["af"]),
+                             af_half_power_std=_plus(c.af_half_power_std, r["af_half_power"]),
+                             peak_amplitude_std=_plus(c.peak_amplitude_std,
+                                                      r["peak_amplitude"])))
+    points = []
+    for p in est.phase_points:
+        same = [p] + [q for g in group for q in g.phase_points
+                      if round(q.speed_rpm, 6) == round(p.speed_rpm, 6)]
+        lag = _rep_sigma([x.lag_deg for x in same], [x.lag_std_deg for x in same],
+                         circular=True)
+        amp = _rep_sigma([x.amplitude for x in same], [x.amplitude_std for x in same])
+        points.append(replace(p, lag_std_deg=_plus(p.lag_std_deg, lag),
+                              amplitude_std=_plus(p.amplitude_std, amp)))
+    return replace(est, criticals=tuple(crits), phase_points=tuple(points)), reps
+
+
+def _rep_json(r) -> dict[str, Any] | None:
+    if r is None:
+        return None
+    return {k: (json_number(v) if isinstance(v, float) else v) for k, v in r.items()}
 
 
 def _run_json(run) -> dict[str, Any]:
@@ -175,6 +264,7 @@ def compare_runs(db: Database, run_ids: Sequence[int], *,
         runs_json.append(j)
 
     ref = data[0]["run"]
+    cycle_of = {d["run"].id: _cycle_key(d["run"]) for d in data}
     pairs = []
     all_hints: list[str] = []
     for d in data[1:]:
@@ -190,7 +280,33 @@ def compare_runs(db: Database, run_ids: Sequence[int], *,
             if db_ != da and any(n == name and dd == db_ for (n, dd) in estimates[ref.id]):
                 continue  # the other direction of the reference is compared with it
             kind = curves[ref.id][(name, da)]["kind"]
-            res = cmp.compare_curves(ea, eb, k=k, kind=kind, amplitude_units=amplitude_label(kind))
+            rep_runs, rep_notes, widened = {}, [], []
+            for side, run_, dd, est in (("a", ref, da, ea), ("b", b_run, db_, eb)):
+                other = b_run.id if side == "a" else ref.id
+                key = cycle_of[run_.id]
+                group = [r for r in estimates if r not in (run_.id, other) and key
+                         and cycle_of[r] == key and (name, dd) in estimates[r]]
+                est_r, reps = _with_repeatability(est, [estimates[r][(name, dd)]
+                                                        for r in group])
+                widened.append((est_r, reps))
+                rep_runs[side] = (dict(runs=[run_.id] + group, cycle=key[0],
+                                       test_kind=key[1]) if group else None)
+                if group:
+                    rep_notes.append(f"run {run_.id}'s uncertainties include the scatter "
+                                     f"between runs {', '.join(map(str, [run_.id] + group))} "
+                                     f"of cycle '{key[0]}' ({key[1]}, {dd}): run-to-run "
+                                     "repeatability")
+            if cycle_of[ref.id] and cycle_of[ref.id] == cycle_of[b_run.id] \
+                    and rep_runs["a"] is None:
+                rep_notes.append(f"runs {ref.id} and {b_run.id} are of one cycle and no other "
+                                 "run of it is compared: their run-to-run repeatability cannot "
+                                 "be estimated without their own difference, so the "
+                                 "uncertainties are the bootstrap's alone")
+            (ea_r, rep_a), (eb_r, rep_b) = widened
+            rep_of = {id(c): r for c, r in zip(ea_r.criticals, rep_a)}
+            rep_of.update({id(c): r for c, r in zip(eb_r.criticals, rep_b)})
+            res = cmp.compare_curves(ea_r, eb_r, k=k, kind=kind,
+                                     amplitude_units=amplitude_label(kind))
             crit = []
             for m in res.matches:
                 crit.append(dict(
@@ -198,13 +314,15 @@ def compare_runs(db: Database, run_ids: Sequence[int], *,
                     b=_estimate_json(m.b) if m.b else None,
                     speed=_shift_json(m.speed), af=_shift_json(m.af),
                     peak_amplitude=_shift_json(m.peak_amplitude), changed=m.changed,
+                    repeatability=dict(a=_rep_json(rep_of.get(id(m.a))),
+                                       b=_rep_json(rep_of.get(id(m.b)))),
                     hints=list(m.hints), notes=list(m.notes)))
             sp = probe_spec.get(name)
             probes_json.append(dict(
                 probe=name, bearing=sp.bearing if sp else "", axis=sp.axis if sp else "none",
                 kind=kind, units=amplitude_label(kind), direction_a=da, direction_b=db_,
-                like_with_like=res.like_with_like, notes=list(res.notes),
-                criticals=crit, phase=[_shift_json(s) for s in res.phase],
+                like_with_like=res.like_with_like, notes=list(res.notes) + rep_notes,
+                repeatability=rep_runs, criticals=crit, phase=[_shift_json(s) for s in res.phase],
                 hints=list(res.hints), verdict=res.verdict))
             all_hints += [f"{name} ({da}): {h}" for h in res.hints]
         slow = []
@@ -246,6 +364,7 @@ def compare_runs(db: Database, run_ids: Sequence[int], *,
         "hints": all_hints,
         "rule": RULE.format(k=k),
         "method": METHOD.format(n_boot=n_boot, block=block_revs),
+        "repeatability": REPEATABILITY,
         "phase_speeds_rpm": speeds,
         "caution": CAUTION,
     }

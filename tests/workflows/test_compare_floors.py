@@ -24,15 +24,21 @@ from tests import live_synth
 pytestmark = pytest.mark.both_databases
 
 
-def test_two_runs_of_one_cycle_with_noise_only_flag_nothing(db, db_url, tmp_path, capsys):
+def _runs_of_one_cycle(db, tmp_path, seeds) -> list[int]:
+    """Runs of cycle 2026 with independent noise (one per seed), imported and processed."""
     desc = parse_machine_description(live_synth.MACHINE, "rig.toml")
     ids = []
-    for seed in (11, 12):
+    for seed in seeds:
         wav = tmp_path / f"run{seed}.wav"
         live_synth.write_run(wav, [0, 50], [600, 5600], seed=seed, noise_um=2.0)
         res = import_run(db, wav, desc, description_text=live_synth.MACHINE, cycle="2026")
         process_run(db, res.run_id)
         ids.append(res.run_id)
+    return ids
+
+
+def test_two_runs_of_one_cycle_with_noise_only_flag_nothing(db, db_url, tmp_path, capsys):
+    ids = _runs_of_one_cycle(db, tmp_path, (11, 12))
     c = compare_runs(db, ids, n_boot=20, phase_speeds_rpm=[2000.0, 4400.0])
     (pair,) = c["pairs"]
     assert pair["verdict"] == "no significant change"
@@ -44,6 +50,11 @@ def test_two_runs_of_one_cycle_with_noise_only_flag_nothing(db, db_url, tmp_path
             shifts += [s for s in (m["speed"], m["af"], m["peak_amplitude"]) if s]
         shifts += [s for s in pr["phase"] if s]
     assert shifts and not any(s["flagged"] for s in shifts)
+    # two runs of one cycle alone: their repeatability is not estimated from their own
+    # difference (said), the uncertainties stay the bootstrap's
+    for pr in pair["probes"]:
+        assert pr["repeatability"] == {"a": None, "b": None}
+        assert any("cannot be estimated without their own difference" in n for n in pr["notes"])
     for s in shifts:
         # every shift has its units (AF is a ratio) and its floor with the source
         if not s["quantity"].startswith("AF"):
@@ -61,3 +72,37 @@ def test_two_runs_of_one_cycle_with_noise_only_flag_nothing(db, db_url, tmp_path
     assert main(["compare", *map(str, ids), "--db", db_url, "--boot", "10", "--json"]) == 0
     out = json.loads(capsys.readouterr().out)
     assert out["pairs"][0]["verdict"] == "no significant change"
+
+
+def test_run_to_run_repeatability_widens_the_uncertainty(db, tmp_path):
+    # three runs of one cycle, independent noise only (seeds 11-13): each pair's
+    # uncertainty adds the scatter between its run and the third run of the cycle,
+    # sigma_rep^2 = max(0, s^2 - mean(sigma_boot^2)) (one-way random-effects model by
+    # moments, as ISO 5725-2 separates repeatability from between-run scatter; from
+    # memory); the pair's own other run is left out. Nothing flagged.
+    ids = _runs_of_one_cycle(db, tmp_path, (11, 12, 13))
+    c = compare_runs(db, ids, n_boot=20, phase_speeds_rpm=[2000.0, 4400.0])
+    assert "ISO 5725-2" in c["repeatability"]
+    boot = {r["id"]: {(e["probe"], e["direction"]): e for e in r["estimates"]} for r in c["runs"]}
+    p12, p13 = c["pairs"]
+    for pair, third in ((p12, ids[2]), (p13, ids[1])):
+        assert pair["verdict"] == "no significant change"
+        for pr in pair["probes"]:
+            assert pr["repeatability"]["a"]["runs"] == [pair["a"], third]
+            assert pr["repeatability"]["b"]["runs"] == [pair["b"], third]
+            assert any("run-to-run repeatability" in n for n in pr["notes"])
+            for m in pr["criticals"]:
+                assert not m["changed"]
+                key = (pr["probe"], pr["direction_a"])
+                e_a = boot[pair["a"]][key]["criticals"]
+                e_3 = boot[third][key]["criticals"]
+                a0 = min(e_a, key=lambda x: abs(x["speed_rpm"] - m["a"]["speed_rpm"]))
+                a3 = min(e_3, key=lambda x: abs(x["speed_rpm"] - m["a"]["speed_rpm"]))
+                v = [a0["speed_rpm"], a3["speed_rpm"]]
+                s_boot = [a0["speed_std_rpm"], a3["speed_std_rpm"]]
+                rep = max(0.0, (v[0] - v[1]) ** 2 / 2 - (s_boot[0] ** 2 + s_boot[1] ** 2) / 2)
+                assert m["repeatability"]["a"]["speed_rpm"] == pytest.approx(rep ** 0.5,
+                                                                             rel=1e-6, abs=1e-9)
+                assert m["speed"]["a_std"] == pytest.approx(
+                    (s_boot[0] ** 2 + rep) ** 0.5, rel=1e-6)
+                assert not m["speed"]["flagged"]
