@@ -63,6 +63,11 @@ def test_accept_reject_correct_change_the_verdict(dash_duo, reviewed):
     _click(dash_duo, f"#{ids.REVIEW_RECORD}")
     _message(dash_duo, "verdict fail → pass")
     assert "pass" in _decided(dash_duo)
+    # the verdict panel at the top follows: the decided verdict first, the automatic beside
+    dash_duo.wait_for_contains_text(f"#{ids.VERDICT_HEAD}", "Verdict after review", timeout=15)
+    assert "pass" in dash_duo.find_element(f"#{ids.VERDICT_HEAD}").text
+    auto = dash_duo.find_element(f"#{ids.VERDICT_AUTOMATIC}").text
+    assert "Automatic verdict: fail" in auto and "decisions change it" in auto
     table = dash_duo.find_element("#review-decided").text
     assert "rejected: structural resonance" in table and "A. Engineer" in table
 

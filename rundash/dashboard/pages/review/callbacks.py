@@ -142,9 +142,11 @@ def register_callbacks(app, db) -> None:
         return orbit_figure(db, run_id, pair, speed, direction, _units(units), cache=cache)
 
     @app.callback(Output(ids.VERDICT_PANEL, "children"), Input(ids.UNITS, "value"),
-                  State(ids.RUN_ID, "data"), prevent_initial_call=True)
-    def _verdict(units, run_id):
-        return verdict_panel(load_context(db, run_id, cache=cache), _units(units))
+                  Input(ids.REVIEW_VERSION, "data"), State(ids.RUN_ID, "data"),
+                  prevent_initial_call=True)
+    def _verdict(units, _version, run_id):
+        ctx = load_context(db, run_id, cache=cache)
+        return verdict_panel(dict(ctx, review=review_of(db, run_id)), _units(units))
 
     def built_when_opened(summary_id, body_id, build):
         """Fill a fold's body on the fold's first opening (its summary's first click) with

@@ -64,8 +64,15 @@ def _table(columns, rows, table_id=None, *, clickable: bool = False):
     return html.Table([head, html.Tbody(body)], className="plain", **kw)
 
 
+#: Review states in which the engineer's decisions exist (rundash.analysis.review).
+DECIDED_STATES = ("reviewed", "signed off", "signed off (earlier processing)")
+
+
 def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
-    """The verdict section: what was found, against what, how sure, and the caution."""
+    """The verdict section: what was found, against what, how sure, and the caution.
+
+    With ``ctx['review']`` (the run's review object) holding decisions, the verdict after
+    the review heads the panel and the automatic one is said beside it."""
     from dash import html
 
     from rundash.dashboard.pages.runs import verdict_badge
@@ -87,7 +94,22 @@ def verdict_panel(ctx: dict[str, Any], system: str = "metric"):
                      html.Div(id=ids.EVIDENCE)]
     else:
         prof = f.get("profile") or {}
-        children.append(html.H2(["Verdict ", verdict_badge(f.get("run_verdict"), True, big=True)]))
+        rv = ctx.get("review") or {}
+        if rv.get("state") in DECIDED_STATES and rv.get("run_verdict"):
+            # the engineer's decisions govern: the decided verdict first, the automatic beside
+            children.append(html.H2(["Verdict after review ",
+                                     verdict_badge(rv["run_verdict"], True, big=True)],
+                                    id=ids.VERDICT_HEAD))
+            children.append(html.P(
+                f"Review state: {rv['state']}. Automatic verdict: "
+                f"{f.get('run_verdict') or '–'}"
+                + ("; the engineer's decisions change it" if rv.get("verdict_changed")
+                   else "; the engineer's decisions leave it as it is")
+                + " (the decisions are in the review card below).", className="muted",
+                id=ids.VERDICT_AUTOMATIC))
+        else:
+            children.append(html.H2(["Verdict ", verdict_badge(f.get("run_verdict"), True,
+                                                                big=True)], id=ids.VERDICT_HEAD))
         children.append(html.P(pr.summary_line(f), id=ids.VERDICT_SUMMARY))
         reasons = pr.verdict_reasons(f, system, kinds=kinds)
         if reasons:
@@ -299,8 +321,11 @@ def layout(db, run_id: int, *, cache=None):
                   " rpm" if proc and proc.slow_roll_rpm else ""), className="muted"),
         reports.run_actions(db, run, proc is not None),
         *([exports.review_controls()] if proc is not None else [])])
+    from rundash.workflows.review import review_of
+
+    review = review_of(db, run_id)
     verdict = html.Div(id=ids.VERDICT_PANEL, className="card",
-                       children=verdict_panel(ctx, "metric"))
+                       children=verdict_panel(dict(ctx, review=review), "metric"))
     if proc is None:
         from rundash.dashboard.pages.review.housekeeping import housekeeping_card
 
@@ -392,8 +417,6 @@ def layout(db, run_id: int, *, cache=None):
     ]
     from rundash.dashboard.pages.review.decisions import review_card
     from rundash.dashboard.pages.review.housekeeping import housekeeping_card
-    from rundash.workflows.review import review_of
 
-    review = review_of(db, run_id)
     return html.Div([dcc.Store(id=ids.RUN_ID, data=run_id), head, verdict, review_card(review),
                      controls, *plots, housekeeping_card(run, bool(review["sign_offs"]))])
