@@ -126,10 +126,11 @@ def first_candidate_rpm(speed_rpm, vectors, *, amplitude_factor: float = 2.0) ->
         None when no channel shows a confirmed critical (or the data are too few).
     """
     s = np.asarray(speed_rpm, dtype=float).ravel()
-    v = np.asarray(vectors, dtype=complex)
+    v = np.asarray(vectors)  # rows taken to complex one at a time (the whole run's)
     v = v[None, :] if v.ndim == 1 else v
     best = None
     for row in v:
+        row = np.asarray(row, dtype=complex)
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")

@@ -88,7 +88,11 @@ def choose_slow_roll_window(speed_rpm, vectors, *, first_critical_rpm: float | N
     SlowRollChoice
     """
     s = np.asarray(speed_rpm, dtype=np.float64).ravel()
-    v = np.asarray(vectors, dtype=np.complex128)
+    # complex64 input stays so (the whole run's vectors of every channel); the rows are
+    # taken to complex128 one at a time, and the band's vectors as a whole
+    v = np.asarray(vectors)
+    if not np.iscomplexobj(v):
+        v = v.astype(np.complex128)
     v = v[None, :] if v.ndim == 1 else v
     if v.ndim != 2 or v.shape[1] != s.size:
         raise DspError(invalid_value("vectors", f"shape {np.shape(vectors)}",
@@ -97,7 +101,9 @@ def choose_slow_roll_window(speed_rpm, vectors, *, first_critical_rpm: float | N
                       ("below_critical", below_critical)):
         if not (np.isfinite(val) and 0 < val <= 1):
             raise DspError(invalid_value(name, val, "a fraction in (0, 1]"))
-    good = np.isfinite(s) & np.all(np.isfinite(v), axis=0)
+    good = np.isfinite(s)
+    for row in v:
+        good &= np.isfinite(row)
     if not np.any(good):
         return SlowRollChoice(None, 0.0, "no slow-roll window: no finite speeds")
     top = float(np.max(s[good]))
@@ -120,8 +126,8 @@ def choose_slow_roll_window(speed_rpm, vectors, *, first_critical_rpm: float | N
         return none
     order = np.argsort(s[keep], kind="stable")
     c = s[keep][order]
-    vv = v[:, keep][:, order]
-    scale = np.max(np.abs(v[:, good]), axis=1)  # per channel
+    vv = v[:, keep][:, order].astype(np.complex128)
+    scale = np.array([np.max(np.abs(row[good].astype(np.complex128))) for row in v])
     x = c - c.mean()
 
     def cum(a):

@@ -84,14 +84,19 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
     seismic_ref: dict[str, list[str]] = {}  # seismic probe -> the bearing's proximity probes
     per_probe: dict[tuple[str, str], tuple] = {}  # (probe, direction) -> (crits, speed, vec)
     sweep_notes: dict[tuple[str, str], list[int]] = {}  # (probe, direction) -> note indices
+    # speeds and times of each direction are shared by every probe; each probe's vectors
+    # are kept in their own dtype (complex64 from the pipeline) and taken to complex128
+    # where they are read (_c128): what is held stays small on a long run
+    by_dir = {d: (track.speed_rpm[sel], track.time_s[sel]) for d, sel in directions.items()}
     if k1 is not None:
         for i, ch in enumerate(probes):
             if ch.kind not in VECTOR_AMPLITUDE_CONVENTION:
                 continue
             afac = vector_amplitude_factor(ch.kind)
             for d, sel in directions.items():
-                s, t = track.speed_rpm[sel], track.time_s[sel]
-                v = np.asarray(compensated[i, k1, sel], dtype=np.complex128)
+                s, t = by_dir[d]
+                v_held = compensated[i, k1, sel]
+                v = _c128(v_held)
                 floor = None
                 if angle_bound_rad is not None and ch.kind == "proximity":
                     # the reference angle error rotates the measured vector, not the
@@ -118,7 +123,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                     if issubclass(w.category, SweepRateWarning):
                         sweep_notes.setdefault((ch.probe_name, d), []).append(len(notes))
                     notes.append(f"{ch.probe_name} {d}: {w.message}")
-                per_probe[(ch.probe_name, d)] = (crits, s, v, t, afac, i)
+                per_probe[(ch.probe_name, d)] = (crits, s, v_held, t, afac, i)
+                del v
 
     # mode-shape hints: the same-axis probe at another bearing, at the same speed
     hints: dict[tuple[str, str], list[str | None]] = {}
@@ -135,8 +141,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                 out.append(None)
                 continue
             _, s2, v2, *_ = per_probe[(partner.name, d)]
-            a, _ = mean_vector_near(s, v, c.speed_rpm, nearest_within_pct=2.0)
-            b, _ = mean_vector_near(s2, v2, c.speed_rpm, nearest_within_pct=2.0)
+            a, _ = mean_vector_near(s, _c128(v), c.speed_rpm, nearest_within_pct=2.0)
+            b, _ = mean_vector_near(s2, _c128(v2), c.speed_rpm, nearest_within_pct=2.0)
             if a is None or b is None:
                 out.append(None)
                 continue
@@ -200,7 +206,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
         if ch.kind in ("proximity", "velocity"):
             direct = track.direct_pp[i] if ch.kind == "proximity" else track.direct_rms[i]
             sel = directions[d]
-            checks = check_levels(s, vector=v, direct=np.asarray(direct[sel], np.float64),
+            checks = check_levels(s, vector=_c128(v), direct=np.asarray(direct[sel], np.float64),
                                   criticals=crits,
                                   kind=ch.kind, amplitude_factor=afac,
                                   max_continuous_speed_rpm=m.max_continuous_speed_rpm,
@@ -253,7 +259,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
 
     open_top = []
     for (name, d), (crits, s, v, t, afac, i) in per_probe.items():
-        r = crit_mod.rising_at_top(s, v, amplitude_factor=afac)
+        r = crit_mod.rising_at_top(s, _c128(v), amplitude_factor=afac)
         if r is not None:
             open_top.append(dict(probe=name, direction=d, from_rpm=json_number(r.from_rpm),
                                  to_rpm=json_number(r.to_rpm), rise_pct=json_number(r.rise_pct),
@@ -374,6 +380,11 @@ def _holds(track, profile):
     return find_holds(t, np.asarray(track.speed_rpm, np.float64),
                       tolerance_pct=max(sc.hold_tolerance_pct for sc in scopes),
                       min_duration_s=min(sc.hold_min_s for sc in scopes))
+
+
+def _c128(v) -> np.ndarray:
+    """``v`` as complex128 (exact from complex64: every reading sees the same numbers)."""
+    return np.asarray(v, dtype=np.complex128)
 
 
 def _with_displacement_equivalent(crits, s, v, afac, direction, measure):

@@ -9,10 +9,14 @@ while the current one is tracked), compensates slow roll on proximity probes (ve
 overall is band-limited on the way, :mod:`rundash.dsp.overall`), finds the critical speeds and judges them, and replaces the run's results in one write
 transaction.
 
-Memory: the samples are never held whole (a few chunks of every channel at a time); the
-per-revolution results are (they are the output): about 72 bytes per revolution and
-probe channel (4 orders: the vectors and the slow-roll-compensated vectors as complex64,
-p-p and rms as float32), e.g. about 0.8 GB for a 2-hour run of 15 probes at 6000 rpm.
+Memory: the samples are never held whole (a few chunks of every channel at a time), and
+neither are the per-revolution results of every order: each channel's vectors and direct
+levels go to a temporary file of its own as they are found (:class:`_Results`), and the
+save reads them back one channel at a time (slow roll compensated again there, the same
+numbers). What grows with the run's length is what the analysis reads across probes: the
+1X (uncompensated and compensated, complex64) and one direct level (float32) of every
+probe, about 20 bytes per revolution and probe, and the modal fit's complex128 copy of
+the compensated 1X, e.g. about 0.5 GB for a 2-hour run of 15 probes at 6000 rpm.
 
 ``ProcessResult.stage_s`` and ``stage_cpu_s`` hold the wall and CPU seconds spent per
 stage (:data:`STAGES`); ``rundash process --timings`` prints them.
@@ -20,10 +24,11 @@ stage (:data:`STAGES`); ``rundash process --timings`` prints them.
 
 from __future__ import annotations
 
+import tempfile
 import threading
 import time
 import warnings
-from contextlib import contextmanager
+from contextlib import ExitStack, contextmanager
 from dataclasses import asdict, dataclass, field, replace
 from typing import Any, Iterator
 
@@ -216,40 +221,83 @@ def _edges(db: Database, tach_ch, desc: MachineDescription,
 
 
 class _Results:
-    """Per-block results of the tracker gathered into arrays sized once (no copy per
-    chunk, no concatenation at the end): vectors as complex64, direct levels float32."""
+    """Per-block results of the tracker, kept out of memory as they are found.
+
+    Block times, speeds and revolution indices (shared by every channel) are held in
+    arrays sized once; each channel's vectors (complex64) and direct levels (float32) are
+    appended to an anonymous temporary file of its own (40 bytes per block and channel
+    with 4 orders; the operating system removes the file when it is closed or the process
+    dies), so what processing holds does not grow with the number of channels times the
+    run's length: analysis and the save read the channels back one at a time
+    (:meth:`channel`)."""
 
     def __init__(self, n_ch: int, orders, n_max: int):
         self.orders = np.asarray(orders, dtype=np.float64)
-        self.vectors = np.empty((n_ch, self.orders.size, n_max), np.complex64)
-        self.direct_pp = np.empty((n_ch, n_max), np.float32)
-        self.direct_rms = np.empty((n_ch, n_max), np.float32)
+        self.dtype = np.dtype([("v", np.complex64, (self.orders.size,)), ("pp", np.float32),
+                               ("rms", np.float32)])
         self.time_s = np.empty(n_max)
         self.speed_rpm = np.empty(n_max)
         self.rev_index = np.empty(n_max, np.int64)
         self.n = 0
+        self._files = [tempfile.TemporaryFile(prefix="rundash-track-") for _ in range(n_ch)]
+        self._rms: dict[int, np.ndarray] = {}  # channel -> its rms, replaced (replace_rms)
 
     def add(self, tr: dsp_orders.OrderTrack) -> None:
         a, b = self.n, self.n + tr.n_blocks
-        self.vectors[:, :, a:b] = tr.vectors
-        self.direct_pp[:, a:b] = tr.direct_pp
-        self.direct_rms[:, a:b] = tr.direct_rms
         self.time_s[a:b] = tr.time_s
         self.speed_rpm[a:b] = tr.speed_rpm
         self.rev_index[a:b] = tr.rev_index
+        rec = np.empty(tr.n_blocks, self.dtype)
+        for i, fh in enumerate(self._files):
+            rec["v"] = tr.vectors[i].T
+            rec["pp"] = tr.direct_pp[i]
+            rec["rms"] = tr.direct_rms[i]
+            fh.write(rec.tobytes())
         self.n = b
 
-    def track(self) -> dsp_orders.OrderTrack:
+    def channel(self, i: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Channel ``i``'s vectors (complex64, shape (n_orders, n)), direct p-p and rms."""
+        fh = self._files[i]
+        fh.flush()
+        fh.seek(0)
+        rec = np.frombuffer(fh.read(self.n * self.dtype.itemsize), self.dtype)
+        rms = self._rms.get(i)
+        return (np.ascontiguousarray(rec["v"].T), np.ascontiguousarray(rec["pp"]),
+                np.ascontiguousarray(rec["rms"]) if rms is None else rms.copy())
+
+    def replace_rms(self, i: int, rms) -> None:
+        """Channel ``i``'s direct rms from now on (e.g. a band-limited overall), float32."""
+        self._rms[i] = np.asarray(rms, dtype=np.float32)
+
+    def set_vectors(self, i: int, vectors: np.ndarray) -> None:
+        """Replace channel ``i``'s vectors (shape (n_orders, n)); its direct levels stay."""
+        _, pp, rms = self.channel(i)
+        rec = np.empty(self.n, self.dtype)
+        rec["v"], rec["pp"], rec["rms"] = np.asarray(vectors).T, pp, rms
+        fh = self._files[i]
+        fh.seek(0)
+        fh.write(rec.tobytes())
+        fh.seek(0, 2)
+
+    def blocks(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Block times, speeds and revolution indices."""
         n = self.n
-        return dsp_orders.OrderTrack(
-            time_s=self.time_s[:n], speed_rpm=self.speed_rpm[:n], orders=self.orders,
-            vectors=self.vectors[:, :, :n], direct_pp=self.direct_pp[:, :n],
-            direct_rms=self.direct_rms[:, :n], rev_index=self.rev_index[:n])
+        return self.time_s[:n], self.speed_rpm[:n], self.rev_index[:n]
+
+    def close(self) -> None:
+        for fh in self._files:
+            fh.close()
 
 
 def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = None,
                 progress: Progress = no_progress) -> ProcessResult:
     """Process a stored run and replace its results in one transaction."""
+    with ExitStack() as stack:  # closes the per-channel result files, whatever happens
+        return _process(db, run_id, params, progress, stack)
+
+
+def _process(db: Database, run_id: int, params: ProcessingParams | None, progress: Progress,
+             stack: ExitStack) -> ProcessResult:
     t_start = time.perf_counter()
     params = params or ProcessingParams()
     timer = StageTimer()
@@ -296,6 +344,7 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
     row_first = np.round(row_t * fs).astype(np.int64) - n_fft // 2  # first sample of each row
     freq_hz = None
     results = _Results(len(probes), tracker.orders, profile.n_revs // tracker.revs_per_block)
+    stack.callback(results.close)
     # velocity channels: the overall judged by the housing-velocity rules is band-limited
     vel = [i for i, c in enumerate(probes) if c.kind == "velocity"]
     band = overall.velocity_band(fs, rated_speed_rpm=desc.machine.rated_speed_rpm) if vel else None
@@ -339,11 +388,15 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
         progress((start + block.shape[1]) / total, "order tracking")
     with timer("tracking"):
         tracker.finish()
-        track = results.track()
-        if band_rms is not None:
-            track.direct_rms[vel] = band_rms.rms(track.rev_index // tracker.revs_per_block)
-    if track.n_blocks < 3:
-        raise DspError(f"run {run_id}: only {track.n_blocks} whole revolutions could be tracked")
+    time_s, speed_rpm, rev_index = results.blocks()
+    orders = results.orders
+    n_blocks = int(time_s.size)
+    if band_rms is not None:
+        with timer("tracking"):
+            for i, rms in zip(vel, band_rms.rms(rev_index // tracker.revs_per_block)):
+                results.replace_rms(i, rms)
+    if n_blocks < 3:
+        raise DspError(f"run {run_id}: only {n_blocks} whole revolutions could be tracked")
     tracker_name = params.tracker or desc.processing.tracker or "order"
     if tracker_name not in TRACKERS:
         raise DspError(f"tracker {tracker_name!r}: expected one of {', '.join(TRACKERS)}")
@@ -357,10 +410,13 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
                 for start, block in _timed_chunks(conn, [ch.id], timer):
                     x[start:start + block.shape[1]] = block[0]
                 with timer("tracking"):
-                    env = vold_kalman_at(x, fs, profile, track.orders, track.time_s,
+                    env = vold_kalman_at(x, fs, profile, orders, time_s,
                                          bandwidth_orders=VK_BANDWIDTH_ORDERS)
+                    del x
                     ok = np.isfinite(env)
-                    track.vectors[i][ok] = env[ok]
+                    vec = results.channel(i)[0]
+                    vec[ok] = env[ok]
+                    results.set_vectors(i, vec)
                 if not ok.all():
                     notes.append(f"{ch.probe_name}: the Vold-Kalman filter cannot honour its "
                                  f"bandwidth or settle at {np.count_nonzero(~ok.all(axis=0))} of "
@@ -371,39 +427,63 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
     progress(1.0, "order tracking")
 
     with timer("findings"):
+        # analysis reads one order of each channel (1X, else the first tracked) and one
+        # direct level (p-p of proximity probes, rms of the others): a track of that order
+        # alone, its direct level under both names
+        k1 = np.flatnonzero(np.isclose(orders, 1.0))
+        ka = int(k1[0]) if k1.size else 0
+        raw_a = np.empty((len(probes), n_blocks), np.complex64)
+        direct = np.empty((len(probes), n_blocks), np.float32)
+        for i, ch in enumerate(probes):
+            vec, pp, rms = results.channel(i)
+            raw_a[i] = vec[ka]
+            direct[i] = pp if ch.kind == "proximity" else rms
         # slow-roll compensation: proximity probes only, never seismic channels
         is_prox = np.array([c.kind == "proximity" for c in probes])
         window = params.slow_roll_rpm or desc.processing.slow_roll_rpm
         slow_roll_basis = ("--slow-roll" if params.slow_roll_rpm else
                            "[processing] slow_roll_rpm of the machine description" if window
                            else "")
-        k1 = np.flatnonzero(np.isclose(track.orders, 1.0))
         if window is None and is_prox.any() and k1.size:
-            raw1 = track.vectors[is_prox, int(k1[0])]
+            raw1 = raw_a[is_prox]
             choice = slowroll.choose_slow_roll_window(
-                track.speed_rpm, raw1,
-                first_critical_rpm=first_candidate_rpm(track.speed_rpm, raw1))
+                speed_rpm, raw1, first_critical_rpm=first_candidate_rpm(speed_rpm, raw1))
+            del raw1
             window, slow_roll_basis = choice.window, choice.note
             if window is None:
                 notes.append(choice.note)
-        comp = track.vectors.copy()
+
+        def vectors_of(i: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+            """Channel i's vectors, slow-roll-compensated vectors and direct level."""
+            vec, pp, rms = results.channel(i)
+            comp = vec
+            if window is not None and is_prox[i]:
+                sr = slowroll.slow_roll_vector(speed_rpm, vec, window)
+                comp = slowroll.compensate(vec, sr).astype(np.complex64, copy=False)
+            return vec, comp, pp if probes[i].kind == "proximity" else rms
+
+        comp_a = raw_a.copy()
         if window is not None and is_prox.any():
-            for i in np.flatnonzero(is_prox):  # one channel at a time: no full-size temporaries
-                sr = slowroll.slow_roll_vector(track.speed_rpm, track.vectors[i], window)
-                comp[i] = slowroll.compensate(track.vectors[i], sr)
+            for i in np.flatnonzero(is_prox):  # one channel at a time
+                comp_a[i] = vectors_of(i)[1][ka]
+        track = dsp_orders.OrderTrack(
+            time_s=time_s, speed_rpm=speed_rpm, orders=orders[ka:ka + 1],
+            vectors=raw_a[:, None, :], direct_pp=direct, direct_rms=direct,
+            rev_index=rev_index)
 
         result = ProcessResult(run_id=run_id, run_kind=kind, n_revs=opr.n_revs,
-                               n_blocks=track.n_blocks, slow_roll_rpm=window, warnings=notes)
+                               n_blocks=n_blocks, slow_roll_rpm=window, warnings=notes)
 
         findings = findings_mod.build_findings(
-            desc=desc, run=run, probes=probes, track=track, compensated=comp,
+            desc=desc, run=run, probes=probes, track=track, compensated=comp_a[:, None, :],
             segments=segments, slow_roll_rpm=window, processing_notes=notes,
             slow_roll_basis=slow_roll_basis,
-            angle_bound_rad=tq.angle_bound_rad(track.speed_rpm),
+            angle_bound_rad=tq.angle_bound_rad(speed_rpm),
             revs_per_block=tracker.revs_per_block, stage=timer,
             conjugate_part=tracker_name == "order", velocity_band=band)
         findings["processing"]["tracker"] = tracker_name
         result.findings = findings
+        del track, raw_a, comp_a, direct
 
     progress(0.0, "saving")
     with timer("save"):
@@ -425,15 +505,15 @@ def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = 
             q.save_speed_profile(conn, run_id, rev_mid, profile.rpm(rev_mid))
             for i, ch in enumerate(probes):
                 afac = vector_amplitude_factor(ch.kind)
-                direct = track.direct_pp[i] if ch.kind == "proximity" else track.direct_rms[i]
-                for k, order in enumerate(track.orders):
-                    for compensated, vec in ((False, track.vectors), (True, comp)):
+                vec, comp, level = vectors_of(i)
+                for k, order in enumerate(orders):
+                    for compensated, vv in ((False, vec), (True, comp)):
                         if compensated and not is_prox[i]:
                             continue
-                        v = vec[i, k].astype(np.complex128)
+                        v = vv[k].astype(np.complex128)
                         q.save_track(conn, run_id, ch.id, float(order), compensated,
-                                     track.time_s, track.speed_rpm, afac * np.abs(v),
-                                     lag_deg_from_phasor(v), direct)
+                                     time_s, speed_rpm, afac * np.abs(v),
+                                     lag_deg_from_phasor(v), level)
                 if casc_amp[i] is not None and casc_done.any():
                     q.save_cascade(conn, run_id, ch.id, row_rpm[casc_done], row_t[casc_done],
                                    freq_hz, casc_amp[i][casc_done])
