@@ -13,14 +13,20 @@ with each stage's share of the wall time. "startup" is the child's wall time out
 Runs longer than about 80 minutes are written as HDF5 (float32, the same samples the
 WAV reader gives), since a WAV file holds at most 4 GB.
 
-Usage: python benchmarks/bench_process.py [--minutes 10] [--keep DIR] [--reuse]
-(``--reuse`` with ``--keep``: process the run already imported in DIR again.)
+Several run lengths (``--minutes 10 30 120``) are processed one after the other and
+summed up in one table: the peak RSS of each, and how much it grew per minute of run
+from the length before (the growth that a longer run would add).
+
+Usage: python benchmarks/bench_process.py [--minutes 10 [30 ...]] [--keep DIR] [--reuse]
+(``--reuse`` with ``--keep``: process the run already imported in DIR again; with several
+lengths each has its own folder ``DIR/<M>min``.)
 """
 
 from __future__ import annotations
 
 import argparse
 import os
+import shutil
 import struct
 import subprocess
 import sys
@@ -112,21 +118,46 @@ full_scale_v = {FULL_SCALE_V}
 
 def main() -> int:
     ap = argparse.ArgumentParser()
-    ap.add_argument("--minutes", type=float, default=10.0)
+    ap.add_argument("--minutes", type=float, nargs="+", default=[10.0],
+                    help="run length(s) in minutes (several: one after the other)")
     ap.add_argument("--keep", help="folder to keep the files in (default: a temp folder)")
     ap.add_argument("--reuse", action="store_true",
                     help="with --keep: process the run already imported there again")
     a = ap.parse_args()
-    td = Path(a.keep) if a.keep else Path(tempfile.mkdtemp())
+    rows = []
+    for minutes in a.minutes:
+        if len(a.minutes) > 1:
+            print(f"--- {minutes:g}-minute run")
+        td = None
+        if a.keep:
+            td = Path(a.keep) / f"{minutes:g}min" if len(a.minutes) > 1 else Path(a.keep)
+        peak = bench(minutes, td, a.reuse)
+        if peak is None:
+            return 1
+        rows.append((minutes, peak))
+    if len(rows) > 1:
+        print(f"peak RSS by run length ({N_CH} channels, {FS} Hz; target < 1536 MB at 120 min):")
+        for j, (minutes, peak) in enumerate(rows):
+            grow = ""
+            if j:
+                m0, p0 = rows[j - 1]
+                grow = f"  {(peak - p0) / (minutes - m0):+.2f} MB per minute of run from {m0:g} min"
+            print(f"  {minutes:6g} min  {peak:6.0f} MB{grow}")
+    return 0
+
+
+def bench(minutes: float, keep: Path | None, reuse: bool) -> float | None:
+    """One run length: synthesise, import, process; the peak RSS in MB (None: failed)."""
+    td = keep or Path(tempfile.mkdtemp())
     td.mkdir(parents=True, exist_ok=True)
-    big = a.minutes * 60 * FS * N_CH * 2 > 4.0e9  # a WAV holds at most 4 GB of data
+    big = minutes * 60 * FS * N_CH * 2 > 4.0e9  # a WAV holds at most 4 GB of data
     wav, db = td / ("long.h5" if big else "long.wav"), td / "bench.sqlite"
-    if a.reuse and db.exists():
+    if reuse and db.exists():
         run_id = "1"
-        n = int(round(a.minutes * 60 * FS))
+        n = int(round(minutes * 60 * FS))
     else:
         t0 = time.perf_counter()
-        n = (write_hdf5 if big else write_wav)(wav, a.minutes)
+        n = (write_hdf5 if big else write_wav)(wav, minutes)
         print(f"synthesised {N_CH} x {n} samples ({N_CH * n / 1e6:.0f} M) in "
               f"{time.perf_counter() - t0:.0f} s")
         m = machine(td / "m.toml")
@@ -135,7 +166,7 @@ def main() -> int:
                                  "--machine", str(m), "--db", str(db), "--quiet", "--force"],
                                 check=True, capture_output=True, text=True).stdout.strip()
         print(f"import: {time.perf_counter() - t0:.1f} s")
-        if not a.keep:
+        if keep is None:
             wav.unlink()
     load0 = os.getloadavg()[0]
     t0 = time.perf_counter()
@@ -147,7 +178,7 @@ def main() -> int:
     if status != 0:
         print(out)
         print("rundash process failed")
-        return 1
+        return None
     stages, inner = {}, None
     for line in out.splitlines():
         if line.startswith("stage times"):
@@ -168,9 +199,13 @@ def main() -> int:
         for name, (sec, cpu) in stages.items():
             print(f"  {name:<12} {sec:7.2f} {100 * sec / wall:5.1f} %  {cpu:6.2f}"
                   + ("  (in the reader thread, beside tracking)" if name == "read" else ""))
-    print(f"peak RSS of the processing child: {usage.ru_maxrss / 1024:.0f} MB (target < 1536 MB; "
-          f"{usage.ru_maxrss * 1024 / (N_CH * n * 4):.3f} x the run's float32 samples)")
-    return 0
+    peak = usage.ru_maxrss / 1024
+    print(f"peak RSS of the processing child: {peak:.0f} MB for a {minutes:g}-minute run "
+          f"(target < 1536 MB at 120 minutes; {usage.ru_maxrss * 1024 / (N_CH * n * 4):.3f} x "
+          f"the run's float32 samples)")
+    if keep is None:
+        shutil.rmtree(td, ignore_errors=True)
+    return peak
 
 
 if __name__ == "__main__":
