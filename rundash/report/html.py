@@ -295,10 +295,16 @@ def _findings_section(data) -> str:
     out.append(_table(["probe", "direction", "measure", "where", "at rpm", "level", "limit",
                        "zone", "result", "basis and source"], lim) if lim else
                "<p>No limit applies to this run's probes.</p>")
-    warn = list(f.get("warnings") or []) + list(data["proc"].warnings or [])
+    # the run's warnings (each once), then, as on the review page, the notes that hold for
+    # every run apart from them
+    warn, standing = pr.split_standing(list(dict.fromkeys(
+        str(w) for w in list(f.get("warnings") or []) + list(data["proc"].warnings or []))))
     if warn:
         out.append("<h3>Warnings</h3><ul>" + "".join(f"<li>{_e(w)}</li>" for w in warn)
                    + "</ul>")
+    if standing:
+        out.append('<h3>Notes</h3><ul class="standing">'
+                   + "".join(f"<li>{_e(w)}</li>" for w in standing) + "</ul>")
     prof = f.get("profile") or {}
     rules = [[_e(r.get("rule")), _e(r.get("document")), _e(r.get("edition")),
               _e(r.get("clause")), _e(r.get("confidence"))] for r in prof.get("rules") or []]

@@ -99,6 +99,26 @@ class TestPdf:
 
 
 class TestHtml:
+    def test_standing_notes_apart_from_the_warnings(self, demo):
+        """As on the review page (presentation.split_standing): the notes that hold for
+        every run are listed under Notes, not among the run's warnings."""
+        from rundash import presentation as pr
+
+        db, folder, by_file, findings = demo
+        warn, standing = pr.split_standing(findings["warnings"])
+        assert standing  # the demo run has reference-only values, so the note is there
+        page = write_report(db, by_file["k410_2025_up.wav"], folder / "notes.html"
+                            ).read_text(encoding="utf-8")
+        notes = page[page.index("<h3>Notes</h3>"):]
+        notes = notes[:notes.index("</ul>")]
+        for w in standing:
+            assert html.escape(w) in notes
+        if "<h3>Warnings</h3>" in page:
+            block = page[page.index("<h3>Warnings</h3>"):]
+            block = block[:block.index("</ul>")]
+            assert not any(html.escape(w) in block for w in standing)
+            assert all(html.escape(w) in block for w in warn)
+
     @pytest.mark.browser
     def test_self_contained_and_drawn_in_chromium(self, demo):
         from selenium import webdriver
