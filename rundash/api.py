@@ -18,6 +18,7 @@ the exports (README, "Exports"). Every error is a :class:`rundash.errors.Rundash
 
 from __future__ import annotations
 
+import contextlib
 import json
 import sys
 import warnings
@@ -66,6 +67,18 @@ def open(path_or_url: str | Path, create: bool = False, *, upgrade: bool = True,
 
 def _database(db: RunDatabase | str | Path, *, create: bool = False) -> RunDatabase:
     return db if isinstance(db, RunDatabase) else open(db, create=create)
+
+
+@contextlib.contextmanager
+def _using(db: RunDatabase | str | Path):
+    """The database of a call that returns plain results: one given by path or URL is
+    opened for the call and closed after it; a :class:`RunDatabase` stays open."""
+    rdb = _database(db)
+    try:
+        yield rdb
+    finally:
+        if rdb is not db:
+            rdb.close()
 
 
 class RunDatabase:
@@ -249,7 +262,10 @@ def import_file(db: RunDatabase | str | Path, data: str | Path, machine: str | P
     """Import the data file ``data`` as a new run of the machine described in the TOML file
     ``machine`` (as ``rundash import`` does: one transaction, a file imported before is
     refused unless ``force``); with ``process`` also process it. ``db`` is a
-    :class:`RunDatabase` or a path/URL (a missing file is created, as the command does)."""
+    :class:`RunDatabase` or a path/URL (a missing file is created, as the command does);
+    the :class:`Run` returned reads from that database, so one opened here stays open
+    until ``run.db.close()``. :func:`process` and :func:`compare` close a database they
+    opened themselves before they return."""
     from rundash.ingest.importer import import_run
     from rundash.ingest.machine_file import load_machine_description
 
@@ -277,9 +293,10 @@ def process(db: RunDatabase | str | Path, run_id: int, *,
             revs_per_block: int = 1) -> Findings | None:
     """Process a stored run (as ``rundash process``), replacing its results; returns its
     :class:`Findings`."""
-    return _process(_database(db), run_id, orders=tuple(float(o) for o in orders),
-                    slow_roll_rpm=None if slow_roll_rpm is None else tuple(slow_roll_rpm),
-                    revs_per_block=int(revs_per_block))
+    with _using(db) as rdb:
+        return _process(rdb, run_id, orders=tuple(float(o) for o in orders),
+                        slow_roll_rpm=None if slow_roll_rpm is None else tuple(slow_roll_rpm),
+                        revs_per_block=int(revs_per_block))
 
 
 def compare(db: RunDatabase | str | Path, run_ids: Sequence[int], *, n_boot: int = 100,
@@ -289,5 +306,6 @@ def compare(db: RunDatabase | str | Path, run_ids: Sequence[int], *, n_boot: int
     ``speeds_rpm``, by default the minimum operating and maximum continuous speed)."""
     from rundash.workflows.comparison import compare_runs
 
-    return Comparison(compare_runs(_database(db).database, [int(r) for r in run_ids],
-                                   phase_speeds_rpm=speeds_rpm, n_boot=n_boot))
+    with _using(db) as rdb:
+        return Comparison(compare_runs(rdb.database, [int(r) for r in run_ids],
+                                       phase_speeds_rpm=speeds_rpm, n_boot=n_boot))

@@ -205,6 +205,24 @@ class TestImportAndProcess:
                                 folder / "tarnwick-k410.toml")
         run.db.close()
 
+    def test_calls_given_a_path_close_the_database_they_open(self, demo_path):
+        """process and compare given a path leave no connection to the file open (the
+        process's open files, read by psutil, no longer list it)."""
+        import psutil
+
+        def open_on_file():
+            return [f.path for f in psutil.Process().open_files()
+                    if os.path.basename(f.path).startswith(os.path.basename(str(demo_path)))]
+
+        assert open_on_file() == []
+        c = rundash.compare(demo_path, [1, 3], n_boot=5)
+        assert c.verdicts == {(1, 3): "changed"}
+        assert open_on_file() == []
+        f = rundash.process(demo_path, 2)
+        assert open_on_file() == []
+        with rundash.open(demo_path) as db:
+            assert db.run(2).findings().verdict == f.verdict
+
     def test_a_bad_machine_file_is_a_value_error(self, tmp_path):
         bad = tmp_path / "m.toml"
         bad.write_text("[machine]\nname = 'x'\n", encoding="utf-8")
