@@ -105,6 +105,7 @@ REPORT_DECISION = "review-report-decision"
 REPORT_REMARKS = "review-report-remarks"
 REPORT_COMPARE = "review-report-compare"
 REPORT_COMPARE_NOTE = "review-report-compare-note"
+REPORT_FIELDS_NOTE = "review-report-fields-note"  # what the reviewer fields are used for
 
 # table exports (run review and compare pages)
 EXPORT_WHAT = "export-what"

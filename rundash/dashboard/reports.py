@@ -125,9 +125,25 @@ def report_form(db, run):
                  children=[choice, cmp])])
 
 
-def run_actions(db, run, processed: bool):
+def _fields_note(sign_off):
+    from dash import html
+
+    if not sign_off:
+        return html.P("The fields below are printed in the report's sign-off block (a "
+                      "record, not an electronic signature); leave them blank to fill in on "
+                      "paper.", className="note", style={"margin": "0"},
+                      id=ids.REPORT_FIELDS_NOTE)
+    return html.P(f"This run has a stored sign-off ({sign_off.get('name') or '–'}, "
+                  f"{sign_off.get('signed_on') or '–'}, {sign_off.get('decision') or '–'}): "
+                  "the report prints that record, and the fields below are not used (the "
+                  "report says so when they are filled in).", className="warn",
+                  style={"margin": "0"}, id=ids.REPORT_FIELDS_NOTE)
+
+
+def run_actions(db, run, processed: bool, review=None):
     """The actions row: the reviewer's fields and report downloads (when processed) and
-    the comparison link."""
+    the comparison link. With a stored sign-off in ``review`` (the run's review object)
+    the report prints that record, and the note over the fields says they are not used."""
     from dash import dcc, html
 
     link = dcc.Link("Compare with other runs of this machine →", href=compare_href(db, run))
@@ -137,9 +153,7 @@ def run_actions(db, run, processed: bool):
                       className="note"), link])
     return html.Div([
         html.H3("Sign-off report", style={"margin": "10px 0 2px 0", "fontSize": "15px"}),
-        html.P("The fields below are printed in the report's sign-off block (a record, "
-               "not an electronic signature); leave them blank to fill in on paper.",
-               className="note", style={"margin": "0"}),
+        _fields_note((review or {}).get("sign_off")),
         report_form(db, run),
         html.Div(className="controls", style={"alignItems": "center", "marginTop": "6px"},
                  children=[

@@ -156,6 +156,9 @@ def test_sign_off_shown_everywhere_and_reprocessing_keeps_it(dash_duo, reviewed,
     dash_duo.wait_for_contains_text("#review-signed", "signed off on an earlier processing",
                                     timeout=15)
     _shot(dash_duo, "review-signed-earlier")
+    # the report form says its fields give way to the stored sign-off
+    note = dash_duo.find_element(f"#{ids.REPORT_FIELDS_NOTE}").text
+    assert "stored sign-off (R. Okafor" in note and "fields below are not used" in note
     r = wr.review_of(reviewed.db, reviewed.run_id)
     assert r["sign_off"]["snapshot"]["run_verdict"] == "fail"  # as signed
     text = write_report(reviewed.db, reviewed.run_id, tmp_path / "b.html",

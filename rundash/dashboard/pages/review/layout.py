@@ -307,6 +307,9 @@ def layout(db, run_id: int, *, cache=None):
     probes = ctx["probes"]
     proc = ctx["processing"]
     orders = [o for o in ((proc.params or {}).get("orders") if proc else [1.0]) or [1.0]]
+    from rundash.workflows.review import review_of
+
+    review = review_of(db, run_id)
     head = html.Div(className="card", children=[
         html.Div(dcc.Link("← machines and runs", href="/"), className="note"),
         html.H1(run.label or run.source_name, style={"fontSize": "22px", "margin": "4px 0"}),
@@ -319,11 +322,8 @@ def layout(db, run_id: int, *, cache=None):
                + (f", trip {m.spec.trip_speed_rpm:,.0f} rpm" if m.spec.trip_speed_rpm else "")
                + (f" · slow-roll window {proc.slow_roll_rpm[0]:.0f}–{proc.slow_roll_rpm[1]:.0f}"
                   " rpm" if proc and proc.slow_roll_rpm else ""), className="muted"),
-        reports.run_actions(db, run, proc is not None),
+        reports.run_actions(db, run, proc is not None, review),
         *([exports.review_controls()] if proc is not None else [])])
-    from rundash.workflows.review import review_of
-
-    review = review_of(db, run_id)
     verdict = html.Div(id=ids.VERDICT_PANEL, className="card",
                        children=verdict_panel(dict(ctx, review=review), "metric"))
     if proc is None:
