@@ -33,8 +33,21 @@ def _num(x):
 
 
 @dataclass(frozen=True)
-class MarginVerdict:
-    """Separation-margin verdict of one critical.
+class SpeedMargin:
+    """The separation-margin judgement of one critical speed (see :func:`judge_speed`)."""
+
+    side: str
+    reference_speed_rpm: float | None
+    separation_margin_pct: float | None
+    required_margin_pct: float | None
+    verdict: str
+    reason: str
+
+
+@dataclass(frozen=True)
+class MarginVerdict(SpeedMargin):
+    """Separation-margin verdict of one critical: its :class:`SpeedMargin` with the critical
+    and the labels of the output.
 
     ``side`` is ``'below'``, ``'above'`` or ``'inside'`` the operating range;
     ``verdict`` ``'pass'`` | ``'fail'`` | ``'borderline'`` (the verdict turns on which
@@ -46,12 +59,6 @@ class MarginVerdict:
     probe: str
     direction: str
     amplitude_units: str
-    side: str
-    reference_speed_rpm: float | None
-    separation_margin_pct: float | None
-    required_margin_pct: float | None
-    verdict: str
-    reason: str
     profile: str
     mode_hint: str | None = None
     caution: str = CAUTION
@@ -140,18 +147,6 @@ def _reference(profile: Profile, which: str, speeds: dict) -> float:
     if v is None:
         raise ConfigError(invalid_value(which + "_rpm", None, f"a speed in rpm (profile {profile.name!r} measures margins from it)"))
     return float(v)
-
-
-@dataclass(frozen=True)
-class SpeedMargin:
-    """The separation-margin judgement of one critical speed (see :func:`judge_speed`)."""
-
-    side: str
-    reference_speed_rpm: float | None
-    separation_margin_pct: float | None
-    required_margin_pct: float | None
-    verdict: str
-    reason: str
 
 
 def judge_speed(speed_rpm: float, af: float | None, *, profile, min_operating_speed_rpm: float,
@@ -295,10 +290,10 @@ def judge(criticals, *, min_operating_speed_rpm: float, max_continuous_speed_rpm
             verdict = "reference only"
             reason = (f"the margin rule applies to: {prof.margin.scope.describe()}; this run "
                       f"is a {run_kind}, so the margin is shown for reference only. {reason}")
-        out.append(MarginVerdict(c, probe, c.direction, amplitude_units, margin.side,
-                                 margin.reference_speed_rpm, margin.separation_margin_pct,
-                                 margin.required_margin_pct, verdict, reason,
-                                 prof.name, None if mode_hints is None else mode_hints[k]))
+        out.append(MarginVerdict(**{**vars(margin), "verdict": verdict, "reason": reason},
+                                 critical=c, probe=probe, direction=c.direction,
+                                 amplitude_units=amplitude_units, profile=prof.name,
+                                 mode_hint=None if mode_hints is None else mode_hints[k]))
     return tuple(out)
 
 
