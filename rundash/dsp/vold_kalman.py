@@ -117,7 +117,7 @@ def vold_kalman(x, fs: float, speed, orders, *, bandwidth_hz: float | None = Non
     Parameters
     ----------
     x : array_like, shape (n_samples,)
-        One channel, first sample at t = 0.
+        One channel, or a piece of one whose first sample lies at ``t0_s``.
     fs : float
         Sample rate in Hz.
     speed : SpeedProfile or array_like, shape (n_samples,)
