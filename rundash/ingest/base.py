@@ -18,6 +18,7 @@ header), ``units`` the unit the file gives each channel (empty when it gives non
 
 from __future__ import annotations
 
+import importlib
 import math
 import stat
 from abc import ABC, abstractmethod
@@ -37,6 +38,11 @@ class Reader(ABC):
     """Base class of the readers."""
 
     format: str = ""
+    #: for a format read through an optional library: its name in messages, the library
+    #: and the extra that installs it (``pip install 'rundash[extra]'``)
+    title: str = ""
+    library: str = ""
+    extra: str = ""
 
     def __init__(self, path: str | Path, data: DataSpec | None = None):
         self.path = Path(path)
@@ -97,6 +103,21 @@ class Reader(ABC):
     def fail(self, msg: str) -> InputError:
         return InputError(f"{self.path.name}: {msg}")
 
+    def need(self, module: str):
+        """Import ``module`` of the format's optional library, or fail naming the extra."""
+        try:
+            return importlib.import_module(module)
+        except ImportError:  # pragma: no cover - depends on the install
+            raise InputError(f"{self.path.name}: reading {self.title} needs {self.library}: "
+                             f"pip install 'rundash[{self.extra}]'") from None
+
+    def unreadable(self, problem: BaseException | str, hint: str = "") -> InputError:
+        """The error for a file the format's library cannot open: the problem (an
+        exception's type and first line) and what was expected (``hint``)."""
+        if isinstance(problem, BaseException):
+            problem = describe(problem)
+        return self.fail(f"not a readable {self.title} file ({problem}){hint}")
+
     def _check_rate(self, fs: float | None, where: str) -> float:
         if fs is None or not math.isfinite(fs) or fs <= 0:
             raise self.fail(f"no usable sample rate ({where}); expected a positive number of "
@@ -114,7 +135,6 @@ class Reader(ABC):
         return fs
 
 
-
 def listing(names: Sequence[str], limit: int = 12) -> str:
     """Names joined by commas, the first ``limit`` of them and a count of the rest."""
     if len(names) <= limit:
@@ -122,3 +142,6 @@ def listing(names: Sequence[str], limit: int = 12) -> str:
     return f"{', '.join(names[:limit])} and {len(names) - limit} more"
 
 
+def describe(exc: BaseException) -> str:
+    """An exception's type and its message on one line, at most 160 characters of it."""
+    return f"{type(exc).__name__}: {' '.join(str(exc).split())[:160]}"

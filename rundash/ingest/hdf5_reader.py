@@ -22,18 +22,15 @@ from rundash.ingest.timebase import FIT_ROWS, TimeBase, parse_time_name
 
 class Hdf5Reader(Reader):
     format = "hdf5"
+    title, library, extra = "HDF5", "h5py", "hdf5"
 
     def __init__(self, path, data=None):
         super().__init__(path, data)
-        try:
-            import h5py
-        except ImportError:  # pragma: no cover - depends on the install
-            raise InputError(f"{self.path.name}: reading HDF5 needs h5py: "
-                             "pip install 'rundash[hdf5]'") from None
+        h5py = self.need("h5py")
         try:
             self._f = h5py.File(self.path, "r")
         except OSError as exc:
-            raise self.fail(f"not a readable HDF5 file ({exc})") from None
+            raise self.unreadable(exc) from None
         try:
             self._open(h5py)
         except InputError:
@@ -41,8 +38,7 @@ class Hdf5Reader(Reader):
             raise
         except (OSError, KeyError, ValueError, RuntimeError) as exc:  # h5py on a damaged file
             self.close()
-            raise self.fail(f"not a readable HDF5 file ({type(exc).__name__}: "
-                            f"{str(exc)[:160]})") from None
+            raise self.unreadable(exc) from None
 
     def _open(self, h5py) -> None:
         gname = self.data.dataset or "/"

@@ -31,26 +31,23 @@ from typing import Iterator
 import numpy as np
 
 from rundash.errors import InputError
-from rundash.ingest.base import DEFAULT_BLOCK, Reader, listing
+from rundash.ingest.base import DEFAULT_BLOCK, Reader, describe
 from rundash.ingest.timebase import FIT_ROWS, TimeBase
 
 
 class MdfReader(Reader):
     format = "mdf"
+    title, library, extra = "ASAM MDF", "asammdf", "mdf"
 
     def __init__(self, path, data=None):
         super().__init__(path, data)
-        try:
-            from asammdf import MDF
-        except ImportError:  # pragma: no cover - depends on the install
-            raise InputError(f"{self.path.name}: reading MDF needs asammdf: "
-                             "pip install 'rundash[mdf]'") from None
+        MDF = self.need("asammdf").MDF
         self._logged: list[str] = []
         with self._asammdf_log():
             self._mdf, problem = _open_quietly(MDF, self.path)
         if problem:
-            raise self.fail(f"not a readable ASAM MDF file ({problem}); expected an MDF file "
-                            "whole, as the recorder wrote it")
+            raise self.unreadable(problem, "; expected an MDF file whole, as the recorder "
+                                  "wrote it")
         try:
             self._where: dict[str, list[tuple[int, int]]] = {}
             masters = self._mdf.masters_db
@@ -61,8 +58,7 @@ class MdfReader(Reader):
                     self._where.setdefault(ch.name, []).append((gi, ci))
         except Exception as exc:  # a damaged block list
             self.close()
-            raise self.fail(f"not a readable ASAM MDF file ({type(exc).__name__}: "
-                            f"{_one_line(exc)})") from None
+            raise self.unreadable(exc) from None
         self.channels = tuple(self._where)
         if not self.channels:
             self.close()
@@ -117,8 +113,7 @@ class MdfReader(Reader):
         except InputError:
             raise
         except Exception as exc:  # asammdf on damaged data blocks
-            raise self.fail(f"{what}: cannot read it ({type(exc).__name__}: "
-                            f"{_one_line(exc)})") from None
+            raise self.fail(f"{what}: cannot read it ({describe(exc)})") from None
 
     def _make_plan(self) -> None:
         names = [self.channels[i] for i in self.selected]
@@ -283,13 +278,8 @@ def _open_quietly(MDF, path):
         try:
             return MDF(path), None
         except Exception as exc:  # asammdf raises many unrelated types for damaged files
-            problem = f"{type(exc).__name__}: {_one_line(exc)}"
+            problem = describe(exc)
         gc.collect()
         return None, problem
     finally:
         sys.unraisablehook = hook
-
-
-def _one_line(exc: Exception) -> str:
-    text = " ".join(str(exc).split())
-    return text[:160]

@@ -14,7 +14,6 @@ from typing import Iterator
 
 import numpy as np
 
-from rundash.errors import InputError
 from rundash.ingest.base import DEFAULT_BLOCK, Reader, listing
 from rundash.ingest.timebase import FIT_ROWS, TimeBase, parse_time_name
 
@@ -23,20 +22,15 @@ _ARROW_UNITS = {"s": "s", "ms": "ms", "us": "us", "ns": "ns"}
 
 class ParquetReader(Reader):
     format = "parquet"
+    title, library, extra = "Parquet", "pyarrow", "parquet"
 
     def __init__(self, path, data=None):
         super().__init__(path, data)
-        try:
-            import pyarrow.parquet as pq
-            import pyarrow.types as pt
-        except ImportError:  # pragma: no cover - depends on the install
-            raise InputError(f"{self.path.name}: reading Parquet needs pyarrow: "
-                             "pip install 'rundash[parquet]'") from None
+        pq, pt = self.need("pyarrow.parquet"), self.need("pyarrow.types")
         try:
             self._pf = pq.ParquetFile(self.path)
         except Exception as exc:  # pyarrow raises several unrelated types for bad files
-            raise self.fail(f"not a readable Parquet file ({type(exc).__name__}: "
-                            f"{str(exc)[:160]})") from None
+            raise self.unreadable(exc) from None
         schema = self._pf.schema_arrow
         names = list(schema.names)
         tcol = self.data.time_column

@@ -56,11 +56,34 @@ name_str = Annotated[str, mapped_column(String(200))]
 speed_rpm = Annotated[float, mapped_column(Float)]
 blob = Annotated[bytes, mapped_column(LargeBinary)]
 created = Annotated[datetime, mapped_column(UTCDateTime, default=utcnow)]
+#: The parent row of a child table, deleted with it: many rows per run (``run_ref``), one
+#: row per run (``run_one``), a channel, a machine.
+run_ref = Annotated[int, mapped_column(ForeignKey("run.id", ondelete="CASCADE"), index=True)]
+run_one = Annotated[int, mapped_column(ForeignKey("run.id", ondelete="CASCADE"), unique=True)]
+channel_ref = Annotated[int, mapped_column(ForeignKey("channel.id", ondelete="CASCADE"))]
+machine_ref = Annotated[int, mapped_column(ForeignKey("machine.id", ondelete="CASCADE"),
+                                           index=True)]
 
 
 class Base(DeclarativeBase):
     metadata = MetaData(naming_convention=NAMING_CONVENTION)
     type_annotation_map = {dict[str, Any]: JSON, list[Any]: JSON}
+
+
+class RunChild:
+    """A table of rows that belong to one run (deleted with it): an id and the run's id,
+    its first two columns."""
+
+    id: Mapped[intpk] = mapped_column(sort_order=-2)
+    run_id: Mapped[run_ref] = mapped_column(sort_order=-1)
+
+
+class RunPart:
+    """A table of one row per run (deleted with it): an id and the run's id, unique, its
+    first two columns."""
+
+    id: Mapped[intpk] = mapped_column(sort_order=-2)
+    run_id: Mapped[run_one] = mapped_column(sort_order=-1)
 
 
 class Machine(Base):
@@ -94,7 +117,7 @@ class Probe(Base):
     __table_args__ = (UniqueConstraint("machine_id", "name"),)
 
     id: Mapped[intpk]
-    machine_id: Mapped[int] = mapped_column(ForeignKey("machine.id", ondelete="CASCADE"), index=True)
+    machine_id: Mapped[machine_ref]
     name: Mapped[name_str]
     column_name: Mapped[str] = mapped_column(String(200), comment="file column or channel")
     kind: Mapped[str] = mapped_column(String(20), comment="proximity, velocity, acceleration")
@@ -113,7 +136,7 @@ class Run(Base):
     __tablename__ = "run"
 
     id: Mapped[intpk]
-    machine_id: Mapped[int] = mapped_column(ForeignKey("machine.id", ondelete="CASCADE"), index=True)
+    machine_id: Mapped[machine_ref]
     started_at: Mapped[datetime | None] = mapped_column(UTCDateTime, comment="UTC")
     kind: Mapped[str] = mapped_column(String(20), comment="run-up, coast-down, mixed, steady")
     test_kind: Mapped[str] = mapped_column(String(20), default="field", server_default="field",
@@ -137,12 +160,10 @@ class Run(Base):
         order_by="Channel.position")
 
 
-class Channel(Base):
+class Channel(RunChild, Base):
     __tablename__ = "channel"
     __table_args__ = (UniqueConstraint("run_id", "name"),)
 
-    id: Mapped[intpk]
-    run_id: Mapped[int] = mapped_column(ForeignKey("run.id", ondelete="CASCADE"), index=True)
     position: Mapped[int] = mapped_column(Integer)
     name: Mapped[name_str] = mapped_column(comment="file column or channel name")
     role: Mapped[str] = mapped_column(String(10), comment="tach or probe")
@@ -163,7 +184,7 @@ class WaveformChunk(Base):
     )
 
     id: Mapped[intpk]
-    channel_id: Mapped[int] = mapped_column(ForeignKey("channel.id", ondelete="CASCADE"))
+    channel_id: Mapped[channel_ref]
     chunk_index: Mapped[int] = mapped_column(Integer)
     start_index: Mapped[int] = mapped_column(SampleCount,
                                              comment="sample index of the first sample")
@@ -172,22 +193,18 @@ class WaveformChunk(Base):
     data: Mapped[blob] = mapped_column(comment="float32 little-endian samples")
 
 
-class TachPulses(Base):
+class TachPulses(RunChild, Base):
     __tablename__ = "tach_pulses"
     __table_args__ = (UniqueConstraint("run_id", "kind"),)
 
-    id: Mapped[intpk]
-    run_id: Mapped[int] = mapped_column(ForeignKey("run.id", ondelete="CASCADE"), index=True)
     kind: Mapped[str] = mapped_column(String(20), comment="edges or once_per_rev")
     n: Mapped[int] = mapped_column(Integer)
     times: Mapped[blob] = mapped_column(comment="float64 LE times in s from the first sample")
 
 
-class Processing(Base):
+class Processing(RunPart, Base):
     __tablename__ = "processing"
 
-    id: Mapped[intpk]
-    run_id: Mapped[int] = mapped_column(ForeignKey("run.id", ondelete="CASCADE"), unique=True)
     created_at: Mapped[created]
     rundash_version: Mapped[str] = mapped_column(String(40))
     params: Mapped[dict[str, Any]] = mapped_column(JSON)
@@ -200,17 +217,15 @@ class Processing(Base):
         JSON, comment="the run's findings and verdicts as the JSON output gives them")
 
 
-class SpeedProfileRow(Base):
+class SpeedProfileRow(RunPart, Base):
     __tablename__ = "speed_profile"
 
-    id: Mapped[intpk]
-    run_id: Mapped[int] = mapped_column(ForeignKey("run.id", ondelete="CASCADE"), unique=True)
     n: Mapped[int] = mapped_column(Integer)
     time_s: Mapped[blob] = mapped_column(comment="float64")
     speed_rpm: Mapped[blob] = mapped_column(comment="float64")
 
 
-class VectorTrack(Base):
+class VectorTrack(RunChild, Base):
     """The nX vectors of a run per channel and order: one store for both sources.
 
     ``source`` 'processed': what ``process_run`` found (one row per channel, order and
@@ -222,9 +237,7 @@ class VectorTrack(Base):
     __table_args__ = (UniqueConstraint("run_id", "channel_id", "order", "compensated",
                                        "source", "seq"),)
 
-    id: Mapped[intpk]
-    run_id: Mapped[int] = mapped_column(ForeignKey("run.id", ondelete="CASCADE"), index=True)
-    channel_id: Mapped[int] = mapped_column(ForeignKey("channel.id", ondelete="CASCADE"))
+    channel_id: Mapped[channel_ref]
     order: Mapped[float] = mapped_column(Float, comment="1.0 = 1X")
     compensated: Mapped[bool] = mapped_column(Boolean, comment="slow-roll vector subtracted")
     source: Mapped[str] = mapped_column(String(10), default="processed",
@@ -242,13 +255,11 @@ class VectorTrack(Base):
         comment="float32 or float64, p-p (displacement) or rms (seismic)")
 
 
-class CascadeRow(Base):
+class CascadeRow(RunChild, Base):
     __tablename__ = "cascade"
     __table_args__ = (UniqueConstraint("run_id", "channel_id"),)
 
-    id: Mapped[intpk]
-    run_id: Mapped[int] = mapped_column(ForeignKey("run.id", ondelete="CASCADE"), index=True)
-    channel_id: Mapped[int] = mapped_column(ForeignKey("channel.id", ondelete="CASCADE"))
+    channel_id: Mapped[channel_ref]
     n_rows: Mapped[int] = mapped_column(Integer)
     n_freq: Mapped[int] = mapped_column(Integer)
     speed_rpm: Mapped[blob] = mapped_column(comment="float64 (n_rows)")
@@ -257,11 +268,9 @@ class CascadeRow(Base):
     amplitude: Mapped[blob] = mapped_column(comment="float32 (n_rows, n_freq), peak")
 
 
-class Finding(Base):
+class Finding(RunChild, Base):
     __tablename__ = "finding"
 
-    id: Mapped[intpk]
-    run_id: Mapped[int] = mapped_column(ForeignKey("run.id", ondelete="CASCADE"), index=True)
     probe_name: Mapped[str] = mapped_column(String(200))
     direction: Mapped[str] = mapped_column(String(20))
     speed_rpm: Mapped[speed_rpm]
@@ -283,13 +292,11 @@ class Finding(Base):
 
 
 # ----------------------------------------------------------------------------- live monitor
-class LiveStatus(Base):
+class LiveStatus(RunPart, Base):
     """The recorder's latest state of a run being recorded (one row per run)."""
 
     __tablename__ = "live_status"
 
-    id: Mapped[intpk]
-    run_id: Mapped[int] = mapped_column(ForeignKey("run.id", ondelete="CASCADE"), unique=True)
     state: Mapped[str] = mapped_column(String(20), comment="recording, ended or failed")
     updated_at: Mapped[datetime] = mapped_column(UTCDateTime, comment="UTC, the heartbeat")
     time_s: Mapped[float] = mapped_column(Float, comment="record time of the last sample")
@@ -301,13 +308,11 @@ class LiveStatus(Base):
     message: Mapped[str] = mapped_column(Text, default="")
 
 
-class LiveEvent(Base):
+class LiveEvent(RunChild, Base):
     """The event log of a recorded run: warnings raised and cleared while it ran."""
 
     __tablename__ = "live_event"
 
-    id: Mapped[intpk]
-    run_id: Mapped[int] = mapped_column(ForeignKey("run.id", ondelete="CASCADE"), index=True)
     time_s: Mapped[float] = mapped_column(Float, comment="record time of the event")
     speed_rpm: Mapped[float | None] = mapped_column(Float)
     kind: Mapped[str] = mapped_column(String(40))
@@ -321,7 +326,6 @@ class LiveEvent(Base):
 #: a review row's identity, the same in every database (sync adds rows by it)
 review_uid = Annotated[str, mapped_column(String(32), unique=True,
                                           comment="identity across databases (sync)")]
-run_ref = Annotated[int, mapped_column(ForeignKey("run.id", ondelete="CASCADE"), index=True)]
 
 class ReviewDecision(Base):
     """One entry of the engineer's review of a run: appended, never edited.
