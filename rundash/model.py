@@ -24,8 +24,6 @@ RUN_KINDS: tuple[str, ...] = RunKind.__args__  # type: ignore[attr-defined]
 #: rules names these (see rundash.analysis.scope)
 TestKind = Literal["field", "shop-test", "trip-test"]
 TEST_KINDS: tuple[str, ...] = TestKind.__args__  # type: ignore[attr-defined]
-Rotation = Literal["cw", "ccw"]
-Axis = Literal["X", "Y", "none"]
 
 
 @dataclass(frozen=True)
@@ -136,15 +134,14 @@ class SiteLevel:
 @dataclass(frozen=True)
 class ZoneSpec:
     """``[zones]``: which ISO part and class the vibration zones come from (None: the
-    default, said in the findings). ``part`` '10816-3' | '10816-7' | '10816-2'; ``group``
-    'group1' | 'group2'; ``support`` 'rigid' | 'flexible'; ``pump_category`` 'I' | 'II';
-    ``pump_power`` 'above-200kW' | 'up-to-200kW'; ``new_machine``: zone A expected."""
+    default, said in the findings); ``new_machine``: zone A expected. The field types are
+    the allowed values: the machine file's ``[zones]`` is checked against them."""
 
-    part: str | None = None
-    group: str | None = None
-    support: str | None = None
-    pump_category: str | None = None
-    pump_power: str | None = None
+    part: Literal["10816-3", "10816-7", "10816-2"] | None = None
+    group: Literal["group1", "group2"] | None = None
+    support: Literal["rigid", "flexible"] | None = None
+    pump_category: Literal["I", "II"] | None = None
+    pump_power: Literal["above-200kW", "up-to-200kW"] | None = None
     new_machine: bool | None = None
 
 

@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 import re
 from pathlib import Path
+from typing import Literal, get_args, get_origin, get_type_hints
 
 from rundash.conventions import angle_from_top, wrap_deg
 from rundash.errors import ConfigError, invalid_value
@@ -197,12 +198,18 @@ def parse_machine_description(text: str, source: str = "<machine file>") -> Mach
                               zones=_zones(ck, raw.get("zones", {}), machine))
 
 
-_ZONE_KEYS = {"part": (str, False), "group": (str, False), "support": (str, False),
-              "pump_category": (str, False), "pump_power": (str, False),
-              "new_machine": (bool, False)}
-_ZONE_CHOICES = {"part": ("10816-3", "10816-7", "10816-2"), "group": ("group1", "group2"),
-                 "support": ("rigid", "flexible"), "pump_category": ("I", "II"),
-                 "pump_power": ("above-200kW", "up-to-200kW")}
+def _zone_fields() -> dict[str, tuple[type, tuple | None]]:
+    """Each field of :class:`ZoneSpec` → its TOML type and allowed values (None: any),
+    read from the field types (one definition of the choices)."""
+    out = {}
+    for name, tp in get_type_hints(ZoneSpec).items():
+        (arg,) = [a for a in get_args(tp) if a is not type(None)]
+        out[name] = (str, get_args(arg)) if get_origin(arg) is Literal else (arg, None)
+    return out
+
+
+_ZONE_KEYS = {k: (tp, False) for k, (tp, _) in _zone_fields().items()}
+_ZONE_CHOICES = {k: allowed for k, (_, allowed) in _zone_fields().items() if allowed}
 
 
 def _zones(ck: TomlChecker, raw, machine: MachineSpec) -> ZoneSpec:
