@@ -378,12 +378,24 @@ class ModalFit:
         s = np.asarray(speed_rpm, dtype=float)
         out = self.constant + self.slope_per_rpm * s + 0j
         for m in self.modes:
-            out = out + _mode_shape(s, m.fn_rpm, m.zeta) * m.residue
+            out = out + unbalance_response(s, m.fn_rpm, m.zeta) * m.residue
         return out
 
 
-def _mode_shape(s: np.ndarray, fn: float, zeta: float) -> np.ndarray:
-    r = s / fn
+def unbalance_response(speed_rpm, fn_rpm: float, zeta: float) -> np.ndarray:
+    """1X phasor of a single-degree-of-freedom unbalance response, unit residue.
+
+    ``r^2 / (1 - r^2 + 2 j zeta r)`` with ``r = N / fn`` (W. T. Thomson, M. D. Dahleh,
+    "Theory of Vibration with Applications", 5th ed., 1998, sec. 3.3), in the phasor
+    convention of :mod:`rundash.conventions` (lag 90 deg at ``fn``, 180 deg well above):
+    the one mode :func:`fit_modes` fits, and the response the Examples of the analysis
+    layer are read from.
+
+    >>> c = unbalance_response([1500.0, 3000.0, 6000.0], 3000.0, 0.05)
+    >>> np.round(np.abs(c), 3), np.round(np.degrees(-np.angle(c)), 1)
+    (array([ 0.333, 10.   ,  1.33 ]), array([  3.8,  90. , 176.2]))
+    """
+    r = np.asarray(speed_rpm, dtype=float) / fn_rpm
     return r * r / (1.0 - r * r + 2j * zeta * r)
 
 
@@ -451,11 +463,8 @@ def fit_modes(speed_rpm, vector, *, n_modes: int = 1,
 
     Examples
     --------
-    >>> import numpy as np
     >>> n = np.linspace(1500, 4500, 301)
-    >>> r = n / 3000
-    >>> c = 10 * r**2 / (1 - r**2 + 0.1j * r)
-    >>> m = fit_modes(n, c).modes[0]
+    >>> m = fit_modes(n, 10 * unbalance_response(n, 3000, 0.05)).modes[0]
     >>> round(m.fn_rpm), round(m.zeta, 3), round(m.af, 1)
     (3000, 0.05, 10.0)
     """
@@ -482,7 +491,7 @@ def fit_modes(speed_rpm, vector, *, n_modes: int = 1,
     def basis(p):
         cols = []
         for k in range(n_modes):
-            cols.append(_mode_shape(x_s, p[2 * k], p[2 * k + 1]))
+            cols.append(unbalance_response(x_s, p[2 * k], p[2 * k + 1]))
         if n_res >= 1:
             cols.append(np.ones_like(x_s) + 0j)
         if n_res == 2:

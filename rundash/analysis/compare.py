@@ -141,12 +141,12 @@ def compare_curves(a: CurveEstimate, b: CurveEstimate, *,
     Examples
     --------
     >>> import numpy as np
+    >>> from rundash.analysis.amplification import unbalance_response
     >>> n = np.linspace(300, 6000, 3000)
     >>> def run(fn, z, seed):
     ...     rng = np.random.default_rng(seed)
-    ...     r = n / fn
     ...     e = 0.05 * (rng.standard_normal(n.size) + 1j * rng.standard_normal(n.size))
-    ...     return estimate_curve(n, 5 * r**2 / (1 - r**2 + 2j * z * r) + e, n_boot=20, seed=seed)
+    ...     return estimate_curve(n, 5 * unbalance_response(n, fn, z) + e, n_boot=20, seed=seed)
     >>> cmp = compare_curves(run(3000, 0.08, 1), run(2910, 0.055, 2))
     >>> m, = cmp.matches
     >>> round(m.speed.delta_pct), m.speed.significant, m.af.significant, cmp.verdict

@@ -124,8 +124,8 @@ class Critical:
     sweep_decay_ratio: float | None
     sweep_note: str
     polar_loop: bool | None
-    classification: str
-    confidence: str
+    classification: Classification
+    confidence: Confidence
     evidence: tuple[str, ...]
     direction: str
     amplitude_factor: float
@@ -249,10 +249,9 @@ def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
     Examples
     --------
     >>> import numpy as np
+    >>> from rundash.analysis.amplification import unbalance_response
     >>> n = np.linspace(300, 6000, 4000)
-    >>> r = n / 3000
-    >>> c = 5 * r**2 / (1 - r**2 + 0.1j * r)
-    >>> crit, = find_criticals(n, c)
+    >>> crit, = find_criticals(n, 5 * unbalance_response(n, 3000, 0.05))
     >>> crit.classification, round(crit.peak_speed_rpm), round(crit.half_power.af, 1)
     ('confirmed', 3008, 9.9)
     """

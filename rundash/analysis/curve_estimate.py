@@ -216,11 +216,11 @@ def estimate_curve(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
     Examples
     --------
     >>> import numpy as np
+    >>> from rundash.analysis.amplification import unbalance_response
     >>> rng = np.random.default_rng(0)
     >>> n = np.linspace(300, 6000, 3000)
-    >>> r = n / 3000
-    >>> c = 5 * r**2 / (1 - r**2 + 0.1j * r) + 0.05 * (rng.standard_normal(3000) + 1j * rng.standard_normal(3000))
-    >>> est = estimate_curve(n, c, n_boot=20)
+    >>> noise = 0.05 * (rng.standard_normal(3000) + 1j * rng.standard_normal(3000))
+    >>> est = estimate_curve(n, 5 * unbalance_response(n, 3000, 0.05) + noise, n_boot=20)
     >>> ce, = est.criticals
     >>> round(ce.speed_rpm, -1), ce.speed_std_rpm < 5, ce.n_found
     (3010.0, True, 20)

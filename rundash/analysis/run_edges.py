@@ -61,9 +61,9 @@ def rising_at_top(speed_rpm, vector, *, amplitude_factor: float = 2.0,
     Examples
     --------
     >>> import numpy as np
+    >>> from rundash.analysis.amplification import unbalance_response
     >>> s = np.linspace(1000, 3000, 2000)
-    >>> r = s / 3300.0                      # a critical at 3300 rpm, above the top
-    >>> v = r**2 / (1 - r**2 + 0.1j * r)
+    >>> v = unbalance_response(s, 3300.0, 0.05)   # a critical at 3300 rpm, above the top
     >>> rising_at_top(s, v) is not None
     True
     >>> rising_at_top(s, np.full(s.size, 1.0 + 0j)) is None

@@ -265,8 +265,6 @@ def _assemble(prob, sol, noise, band, readings=True) -> TransientFit:
     # per-block equivalent rms (a group mean of g blocks carries 1/g of the noise power)
     rms = np.sqrt(np.mean(np.abs(ec) ** 2 * prob.counts[:, None], axis=0))
     rel = float(np.sqrt(np.sum(np.abs(ec) ** 2) / max(np.sum(np.abs(prob.data) ** 2), 1e-300)))
-    ew = e * prob.w[None, :]
-    g_rss = np.sum(ew[:M] ** 2 + ew[M:] ** 2, axis=1)
     sig, fac = noise
     en = e / (math.sqrt(2.0) * sig[None, :] * np.concatenate([fac, fac])[:, None])
     g_noise = np.sum(en[:M] ** 2 + en[M:] ** 2, axis=1) / e.shape[1]
@@ -274,7 +272,7 @@ def _assemble(prob, sol, noise, band, readings=True) -> TransientFit:
     noise_block = sig * math.sqrt(float(np.mean(prob.counts)))  # per block, per component
     fit = TransientFit(tuple(modes), c0, c1, prob.s_ref, band, int(prob.steps.size), rms,
                        noise_block, ratio, rel, bool(sol.success), str(sol.message), (), 0, rss_w, int(n_obs),
-                       int(n_par), prob.speed.copy(), g_rss, g_noise,
+                       int(n_par), prob.speed.copy(), g_noise,
                        (prob.w.copy(), prob.rw.copy()))
     if readings:
         fit = replace(fit, readings=tuple(_readings(fit.modes, fit.steady, band)))

@@ -65,6 +65,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from rundash.analysis.amplification import unbalance_response
 from rundash.errors import AnalysisError, invalid_value
 
 __all__ = [
@@ -378,8 +379,7 @@ def mode_response(time_s, speed_rpm, fn_rpm: float, zeta: float, residue=1.0 + 0
     >>> n = np.linspace(2000.0, 4000.0, 20001)            # 0.1 rpm per revolution
     >>> t = np.concatenate([[0.0], np.cumsum(60.0 / n[1:])])
     >>> c = mode_response(t, n, 3000.0, 0.05)
-    >>> r = n[10000] / 3000.0
-    >>> bool(abs(c[10000] / (r * r / (1 - r * r + 0.1j * r)) - 1) < 0.01)
+    >>> bool(abs(c[10000] / unbalance_response(n[10000], 3000.0, 0.05) - 1) < 0.01)
     True
     """
     if not (math.isfinite(fn_rpm) and fn_rpm > 0):
@@ -505,7 +505,6 @@ class TransientFit:
     n_obs: int = 0
     n_par: int = 0
     group_speed_rpm: np.ndarray = field(default_factory=lambda: np.empty(0), repr=False)
-    group_rss: np.ndarray = field(default_factory=lambda: np.empty(0), repr=False)
     group_noise_ratio2: np.ndarray = field(default_factory=lambda: np.empty(0), repr=False)
     weights: tuple = field(default=(None, None), repr=False)  # (per probe, per group) used
 
@@ -514,15 +513,6 @@ class TransientFit:
         sel = (self.group_speed_rpm >= band[0]) & (self.group_speed_rpm <= band[1])
         return (float(np.sqrt(np.mean(self.group_noise_ratio2[sel]))) if np.any(sel)
                 else math.inf)
-
-    def rss_in(self, band) -> float:
-        """Weighted misfit of the fitted group means with speeds inside ``band``."""
-        sel = (self.group_speed_rpm >= band[0]) & (self.group_speed_rpm <= band[1])
-        return float(np.sum(self.group_rss[sel]))
-
-    def n_obs_in(self, band) -> int:
-        sel = (self.group_speed_rpm >= band[0]) & (self.group_speed_rpm <= band[1])
-        return int(2 * self.n_probes * np.count_nonzero(sel))
 
     @property
     def n_probes(self) -> int:
@@ -534,8 +524,8 @@ class TransientFit:
         x = (s - self.speed_ref_rpm) / self.speed_ref_rpm
         out = self.constant[:, None] + self.slope[:, None] * x[None, :] + 0j
         for m in self.modes:
-            r = s / m.fn_rpm
-            out = out + np.asarray(m.participation)[:, None] * (r * r / (1 - r * r + 2j * m.zeta * r))[None, :]
+            out = out + (np.asarray(m.participation)[:, None]
+                         * unbalance_response(s, m.fn_rpm, m.zeta)[None, :])
         return out
 
     def response(self, time_s, speed_rpm, *, revs_per_block: int = 1, rev_index=None,

@@ -64,7 +64,6 @@ _ISO_10816_2 = dict(document="ISO 10816-2 (carried into ISO 20816-2)", edition="
 LARGE_SET_VELOCITY = _table(_ISO_10816_2, ("speeds",), (
     ("1500/1800", 2.8, 5.3, 8.5), ("3000/3600", 3.8, 7.5, 11.8)))
 
-PARTS = ("10816-3", "10816-7", "10816-2")
 _PART_OF_KIND = {"pump": "10816-7"}
 
 
