@@ -259,3 +259,20 @@ def db_fingerprint(db) -> str:
         conn.exec_driver_sql("PRAGMA wal_checkpoint(TRUNCATE)")
     path = db.engine.url.database
     return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+
+
+def run_warnings(conn, run_id: int) -> list:
+    """The warnings stored with a run (read for the tests)."""
+    from sqlalchemy import select
+
+    from rundash.storage.orm import Run
+    return list(conn.execute(select(Run.warnings).where(Run.id == run_id)).scalar() or [])
+
+
+def count_chunks(conn, channel_id: int) -> int:
+    """How many waveform chunks a channel is stored in (read for the tests)."""
+    from sqlalchemy import func, select
+
+    from rundash.storage.orm import WaveformChunk
+    return conn.execute(select(func.count()).select_from(WaveformChunk)
+                        .where(WaveformChunk.channel_id == channel_id)).scalar()

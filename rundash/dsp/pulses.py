@@ -18,11 +18,6 @@ __all__ = ["once_per_rev", "OncePerRev", "MIN_REVOLUTIONS"]
 #: Fewest once-per-rev events that make a usable reference (4 revolutions).
 MIN_REVOLUTIONS = 4
 
-# Tolerance of the anchor search: four consecutive intervals, each within 15 % of the
-# one predicted from the two before it, are trusted as a starting point of the repair
-# (common practice, no source).
-_ANCHOR_TOL = 0.15
-
 
 @dataclass(frozen=True)
 class OncePerRev:
@@ -147,6 +142,12 @@ def _repair_forward(t: np.ndarray, a: int, filled: list, removed: list, notes: l
         out.extend(float(v) for v in t[i:a2 + 4])
         i = a2 + 4
     return out
+
+
+# Tolerance of the anchor search: four consecutive intervals, each within 15 % of the
+# one predicted from the two before it, are trusted as a starting point of the repair
+# (common practice, no source).
+_ANCHOR_TOL = 0.15
 
 
 def _find_anchor(t: np.ndarray) -> int:

@@ -22,7 +22,7 @@ from typing import Any, Literal, Sequence
 from rundash.report.review_section import (
     has_review, review_section, stored_signoff, verdict_line,
 )
-from rundash.workflows.review import review_in
+from rundash.workflows.review import SIGN_OFF_DECISIONS, review_in
 from rundash import CAUTION, __version__, figures
 from rundash import presentation as pr
 from rundash.conventions import side_of_top
@@ -363,7 +363,7 @@ def _comparison_section(data) -> str:
 
 
 def _signoff(reviewer: str, decision: str, remarks: str, role: str = "") -> str:
-    opts = ("accepted", "accepted with remarks", "not accepted")
+    opts = SIGN_OFF_DECISIONS
     d = (decision or "").strip().lower()
     boxes = "".join(f'<span class="box{" x" if d == o else ""}"></span>{_e(o)}' for o in opts)
     extra = f" ({_e(decision)})" if decision and d not in opts else ""

@@ -7,6 +7,7 @@ from html import escape
 from typing import Any
 
 from rundash import CAUTION
+from rundash.workflows.review import SIGN_OFF_DECISIONS
 
 
 def _e(x: Any) -> str:
@@ -80,7 +81,7 @@ def stored_signoff(review: dict[str, Any] | None, *, typed: bool = False) -> str
     s = (review or {}).get("sign_off")
     if not s:
         return ""
-    opts = ("accepted", "accepted with remarks", "not accepted")
+    opts = SIGN_OFF_DECISIONS
     boxes = "".join(f'<span class="box{" x" if s["decision"] == o else ""}"></span>{_e(o)}'
                     for o in opts)
     where = ("" if s.get("current") else

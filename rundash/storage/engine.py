@@ -86,7 +86,7 @@ def _sqlite_setup(engine: Engine) -> None:
         # 64 KiB pages for a new file (no effect on an existing one): the sample chunks
         # and result arrays are blobs of 100 kB and more, which then span 16 x fewer
         # overflow pages (measured: saving a run's 295 MB of tracks 4-7 x faster)
-        cur.execute("PRAGMA page_size = 65536")  # SQLITE_PAGE_SIZE
+        cur.execute(f"PRAGMA page_size = {SQLITE_PAGE_SIZE}")
         cur.execute("PRAGMA journal_mode = WAL")
         cur.execute("PRAGMA synchronous = NORMAL")
         cur.execute("PRAGMA foreign_keys = ON")

@@ -213,10 +213,6 @@ def run_machine_id(conn: Connection, run_id: int) -> int:
     return mid
 
 
-def run_warnings(conn: Connection, run_id: int) -> list[Any]:
-    return list(conn.execute(select(R.c.warnings).where(R.c.id == run_id)).scalar() or [])
-
-
 def run_description_toml(conn: Connection, run_id: int) -> str:
     return conn.execute(select(R.c.description_toml).where(R.c.id == run_id)).scalar() or ""
 
@@ -261,11 +257,6 @@ def iter_run_chunks(conn: Connection, channel_ids: Sequence[int]) -> Iterator[tu
         first = by_ch[channel_ids[0]]
         block = np.vstack([decode_f32(by_ch[c].data) for c in channel_ids])
         yield first.start_index, block
-
-
-def count_chunks(conn: Connection, channel_id: int) -> int:
-    return conn.execute(select(func.count()).select_from(W).where(W.c.channel_id == channel_id)
-                        ).scalar()
 
 
 # ----------------------------------------------------------------------------- results

@@ -22,10 +22,11 @@ from rundash.storage import queries as q
 from rundash.storage import review_queries as rq
 from rundash.storage.engine import Database
 
-RECORD_NOTE, REJECT_REASONS = rv.RECORD_NOTE, rv.REJECT_REASONS  # for the faces
-SIGN_OFF_WORDS = {"accepted": "accepted", "accepted-with-remarks": "accepted with remarks",
-                  "accepted with remarks": "accepted with remarks",
-                  "not-accepted": "not accepted", "not accepted": "not accepted"}
+# for the faces
+RECORD_NOTE, REJECT_REASONS, SIGN_OFF_DECISIONS = (rv.RECORD_NOTE, rv.REJECT_REASONS,
+                                                   rv.SIGN_OFF_DECISIONS)
+#: a sign-off decision as typed (spaces or hyphens) -> the decision
+SIGN_OFF_WORDS = {w: d for d in SIGN_OFF_DECISIONS for w in (d, d.replace(" ", "-"))}
 REASON_WORDS = {"runout": "runout artefact", "runout artefact": "runout artefact",
                 "structural": "structural resonance",
                 "structural resonance": "structural resonance", "sensor": "sensor fault",

@@ -20,7 +20,7 @@ from rundash.cli import main
 from rundash.storage import queries as q
 from rundash.storage.engine import open_database
 from tests.badinput.make_corpus import build
-from tests.conftest import db_fingerprint
+from tests.conftest import db_fingerprint, run_warnings
 
 ERROR = re.compile(r"^rundash (import|process): error: ")
 
@@ -106,7 +106,7 @@ def _warned(root, case, path, db, capsys):
         return [f"exit {rc}: {err.strip()!r}"]
     run_id = int(out.strip())
     with db.read() as conn:
-        recorded = " | ".join(q.run_warnings(conn, run_id))
+        recorded = " | ".join(run_warnings(conn, run_id))
         state = q.get_run(conn, run_id).state
     problems = []
     if miss := _missing(case.match, recorded):
@@ -195,7 +195,7 @@ class TestCorpus:
         db = open_database(str(db_path), create=True)
         with db.read() as conn:
             (run,) = q.list_runs(conn)
-            assert q.run_warnings(conn, run.id) == [] and run.state == "complete"
+            assert run_warnings(conn, run.id) == [] and run.state == "complete"
         db.dispose()
 
     def test_processing_failure_leaves_the_run_imported_and_unprocessed(

@@ -11,7 +11,7 @@ from rundash.ingest.importer import import_run
 from rundash.ingest.machine_file import load_machine_description
 from rundash.storage import queries as q
 from rundash.storage.engine import open_database
-from tests.conftest import db_fingerprint
+from tests.conftest import count_chunks, db_fingerprint
 
 FS = 1000.0
 
@@ -49,7 +49,7 @@ class TestImportRun:
             run = q.get_run(conn, res.run_id)
             chans = q.list_channels(conn, res.run_id)
             x1 = q.read_channel(conn, chans[1].id)
-            n_chunks = q.count_chunks(conn, chans[1].id)
+            n_chunks = count_chunks(conn, chans[1].id)
         assert run.state == "complete" and run.label == "first" and run.cycle == "2026"
         assert [c.name for c in chans] == ["tach", "x1", "y1", "v1"]
         assert [c.unit for c in chans] == ["V", "um", "um", "mm/s"]

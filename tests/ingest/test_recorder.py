@@ -25,6 +25,7 @@ from rundash.ingest.sources import (
 from rundash.storage import queries as q
 from rundash.storage.engine import open_database
 from tests import live_synth
+from tests.conftest import count_chunks, run_warnings
 
 CHANNELS = ("ch1", "ch2", "ch3")
 
@@ -41,7 +42,7 @@ def _stored(db, run_id):
         run = q.get_run(conn, run_id)
         chans = q.list_channels(conn, run_id)
         data = np.vstack([q.read_channel(conn, c.id) for c in chans])
-        n_chunks = q.count_chunks(conn, chans[0].id)
+        n_chunks = count_chunks(conn, chans[0].id)
     return run, chans, data, n_chunks
 
 
@@ -75,7 +76,7 @@ class TestRecorder:
             if a and a % 40000 == 0:
                 with db.read() as conn:
                     r = q.list_runs(conn)[0]
-                    seen.append((r.state, q.count_chunks(conn, q.list_channels(conn, r.id)[0].id)))
+                    seen.append((r.state, count_chunks(conn, q.list_channels(conn, r.id)[0].id)))
 
         res = record(db, desc, ArraySource(x, 4096.0, on_block=look), description_text=text)
         assert res.state == "complete" and res.n_samples == n
@@ -190,7 +191,7 @@ class TestTcpSource:
 
 def q_warnings(db, run_id):
     with db.read() as conn:
-        return q.run_warnings(conn, run_id)
+        return run_warnings(conn, run_id)
 
 
 class TestFolderSource:
