@@ -74,11 +74,14 @@ def test_findings_cells_are_the_json_and_every_face_shows_them(demo, capsys):
                 assert row["apparent"].endswith(pr.GOVERNS_MARK)
                 assert row["governing_reason"]
         judged = [r for r in pr.limit_rows(f) if r["judged"]]
+        summary = pr.summary_line(f)
         faces = _faces(db, path, run_id, capsys)
         for name, text in faces.items():
+            # the counts of what was judged, in one sentence, the same on every face
+            assert summary in " ".join(text.split()), (name, run_id, summary)
             for row in crit:
                 for key in ("probe", "speed", "peak", "margin", "required", "verdict",
-                            "apparent", "sweep_free"):
+                            "apparent", "sweep_free", "confidence"):
                     assert row[key] in text, (name, run_id, key, row[key])
                     checked += 1
             for row in judged:
