@@ -48,8 +48,8 @@ def edge_samples(x, fs: float, event_times_s, *, t0: float = 0.0,
     of fixed angular width spans fewer samples the faster the shaft turns, so the 10th
     percentile over the events is returned: the edges of the top tenth of the speeds.
     Linear interpolation of the threshold crossing is exact on a ramp spanning more
-    than one sample, and quantised to the sample grid on a sharper edge (DESIGN.md
-    section 4; common practice, no source).
+    than one sample, and quantised to the sample grid on a sharper edge (common
+    practice, no source).
 
     Parameters
     ----------

@@ -252,8 +252,8 @@ class TestTachQuality:
 
     def test_sample_quantised_notch_is_warned(self):
         # A 6 deg notch read at 5 kHz by 4000-4500 rpm is one or two samples wide: the
-        # edge is a single step and the events sit on the sample grid (DESIGN.md
-        # section 4: sub-sample location needs samples on the edge).
+        # edge is a single step and the events sit on the sample grid (sub-sample
+        # location needs samples on the edge: common practice, no source).
         from rundash.dsp.tach import tach_quality
         fs = 5000.0
         sweep = synth.linear_sweep(4000.0, 50.0, 10.0)
