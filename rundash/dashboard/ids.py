@@ -91,6 +91,9 @@ COMPARE_BUSY = "compare-busy"
 COMPARE_STATUS = "compare-status"
 COMPARE_TREND = "compare-trend"
 COMPARE_TABLE = "compare-table"
+COMPARE_OTHERS = "compare-others"  # the folded rows of the other probes
+COMPARE_OTHERS_SUMMARY = "compare-others-summary"
+COMPARE_OTHERS_BODY = "compare-others-body"
 
 # run review: report downloads
 REPORT_HTML = "review-report-html"

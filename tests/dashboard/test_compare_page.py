@@ -178,6 +178,22 @@ class TestOverlay:
 
 
 class TestComparisonView:
+    def test_other_probes_folded_and_a_long_fold_built_when_opened(self, demo_full, ups,
+                                                                   cache, monkeypatch):
+        db, _ = demo_full
+        _, table, _ = cp.comparison_view(db, list(ups), PROBE, cache=cache)
+        others = [r for r in cp.table_rows(cp.comparison_of(db, list(ups), cache=cache))
+                  if r["probe"] != PROBE]
+        assert others  # the demo has other probes with criticals
+        body = _find(table, ids.COMPARE_OTHERS_BODY)
+        assert len(body.children.children[1].children) == len(others)  # short: in the page
+        assert cp.other_probes_table(db, list(ups), PROBE, cache=cache) is None
+        monkeypatch.setattr(cp, "EAGER_ROWS", len(others) - 1)  # now it counts as long
+        _, table, _ = cp.comparison_view(db, list(ups), PROBE, cache=cache)
+        assert _find(table, ids.COMPARE_OTHERS_BODY).children == []
+        built = cp.other_probes_table(db, list(ups), PROBE, cache=cache)
+        assert _text(built) == _text(body)
+
     def test_table_shows_the_later_cycles_shift(self, demo_full, ups, cache):
         db, _ = demo_full
         trend, table, status = cp.comparison_view(db, [ups[1], ups[0]], PROBE, cache=cache)

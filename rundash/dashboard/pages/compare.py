@@ -20,6 +20,7 @@ from typing import Any, Sequence
 
 from rundash import CAUTION, figures
 from rundash.dashboard import exports, ids
+from rundash.dashboard.folds import EAGER_ROWS
 from rundash.errors import NotFoundError, RundashError
 from rundash.presentation import operating_range
 
@@ -236,9 +237,12 @@ def comparison_view(db, run_ids: Sequence[int], probe: str, *, cache=None,
     else:
         parts.append(html.P(f"No critical of {probe} to compare in these runs.",
                             className="muted"))
-    if others:
-        parts.append(html.Details(className="reference", children=[
-            html.Summary(f"Other probes ({len(others)} rows)"), _table(others)]))
+    if others:  # a long fold is built on its first opening (other_probes_table)
+        parts.append(html.Details(className="reference", id=ids.COMPARE_OTHERS, children=[
+            html.Summary(f"Other probes ({len(others)} rows)", id=ids.COMPARE_OTHERS_SUMMARY,
+                         n_clicks=0),
+            html.Div(_table(others) if len(others) <= EAGER_ROWS else [],
+                     id=ids.COMPARE_OTHERS_BODY)]))
     parts += [html.P(comparison["rule"].capitalize() + ".", className="note"),
               html.P("Uncertainty: " + comparison["method"], className="note"),
               html.P("Hints name possible causes to look into; they are not diagnoses.",
@@ -248,6 +252,18 @@ def comparison_view(db, run_ids: Sequence[int], probe: str, *, cache=None,
     status = (f"Compared {len(ids_)} runs (reference: run {ref}, the earliest), "
               f"{n_boot} bootstrap replicates.")
     return trend, html.Div(parts), status
+
+
+def other_probes_table(db, run_ids: Sequence[int], probe: str, *, cache=None,
+                       n_boot: int = N_BOOT):
+    """The folded rows of the probes other than ``probe``, or None when the fold came
+    filled with the page (no more than EAGER_ROWS rows)."""
+    ids_ = list(dict.fromkeys(int(r) for r in run_ids or []))
+    if len(ids_) < 2:
+        return None
+    comparison = comparison_of(db, ids_, cache=cache, n_boot=n_boot)
+    others = [r for r in table_rows(comparison) if r["probe"] != probe]
+    return _table(others) if len(others) > EAGER_ROWS else None
 
 
 # ----------------------------------------------------------------------------- layout
@@ -385,3 +401,16 @@ def register_callbacks(app, db) -> None:
         if not probe:
             return no_update, no_update, no_update
         return comparison_view(db, run_ids or [], probe, cache=cache)
+
+    @app.callback(Output(ids.COMPARE_OTHERS_BODY, "children"),
+                  Input(ids.COMPARE_OTHERS_SUMMARY, "n_clicks"),
+                  State(ids.COMPARE_RUNS, "value"), State(ids.COMPARE_PROBE, "value"),
+                  prevent_initial_call=True)
+    def _others(n_clicks, run_ids, probe):
+        if n_clicks != 1:  # built on the first opening, kept after
+            return no_update
+        try:
+            table = other_probes_table(db, run_ids or [], probe, cache=cache)
+        except RundashError:  # the view above already says why
+            return no_update
+        return no_update if table is None else table

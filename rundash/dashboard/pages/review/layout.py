@@ -8,6 +8,7 @@ from typing import Any
 from rundash import CAUTION
 from rundash import presentation as pr
 from rundash.dashboard import exports, ids, reports
+from rundash.dashboard.folds import EAGER_ROWS
 from rundash.dashboard.pages.review.data import (
     criticals_of, load_context, mount_text, orbit_pairs,
 )
@@ -32,10 +33,6 @@ LIMIT_COLUMNS = [("probe", "Probe"), ("direction", "Direction"), ("measure", "Me
                  ("limit", "Limit"), ("zone", "Zone"), ("verdict", "Verdict"),
                  ("basis", "Basis")]
 CRITICAL_ROW = "review-critical-row"  # pattern-matching id type of the criticals rows
-#: A folded table of more rows than this is built when the fold is first opened: every
-#: component on the page slows each of the page's updates in the browser (a 16-channel
-#: run has ~150 reference-only limit rows, ~1600 table cells).
-EAGER_ROWS = 30
 
 
 def _table(columns, rows, table_id=None, *, clickable: bool = False):
