@@ -37,13 +37,15 @@ evaluates, in the working precision and shared by every channel:
   tests/dsp/test_orders_kernels.py). Orders that are not such multiples use a direct
   cosine and sine each.
 
-The per-revolution work is then one small matrix product ``VT @ X[:, window].T`` (rows
-``W cos``, ``W sin`` per order and ``W`` itself, times the channels and a row of ones
-whose column is the quadrature of each row alone), blocks of ``R`` revolutions are sums
-of their revolutions, and the direct levels are reductions over each block's samples.
-Revolutions are computed in groups of about ``GROUP_SAMPLES`` samples so the work
-arrays stay in cache; each revolution's result depends only on its own samples (to the
-last bit), whatever the grouping or the chunks fed.
+The per-revolution work is then one small matrix product ``VT @ x[:, window].T`` (rows
+``W cos``, ``W sin`` per order and ``W`` itself, times the channels, read in place) and
+the sum of each row over the same window (its quadrature alone), blocks of ``R``
+revolutions are sums of their revolutions, and the direct levels are reductions over
+each block's samples. Revolutions are computed in groups of about ``GROUP_SAMPLES``
+samples so the work arrays stay in cache; runs of revolutions of equal length share one
+stacked product call; each revolution's result depends only on its own samples (to the
+last bit), whatever the grouping or the chunks fed. The kernels are in
+:mod:`rundash.dsp.order_kernels`.
 
 Speed: see the module's benchmark, benchmarks/bench_orders.py (16 channels x 4 orders,
 float32 at 25.6 kHz, 20 s run-up 1200-9000 rpm), which prints the rate against the
@@ -75,10 +77,12 @@ angle; block speeds are the mean speed over the block, ``60 R / (t(k + R) - t(k)
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
+from rundash.dsp import order_kernels as kern
 from rundash.dsp.speed import SpeedProfile
 from rundash.errors import DspError, invalid_value
 
@@ -87,9 +91,9 @@ __all__ = ["OrderTrack", "OrderTracker", "track_orders", "concat_tracks", "first
 #: Samples per chunk when a whole record is tracked in one call (bounds the memory).
 CHUNK_SAMPLES = 1 << 18
 #: Samples per piece inside :meth:`OrderTracker.feed`.
-SUB_SAMPLES = 1 << 16
+SUB_SAMPLES = 1 << 18
 #: Samples per group of blocks computed together (keeps the work arrays in cache).
-GROUP_SAMPLES = 1 << 14
+GROUP_SAMPLES = 1 << 13
 #: Highest multiple of the base order built by recurrence (see ``_exponentials``).
 MAX_POWER = 8
 
@@ -125,14 +129,6 @@ class OrderTrack:
     direct_rms: np.ndarray
     rev_index: np.ndarray
 
-    @property
-    def n_blocks(self) -> int:
-        return int(self.time_s.size)
-
-    @property
-    def n_channels(self) -> int:
-        return int(self.vectors.shape[0])
-
     def concat(self, *others: "OrderTrack") -> "OrderTrack":
         """This track followed by ``others`` (see :func:`concat_tracks`)."""
         return concat_tracks((self, *others))
@@ -145,6 +141,14 @@ class OrderTrack:
                    np.empty((n_channels, orders.size, 0), np.complex128),
                    np.empty((n_channels, 0)), np.empty((n_channels, 0)),
                    np.empty(0, np.int64))
+
+    @property
+    def n_blocks(self) -> int:
+        return int(self.time_s.size)
+
+    @property
+    def n_channels(self) -> int:
+        return int(self.vectors.shape[0])
 
 
 def concat_tracks(tracks) -> OrderTrack:
@@ -341,7 +345,7 @@ class OrderTracker:
 
     def _work(self, name: str, shape, dtype) -> np.ndarray:
         """A reused work array of ``shape`` (a view of a buffer that only grows)."""
-        size = int(np.prod(shape))
+        size = math.prod(shape)
         buf = self._bufs.get(name)
         if buf is None or buf.size < size or buf.dtype != dtype:
             buf = np.empty(max(size, 1), dtype)
@@ -387,11 +391,11 @@ class OrderTracker:
         n_rows = 2 * n_o + 1
         nr = k1 - k0
         work = data.dtype.type
-        coef, ends = self._revolutions(k0, na)
-        # per revolution: rows x (channels, then a channel of ones: the quadrature of
-        # each row alone, summed in the same product, so it does not depend on how the
-        # revolutions are grouped)
-        core = np.empty((nr, n_rows, n_ch + 1), work)
+        coef, ends = kern.revolution_cubics(prof._c, rev_t, fs, k0, na)
+        # per revolution: rows x channels, and each row's quadrature alone (summed over
+        # the same window, so it does not depend on how the revolutions are grouped)
+        core = np.empty((nr, n_rows, n_ch), work)
+        quad = np.empty((nr, n_rows), work)
         pp = np.empty((n_ch, nblk))
         rms = np.empty((n_ch, nblk))
         # groups of whole blocks of about GROUP_SAMPLES samples (work arrays in cache)
@@ -401,29 +405,39 @@ class OrderTracker:
             e = int(np.searchsorted(starts, starts[b] + GROUP_SAMPLES, side="right")) - 1
             e = min(max(e, b + 1), nblk)
             r, re = b * R, e * R
-            X = self._products(data, base, na[r:re + 1], coef[:, r:re], ends[:, r:re],
-                               core[r:re])
-            self._direct(X[:n_ch, 1:-1], starts[b:e + 1], pp[:, b:e], rms[:, b:e])
+            self._products(data, base, na[r:re + 1], coef[:, r:re], ends[:, r:re],
+                           core[r:re], quad[r:re])
+            seg = data[:, int(starts[b]) - base:int(starts[e]) - base]
+            kern.direct_levels(seg, starts[b:e + 1], pp[:, b:e], rms[:, b:e],
+                               self._work("sq", seg.shape, work))
             b = e
         # rows hold W cos and W sin: W exp(-j m ph) = W cos - j W sin
-        Q = core[:, 0:2 * n_o:2, :n_ch] - 1j * core[:, 1:2 * n_o:2, :n_ch]  # (nr, n_o, n_ch)
-        Lq = core[:, 0:2 * n_o:2, n_ch] - 1j * core[:, 1:2 * n_o:2, n_ch]  # (nr, n_o)
-        if self._rev_phase is not None:  # exp(-j 2 pi m k) for orders m k not whole
-            f = np.exp(-2j * np.pi * np.mod(np.multiply.outer(np.arange(k0, k1),
-                                                              self._rev_phase), 1.0))
-            Q *= f[:, :, None]
-            Lq *= f
-        if R > 1:
-            Q = Q.reshape(nblk, R, n_o, n_ch).sum(axis=1)
-            Lq = Lq.reshape(nblk, R, n_o).sum(axis=1)
-        D = core[:, 2 * n_o, :n_ch].astype(np.float64)
-        if R > 1:
-            D = D.reshape(nblk, R, n_ch).sum(axis=1) / R
-        # The rule's own error on a constant: Lq = quadrature of exp(-j 2 pi m theta)
-        # alone (zero exactly); removing D * Lq, D the block mean, cancels the leakage
-        # of a large DC offset (a probe's gap) into the orders.
-        vec = (Q - D[:, None, :] * Lq[:, :, None]) * (2.0 / R)  # (nblk, n_o, n_ch)
-        vectors = np.ascontiguousarray(vec.transpose(2, 1, 0))
+        D = core[:, 2 * n_o].astype(np.float64)  # (nr, n_ch)
+        if self._rev_phase is None and R == 1:
+            # The rule's own error on a constant: quad = quadrature of exp(-j 2 pi m
+            # theta) alone (zero exactly); removing D * quad, D the block mean, cancels
+            # the leakage of a large DC offset (a probe's gap) into the orders.
+            vectors = np.empty((n_ch, n_o, nblk), np.complex128)
+            for part, rows in ((vectors.real, slice(0, 2 * n_o, 2)),
+                               (vectors.imag, slice(1, 2 * n_o, 2))):
+                v = core[:, rows] - D[:, None, :] * quad[:, rows, None]  # (nr, n_o, n_ch)
+                v *= 2.0 if rows.start == 0 else -2.0
+                part[...] = v.transpose(2, 1, 0)
+        else:
+            Q = core[:, 0:2 * n_o:2] - 1j * core[:, 1:2 * n_o:2]  # (nr, n_o, n_ch)
+            Lq = quad[:, 0:2 * n_o:2] - 1j * quad[:, 1:2 * n_o:2]  # (nr, n_o)
+            if self._rev_phase is not None:  # exp(-j 2 pi m k) for orders m k not whole
+                f = np.exp(-2j * np.pi * np.mod(np.multiply.outer(np.arange(k0, k1),
+                                                                  self._rev_phase), 1.0))
+                Q *= f[:, :, None]
+                Lq *= f
+            if R > 1:
+                Q = Q.reshape(nblk, R, n_o, n_ch).sum(axis=1)
+                Lq = Lq.reshape(nblk, R, n_o).sum(axis=1)
+                D = D.reshape(nblk, R, n_ch).sum(axis=1) / R
+            # the same removal of the constant's leakage, per block
+            vec = (Q - D[:, None, :] * Lq[:, :, None]) * (2.0 / R)  # (nblk, n_o, n_ch)
+            vectors = np.ascontiguousarray(vec.transpose(2, 1, 0))
         ks = np.arange(j0, j1 + 1) * R
         t_a, t_b = rev_t[ks], rev_t[ks + R]
         track = OrderTrack(time_s=0.5 * (t_a + t_b), speed_rpm=60.0 * R / (t_b - t_a),
@@ -435,159 +449,36 @@ class OrderTracker:
         start = int(self._first_samples(rev_t[self._j_next * R:self._j_next * R + 1])[0])
         return track, min(start - 1, base + n)
 
-    def _revolutions(self, k0: int, na: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Per revolution k0, k0 + 1, ... (first samples ``na``, the last entry the first
-        sample after them): the local angle ``u = theta - k`` at window position ``i``
-        (sample ``na_k - 1 + i``) as a cubic in ``i``, coefficients ``(A3, A2, A1, A0)``
-        (shape (4, n_revs), float64), and the trapezoid weights of the window's first
-        two and last two samples (shape (4, n_revs))."""
-        nr = na.size - 1
-        # the profile's cubic of revolution k: c0 s^3 + c1 s^2 + c2 s with
-        # s = (i - sigma) / fs, sigma = t_k fs - (na_k - 1)
-        ks = np.arange(k0, k0 + nr)
-        c = self.profile._c[:, ks]
-        sigma = self.profile._t[ks] * self.fs - (na[:-1] - 1)
-        h = 1.0 / self.fs
-        B3, B2, B1 = c[0] * h ** 3, c[1] * h ** 2, c[2] * h
-        A = np.empty((4, nr))
-        A[0] = B3
-        A[1] = B2 - 3.0 * B3 * sigma
-        A[2] = B1 - (2.0 * B2 - 3.0 * B3 * sigma) * sigma
-        A[3] = -(B1 - (B2 - B3 * sigma) * sigma) * sigma
-
-        def u(i):
-            return ((A[0] * i + A[1]) * i + A[2]) * i + A[3]
-
-        # Trapezoid rule of the linear interpolant of the integrand over u in [0, 1]:
-        # interior weights 0.5 (u(i+1) - u(i-1)); the limits u = 0 and u = 1 fall
-        # between the window's first two and last two samples (linear interpolation).
-        L = np.diff(na).astype(np.float64)
-        u0, u1, u2 = u(0.0), u(1.0), u(2.0)
-        uLm, uL, uL1 = u(L - 1.0), u(L), u(L + 1.0)
-        ends = np.empty((4, nr))
-        ends[0] = 0.5 * u1 * u1 / (u1 - u0)
-        ends[1] = 0.5 * u1 * (u1 - 2.0 * u0) / (u1 - u0) + 0.5 * (u2 - u1)
-        hR = 1.0 - uL
-        mu = hR / (uL1 - uL)
-        ends[2] = 0.5 * (uL - uLm) + 0.5 * hR * (2.0 - mu)
-        ends[3] = 0.5 * hR * mu
-        return A, ends
-
-    def _direct(self, seg, starts, pp, rms) -> None:
-        """Direct p-p and rms of the blocks with first samples ``starts`` (record
-        indices; the last entry is the first sample after them) over their own samples,
-        ``seg`` the samples from ``starts[0]`` on."""
-        offs = starts[:-1] - starts[0]
-        pp[...] = np.maximum.reduceat(seg, offs, axis=1)
-        pp -= np.minimum.reduceat(seg, offs, axis=1)
-        sq = np.square(seg, out=self._work("sq", seg.shape, seg.dtype))
-        rms[...] = np.add.reduceat(sq, offs, axis=1)
-        rms /= np.diff(starts)
-        np.sqrt(rms, out=rms)
-
-    def _products(self, data, base, na, A, ends, core) -> np.ndarray:
+    def _products(self, data, base, na, A, ends, core, quad) -> None:
         """For the revolutions with first samples ``na`` (the last entry the first
         sample after them), local-angle coefficients ``A`` and end weights ``ends``
-        (:meth:`_revolutions`): ``core[r] = VT_r @ window_r.T`` (rows x channels + 1),
-        where the rows of ``VT_r`` are ``W cos`` and ``W sin`` of each order's phase and
-        ``W`` itself, ``W`` the quadrature weights over the revolution's window, and
-        the window holds the channels and a row of ones. Returns that copy of the
-        samples (channels + 1, from the sample before ``na[0]`` to ``na[-1]``)."""
+        (:func:`~rundash.dsp.order_kernels.revolution_cubics`): ``core[r] = VT_r @
+        window_r.T`` (rows x channels) and ``quad[r]`` the rows' own quadratures, where
+        the rows of ``VT_r`` are ``W cos`` and ``W sin`` of each order's phase and ``W``
+        itself, ``W`` the quadrature weights over the revolution's window of samples
+        (read in place from ``data``, whose first sample is record index ``base``)."""
         work = data.dtype.type
-        n_ch = data.shape[0]
-        span = int(na[-1] - na[0]) + 2
-        X = self._work("X", (n_ch + 1, span), work)
-        a = int(na[0]) - 1 - base
-        X[:n_ch] = data[:, a:a + span]
-        X[n_ch] = 1.0
         nr = na.size - 1
         n_o = self.orders.size
         L = np.diff(na)
         Lw = L + 2  # the window: one sample before and the first sample after
-        Lmax = int(Lw.max())
-        if self._ii.size < Lmax or self._ii.dtype != work:
-            self._ii = np.arange(max(Lmax, 2 * self._ii.size), dtype=work)
-        ii = self._ii[:Lmax]  # window positions 0, 1, ...
-        Aw = A.astype(work)
+        stride = int(Lw.max()) + 1  # > every window: the row sums' index pairs
+        if self._ii.size < stride or self._ii.dtype != work:
+            self._ii = np.arange(max(stride, 2 * self._ii.size), dtype=work)
+        ii = self._ii[:stride]  # window positions 0, 1, ...
         # rows x revolutions x window: each row's grid is contiguous (fast element-wise
         # work); VT[:, r, :lw] is revolution r's (rows x window) matrix for BLAS
-        VT = self._work("VT", (2 * n_o + 1, nr, Lmax), work)
+        VT = self._work("VT", (2 * n_o + 1, nr, stride), work)
         W = VT[2 * n_o]  # order 0: the weights themselves
-        # interior 0.5 (u(i+1) - u(i-1)) = 3 A3 i^2 + 2 A2 i + A1 + A3, exact for a cubic
-        np.multiply((3.0 * A[0]).astype(work)[:, None], ii, out=W)
-        W += (2.0 * Aw[1])[:, None]
-        W *= ii
-        W += (A[2] + A[0]).astype(work)[:, None]
-        rows = np.arange(nr)
-        W[rows, 0] = ends[0]
-        W[rows, 1] = ends[1]
-        W[rows, L] = ends[2]
-        W[rows, L + 1] = ends[3]
-        pad = self._work("pad", (nr, Lmax), np.bool_)
-        np.greater_equal(ii, Lw.astype(work)[:, None], out=pad)
-        np.copyto(W, 0, where=pad)
-        # phase of the base order, 2 pi base u, in the working precision
-        P = ((2.0 * np.pi * self._base_order) * A).astype(work)
-        ph = self._work("ph", (nr, Lmax), work)
-        np.multiply(P[0][:, None], ii, out=ph)
-        ph += P[1][:, None]
-        ph *= ii
-        ph += P[2][:, None]
-        ph *= ii
-        ph += P[3][:, None]
+        ph = self._work("ph", (nr, stride), work)
+        kern.weights_and_phase(A, ends, L, ii, self._base_order, W, ph)
         self._exponentials(ph, W, VT)
-        # one small matrix product per revolution: (rows x window) @ (window x channels)
-        for r, (p, lw) in enumerate(zip((na[:-1] - na[0]).tolist(), Lw.tolist())):
-            np.matmul(VT[:, r, :lw], X[:, p:p + lw].T, out=core[r])
-        return X
+        kern.window_products(VT, data, na[:-1] - 1 - base, Lw, core, quad)
 
     def _exponentials(self, ph: np.ndarray, W: np.ndarray, VT: np.ndarray) -> None:
-        """Rows ``2 i`` and ``2 i + 1`` of ``VT`` (rows, n_revs, window): ``W cos`` and
-        ``W sin`` of ``m_i ph / base`` for each order ``m_i``, ``ph`` the phase of the base
-        order (the real part and minus the imaginary part of ``W exp(-j m_i ph / base)``).
-
-        Orders that are whole multiples p <= MAX_POWER of the base order are built by
-        the recurrence ``e_(p+1) = e_p e_1`` from one cosine and sine of the base phase
-        per sample (the error bound is tested against direct cos/sin); others directly.
-        """
-        work = VT.dtype.type
-        if self._powers is None:
-            for i, m in enumerate(self.orders):
-                a = self._work("a", W.shape, work)
-                np.multiply(ph, work(m / self._base_order), out=a)
-                np.cos(a, out=VT[2 * i])
-                VT[2 * i] *= W
-                np.sin(a, out=VT[2 * i + 1])
-                VT[2 * i + 1] *= W
-            return
-        cs = self._work("cos", W.shape, work)
-        sn = self._work("sin", W.shape, work)
-        tmp = self._work("tmp", W.shape, work)
-        np.cos(ph, out=cs)
-        np.sin(ph, out=sn)
-        # p = 1: W (cos, -sin)
-        slot = {int(p): i for i, p in enumerate(self._powers)}
-        pmax = int(max(self._powers))
-        re = self._work("re1", W.shape, work) if 1 not in slot else VT[2 * slot[1]]
-        im = self._work("im1", W.shape, work) if 1 not in slot else VT[2 * slot[1] + 1]
-        np.multiply(cs, W, out=re)
-        np.multiply(sn, W, out=im)
-        spare = 0
-        for p in range(2, pmax + 1):
-            if p in slot:
-                re2, im2 = VT[2 * slot[p]], VT[2 * slot[p] + 1]
-            else:
-                re2 = self._work(f"re_s{spare}", W.shape, work)
-                im2 = self._work(f"im_s{spare}", W.shape, work)
-                spare ^= 1
-            # W (cos + j sin) of p + 1 times the base: (re + j im)(cos + j sin)
-            np.multiply(re, cs, out=re2)
-            np.multiply(im, sn, out=tmp)
-            re2 -= tmp
-            np.multiply(im, cs, out=im2)
-            np.multiply(re, sn, out=tmp)
-            im2 += tmp
-            re, im = re2, im2
+        """Rows ``2 i`` and ``2 i + 1`` of ``VT``: ``W cos`` and ``W sin`` of each order's
+        phase (:func:`~rundash.dsp.order_kernels.exponentials`)."""
+        kern.exponentials(ph, W, VT, self.orders, self._base_order, self._powers, self._work)
 
 
 def track_orders(x, fs: float, profile: SpeedProfile, *, orders=(1, 2, 3, 4),
