@@ -26,7 +26,6 @@ The method and its error bounds are in :mod:`rundash.dsp.orders`.
 from __future__ import annotations
 
 import numpy as np
-from numpy.lib.stride_tricks import as_strided
 
 
 def revolution_cubics(c: np.ndarray, t: np.ndarray, fs: float, k0: int,
@@ -161,20 +160,9 @@ def window_products(VT: np.ndarray, data: np.ndarray, first: np.ndarray, Lw: np.
     the samples in place (the window is a strided view for BLAS); the row sums are
     exact-window reductions (``reduceat`` over pairs of indices: a window, then the
     unused tail to skip), so neither depends on the grid's width."""
+    for r, (p, lw) in enumerate(zip(first.tolist(), Lw.tolist())):
+        np.matmul(VT[:, r, :lw], data[:, p:p + lw].T, out=core[r])
     n_rows, nr, stride = VT.shape
-    # Revolutions of equal length (most of them at speed: the length changes slowly)
-    # are evenly spaced in the record, so a run of them is one stacked product (numpy
-    # calls BLAS per revolution, with the same operands as one call each).
-    cuts = [0, *(np.flatnonzero(np.diff(Lw)) + 1).tolist(), nr]
-    row, col = data.strides
-    for a, b in zip(cuts[:-1], cuts[1:]):
-        p, lw = int(first[a]), int(Lw[a])
-        if b - a == 1:
-            np.matmul(VT[:, a, :lw], data[:, p:p + lw].T, out=core[a])
-            continue
-        win = as_strided(data[:, p:], shape=(b - a, lw, data.shape[0]),
-                         strides=((lw - 2) * col, col, row), writeable=False)
-        np.matmul(VT[:, a:b, :lw].transpose(1, 0, 2), win, out=core[a:b])
     idx = np.empty(2 * nr, np.intp)
     idx[0::2] = np.arange(nr) * stride
     idx[1::2] = idx[0::2] + Lw

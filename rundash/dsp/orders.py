@@ -42,10 +42,9 @@ The per-revolution work is then one small matrix product ``VT @ x[:, window].T``
 the sum of each row over the same window (its quadrature alone), blocks of ``R``
 revolutions are sums of their revolutions, and the direct levels are reductions over
 each block's samples. Revolutions are computed in groups of about ``GROUP_SAMPLES``
-samples so the work arrays stay in cache; runs of revolutions of equal length share one
-stacked product call; each revolution's result depends only on its own samples (to the
-last bit), whatever the grouping or the chunks fed. The kernels are in
-:mod:`rundash.dsp.order_kernels`.
+samples so the work arrays stay in cache; each revolution's result depends only on its
+own samples (to the last bit), whatever the grouping or the chunks fed. The kernels are
+in :mod:`rundash.dsp.order_kernels`.
 
 Speed: see the module's benchmark, benchmarks/bench_orders.py (16 channels x 4 orders,
 float32 at 25.6 kHz, 20 s run-up 1200-9000 rpm), which prints the rate against the
@@ -93,7 +92,7 @@ CHUNK_SAMPLES = 1 << 18
 #: Samples per piece inside :meth:`OrderTracker.feed`.
 SUB_SAMPLES = 1 << 18
 #: Samples per group of blocks computed together (keeps the work arrays in cache).
-GROUP_SAMPLES = 1 << 13
+GROUP_SAMPLES = 1 << 14
 #: Highest multiple of the base order built by recurrence (see ``_exponentials``).
 MAX_POWER = 8
 
