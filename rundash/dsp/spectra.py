@@ -19,6 +19,7 @@ in memory.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Literal
 
 import numpy as np
@@ -120,7 +121,16 @@ def _check_window(window, n_fft):
         raise DspError(invalid_value("window", window, ", ".join(repr(w) for w in _WINDOWS)))
     if isinstance(n_fft, bool) or int(n_fft) != n_fft or n_fft < 16:
         raise DspError(invalid_value("n_fft", n_fft, "an integer >= 16"))
-    return get_window(window, int(n_fft), fftbins=True)
+    return _window(window, int(n_fft))
+
+
+@lru_cache(maxsize=16)
+def _window(window: str, n_fft: int) -> np.ndarray:
+    """The window of ``n_fft`` samples, computed once per kind and length (the pipeline
+    asks for the same one for every row of every channel), read-only."""
+    w = get_window(window, n_fft, fftbins=True)
+    w.flags.writeable = False
+    return w
 
 
 def _bins(fs: float, n_fft: int, f_max_hz: float | None, max_bins: int):
@@ -157,7 +167,7 @@ def cascade_rows(x_block, fs: float, start_index: int, times_s, *, n_fft: int = 
     amplitude_peak : ndarray of float32, shape (n_rows, n_freq)
         Zero for rows not computed here.
     """
-    x = np.asarray(x_block, dtype=np.float64)
+    x = np.asarray(x_block)
     if x.ndim != 1:
         raise DspError(invalid_value("x_block", f"array of shape {x.shape}", "a 1-D channel"))
     if not (np.isfinite(fs) and fs > 0):
@@ -173,9 +183,11 @@ def cascade_rows(x_block, fs: float, start_index: int, times_s, *, n_fft: int = 
     amp = np.zeros((times.size, n_out), np.float32)
     idx = np.flatnonzero(done)
     if idx.size:
-        frames = x[first[idx][:, None] + np.arange(n_fft)[None, :]]
+        # only the rows' samples, in float64 (a float32 record is not converted whole)
+        frames = x[first[idx][:, None] + np.arange(n_fft)[None, :]].astype(np.float64)
         frames -= frames.mean(axis=1, keepdims=True)  # DC would only smear the first bins
-        spec = np.abs(rfft(frames * w, axis=1))[:, :n_keep] * (2.0 / np.sum(w))
+        frames *= w
+        spec = np.abs(rfft(frames, axis=1))[:, :n_keep] * (2.0 / np.sum(w))
         pad = n_out * g - n_keep
         if pad:
             spec = np.pad(spec, ((0, 0), (0, pad)))
