@@ -48,12 +48,10 @@ def _refine_peak(s: np.ndarray, a: np.ndarray, i: int,
     if i <= 0 or i >= s.size - 1:
         return float(s[i]), float(a[i])
     lo, hi = i - 1, i + 1
-    if top_fraction is not None:
+    if top_fraction is not None:  # the contiguous run of samples >= floor around the peak
         floor = top_fraction * a[i]
-        while lo > 0 and a[lo - 1] >= floor:
-            lo -= 1
-        while hi < s.size - 1 and a[hi + 1] >= floor:
-            hi += 1
+        lo -= _run_length(a[lo - 1::-1] >= floor) if lo > 0 else 0
+        hi += _run_length(a[hi + 1:] >= floor)
     x = s[lo:hi + 1] - s[i]
     coef = np.polyfit(x, a[lo:hi + 1], 2)
     if coef[0] >= 0:
@@ -95,18 +93,26 @@ class HalfPower:
     reason: str = ""
 
 
+def _run_length(flags: np.ndarray) -> int:
+    """Number of leading True values."""
+    if flags.size == 0:
+        return 0
+    k = int(np.argmin(flags))
+    return flags.size if flags[k] else k
+
+
 def _walk(a: np.ndarray, i: int, step: int, target: float, rise: float) -> tuple[int | None, str]:
-    """Walk from the peak until ``a`` falls below ``target``; stop if it turns up first."""
-    j = i
-    running_min = a[i]
-    while 0 <= j + step < a.size:
-        j += step
-        if a[j] < target:
-            return j, ""
-        running_min = min(running_min, a[j])
-        if a[j] > running_min + rise:
-            return None, "merges with a neighbouring peak"
-    return None, "does not fall to the half-power level inside the data"
+    """Walk from the peak until ``a`` falls below ``target``; stop if it turns up first
+    (by more than ``rise`` above the running minimum, the peak included)."""
+    seg = a[i + step::step] if (step > 0 or i > 0) else a[:0]
+    running_min = np.minimum.accumulate(np.concatenate(([a[i]], seg)))[1:]
+    stop = (seg < target) | (seg > running_min + rise)
+    k = int(np.argmax(stop)) if seg.size else 0
+    if seg.size == 0 or not stop[k]:
+        return None, "does not fall to the half-power level inside the data"
+    if seg[k] < target:
+        return i + step * (k + 1), ""
+    return None, "merges with a neighbouring peak"
 
 
 def half_power(speed_rpm, amplitude, *, peak_index: int | None = None,

@@ -297,9 +297,9 @@ def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
         v = v / jw
         if floor is not None:
             floor = floor / np.abs(jw)
-    found = _find(s, v, t, float(amplitude_factor), direction, min_prominence, min_height,
-                  phase_confirm_deg, bin_rpm, smooth_rpm, critically_damped_af,
-                  quasi_steady_ratio, fit, floor)
+    found = _find(prepare_curve(s, v, float(amplitude_factor), bin_rpm, smooth_rpm, floor), s, t,
+                  float(amplitude_factor), direction, min_prominence, min_height,
+                  phase_confirm_deg, critically_damped_af, quasi_steady_ratio, fit)
     if k_int:
         found = [_as_measured(c, k_int, measure) for c in found]
     for c in found:
@@ -307,6 +307,39 @@ def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
             warnings.warn(f"critical at {c.speed_rpm:.0f} rpm: {c.sweep_note}", SweepRateWarning,
                           stacklevel=2)
     return tuple(sorted(found, key=lambda c: c.speed_rpm))
+
+
+def replicate_criticals(curves, speed_rpm, *, time_s=None, amplitude_factor: float = 2.0,
+                        direction: Direction = "run-up", fit: bool = True,
+                        near_rpm=(), within_pct: float = 3.0) -> list[tuple[Critical, ...] | None]:
+    """For each prepared curve of a bootstrap's replicates
+    (:func:`rundash.analysis.response_curve.curves_from_sums` of the points at
+    ``speed_rpm`` and ``time_s``, all finite and positive), the criticals
+    :func:`find_criticals` with its defaults finds on it, read for a bootstrap: the speed,
+    peak amplitude, AF estimates and classification of every critical are those it
+    returns; a replicate with one peak leaves out the evidence, polar loop and sweep rate.
+    Phase-only criticals are searched for only where one could be the nearest critical
+    within ``within_pct`` % of a speed in ``near_rpm``. None for a replicate whose analysis
+    failed (:class:`AnalysisError`); no warnings.
+    """
+    s = np.asarray(speed_rpm, dtype=float)
+    t = None if time_s is None else np.asarray(time_s, dtype=float)
+    if s.size < 20 or np.ptp(s) <= 0:
+        return [None] * len(curves)
+    afac = float(amplitude_factor)
+    near = (tuple(float(x) for x in near_rpm), float(within_pct))
+    out: list[tuple[Critical, ...] | None] = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for curve in curves:
+            try:
+                found = _find(curve, s, t, afac, direction, 0.05, 0.05, 60.0,
+                              CRITICALLY_DAMPED_AF, QUASI_STEADY_RATIO, fit, lean=True, near=near)
+            except AnalysisError:
+                out.append(None)
+                continue
+            out.append(tuple(sorted(found, key=lambda c: c.speed_rpm)))
+    return out
 
 
 def _as_measured(c: Critical, k: int, measure: str) -> Critical:
@@ -332,30 +365,58 @@ def _as_measured(c: Critical, k: int, measure: str) -> Critical:
             f"quoted as measured ({measure})",))
 
 
-def _find(s, v, t, afac, direction, min_prominence, min_height, phase_confirm_deg, bin_rpm,
-          smooth_rpm, critically_damped_af, quasi_steady_ratio, fit, floor) -> list[Critical]:
-    curve = prepare_curve(s, v, afac, bin_rpm, smooth_rpm, floor)
+def _find(curve, s, t, afac, direction, min_prominence, min_height, phase_confirm_deg,
+          critically_damped_af, quasi_steady_ratio, fit, lean=False, near=None) -> list[Critical]:
+    """The criticals of one prepared curve. ``lean`` (bootstrap replicates): peaks read
+    for their speed, amplitude, AF and classification only (:func:`_from_peak`); with
+    ``near`` (speeds, tolerance in %) the phase-only search runs only when a phase-only
+    critical could be the nearest critical to one of those speeds (see
+    :func:`_phase_only_needed`)."""
     amp = curve.amp
     idx, props = signal.find_peaks(amp, prominence=1e-12 * amp.max())
     # significance: 8 noise sigmas of the smoothed curve, twice the floor
-    keep = [(i, p) for i, p in zip(idx, props["prominences"])
-            if p >= min_prominence * amp[i] and amp[i] >= min_height * amp.max()
-            and p >= 8.0 * curve.noise[i] and p > 2.0 * curve.floor[i]]
+    prom = props["prominences"]
+    ok = ((prom >= min_prominence * amp[idx]) & (amp[idx] >= min_height * amp.max())
+          & (prom >= 8.0 * curve.noise[idx]) & (prom > 2.0 * curve.floor[idx]))
+    keep = idx[ok]
 
     found: list[Critical] = []
     bands: list[tuple[float, float]] = []
-    for i, _ in keep:
+    for i in keep:
         found.append(_from_peak(curve, int(i), s, t, 8.0 * curve.noise[i], phase_confirm_deg, critically_damped_af,
-                                quasi_steady_ratio, fit, direction, afac))
+                                quasi_steady_ratio, fit, direction, afac,
+                                lean=lean and len(keep) == 1))
         bands.append(found[-1].band_rpm)
     found = drop_beating(found)
-    found.extend(_phase_only(curve, bands, s, t, critically_damped_af, quasi_steady_ratio, fit,
-                             direction, afac))
+    if near is None or _phase_only_needed(found, bands, curve, *near):
+        found.extend(_phase_only(curve, bands, s, t, critically_damped_af, quasi_steady_ratio,
+                                 fit, direction, afac))
     return found
 
 
+def _phase_only_needed(found, bands, curve, speeds, tol_pct) -> bool:
+    """Whether a phase-only critical could be the nearest critical within ``tol_pct`` % of
+    one of ``speeds``. A phase-only critical lies outside every peak band, except for at
+    most one grid step above its own band (the modal fit's natural frequency may fall on
+    the next grid point): a speed inside a band, that margin kept, whose nearest peak
+    critical is closer than the band's edges, cannot have a nearer phase-only one."""
+    step = float(curve.speed[1] - curve.speed[0]) if curve.speed.size > 1 else 0.0
+    for sp in speeds:
+        best = min((abs(c.speed_rpm - sp) for c in found), default=math.inf)
+        if not best / sp * 100.0 <= tol_pct:  # as the match is judged (curve_estimate)
+            return True
+        room = max((min(sp - (b0 + step), b1 - sp) for b0, b1 in bands), default=-1.0)
+        if not best < room:
+            return True
+    return False
+
+
 def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min, do_fit,
-               direction, afac) -> Critical:
+               direction, afac, lean=False) -> Critical:
+    """The critical of the peak at ``i``. ``lean`` (a bootstrap replicate with this one
+    peak, so no beating to drop): the speed, amplitude, AF and classification are read as
+    always; the polar loop, the evidence and the sweep rate are not, nor the phase AF
+    unless it governs."""
     sp, amp, lag = curve.speed, curve.amp, curve.lag
     rel_tol = tol / amp[i] if amp[i] > 0 else 0.0
     hp = half_power(sp, amp, peak_index=i, rise_tolerance=rel_tol,
@@ -388,6 +449,9 @@ def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min,
         base_src = "the low edge of the band"
     lag_pk = float(np.interp(hp.nc_rpm, sp, lag))
     rel_pk = lag_pk - base
+    if lean:
+        return _lean_peak(curve, i, hp, mode, base, band, change, lag_pk, rel_pk, lo, hi,
+                          phase_confirm_deg, cd_af, direction, afac)
     quad = quadrature_speed(curve, lo, hi, base, hp.nc_rpm)
     if hi - lo >= 2:
         pa = phase_af(sp[lo:hi + 1], lag[lo:hi + 1], nc_rpm=quad or hp.nc_rpm, baseline_deg=base)
@@ -420,6 +484,26 @@ def _from_peak(curve, i, s_raw, t_raw, tol, phase_confirm_deg, cd_af, ratio_min,
                     float(lag_pk % 360.0), rel_pk, float(base % 360.0), band, hp, pa, mode,
                     af, method, reason, cd, rate, ratio, note, loop, classification,
                     confidence, tuple(evidence), direction, afac)
+
+
+def _lean_peak(curve, i, hp, mode, base, band, change, lag_pk, rel_pk, lo, hi,
+               phase_confirm_deg, cd_af, direction, afac) -> Critical:
+    """:func:`_from_peak`'s readings of a bootstrap replicate (see its ``lean``)."""
+    sp, lag = curve.speed, curve.lag
+    quad = pa = None
+    if not hp.determinable and mode is None:  # the phase AF may govern: read it
+        quad = quadrature_speed(curve, lo, hi, base, hp.nc_rpm)
+        if hi - lo >= 2:
+            pa = phase_af(sp[lo:hi + 1], lag[lo:hi + 1], nc_rpm=quad or hp.nc_rpm,
+                          baseline_deg=base)
+    if pa is None:
+        pa = PhaseAF(None, None, None, None, None, None, None, base, "not read")
+    phase_ok = change >= phase_confirm_deg and 30.0 <= rel_pk <= 170.0
+    af, method, reason = _governing(hp, mode, pa)
+    return Critical(hp.nc_rpm, "amplitude peak", hp.nc_rpm, quad, hp.peak_amplitude, change,
+                    float(lag_pk % 360.0), rel_pk, float(base % 360.0), band, hp, pa, mode,
+                    af, method, reason, af is not None and af < cd_af, None, None, "", None,
+                    "confirmed" if phase_ok else "amplitude-only", "low", (), direction, afac)
 
 
 def _closing_evidence(evidence: list, rate, note: str, af, cd_af: float) -> bool:

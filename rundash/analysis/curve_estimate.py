@@ -28,13 +28,17 @@ from dataclasses import dataclass
 from typing import Literal, Sequence
 
 import numpy as np
-from scipy import signal
+from scipy import signal, sparse
 
-from rundash.analysis.criticals import Critical, find_criticals
+from rundash.analysis.criticals import Critical, find_criticals, replicate_criticals
+from rundash.analysis.response_curve import curves_from_sums, speed_bins
 from rundash.analysis.vectors import mean_vector_near
 from rundash.errors import AnalysisError, invalid_value, require_positive
 
 Direction = Literal["run-up", "coast-down"]
+#: Replicate vectors held at once (16 bytes each): the replicates go in chunks of this
+#: many values, so a long run's bootstrap needs no more than about 64 MB for them.
+_CHUNK_VALUES = 4_000_000
 
 
 # ----------------------------------------------------------------------------- results
@@ -143,6 +147,69 @@ def _phase_point(s, v, afac, speed, width_pct):
     if m is None:
         return None, None, 0
     return float(np.mod(-np.degrees(np.angle(m)), 360.0)), float(afac * abs(m)), n
+
+
+class _Replicates:
+    """The bootstrap's replicates ``smooth + resid * w[block] + offset`` of one curve, read
+    without forming them: every bin sum (and the mean near a phase speed) is linear in
+    the block phasors ``w`` and the offset, so it is the original sums plus a sparse
+    (bins x blocks) product with ``w``. The points are those find_criticals keeps (finite
+    and positive speeds); the phase points read all of them, as :func:`_phase_point`."""
+
+    def __init__(self, s, t, smooth, resid, block_revs, n_blocks, speeds, width_pct):
+        block = np.arange(s.size) // block_revs
+        self._phase = []
+        for sp in speeds:
+            sel = np.abs(s - sp) <= sp * width_pct / 100.0
+            k = int(np.count_nonzero(sel))
+            if k == 0:
+                self._phase.append(None)
+                continue
+            at = np.unique(block[sel])  # the blocks with points there, and their sums
+            put = np.searchsorted(at, block[sel])
+            self._phase.append((k, complex(np.sum(smooth[sel])), at, np.bincount(
+                put, resid[sel].real) + 1j * np.bincount(put, resid[sel].imag)))
+        pos = s > 0
+        self.speed, self.time = s[pos], t[pos]
+        if self.speed.size < 20 or np.ptp(self.speed) <= 0:
+            self.bins = None  # replicate_criticals finds nothing: nothing to bin
+            return
+        self.bins = bins = speed_bins(self.speed)
+        o = bins.order
+        sm, rs, kb, bl = smooth[pos][o], resid[pos][o], bins.index, block[pos][o]
+        n_bins = bins.count.size
+
+        def per_bin(x):
+            return np.bincount(kb, x.real, minlength=n_bins) + (
+                1j * np.bincount(kb, x.imag, minlength=n_bins) if np.iscomplexobj(x) else 0.0)
+
+        self._s0 = per_bin(sm)
+        self._p0 = per_bin(np.abs(sm) ** 2 + np.abs(rs) ** 2)
+        shape = (n_bins, n_blocks)
+        self._b = sparse.csr_matrix((rs, (kb, bl)), shape=shape)
+        self._c = sparse.csr_matrix((np.conj(sm) * rs, (kb, bl)), shape=shape)
+
+    def curves(self, w, off, afac):
+        """The prepared curves of the replicates with block phasors ``w`` (blocks x
+        replicates) and offsets ``off`` (replicates)."""
+        if self.bins is None:
+            return []
+        count = self.bins.count
+        bw, cw = (self._b @ w).T, (self._c @ w).T
+        o = off[:, None]
+        sums = self._s0 + bw + count * o
+        power = (self._p0 + 2.0 * np.real(np.conj(o) * (self._s0 + bw)) + count * np.abs(o) ** 2
+                 + 2.0 * cw.real)
+        return curves_from_sums(self.bins, sums, power, afac, None)
+
+    def phase_point(self, j, w, off, afac):
+        """(lag, amplitude) of each replicate's mean vector near the j-th phase speed."""
+        got = self._phase[j]
+        if got is None:
+            return [(None, None)] * w.shape[1]
+        k, s0, at, a = got
+        m = (s0 + a @ w[at] + k * off) / k
+        return [(float(np.mod(-np.degrees(np.angle(x)), 360.0)), float(afac * abs(x))) for x in m]
 
 
 def _nearest(crits, speed, tol_pct):
@@ -264,29 +331,35 @@ def estimate_curve(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
         rng = np.random.default_rng(seed)
         smooth, resid = _residual_model(t, v, smooth_revs)
         n_blocks = -(-s.size // block_revs)
-        for _ in range(n_boot):
-            w = np.exp(2j * np.pi * rng.random(n_blocks))
-            vb = smooth + resid * np.repeat(w, block_revs)[:s.size]
-            if offset_std:
-                vb = vb + offset_std * complex(rng.standard_normal(), rng.standard_normal())
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
-                try:
-                    got = find_criticals(s, vb, fit=use_fit, **kw) if crits else ()
-                except AnalysisError:
-                    got = ()
-            for i, c in enumerate(crits):
-                g = _nearest(got, c.speed_rpm, match_tolerance_pct)
-                if g is None:
-                    continue
-                rep[i]["speed"].append(g.speed_rpm)
-                rep[i]["af"].append(g.af_governing if g.af_method == c.af_method else None)
-                rep[i]["hp"].append(g.half_power.af if g.half_power is not None else None)
-                rep[i]["peak"].append(g.peak_amplitude)
-            for j, sp in enumerate(speeds):
-                lag, amp, _ = _phase_point(s, vb, afac, sp, phase_width_pct)
-                rep_phase[j]["lag"].append(lag)
-                rep_phase[j]["amp"].append(amp)
+        design = _Replicates(s, t, smooth, resid, block_revs, n_blocks, speeds, phase_width_pct)
+        chunk = max(1, _CHUNK_VALUES // n_blocks)  # replicates drawn at once
+        for first in range(0, n_boot, chunk):
+            n = min(chunk, n_boot - first)
+            w = np.empty((n_blocks, n), dtype=complex)
+            off = np.zeros(n, dtype=complex)
+            for r in range(n):  # the draws in the order of one replicate at a time
+                w[:, r] = np.exp(2j * np.pi * rng.random(n_blocks))
+                if offset_std:
+                    off[r] = offset_std * complex(rng.standard_normal(), rng.standard_normal())
+            if crits:
+                rows = replicate_criticals(design.curves(w, off, afac), design.speed,
+                                           time_s=design.time, amplitude_factor=afac,
+                                           direction=direction, fit=use_fit,
+                                           near_rpm=[c.speed_rpm for c in crits],
+                                           within_pct=match_tolerance_pct)
+                for got in rows:
+                    for i, c in enumerate(crits):
+                        g = _nearest(got or (), c.speed_rpm, match_tolerance_pct)
+                        if g is None:
+                            continue
+                        rep[i]["speed"].append(g.speed_rpm)
+                        rep[i]["af"].append(g.af_governing if g.af_method == c.af_method else None)
+                        rep[i]["hp"].append(g.half_power.af if g.half_power is not None else None)
+                        rep[i]["peak"].append(g.peak_amplitude)
+            for j in range(len(speeds)):
+                for lag, amp in design.phase_point(j, w, off, afac):
+                    rep_phase[j]["lag"].append(lag)
+                    rep_phase[j]["amp"].append(amp)
 
     out = []
     for i, c in enumerate(crits):

@@ -16,7 +16,7 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import signal
+from scipy import ndimage, signal
 
 from rundash.analysis.amplification import HalfPower, Mode, fit_modes
 from rundash.errors import AnalysisError, invalid_value
@@ -44,8 +44,30 @@ def bin_vectors(speed: np.ndarray, vector: np.ndarray, bin_rpm: float | None, fl
     two or more points (the upper 5 % of bins trimmed against steep signal slopes);
     ``None`` when no bin holds two points.
     """
+    bins = speed_bins(speed, bin_rpm)
+    sums, power = bin_sums(bins, np.asarray(vector)[None])
+    out, sigma = _bin_means(bins, sums, power)
+    return (bins.centres, out[0], np.maximum(bins.count, 1),
+            None if sigma is None else float(sigma[0]), bins.width, _bin_floor(bins, floor))
+
+
+@dataclass(frozen=True)
+class SpeedBins:
+    """The speed bins of :func:`bin_vectors` on one speed axis: the points' ``order`` by
+    speed, the bin ``index`` of each point in that order, points per bin (``count``),
+    bin ``centres`` and ``width`` in rpm."""
+
+    order: np.ndarray
+    index: np.ndarray
+    count: np.ndarray
+    centres: np.ndarray
+    width: float
+
+
+def speed_bins(speed: np.ndarray, bin_rpm: float | None = None) -> SpeedBins:
+    """Bins of ``bin_rpm`` (default: the data spacing or 1/4000 of the range)."""
     order = np.argsort(speed, kind="stable")
-    s, v = speed[order], vector[order]
+    s = speed[order]
     if bin_rpm is None:
         d = np.diff(s)
         d = d[d > 0]
@@ -56,27 +78,62 @@ def bin_vectors(speed: np.ndarray, vector: np.ndarray, bin_rpm: float | None, fl
     n_bins = int(math.floor((s[-1] - s[0]) / bin_rpm + 0.5)) + 1
     centres = s[0] + bin_rpm * np.arange(n_bins)
     k = np.clip(np.floor((s - s[0]) / bin_rpm + 0.5).astype(int), 0, n_bins - 1)
-    count = np.bincount(k, minlength=n_bins)
-    re = np.bincount(k, v.real, minlength=n_bins)
-    im = np.bincount(k, v.imag, minlength=n_bins)
-    pw = np.bincount(k, np.abs(v) ** 2, minlength=n_bins)
+    return SpeedBins(order, k, np.bincount(k, minlength=n_bins), centres, float(bin_rpm))
+
+
+def bin_sums(bins: SpeedBins, vectors: np.ndarray):
+    """Per row of ``vectors`` (rows, points) the sum of the vectors and of their squared
+    magnitudes in each bin, added in speed order: (rows, bins) complex and real."""
+    n_bins = bins.count.size
+    v = vectors[:, bins.order]
+    rows = v.shape[0]
+    kr = (np.arange(rows)[:, None] * n_bins + bins.index).ravel()
+
+    def total(x):
+        return np.bincount(kr, x.ravel(), minlength=rows * n_bins).reshape(rows, n_bins)
+
+    return total(v.real) + 1j * total(v.imag), total(np.abs(v) ** 2)
+
+
+def _bin_means(bins: SpeedBins, sums: np.ndarray, power: np.ndarray):
+    """Bin means of each row from its sums (empty bins interpolated) and its point sigma
+    (rows,), None when fewer than 10 bins hold two points."""
+    count = bins.count
     filled = count > 0
-    mean = (re[filled] + 1j * im[filled]) / count[filled]
+    rows = sums.shape[0]
+    mean = sums[:, filled] / count[filled]
     sigma_point = None
     multi = count >= 2
     if np.count_nonzero(multi) >= 10:
         n = count[multi]
-        m = (re[multi] + 1j * im[multi]) / n
-        var = np.clip(pw[multi] / n - np.abs(m) ** 2, 0.0, None) * n / (n - 1)  # E|v - m|^2
-        keep = var <= np.quantile(var, 0.95)
-        sigma_point = float(np.sqrt(np.sum((n[keep] - 1) * var[keep]) / np.sum(n[keep] - 1) / 2.0))
-    x = centres[filled]
-    out = np.interp(centres, x, mean.real) + 1j * np.interp(centres, x, mean.imag)
-    fl = np.zeros(n_bins)
-    if floor is not None:
-        fb = np.bincount(k, floor[order], minlength=n_bins)[filled] / count[filled]
-        fl = np.interp(centres, x, fb)
-    return centres, out, np.maximum(count, 1), sigma_point, float(bin_rpm), fl
+        m = sums[:, multi] / n
+        var = np.clip(power[:, multi] / n - np.abs(m) ** 2, 0.0, None) * n / (n - 1)  # E|v - m|^2
+        cut = np.quantile(var, 0.95, axis=1)
+        sigma_point = np.empty(rows)
+        for r in range(rows):
+            keep = var[r] <= cut[r]
+            sigma_point[r] = math.sqrt(np.sum((n[keep] - 1) * var[r, keep])
+                                       / np.sum(n[keep] - 1) / 2.0)
+    if filled.all():
+        return mean, sigma_point  # np.interp at its own abscissae returns them unchanged
+    x = bins.centres[filled]
+    if rows == 1:
+        m_ = mean[0]
+        return (np.interp(bins.centres, x, m_.real) + 1j * np.interp(bins.centres, x, m_.imag)
+                )[None], sigma_point
+    # several rows: the weights of np.interp's linear interpolation, shared by the rows
+    j = np.clip(np.searchsorted(x, bins.centres, side="right") - 1, 0, x.size - 2)
+    f = np.clip((bins.centres - x[j]) / (x[j + 1] - x[j]), 0.0, 1.0)
+    return mean[:, j] * (1.0 - f) + mean[:, j + 1] * f, sigma_point
+
+
+def _bin_floor(bins: SpeedBins, floor) -> np.ndarray:
+    n_bins = bins.count.size
+    if floor is None:
+        return np.zeros(n_bins)
+    filled = bins.count > 0
+    fb = np.bincount(bins.index, floor[bins.order], minlength=n_bins)[filled] / bins.count[filled]
+    return np.interp(bins.centres, bins.centres[filled], fb)
 
 
 @functools.lru_cache(maxsize=64)
@@ -107,36 +164,90 @@ def smooth_quadratic(x, n_win: int) -> np.ndarray:
     x = np.asarray(x)
     coeffs, head, tail = _quadratic_smoother(int(n_win))
     h = n_win // 2
-    out = np.convolve(x, coeffs, mode="same")
-    out[:h] = head @ x[:n_win]
-    out[-h:] = tail @ x[-n_win:]
+    if x.ndim == 1:
+        out = np.convolve(x, coeffs, mode="same")
+        out[:h] = head @ x[:n_win]
+        out[-h:] = tail @ x[-n_win:]
+        return out
+    out = _filter_rows(x, coeffs, "constant")
+    out[:, :h] = x[:, :n_win] @ head.T
+    out[:, -h:] = x[:, -n_win:] @ tail.T
     return out
 
 
+def _filter_rows(x: np.ndarray, kernel: np.ndarray, mode: str) -> np.ndarray:
+    """Each row of ``x`` convolved with the odd-length ``kernel``, centred ('same' size);
+    outside the row zeros (``mode='constant'``) or the edge values (``'nearest'``). One
+    row goes through numpy's convolve (bit for bit the single-curve result), several
+    through scipy.ndimage (the same sums, added in another order)."""
+    h = kernel.size // 2
+    if x.shape[0] == 1:
+        row = np.pad(x[0], h, mode="edge") if mode == "nearest" else x[0]
+        return np.convolve(row, kernel, mode="valid" if mode == "nearest" else "same")[None]
+    if np.iscomplexobj(x):
+        return (ndimage.convolve1d(x.real, kernel, axis=1, mode=mode)
+                + 1j * ndimage.convolve1d(x.imag, kernel, axis=1, mode=mode))
+    return ndimage.convolve1d(x, kernel, axis=1, mode=mode)
+
+
 def prepare_curve(speed, vector, amplitude_factor, bin_rpm, smooth_rpm, floor=None) -> ResponseCurve:
-    grid, v, count, sigma_point, w, fl = bin_vectors(speed, vector, bin_rpm, floor)
+    bins = speed_bins(speed, bin_rpm)
+    sums, power = bin_sums(bins, np.asarray(vector)[None])
+    return curves_from_sums(bins, sums, power, amplitude_factor, smooth_rpm,
+                            _bin_floor(bins, floor))[0]
+
+
+def prepare_curves(speed, vectors, amplitude_factor, bin_rpm, smooth_rpm) -> list[ResponseCurve]:
+    """:func:`prepare_curve` of each row of ``vectors`` (rows, points) on one speed axis."""
+    bins = speed_bins(speed, bin_rpm)
+    return curves_from_sums(bins, *bin_sums(bins, np.asarray(vectors)), amplitude_factor,
+                            smooth_rpm)
+
+
+def curves_from_sums(bins: SpeedBins, sums, power, amplitude_factor, smooth_rpm, floor_bins=None
+                     ) -> list[ResponseCurve]:
+    """:func:`prepare_curve` of each row of bin sums (:func:`bin_sums`; a bootstrap may
+    form its replicates' sums directly): the rows are smoothed and unwrapped together.
+    ``floor_bins``: the floor per bin, shared (default none)."""
+    v, sigma_point = _bin_means(bins, np.asarray(sums), np.asarray(power))
+    grid, w = bins.centres, bins.width
+    count = np.maximum(bins.count, 1)
+    fl = np.zeros(grid.size) if floor_bins is None else floor_bins
+    rows = v.shape[0]
     if sigma_point is not None:
-        sig2 = sigma_point ** 2 / count
+        sig2 = sigma_point[:, None] ** 2 / count
     else:  # one point per bin: noise from second differences (white noise: var 6 sigma^2)
-        d2 = v[:-2] - 2 * v[1:-1] + v[2:]
-        sig = 1.4826 * float(np.median(np.abs(np.concatenate([d2.real, d2.imag])))) / math.sqrt(6.0)
-        sig2 = np.full(grid.size, sig * sig)
-    vmax = float(np.max(np.abs(v))) or 1.0
+        d2 = v[:, :-2] - 2 * v[:, 1:-1] + v[:, 2:]
+        sig = 1.4826 * np.median(np.abs(np.concatenate([d2.real, d2.imag], axis=1)), axis=1) \
+            / math.sqrt(6.0)
+        sig2 = np.repeat((sig * sig)[:, None], grid.size, axis=1)
+    vmax = np.max(np.abs(v), axis=1)
+    vmax[vmax == 0] = 1.0
     if smooth_rpm is None:
-        noisy = float(np.sqrt(np.median(sig2))) > 1e-4 * vmax
-        smooth_rpm = 0.004 * float(grid[-1]) if noisy else 0.0
-    if smooth_rpm < 0:
+        noisy = np.sqrt(np.median(sig2, axis=1)) > 1e-4 * vmax
+        window = np.where(noisy, 0.004 * float(grid[-1]), 0.0)
+    elif smooth_rpm < 0:
         raise AnalysisError(invalid_value("smooth_rpm", smooth_rpm, "a window >= 0 rpm or None"))
-    n_win = int(round(smooth_rpm / w)) | 1
-    smoothed = 5 <= n_win < grid.size
-    if smoothed:
-        coeffs = _quadratic_smoother(n_win)[0]
-        sig2 = np.convolve(np.pad(sig2, n_win // 2, mode="edge"), coeffs ** 2, mode="valid")
-        v = smooth_quadratic(v, n_win)
-        fl = np.convolve(np.pad(fl, n_win // 2, mode="edge"), np.ones(n_win) / n_win, mode="valid")
-    lag = np.degrees(np.unwrap(-np.angle(v)))
-    return ResponseCurve(grid, v, amplitude_factor * np.abs(v), lag, amplitude_factor * np.sqrt(sig2),
-                  amplitude_factor * fl, smoothed, n_win if smoothed else 1)
+    else:
+        window = np.full(rows, float(smooth_rpm))
+    out: list[ResponseCurve | None] = [None] * rows
+    for smooth in np.unique(window):  # rows alike in smoothing go together
+        sel = np.flatnonzero(window == smooth)
+        vs, s2, fs = v[sel], sig2[sel], fl
+        n_win = int(round(float(smooth) / w)) | 1
+        smoothed = 5 <= n_win < grid.size
+        if smoothed:
+            coeffs = _quadratic_smoother(n_win)[0]
+            s2 = _filter_rows(s2, coeffs ** 2, "nearest")
+            vs = smooth_quadratic(vs, n_win) if sel.size > 1 else smooth_quadratic(vs[0], n_win)[None]
+            fs = _filter_rows(fl[None], np.ones(n_win) / n_win, "nearest")[0]
+        lag = np.degrees(np.unwrap(-np.angle(vs), axis=1))
+        amp = amplitude_factor * np.abs(vs)
+        noise = amplitude_factor * np.sqrt(s2)
+        for j, r in enumerate(sel):
+            out[r] = ResponseCurve(grid, vs[j], amp[j], lag[j], noise[j], amplitude_factor * fs,
+                                   smoothed, n_win if smoothed else 1)
+    return out
 
 
 def band_edges(amp: np.ndarray, i: int, frac: float, tol: float) -> tuple[int, int]:
@@ -145,19 +256,20 @@ def band_edges(amp: np.ndarray, i: int, frac: float, tol: float) -> tuple[int, i
     target = frac * amp[i]
     out = []
     for step in (-1, 1):
-        j, jmin = i, i
-        while 0 <= j + step < amp.size:
-            j += step
-            if amp[j] < target:
-                jmin = j
-                break
-            if amp[j] < amp[jmin]:
-                jmin = j
-            elif amp[j] > amp[jmin] + tol:
-                break
-        else:
-            jmin = j
-        out.append(jmin)
+        seg = amp[i + step::step] if (step > 0 or i > 0) else amp[:0]
+        if seg.size == 0:
+            out.append(i)
+            continue
+        head = np.concatenate(([amp[i]], seg))
+        running_min = np.minimum.accumulate(head)[1:]
+        stop = (seg < target) | (seg > running_min + tol)
+        k = int(np.argmax(stop))
+        if not stop[k]:  # the data end
+            out.append(i + step * seg.size)
+        elif seg[k] < target:
+            out.append(i + step * (k + 1))
+        else:  # turned up: the valley (the first lowest point) before it
+            out.append(i + step * int(np.argmin(head[:k + 1])))
     return out[0], out[1]
 
 
