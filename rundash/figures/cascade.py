@@ -61,10 +61,14 @@ def cascade(speed_rpm, freq_hz, amplitude, *, kind: str = "proximity",
     zlog = np.log10(np.maximum(a, floor))
     decades = np.arange(math.floor(math.log10(floor)), math.ceil(math.log10(peak)) + 1)
     data: list[dict] = [{
-        "type": "heatmap", "x": typed_array(f), "y": typed_array(rpm), "z": zlog.tolist(),
-        "customdata": a.tolist(), "colorscale": "Cividis", "meta": "data",
+        "type": "heatmap", "x": typed_array(f), "y": typed_array(rpm),
+        # float32 typed arrays: a quarter of the JSON of number lists (~0.9 MB for a
+        # 200 x 400 map), decoded without parsing
+        "z": typed_array(zlog, "f4"), "customdata": typed_array(a, "f4"),
+        "colorscale": "Cividis", "meta": "data",
         "zmin": math.log10(floor), "zmax": math.log10(peak),
         "colorbar": {"title": {"text": unit + " (log)", "side": "right"}, "thickness": 14,
+                     "ticklabeloverflow": "allow",
                      "tickvals": decades.tolist(),
                      "ticktext": [f"{10.0 ** d:g}" for d in decades]},
         "hovertemplate": "%{x:.1f} Hz<br>%{y:.0f} rpm<br>%{customdata:.3g} " + unit

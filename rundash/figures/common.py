@@ -72,14 +72,21 @@ def make_figure(data: list[dict], layout: dict) -> go.Figure:
         return go.Figure(data=data, layout=layout)
 
 
-def typed_array(a) -> dict[str, str]:
-    """A 1-D float array in plotly's typed-array form (base64 float64; NaN breaks a line)."""
-    a = np.ascontiguousarray(a, dtype="<f8")
-    return {"dtype": "f8", "bdata": base64.b64encode(a.tobytes()).decode("ascii")}
+def typed_array(a, dtype: Literal["f8", "f4"] = "f8") -> dict[str, str]:
+    """A float array in plotly's typed-array form (base64; NaN breaks a line): float64 by
+    default, float32 (``dtype='f4'``, 7 significant digits) where that is plenty, e.g. a
+    cascade's colour values, at half the bytes. A 2-D array carries its ``shape``
+    (``'rows, columns'``, as plotly.py writes it), which plotly.js decodes row by row."""
+    a = np.ascontiguousarray(a, dtype="<" + dtype)
+    out = {"dtype": dtype, "bdata": base64.b64encode(a.tobytes()).decode("ascii")}
+    if a.ndim > 1:
+        out["shape"] = ", ".join(str(n) for n in a.shape)
+    return out
 
 
 def base_layout(title: str, uirevision: Any, height: int) -> dict[str, Any]:
-    axis = {"showgrid": True, "gridcolor": GRID, "zeroline": False, "ticks": "outside"}
+    axis = {"showgrid": True, "gridcolor": GRID, "zeroline": False, "ticks": "outside",
+            "ticklabeloverflow": "allow"}
     return {
         "title": {"text": title, "x": 0.01, "xanchor": "left", "font": {"size": 15}},
         "font": {"family": "Inter, 'Segoe UI', Arial, sans-serif", "size": 12, "color": INK},
