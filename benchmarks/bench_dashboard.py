@@ -1,7 +1,8 @@
 """Dashboard speed: each review callback's server time and the run review page drawn in
 headless Chromium, on a synthesised 10-minute, 16-channel processed run; the compare page
 of that run and five shorter ones of the same machine, drawn in Chromium on its first load
-(the bootstrap computed) and again (cached across page loads).
+(the bootstrap of the probe shown computed) and again (cached across page loads), and the
+compare page's callbacks with the comparison cached.
 
 Plain script (not a test): ``python benchmarks/bench_dashboard.py [--minutes 10]
 [--channels 16] [--fs 2048] [--compare-runs 6] [--compare-minutes 3]``. Targets (not
@@ -242,6 +243,28 @@ def main() -> int:
                         f"'Compared {n} runs') && " + _drawn(ids.COMPARE_BODE,
                                                            ids.COMPARE_TREND), 3)}
         got = page_times(db, pages)
+        from rundash.dashboard.pages import compare as cp
+
+        def overlay(*x):
+            return cp.overlay_figures(*x, cache=cache)
+
+        cold, warm = timed(overlay, db, runs, probe, cache=cache), timed(overlay, db, runs, probe)
+        print(f"callback {'compare overlay (Bode, polar)':<32} cold {1000 * cold:7.1f} ms   "
+              f"cached {1000 * warm:7.1f} ms ({warm / 0.2:.2f} x the 200 ms target)")
+        t0 = time.perf_counter()
+        cp.comparison_of(db, runs, cache=cache)
+        whole = time.perf_counter() - t0
+        print(f"whole comparison of {n} runs x {a.channels} probes, {cp.N_BOOT} replicates: "
+              f"{whole:.2f} s (the page computes the probe shown first, this in the background)")
+        other = "B1-Y" if a.channels > 1 else probe
+        for name, fn, args in [
+                ("compare view, another probe", lambda *x: cp.comparison_view(
+                    *x, cache=cache, probe_first=True), (db, runs, other)),
+                ("compare, other probes' fold", lambda *x: cp.other_probes_table(
+                    *x, cache=cache, filled=False), (db, runs, probe))]:
+            warm = timed(fn, *args)
+            print(f"callback {name:<32} (comparison cached) {1000 * warm:7.1f} ms "
+                  f"({warm / 0.2:.2f} x the 200 ms target)")
         if got:
             rv = float(np.median(got["review"]))
             print(f"run review page drawn in Chromium: {rv:.2f} s median of 3 "

@@ -134,13 +134,17 @@ def _run_json(run) -> dict[str, Any]:
                 source=run.source_name)
 
 
-def _load(conn, run_id: int) -> dict[str, Any]:
+def _load(conn, run_id: int, probes: Sequence[str] | None = None) -> dict[str, Any]:
     run = q.get_run(conn, run_id)
     proc = q.load_processing(conn, run_id)
     if proc is None:
         raise NotFoundError(f"run {run_id} is not processed: run 'rundash process {run_id}' "
                             "first")
-    tracks = q.load_tracks(conn, run_id, order=1.0)
+    if probes is not None and len(probes) == 1:
+        tracks = q.load_tracks(conn, run_id, order=1.0, probe_name=probes[0])
+    else:
+        tracks = [t for t in q.load_tracks(conn, run_id, order=1.0)
+                  if probes is None or t.probe_name in probes]
     return dict(run=run, machine_id=q.run_machine_id(conn, run_id), proc=proc, tracks=tracks)
 
 
@@ -195,8 +199,8 @@ def _estimate_json(c: cmp.CriticalEstimate) -> dict[str, Any]:
 
 def compare_runs(db: Database, run_ids: Sequence[int], *,
                  phase_speeds_rpm: Sequence[float] | None = None, n_boot: int = 100,
-                 block_revs: int = 4, k: float = cmp.K_SIGMA, seed: int = 0
-                 ) -> dict[str, Any]:
+                 block_revs: int = 4, k: float = cmp.K_SIGMA, seed: int = 0,
+                 probes: Sequence[str] | None = None) -> dict[str, Any]:
     """Compare processed runs of one machine; the first run is the reference.
 
     Parameters
@@ -211,6 +215,10 @@ def compare_runs(db: Database, run_ids: Sequence[int], *,
     n_boot, block_revs, k, seed :
         Bootstrap replicates, block length, significance factor and random seed (see
         :mod:`rundash.analysis.compare`).
+    probes : sequence of str, optional
+        Compare only these probes (default all). Each probe's results are those of the
+        whole comparison (the random seed goes by run, not by probe); the pairs'
+        verdicts and the hints then cover these probes only.
 
     Returns
     -------
@@ -222,7 +230,7 @@ def compare_runs(db: Database, run_ids: Sequence[int], *,
         raise InputError(f"Invalid value for 'runs': allowed two or more different run ids, "
                          f"got {list(run_ids)!r}")
     with db.read() as conn:
-        data = [_load(conn, r) for r in ids]
+        data = [_load(conn, r, None if probes is None else list(probes)) for r in ids]
         machine = q.get_machine(conn, data[0]["machine_id"])
     others = [d["run"].id for d in data if d["machine_id"] != data[0]["machine_id"]]
     if others:

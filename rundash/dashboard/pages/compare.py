@@ -6,15 +6,19 @@ Routes: ``/compare`` (the first machine), ``/compare/machine/<id>`` and
 ``/compare/<run>,<run>,...`` (those runs ticked, their machine shown).
 
 The earliest chosen run (by start time) is the reference, so shifts read forward in
-time. The bootstrap runs with :data:`N_BOOT` replicates (a few seconds); each comparison
-is kept in the app's result cache under the runs and their processing times, so a
-re-processed run is compared anew. Callbacks are thin: tests call :func:`overlay_figures`,
-:func:`comparison_view` and :func:`selection_note` directly.
+time. The bootstrap runs with :data:`N_BOOT` replicates; each comparison is kept in the
+app's result cache under the runs and their processing times, so a re-processed run is
+compared anew. The page's callback compares the probe shown first (its results are those
+of the whole comparison) and then the whole comparison in the background
+(:class:`Background`), which the other probes' fold, another probe and the export read.
+Callbacks are thin: tests call :func:`overlay_figures`, :func:`comparison_view` and
+:func:`selection_note` directly.
 """
 
 from __future__ import annotations
 
 import re
+import threading
 from datetime import datetime, timezone
 from typing import Any, Sequence
 
@@ -158,17 +162,66 @@ def overlay_figures(db, run_ids: Sequence[int], probe: str, system: str = "metri
 
 
 # ----------------------------------------------------------------------------- comparison
-def comparison_of(db, run_ids: Sequence[int], *, cache=None, n_boot: int = N_BOOT
-                  ) -> dict[str, Any]:
+def comparison_of(db, run_ids: Sequence[int], *, cache=None, n_boot: int = N_BOOT,
+                  probe: str | None = None) -> dict[str, Any]:
     """The comparison of the chosen runs (earliest first), cached per runs and their
-    processing times."""
+    processing times. With ``probe``: the whole comparison when it is cached, else that
+    probe's alone (:func:`rundash.workflows.comparison.compare_runs` ``probes``; cached
+    on its own)."""
+    return _comparison(db, run_ids, cache, n_boot, probe)[0]
+
+
+def _comparison(db, run_ids, cache, n_boot, probe):
+    """(comparison, whether it is ``probe``'s alone) for :func:`comparison_of`."""
     from rundash.workflows.comparison import compare_runs
 
     src = _cache(db, cache)
     ctxs = _ordered(db, run_ids, src)
     ordered = [c["run"].id for c in ctxs]
     key = ("comparison", int(n_boot), *(c["key"] for c in ctxs))
-    return src._get(key, lambda: compare_runs(db, ordered, n_boot=n_boot))
+    if probe is None:
+        return src._get(key, lambda: compare_runs(db, ordered, n_boot=n_boot)), False
+    with src._lock:
+        whole = src._entries.get(key)
+    if whole is not None:
+        return whole, False
+    return src._get(("comparison-probe", str(probe)) + key[1:],
+                    lambda: compare_runs(db, ordered, n_boot=n_boot, probes=[probe])), True
+
+
+class Background:
+    """Whole comparisons computed in a background thread, one at a time per runs: the
+    page draws the probe shown first, then asks for the rest here."""
+
+    def __init__(self) -> None:
+        self._lock = threading.Lock()
+        self._jobs: dict[tuple, threading.Thread] = {}
+
+    def start(self, db, run_ids: Sequence[int], cache, n_boot: int = N_BOOT) -> None:
+        key = (tuple(sorted(int(r) for r in run_ids)), int(n_boot))
+
+        def run():
+            try:
+                comparison_of(db, run_ids, cache=cache, n_boot=n_boot)
+            except RundashError:  # the page shows the error when it asks again
+                pass
+            finally:
+                with self._lock:
+                    self._jobs.pop(key, None)
+
+        with self._lock:
+            if key in self._jobs:
+                return
+            job = self._jobs[key] = threading.Thread(target=run, daemon=True,
+                                                     name="rundash-compare")
+        job.start()
+
+    def wait(self, run_ids: Sequence[int], n_boot: int = N_BOOT) -> None:
+        """Until a whole comparison of these runs being computed is done."""
+        with self._lock:
+            job = self._jobs.get((tuple(sorted(int(r) for r in run_ids)), int(n_boot)))
+        if job is not None:
+            job.join()
 
 
 def table_rows(comparison: dict[str, Any], probe: str | None = None) -> list[dict[str, str]]:
@@ -205,8 +258,12 @@ def _table(rows):
 
 
 def comparison_view(db, run_ids: Sequence[int], probe: str, *, cache=None,
-                    n_boot: int = N_BOOT):
+                    n_boot: int = N_BOOT, probe_first: bool = False):
     """(trend figure, table component, status text) for the chosen runs and probe.
+
+    ``probe_first`` (the page's callback): the probe's own comparison unless the whole
+    one is cached; the pairs' verdicts then name the probe, and the other probes' fold
+    is built when opened.
 
     Errors (runs not processed, of other machines, nothing in common) come back as a
     visible message in place of the table, with an empty trend.
@@ -219,7 +276,16 @@ def comparison_view(db, run_ids: Sequence[int], probe: str, *, cache=None,
                 html.P("Tick two or more processed runs to see what changed.",
                        className="muted"), "No comparison yet.")
     try:
-        comparison = comparison_of(db, ids_, cache=cache, n_boot=n_boot)
+        try:
+            comparison, partial = _comparison(db, ids_, cache, n_boot,
+                                              probe if probe_first and probe else None)
+        except RundashError:  # e.g. nothing in common on this probe: say what the whole says
+            if not probe_first:
+                raise
+            comparison, partial = _comparison(db, ids_, cache, n_boot, None)
+        # the probe's own comparison is the whole one on a machine of one probe
+        partial = partial and any(p.name != probe for c in _ordered(db, ids_, cache)
+                                  for p in c["probes"])
     except RundashError as exc:
         return (figures.comparison_trend({"runs": []}, probe=probe or "–"),
                 html.Div(str(exc), className="error", role="alert"),
@@ -227,9 +293,9 @@ def comparison_view(db, run_ids: Sequence[int], probe: str, *, cache=None,
     trend = figures.comparison_trend(comparison, probe=probe,
                                      uirevision=f"trend-{probe}-{','.join(map(str, ids_))}")
     rows = table_rows(comparison, probe)
-    verdicts = [f"run {p['b']} against run {p['a']}: {p['verdict']}"
-                for p in comparison["pairs"]]
-    others = [r for r in table_rows(comparison) if r["probe"] != probe]
+    verdicts = [f"run {p['b']} against run {p['a']}" + (f" on {probe}" if partial else "")
+                + f": {p['verdict']}" for p in comparison["pairs"]]
+    others = [] if partial else [r for r in table_rows(comparison) if r["probe"] != probe]
     parts = [html.H3("What changed" + (f", {probe}" if probe else "")),
              html.P("; ".join(verdicts) + ".", className="muted")]
     if rows:
@@ -237,11 +303,12 @@ def comparison_view(db, run_ids: Sequence[int], probe: str, *, cache=None,
     else:
         parts.append(html.P(f"No critical of {probe} to compare in these runs.",
                             className="muted"))
-    if others:  # a long fold is built on its first opening (other_probes_table)
+    if others or partial:  # a long fold is built on its first opening (other_probes_table)
         parts.append(html.Details(className="reference", id=ids.COMPARE_OTHERS, children=[
-            html.Summary(f"Other probes ({len(others)} rows)", id=ids.COMPARE_OTHERS_SUMMARY,
+            html.Summary("Other probes (compared when opened)" if partial else
+                         f"Other probes ({len(others)} rows)", id=ids.COMPARE_OTHERS_SUMMARY,
                          n_clicks=0),
-            html.Div(_table(others) if len(others) <= EAGER_ROWS else [],
+            html.Div(_table(others) if others and len(others) <= EAGER_ROWS else [],
                      id=ids.COMPARE_OTHERS_BODY)]))
     parts += [html.P(comparison["rule"].capitalize() + ".", className="note"),
               html.P("Uncertainty: " + comparison["method"], className="note"),
@@ -255,15 +322,20 @@ def comparison_view(db, run_ids: Sequence[int], probe: str, *, cache=None,
 
 
 def other_probes_table(db, run_ids: Sequence[int], probe: str, *, cache=None,
-                       n_boot: int = N_BOOT):
+                       n_boot: int = N_BOOT, filled: bool = True):
     """The folded rows of the probes other than ``probe``, or None when the fold came
-    filled with the page (no more than EAGER_ROWS rows)."""
+    filled with the page (``filled``: it does with no more than EAGER_ROWS rows)."""
+    from dash import html
+
     ids_ = list(dict.fromkeys(int(r) for r in run_ids or []))
     if len(ids_) < 2:
         return None
     comparison = comparison_of(db, ids_, cache=cache, n_boot=n_boot)
     others = [r for r in table_rows(comparison) if r["probe"] != probe]
-    return _table(others) if len(others) > EAGER_ROWS else None
+    if filled and len(others) <= EAGER_ROWS:
+        return None
+    return _table(others) if others else html.P("No critical of another probe to compare.",
+                                                className="muted")
 
 
 # ----------------------------------------------------------------------------- layout
@@ -370,6 +442,7 @@ def register_callbacks(app, db) -> None:
     from rundash.dashboard.cache import cache_of
 
     cache = cache_of(app, db)
+    background = Background()  # the whole comparisons, after the probe shown
 
     @app.callback(Output(ids.URL, "pathname", allow_duplicate=True),
                   Input(ids.COMPARE_MACHINE, "value"), State(ids.URL, "pathname"),
@@ -393,14 +466,16 @@ def register_callbacks(app, db) -> None:
                   Output(ids.COMPARE_STATUS, "children"),
                   Input(ids.COMPARE_RUNS, "value"), Input(ids.COMPARE_PROBE, "value"),
                   running=[(Output(ids.COMPARE_BUSY, "children"),
-                            f"Computing the comparison ({N_BOOT} bootstrap replicates; a few "
-                            "seconds)…", ""),
+                            f"Computing the comparison ({N_BOOT} bootstrap replicates)…", ""),
                            (Output(ids.COMPARE_BUSY, "style"), {"display": "block"},
                             {"display": "none"})])
     def _compare(run_ids, probe):
         if not probe:
             return no_update, no_update, no_update
-        return comparison_view(db, run_ids or [], probe, cache=cache)
+        out = comparison_view(db, run_ids or [], probe, cache=cache, probe_first=True)
+        if len(set(run_ids or [])) >= 2:  # the other probes next, off the request
+            background.start(db, run_ids, cache)
+        return out
 
     @app.callback(Output(ids.COMPARE_OTHERS_BODY, "children"),
                   Input(ids.COMPARE_OTHERS_SUMMARY, "n_clicks"),
@@ -409,8 +484,9 @@ def register_callbacks(app, db) -> None:
     def _others(n_clicks, run_ids, probe):
         if n_clicks != 1:  # built on the first opening, kept after
             return no_update
+        background.wait(run_ids or [])  # the whole comparison, when it is being computed
         try:
-            table = other_probes_table(db, run_ids or [], probe, cache=cache)
+            table = other_probes_table(db, run_ids or [], probe, cache=cache, filled=False)
         except RundashError:  # the view above already says why
             return no_update
         return no_update if table is None else table
