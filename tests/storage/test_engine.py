@@ -294,3 +294,22 @@ class TestWriteLock:
         assert "stayed locked by another writer" in line and "RUNDASH_LOCK_WAIT_S" in line
         assert "waiting for" in err and "another writer holds its write lock" in err
         assert "Traceback" not in err
+
+
+def test_head_revision_constant_is_alembics_head():
+    # opening a database at HEAD_REVISION skips Alembic: the constant must follow every
+    # new revision, or a database one revision behind would be opened without upgrading
+    from rundash.storage.engine import HEAD_REVISION
+    assert HEAD_REVISION == head_revision()
+
+
+def test_opening_a_database_at_head_loads_no_alembic(tmp_path):
+    db = tmp_path / "r.sqlite"
+    from rundash.storage.engine import open_database
+    open_database(str(db), create=True).engine.dispose()
+    code = ("import sys; from rundash.storage.engine import open_database; "
+            f"open_database({str(db)!r}).engine.dispose(); "
+            "print(sorted(m for m in sys.modules if m.split('.')[0] == 'alembic'))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True).stdout.strip()
+    assert out == "[]"
