@@ -44,7 +44,8 @@ from rundash.errors import AnalysisError, invalid_value
 __all__ = [
     "SweepHistory", "sweep_history", "mode_response", "unbalance_peak_ratio",
     "unbalance_half_power_af", "TransientMode", "ProbeReading", "TransientFit",
-    "fit_transient", "Cluster", "RunModes", "DirectionFit", "identify_modes", "ZETA_BOUNDS",
+    "fit_transient", "Cluster", "RunModes", "DirectionFit", "identify_modes", "fit_speed_range",
+    "ZETA_BOUNDS",
     "PRE_ROLL_DECAYS", "MIN_GAIN", "METHOD",
 ]
 
@@ -52,6 +53,8 @@ __all__ = [
 MIN_GAIN = 0.10
 #: Group means in the model-order fits of one cluster (the final fit uses more).
 ORDER_GROUPS = 300
+#: Largest half-width of a cluster's band, as a fraction of its speed (see identify_modes).
+BAND_W_MAX = 0.6
 #: Two modes whose shapes across the probes correlate above this are one mode (our own
 #: threshold: a split's modes along different directions correlate far less).
 SAME_SHAPE = 0.98
@@ -234,11 +237,21 @@ def _best(args, kw, inits, weights, max_nfev=40):
     return best
 
 
+def fit_speed_range(candidates: Sequence[tuple[float, float | None]]) -> tuple[float, float]:
+    """The speeds (rpm) that every band :func:`identify_modes` fits with these candidates
+    lies within: a cluster's band reaches at most ``BAND_W_MAX`` of its lowest and highest
+    candidate speed beyond them (merged speeds are medians, inside the candidates' range)."""
+    f = [float(c[0]) for c in candidates if math.isfinite(float(c[0]))]
+    if not f:
+        return (math.inf, -math.inf)
+    return (min(f) * (1.0 - BAND_W_MAX), max(f) * (1.0 + BAND_W_MAX))
+
+
 def identify_modes(time_s, speed_rpm, vectors, *, candidates: Sequence[tuple[float, float | None]],
                    revs_per_block: int = 1, rev_index=None, masks: dict | None = None,
                    n_boot: int = 30, seed: int = 0, max_modes: int = 3,
                    gap_ratio: float = 1.25, conjugate_part: bool = True,
-                   residual: str = "linear") -> RunModes:
+                   residual: str = "linear", blocks=None) -> RunModes:
     """One modal model for a run: every probe, every run direction, one set of modes.
 
     Steps: (1) the quasi-steady readings in ``candidates`` (e.g. every probe's critical
@@ -286,6 +299,10 @@ def identify_modes(time_s, speed_rpm, vectors, *, candidates: Sequence[tuple[flo
         Bootstrap replicates and seed for the chosen model.
     max_modes : int
         Largest number of modes per cluster.
+    blocks : array_like of int, shape (m,), optional
+        As :func:`fit_transient`: the blocks the columns of ``vectors`` belong to. Every
+        block in :func:`fit_speed_range` of the candidates is enough for the same result
+        as with every block's vectors.
 
     Returns
     -------
@@ -296,8 +313,9 @@ def identify_modes(time_s, speed_rpm, vectors, *, candidates: Sequence[tuple[flo
     v = np.asarray(vectors, dtype=complex)
     if v.ndim == 1:
         v = v[None, :]
-    if v.ndim != 2 or v.shape[1] != t.size or s.shape != t.shape:
-        raise AnalysisError(invalid_value("vectors", f"shape {v.shape}", f"(P, {t.size})"))
+    n_cols = t.size if blocks is None else len(blocks)
+    if v.ndim != 2 or v.shape[1] != n_cols or s.shape != t.shape:
+        raise AnalysisError(invalid_value("vectors", f"shape {v.shape}", f"(P, {n_cols})"))
     if not (isinstance(max_modes, (int, np.integer)) and 1 <= max_modes <= 4):
         raise AnalysisError(invalid_value("max_modes", max_modes, "an integer from 1 to 4"))
     s_lo, s_hi = float(np.min(s)), float(np.max(s))
@@ -310,10 +328,10 @@ def identify_modes(time_s, speed_rpm, vectors, *, candidates: Sequence[tuple[flo
     groups = _clusters(_distinct(cands), gap_ratio)
     args = (t, s, v)
     base = dict(revs_per_block=revs_per_block, rev_index=rev_index, conjugate_part=conjugate_part,
-                residual=residual)
+                residual=residual, blocks=blocks)
     bands = []
     for gi, g in enumerate(groups):
-        w = float(np.clip(5.0 * max(z for _, z in g) + 0.08, 0.12, 0.6))
+        w = float(np.clip(5.0 * max(z for _, z in g) + 0.08, 0.12, BAND_W_MAX))
         lo, hi = g[0][0] * (1 - w), g[-1][0] * (1 + w)
         if gi > 0:
             lo = max(lo, math.sqrt(groups[gi - 1][-1][0] * g[0][0]))

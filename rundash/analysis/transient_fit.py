@@ -297,7 +297,7 @@ def fit_transient(time_s, speed_rpm, vectors, *, initial: Sequence[tuple[float, 
                   n_boot: int = 0, block_revs: int = 4, seed: int = 0,
                   max_blocks: int = 20000, max_groups: int = 800, reweight: bool = True,
                   max_nfev: int | None = None, fixed: Sequence[tuple[float, float]] = (),
-                  _weights=None) -> TransientFit:
+                  blocks=None, _weights=None) -> TransientFit:
     """Fit one set of unbalance-driven modes, shared by every probe, through a measured sweep.
 
     See the module docstring for the model. The natural frequencies and damping ratios are
@@ -346,6 +346,11 @@ def fit_transient(time_s, speed_rpm, vectors, *, initial: Sequence[tuple[float, 
     fixed : sequence of (fn_rpm, zeta)
         Modes held at these values (their participations are still fitted), e.g. the
         modes of neighbouring bands; they are not reported.
+    blocks : array_like of int, shape (m,), optional
+        The blocks (ascending indices into ``time_s``) that the columns of ``vectors``
+        (then of shape (P, m)) belong to; the other blocks have no vectors and are not
+        fitted (the model still integrates through them). A caller holds only the blocks
+        a band can take: the fit is the same as with every block's vectors given.
 
     Returns
     -------
@@ -371,8 +376,14 @@ def fit_transient(time_s, speed_rpm, vectors, *, initial: Sequence[tuple[float, 
     v = np.asarray(vectors, dtype=complex)
     if v.ndim == 1:
         v = v[None, :]
-    if v.ndim != 2 or v.shape[1] != t.size:
-        raise AnalysisError(invalid_value("vectors", f"shape {v.shape}", f"(P, {t.size}) complex"))
+    cols = None if blocks is None else np.asarray(blocks, dtype=np.int64)
+    n_cols = t.size if cols is None else cols.size
+    if v.ndim != 2 or v.shape[1] != n_cols:
+        raise AnalysisError(invalid_value("vectors", f"shape {v.shape}", f"(P, {n_cols}) complex"))
+    if cols is not None and cols.size and (cols[0] < 0 or cols[-1] >= t.size
+                                           or np.any(np.diff(cols) <= 0)):
+        raise AnalysisError(invalid_value("blocks", "not ascending block indices",
+                                          f"ascending indices below {t.size}"))
     if residual not in ("none", "constant", "linear"):
         raise AnalysisError(invalid_value("residual", residual, "'none', 'constant' or 'linear'"))
     init = [(float(f), float(z)) for f, z in initial]
@@ -380,7 +391,11 @@ def fit_transient(time_s, speed_rpm, vectors, *, initial: Sequence[tuple[float, 
         raise AnalysisError(invalid_value("initial", initial, "1 to 6 (fn_rpm > 0, 0 < zeta < 1) pairs"))
     hist = sweep_history(t, s, revs_per_block=revs_per_block, rev_index=rev_index)
     band = tuple(float(b) for b in (band_rpm or _default_band(init, s)))
-    ok = np.isfinite(v).all(axis=0) & (s >= band[0]) & (s <= band[1])
+    finite = np.isfinite(v).all(axis=0)
+    if cols is not None:
+        finite, held = np.zeros(t.size, dtype=bool), finite
+        finite[cols] = held
+    ok = finite & (s >= band[0]) & (s <= band[1])
     if select is not None:
         ok &= np.asarray(select, dtype=bool)
     idx = np.flatnonzero(ok)
@@ -392,8 +407,9 @@ def fit_transient(time_s, speed_rpm, vectors, *, initial: Sequence[tuple[float, 
                                           f"{max(3 * n_lin, 20)} blocks (got {idx.size})"))
     if idx.size > max_blocks:
         idx = idx[np.linspace(0, idx.size - 1, max_blocks).round().astype(int)]
-    data = v[:, idx].T  # (M, P)
-    noise0 = _noise_sigma(v[:, idx])
+    vi = v[:, idx if cols is None else np.searchsorted(cols, idx)]
+    data = vi.T  # (M, P)
+    noise0 = _noise_sigma(vi)
     scale = np.where(np.isfinite(noise0) & (noise0 > 0), noise0,
                      np.maximum(np.sqrt(np.mean(np.abs(data) ** 2, axis=0)), 1e-300) * 1e-3)
     weights = 1.0 / scale

@@ -85,9 +85,14 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
     per_probe: dict[tuple[str, str], tuple] = {}  # (probe, direction) -> (crits, speed, vec)
     sweep_notes: dict[tuple[str, str], list[int]] = {}  # (probe, direction) -> note indices
     # speeds and times of each direction are shared by every probe; each probe's vectors
-    # are kept in their own dtype (complex64 from the pipeline) and taken to complex128
-    # where they are read (_c128): what is held stays small on a long run
+    # are read again where they are needed (held_1x: the pipeline gives them from a
+    # temporary file) and taken to complex128 there (_c128): what is held stays small on
+    # a long run
     by_dir = {d: (track.speed_rpm[sel], track.time_s[sel]) for d, sel in directions.items()}
+
+    def held_1x(i: int, d: str) -> np.ndarray:
+        """Probe i's compensated 1X in direction d, complex128."""
+        return _c128(compensated[i, k1, directions[d]])
     if k1 is not None:
         for i, ch in enumerate(probes):
             if ch.kind not in VECTOR_AMPLITUDE_CONVENTION:
@@ -95,8 +100,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
             afac = vector_amplitude_factor(ch.kind)
             for d, sel in directions.items():
                 s, t = by_dir[d]
-                v_held = compensated[i, k1, sel]
-                v = _c128(v_held)
+                v = held_1x(i, d)
                 floor = None
                 if angle_bound_rad is not None and ch.kind == "proximity":
                     # the reference angle error rotates the measured vector, not the
@@ -123,12 +127,12 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                     if issubclass(w.category, SweepRateWarning):
                         sweep_notes.setdefault((ch.probe_name, d), []).append(len(notes))
                     notes.append(f"{ch.probe_name} {d}: {w.message}")
-                per_probe[(ch.probe_name, d)] = (crits, s, v_held, t, afac, i)
+                per_probe[(ch.probe_name, d)] = (crits, s, None, t, afac, i)
                 del v
 
     # mode-shape hints: the same-axis probe at another bearing, at the same speed
     hints: dict[tuple[str, str], list[str | None]] = {}
-    for (name, d), (crits, s, v, *_rest) in per_probe.items():
+    for (name, d), (crits, s, _v, t, afac, i) in per_probe.items():
         sp = spec_by_name.get(name)
         partner = None
         if sp is not None and sp.bearing:
@@ -136,13 +140,15 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                             and p.bearing != sp.bearing and p.axis == sp.axis
                             and p.kind == sp.kind and (p.name, d) in per_probe), None)
         out = []
+        v = held_1x(i, d) if partner is not None and crits else None
+        v2 = held_1x(per_probe[(partner.name, d)][5], d) if v is not None else None
         for c in crits:
             if partner is None:
                 out.append(None)
                 continue
-            _, s2, v2, *_ = per_probe[(partner.name, d)]
-            a, _ = mean_vector_near(s, _c128(v), c.speed_rpm, nearest_within_pct=2.0)
-            b, _ = mean_vector_near(s2, _c128(v2), c.speed_rpm, nearest_within_pct=2.0)
+            s2 = per_probe[(partner.name, d)][1]
+            a, _ = mean_vector_near(s, v, c.speed_rpm, nearest_within_pct=2.0)
+            b, _ = mean_vector_near(s2, v2, c.speed_rpm, nearest_within_pct=2.0)
             if a is None or b is None:
                 out.append(None)
                 continue
@@ -153,6 +159,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                        + (f"{h.phase_difference_deg:.0f} deg apart" if h.phase_difference_deg
                           is not None else "phase difference unclear") + "; a hint)")
         hints[(name, d)] = out
+        del v, v2
 
     modal = identify_run(track=track, compensated=compensated, probes=probes, k1=k1,
                          directions=directions, per_probe=per_probe, spec_by_name=spec_by_name,
@@ -171,7 +178,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
     zones = ZoneSettings.for_machine(m.kind, **vars(desc.zones))
     holds = _holds(track, profile)
     hold_kind = "steady" if test_kind == "field" else test_kind
-    for (name, d), (crits, s, v, t, afac, i) in per_probe.items():
+    for (name, d), (crits, s, _v, t, afac, i) in per_probe.items():
         ch = probes[i]
         sp = spec_by_name.get(name)
         units = amplitude_label(ch.kind)
@@ -206,7 +213,7 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
         if ch.kind in ("proximity", "velocity"):
             direct = track.direct_pp[i] if ch.kind == "proximity" else track.direct_rms[i]
             sel = directions[d]
-            checks = check_levels(s, vector=_c128(v), direct=np.asarray(direct[sel], np.float64),
+            checks = check_levels(s, vector=held_1x(i, d), direct=np.asarray(direct[sel], np.float64),
                                   criticals=crits,
                                   kind=ch.kind, amplitude_factor=afac,
                                   max_continuous_speed_rpm=m.max_continuous_speed_rpm,
@@ -258,8 +265,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
                 note=pair.note))
 
     open_top = []
-    for (name, d), (crits, s, v, t, afac, i) in per_probe.items():
-        r = crit_mod.rising_at_top(s, _c128(v), amplitude_factor=afac)
+    for (name, d), (crits, s, _v, t, afac, i) in per_probe.items():
+        r = crit_mod.rising_at_top(s, held_1x(i, d), amplitude_factor=afac)
         if r is not None:
             open_top.append(dict(probe=name, direction=d, from_rpm=json_number(r.from_rpm),
                                  to_rpm=json_number(r.to_rpm), rise_pct=json_number(r.rise_pct),

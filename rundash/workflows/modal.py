@@ -35,7 +35,7 @@ import numpy as np
 
 from rundash.analysis.criticals import CRITICALLY_DAMPED_AF
 from rundash.analysis.modes import mode_hint
-from rundash.analysis.transient import METHOD, RunModes, identify_modes
+from rundash.analysis.transient import METHOD, RunModes, fit_speed_range, identify_modes
 from rundash.analysis.whirl import (
     directions_differ, major_axis_readings, mode_direction, orbit, pair_shape_hint,
 )
@@ -391,18 +391,24 @@ def identify_run(*, track, compensated, probes, k1, directions, per_probe, spec_
         return rm
     with stage("modal fits"):
         s = np.asarray(track.speed_rpm, dtype=np.float64)
-        V = np.asarray(compensated[use, k1, :], dtype=np.complex128)
+        # only the blocks a band of the fit can take, one probe at a time (complex128)
+        lo, hi = fit_speed_range(cands)
+        blocks = np.flatnonzero((s >= lo) & (s <= hi))
+        V = np.empty((len(use), blocks.size), np.complex128)
+        for r, i in enumerate(use):
+            V[r] = np.asarray(compensated[i, k1], dtype=np.complex128)[blocks]
         if not prox:
             rm.k_int = [1 if probes[i].kind == "velocity" else 2 for i in use]
             k_int = np.array(rm.k_int)[:, None]
-            V = V / (1j * 2.0 * math.pi * s[None, :] / 60.0) ** k_int
+            V = V / (1j * 2.0 * math.pi * s[None, blocks] / 60.0) ** k_int
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 rm.modes = identify_modes(track.time_s, s, V, candidates=cands,
                                           revs_per_block=revs_per_block,
                                           rev_index=track.rev_index, masks=directions,
-                                          n_boot=n_boot, conjugate_part=conjugate_part)
+                                          n_boot=n_boot, conjugate_part=conjugate_part,
+                                          blocks=blocks)
         except (AnalysisError, np.linalg.LinAlgError, ValueError) as exc:
             rm.note = f"the modal fit failed ({exc})"
             return rm

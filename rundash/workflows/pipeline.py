@@ -11,12 +11,15 @@ transaction.
 
 Memory: the samples are never held whole (a few chunks of every channel at a time), and
 neither are the per-revolution results of every order: each channel's vectors and direct
-levels go to a temporary file of its own as they are found (:class:`_Results`), and the
-save reads them back one channel at a time (slow roll compensated again there, the same
-numbers). What grows with the run's length is what the analysis reads across probes: the
-1X (uncompensated and compensated, complex64) and one direct level (float32) of every
-probe, about 20 bytes per revolution and probe, and the modal fit's complex128 copy of
-the compensated 1X, e.g. about 0.5 GB for a 2-hour run of 15 probes at 6000 rpm.
+levels go to a temporary file of its own as they are found (:class:`_Results`); the
+proximity probes' slow-roll-compensated vectors are computed once, one channel at a
+time, into files of their own that the save reads back; what the analysis reads across
+probes (the 1X, uncompensated and compensated, and one direct level: 20 bytes per block
+and probe) is one more temporary file (:class:`_ProbeRows`) that findings read a probe
+at a time, and the modal fit holds the compensated 1X of only the blocks in the speed
+range its bands can take (:func:`rundash.analysis.transient.fit_speed_range`). What
+still grows with the run's length is per block, shared by every probe (block times,
+speeds, the tach events and the speed profile), and one probe's results at a time.
 
 ``ProcessResult.stage_s`` and ``stage_cpu_s`` hold the wall and CPU seconds spent per
 stage (:data:`STAGES`); ``rundash process --timings`` prints them.
@@ -243,6 +246,7 @@ class _Results:
         self.n = 0
         self._files = [tempfile.TemporaryFile(prefix="rundash-track-") for _ in range(n_ch)]
         self._rms: dict[int, np.ndarray] = {}  # channel -> its rms, replaced (replace_rms)
+        self._comp: dict[int, Any] = {}  # channel -> file of its compensated vectors
 
     def add(self, tr: dsp_orders.OrderTrack) -> None:
         a, b = self.n, self.n + tr.n_blocks
@@ -286,9 +290,83 @@ class _Results:
         n = self.n
         return self.time_s[:n], self.speed_rpm[:n], self.rev_index[:n]
 
+    def set_compensated(self, i: int, vectors: np.ndarray) -> None:
+        """Channel ``i``'s slow-roll-compensated vectors (complex64, shape (n_orders, n)),
+        kept in a temporary file of their own for :meth:`compensated`."""
+        fh = self._comp.get(i)
+        if fh is None:
+            fh = self._comp[i] = tempfile.TemporaryFile(prefix="rundash-comp-")
+        fh.seek(0)
+        fh.write(np.ascontiguousarray(vectors, dtype=np.complex64).tobytes())
+
+    def compensated(self, i: int) -> np.ndarray | None:
+        """Channel ``i``'s compensated vectors (None: none were set)."""
+        fh = self._comp.get(i)
+        if fh is None:
+            return None
+        fh.seek(0)
+        return _read_array(fh, np.complex64, self.orders.size * self.n).reshape(-1, self.n)
+
     def close(self) -> None:
-        for fh in self._files:
+        for fh in [*self._files, *self._comp.values()]:
             fh.close()
+
+
+def _read_array(fh, dtype, count: int) -> np.ndarray:
+    """``count`` items of ``dtype`` from ``fh``'s position, as a writable array."""
+    buf = bytearray(count * np.dtype(dtype).itemsize)
+    fh.readinto(buf)
+    return np.frombuffer(buf, dtype)
+
+
+class _ProbeRows:
+    """What the analysis reads of every probe, in one temporary file instead of memory:
+    its 1X (or first order), the same compensated for slow roll, and its direct level,
+    each of the run's blocks (20 bytes per block and probe). :meth:`rows` gives an
+    indexable view per quantity (``view[i, 0, sel]`` like an array of shape
+    (n_probes, 1, n_blocks), ``view[i]`` for the direct levels): each index reads that
+    probe's row from the file."""
+
+    _FIELDS = {"raw": (0, np.complex64), "comp": (8, np.complex64), "direct": (16, np.float32)}
+
+    def __init__(self, n_probes: int, n: int):
+        self.n_probes, self.n = n_probes, n
+        self._fh = tempfile.TemporaryFile(prefix="rundash-rows-")
+
+    def _offset(self, i: int, name: str) -> int:
+        return 20 * self.n * i + self._FIELDS[name][0] * self.n
+
+    def put(self, i: int, name: str, x) -> None:
+        self._fh.seek(self._offset(i, name))
+        self._fh.write(np.ascontiguousarray(x, dtype=self._FIELDS[name][1]).tobytes())
+
+    def get(self, i: int, name: str) -> np.ndarray:
+        self._fh.seek(self._offset(i, name))
+        return _read_array(self._fh, self._FIELDS[name][1], self.n)
+
+    def rows(self, name: str, with_order_axis: bool) -> "_RowView":
+        return _RowView(self, name, with_order_axis)
+
+    def close(self) -> None:
+        self._fh.close()
+
+
+class _RowView:
+    """One quantity of :class:`_ProbeRows`, indexed like an array."""
+
+    def __init__(self, rows: _ProbeRows, name: str, with_order_axis: bool):
+        self._rows, self._name, self._axis = rows, name, with_order_axis
+        self.shape = (rows.n_probes, 1, rows.n) if with_order_axis else (rows.n_probes, rows.n)
+
+    def __getitem__(self, key):
+        key = key if isinstance(key, tuple) else (key,)
+        i, rest = int(key[0]), key[1:]
+        if self._axis and rest:
+            if int(rest[0]) != 0:
+                raise IndexError("one order is held")
+            rest = rest[1:]
+        x = self._rows.get(i, self._name)
+        return x[rest] if rest else x
 
 
 def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = None,
@@ -451,12 +529,13 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
         # alone, its direct level under both names
         k1 = np.flatnonzero(np.isclose(orders, 1.0))
         ka = int(k1[0]) if k1.size else 0
-        raw_a = np.empty((len(probes), n_blocks), np.complex64)
-        direct = np.empty((len(probes), n_blocks), np.float32)
-        for i, ch in enumerate(probes):
+        rows = _ProbeRows(len(probes), n_blocks)
+        stack.callback(rows.close)
+        for i, ch in enumerate(probes):  # one channel at a time
             vec, pp, rms = results.channel(i)
-            raw_a[i] = vec[ka]
-            direct[i] = pp if ch.kind == "proximity" else rms
+            rows.put(i, "raw", vec[ka])
+            rows.put(i, "direct", pp if ch.kind == "proximity" else rms)
+            del vec, pp, rms
         # slow-roll compensation: proximity probes only, never seismic channels
         is_prox = np.array([c.kind == "proximity" for c in probes])
         window = params.slow_roll_rpm or desc.processing.slow_roll_rpm
@@ -464,37 +543,44 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
                            "[processing] slow_roll_rpm of the machine description" if window
                            else "")
         if window is None and is_prox.any() and k1.size:
-            raw1 = raw_a[is_prox]
+            raw1 = np.empty((int(is_prox.sum()), n_blocks), np.complex64)
+            for r, i in enumerate(np.flatnonzero(is_prox)):
+                raw1[r] = rows.get(i, "raw")
             choice = slowroll.choose_slow_roll_window(
                 speed_rpm, raw1, first_critical_rpm=first_candidate_rpm(speed_rpm, raw1))
             del raw1
             window, slow_roll_basis = choice.window, choice.note
             if window is None:
                 notes.append(choice.note)
+        for i in range(len(probes)):  # compensated once, kept for the save
+            if window is not None and is_prox[i]:
+                vec = results.channel(i)[0]
+                sr = slowroll.slow_roll_vector(speed_rpm, vec, window)
+                comp = slowroll.compensate(vec, sr).astype(np.complex64, copy=False)
+                results.set_compensated(i, comp)
+                rows.put(i, "comp", comp[ka])
+                del vec, comp
+            else:
+                rows.put(i, "comp", rows.get(i, "raw"))
 
         def vectors_of(i: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
             """Channel i's vectors, slow-roll-compensated vectors and direct level."""
             vec, pp, rms = results.channel(i)
-            comp = vec
-            if window is not None and is_prox[i]:
-                sr = slowroll.slow_roll_vector(speed_rpm, vec, window)
-                comp = slowroll.compensate(vec, sr).astype(np.complex64, copy=False)
-            return vec, comp, pp if probes[i].kind == "proximity" else rms
+            comp = results.compensated(i)
+            return vec, vec if comp is None else comp, \
+                pp if probes[i].kind == "proximity" else rms
 
-        comp_a = raw_a.copy()
-        if window is not None and is_prox.any():
-            for i in np.flatnonzero(is_prox):  # one channel at a time
-                comp_a[i] = vectors_of(i)[1][ka]
+        direct = rows.rows("direct", False)
         track = dsp_orders.OrderTrack(
             time_s=time_s, speed_rpm=speed_rpm, orders=orders[ka:ka + 1],
-            vectors=raw_a[:, None, :], direct_pp=direct, direct_rms=direct,
+            vectors=rows.rows("raw", True), direct_pp=direct, direct_rms=direct,
             rev_index=rev_index)
 
         result = ProcessResult(run_id=run_id, run_kind=kind, n_revs=opr.n_revs,
                                n_blocks=n_blocks, slow_roll_rpm=window, warnings=notes)
 
         findings = findings_mod.build_findings(
-            desc=desc, run=run, probes=probes, track=track, compensated=comp_a[:, None, :],
+            desc=desc, run=run, probes=probes, track=track, compensated=rows.rows("comp", True),
             segments=segments, slow_roll_rpm=window, processing_notes=notes,
             slow_roll_basis=slow_roll_basis,
             angle_bound_rad=tq.angle_bound_rad(speed_rpm),
@@ -502,7 +588,7 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
             conjugate_part=tracker_name == "order", velocity_band=band)
         findings["processing"]["tracker"] = tracker_name
         result.findings = findings
-        del track, raw_a, comp_a, direct
+        del track, direct
 
     progress(0.0, "saving")
     with timer("save"):

@@ -37,6 +37,7 @@ from scipy import signal
 
 from rundash.analysis.criticals import CRITICALLY_DAMPED_AF, find_criticals
 from rundash.analysis.transient import (
+    fit_speed_range,
     fit_transient,
     identify_modes,
     mode_response,
@@ -182,6 +183,27 @@ class TestSingleMode:
             (c,) = crits[0]
             shift = c.speed_rpm / peak - 1.0
             assert (shift > 0.005) if up else (shift < -0.005)
+
+    def test_vectors_of_the_fit_range_only(self):
+        # the vectors of only the blocks in fit_speed_range give the same model, to the
+        # bit, as every block's (no outside reference: the same computation, fewer inputs)
+        rot = sweep_sim.sdof_rotor(self.FN, self.ZETA)
+        tr = sweep_sim.simulate(rot, _linear(600, 6000, 600.0), FS, snr_db=30.0, seed=3)
+        cands, _ = _quasi_steady(tr)
+        lo, hi = fit_speed_range(cands)
+        blocks = np.flatnonzero((tr.speed_rpm >= lo) & (tr.speed_rpm <= hi))
+        assert 0 < blocks.size < tr.speed_rpm.size
+        full = identify_modes(tr.time_s, tr.speed_rpm, tr.vectors, candidates=cands,
+                              rev_index=tr.rev_index, n_boot=5)
+        part = identify_modes(tr.time_s, tr.speed_rpm, tr.vectors[:, blocks], candidates=cands,
+                              rev_index=tr.rev_index, n_boot=5, blocks=blocks)
+        assert full.fit is not None
+        assert [(m.fn_rpm, m.zeta, m.fn_std_rpm, m.af) for m in part.modes] == \
+            [(m.fn_rpm, m.zeta, m.fn_std_rpm, m.af) for m in full.modes]
+        assert part.readings(0) == full.readings(0)
+        with pytest.raises(AnalysisError):
+            identify_modes(tr.time_s, tr.speed_rpm, tr.vectors[:, blocks], candidates=cands,
+                           rev_index=tr.rev_index, n_boot=0)
 
     def test_run_up_and_coast_down_jointly(self):
         # one record: run-up at 300 rpm/s, a 5 s hold at 4500 rpm, coast-down at 300 rpm/s;
