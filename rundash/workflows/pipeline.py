@@ -622,6 +622,7 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
                 if casc_amp[i] is not None and casc_done.any():
                     q.save_cascade(conn, run_id, ch.id, row_rpm[casc_done], row_t[casc_done],
                                    freq_hz, casc_amp[i][casc_done])
+                del vec, comp, level, vv, v  # freed before the next channel's are read
                 progress((i + 1) / len(probes), "saving")
             q.save_findings_json(conn, run_id, findings)
             q.save_finding_rows(conn, run_id, findings_mod.finding_rows(findings))
