@@ -31,7 +31,6 @@ import tempfile
 import threading
 import time
 import warnings
-from concurrent.futures import ThreadPoolExecutor
 from contextlib import ExitStack, contextmanager
 from dataclasses import asdict, dataclass, field, replace
 from typing import Any, Iterator
@@ -77,9 +76,8 @@ class ProcessingParams:
 
 
 #: Stages of processing, in order, as reported in ``ProcessResult.stage_s``. "read" is the
-#: storage reads and decoding (in a second thread while the probes are tracked) and
-#: "cascade" the cascade rows (in a third thread, each chunk's beside the tracking of the
-#: next), so the stages add up to more than the wall time.
+#: storage reads and decoding (in a second thread while the probes are tracked, so the
+#: stages add up to more than the wall time).
 STAGES = ("read", "tach", "speed", "tracking", "cascade", "findings", "modal fits", "save")
 
 #: A tach channel of at most this many samples is kept in memory between the edge
@@ -434,55 +432,38 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
     if band is not None and band.note:
         notes.append(band.note)
     tail = None
+    tail_start = 0
     total = max(tach_ch.n_samples, 1)
-
-    def cascade_step(block: np.ndarray, start: int) -> None:
-        """The cascade rows whose windows end in this chunk (in the cascade thread)."""
-        nonlocal tail, freq_hz
-        with timer("cascade"):
-            # cascade rows need n_fft samples around their time: the last n_fft samples
-            # of the chunks before (the tail) go before this one; only the stretch the
-            # rows due here need is joined (no copy of the whole chunk)
-            n_tail = 0 if tail is None else tail.shape[1]
-            buf_start = start - n_tail
-            n_buf = n_tail + block.shape[1]
-            todo = np.flatnonzero(~casc_done & (row_first >= buf_start)
-                                  & (row_first + n_fft <= buf_start + n_buf))
-            if todo.size:  # only the samples the rows due here need
-                a = int(row_first[todo].min()) - buf_start
-                b = int(row_first[todo].max()) + n_fft - buf_start
-                part = block[:, a - n_tail:b - n_tail] if a >= n_tail else \
-                    np.concatenate([tail[:, a:], block[:, :b - n_tail]], axis=1)
-                for i in range(len(probes)):
-                    done, freq_hz, amp = spectra.cascade_rows(
-                        part[i], fs, buf_start + a, row_t[todo], n_fft=n_fft,
-                        f_max_hz=f_max, max_bins=params.cascade_max_bins)
-                    if casc_amp[i] is None:
-                        casc_amp[i] = np.zeros((row_t.size, amp.shape[1]), np.float32)
-                    casc_amp[i][todo[done]] = amp[done]
-                casc_done[todo[done]] = True
-            keep = min(n_fft, n_buf)
-            tail = block[:, -keep:].copy() if block.shape[1] >= keep else \
-                np.concatenate([tail, block], axis=1)[:, -keep:]
-
-    # the cascade of a chunk is computed in a thread of its own while the next chunk is
-    # tracked (FFTs and numpy release the GIL: a second core), one chunk at a time and in
-    # order, so the rows are the same numbers as computed one after the other
-    casc_pool = stack.enter_context(ThreadPoolExecutor(1, thread_name_prefix="rundash-cascade"))
-    casc_job = None
     for start, block in _prefetched(db, [c.id for c in probes], timer):
-        if casc_job is not None:
-            casc_job.result()  # at most one chunk waits for its cascade rows
-        casc_job = casc_pool.submit(cascade_step, block, start)
         with timer("tracking"):
             tr = tracker.feed(block, start)
             if tr.n_blocks:
                 results.add(tr)
             if band_rms is not None:
                 band_rms.feed(block[vel], start)
+        with timer("cascade"):
+            # cascade rows need n_fft samples around their time: keep an overlap
+            if tail is not None:
+                buf = np.concatenate([tail, block], axis=1)
+                buf_start = tail_start
+            else:
+                buf, buf_start = block, start
+            todo = np.flatnonzero(~casc_done & (row_first >= buf_start)
+                                  & (row_first + n_fft <= buf_start + buf.shape[1]))
+            if todo.size:  # only the samples the rows due here need
+                a = int(row_first[todo].min()) - buf_start
+                b = int(row_first[todo].max()) + n_fft - buf_start
+                for i in range(len(probes)):
+                    done, freq_hz, amp = spectra.cascade_rows(
+                        buf[i, a:b], fs, buf_start + a, row_t[todo], n_fft=n_fft,
+                        f_max_hz=f_max, max_bins=params.cascade_max_bins)
+                    if casc_amp[i] is None:
+                        casc_amp[i] = np.zeros((row_t.size, amp.shape[1]), np.float32)
+                    casc_amp[i][todo[done]] = amp[done]
+                casc_done[todo[done]] = True
+            keep = min(n_fft, buf.shape[1])
+            tail, tail_start = buf[:, -keep:].copy(), buf_start + buf.shape[1] - keep
         progress((start + block.shape[1]) / total, "order tracking")
-    if casc_job is not None:
-        casc_job.result()
     with timer("tracking"):
         tracker.finish()
     time_s, speed_rpm, rev_index = results.blocks()
