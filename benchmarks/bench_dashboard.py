@@ -171,7 +171,12 @@ def page_times(db, pages) -> dict[str, list[float]]:
                                            "'[data-dash-is-loading=\"true\"]');"):
                     if time.perf_counter() - t0 > 60:
                         text = d.execute_script("return document.body.innerText")[:600]
-                        raise TimeoutError(f"{name} not drawn in 60 s; the page says: {text}")
+                        graphs = d.execute_script(
+                            "return Array.from(document.querySelectorAll('.js-plotly-plot'))"
+                            ".map(g => (g.closest('[id]') || {}).id + ': ' + "
+                            "(g._fullData ? g._fullData.length : 'none') + ' traces');")
+                        raise TimeoutError(f"{name} not drawn in 60 s; its graphs: {graphs}; "
+                                           f"the page says: {text}")
                     time.sleep(0.02)
                 out[name].append(time.perf_counter() - t0)
                 t1 = time.perf_counter()  # the compare page's background comparison done
@@ -253,7 +258,9 @@ def main() -> int:
                                 f"document.querySelector('#{ids.COMPARE_STATUS}') && document"
                                 f".querySelector('#{ids.COMPARE_STATUS}').innerText.includes("
                                 f"'Compared {n} runs') && " + _drawn(ids.COMPARE_BODE,
-                                                                   ids.COMPARE_TREND), 3)
+                                                                   ids.COMPARE_POLAR)
+                                + f" && document.querySelector('#{ids.COMPARE_TREND} .main-svg')"
+                                " !== null", 3)  # the trend may rightly hold no trace
         got = page_times(db, pages)
         if got:
             rv = float(np.median(got["review"]))
