@@ -14,6 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize
 
+from rundash.dsp.peaks import peaks_with_prominence
 from rundash.errors import AnalysisError, SignalQualityWarning, invalid_value
 
 #: Half-power level: the amplitude at N1 and N2 relative to the peak (1/sqrt(2) ~ 0.707).
@@ -406,13 +407,11 @@ def unbalance_response(speed_rpm, fn_rpm: float, zeta: float) -> np.ndarray:
 
 
 def _initial_modes(s: np.ndarray, v: np.ndarray, n_modes: int) -> list[tuple[float, float]]:
-    from scipy.signal import find_peaks
-
     a = np.abs(v)
-    idx, props = find_peaks(a, prominence=0.0)
+    idx, prom = peaks_with_prominence(a)
     if idx.size == 0:
         return [(float(s[np.argmax(a)]), 0.2)] * n_modes
-    order = np.argsort(props["prominences"])[::-1][:n_modes]
+    order = np.argsort(prom)[::-1][:n_modes]
     out = []
     for i in sorted(idx[order]):
         hp = half_power(s, a, peak_index=int(i))

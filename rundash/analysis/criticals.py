@@ -19,7 +19,6 @@ from dataclasses import dataclass, replace
 from typing import Literal
 
 import numpy as np
-from scipy import signal
 
 from rundash.analysis.amplification import (
     HalfPower,
@@ -41,6 +40,7 @@ from rundash.analysis.sweep_rate import (
     drop_beating,
     sweep_reading,
 )
+from rundash.dsp.peaks import peaks_with_prominence
 from rundash.errors import AnalysisError, SweepRateWarning, invalid_value
 
 __all__ = ["Critical", "find_criticals", "CRITICALLY_DAMPED_AF", "QUASI_STEADY_RATIO",
@@ -373,9 +373,8 @@ def _find(curve, s, t, afac, direction, min_prominence, min_height, phase_confir
     critical could be the nearest critical to one of those speeds (see
     :func:`_phase_only_needed`)."""
     amp = curve.amp
-    idx, props = signal.find_peaks(amp, prominence=1e-12 * amp.max())
+    idx, prom = peaks_with_prominence(amp, 1e-12 * amp.max())
     # significance: 8 noise sigmas of the smoothed curve, twice the floor
-    prom = props["prominences"]
     ok = ((prom >= min_prominence * amp[idx]) & (amp[idx] >= min_height * amp.max())
           & (prom >= 8.0 * curve.noise[idx]) & (prom > 2.0 * curve.floor[idx]))
     keep = idx[ok]

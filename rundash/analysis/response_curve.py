@@ -16,7 +16,7 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import ndimage, signal
+from scipy import linalg
 
 from rundash.analysis.amplification import HalfPower, Mode, fit_modes
 from rundash.errors import AnalysisError, invalid_value
@@ -145,7 +145,11 @@ def _quadratic_smoother(n_win: int):
     proj = np.linalg.pinv(np.vander(np.arange(n_win, dtype=float), 3))
     head = np.vander(np.arange(h, dtype=float), 3) @ proj
     tail = np.vander(np.arange(n_win - h, n_win, dtype=float), 3) @ proj
-    return signal.savgol_coeffs(n_win, 2), head, tail
+    # the window's weights: the minimum-norm solution of A c = e0 with A the powers 0..2 of
+    # the offsets from the centre, as scipy.signal.savgol_coeffs(n_win, 2) forms it (tested)
+    offsets = np.arange(h, -h - 1, -1, dtype=float)
+    centre = linalg.lstsq(offsets ** np.arange(3).reshape(-1, 1), np.array([1.0, 0.0, 0.0]))[0]
+    return centre, head, tail
 
 
 def smooth_quadratic(x, n_win: int) -> np.ndarray:
@@ -184,6 +188,8 @@ def _filter_rows(x: np.ndarray, kernel: np.ndarray, mode: str) -> np.ndarray:
     if x.shape[0] == 1:
         row = np.pad(x[0], h, mode="edge") if mode == "nearest" else x[0]
         return np.convolve(row, kernel, mode="valid" if mode == "nearest" else "same")[None]
+    from scipy import ndimage  # here: only several rows need it
+
     if np.iscomplexobj(x):
         return (ndimage.convolve1d(x.real, kernel, axis=1, mode=mode)
                 + 1j * ndimage.convolve1d(x.imag, kernel, axis=1, mode=mode))

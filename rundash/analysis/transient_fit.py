@@ -42,13 +42,14 @@ from dataclasses import replace
 from typing import Sequence
 
 import numpy as np
-from scipy import linalg, optimize, signal
+from scipy import linalg, optimize
 
 from rundash.analysis.amplification import half_power
 from rundash.analysis.transient_model import (
     PRE_ROLL_DECAYS, ProbeReading, TransientFit, TransientMode, integration_intervals,
     mode_means, sweep_history, unbalance_half_power_af, unbalance_peak_ratio,
 )
+from rundash.dsp.peaks import peaks_with_prominence
 from rundash.errors import AnalysisError, invalid_value
 
 __all__ = ["fit_transient", "ZETA_BOUNDS"]
@@ -186,7 +187,10 @@ class _Problem:
         q = np.mean(np.abs(d2) ** 2 / (12.0 * sig[None, :] ** 2), axis=1)  # ~1
         q = np.concatenate([q[:1], q, q[-1:]])
         w = min(window, G) | 1
-        qs = signal.medfilt(np.pad(q, w // 2, mode="edge"), w)[w // 2: w // 2 + G]
+        # the running median of the edge-padded values (scipy.signal.medfilt's result
+        # inside its zero padding)
+        qs = np.median(np.lib.stride_tricks.sliding_window_view(np.pad(q, w // 2, mode="edge"), w),
+                       axis=1)
         fac = np.sqrt(np.maximum(qs, 1e-12))
         return sig, fac / np.median(fac)  # sig (a MAD) carries the scale
 
@@ -210,8 +214,7 @@ def _readings(fit_modes, steady, band, n_grid: int = 4001) -> list[ProbeReading]
         top = float(a.max()) if a.size else 0.0
         if top <= 0:
             continue
-        idx, props = signal.find_peaks(a, prominence=0.0)
-        for i, prom in zip(idx, props["prominences"]):
+        for i, prom in zip(*peaks_with_prominence(a)):
             if prom < 0.05 * a[i] or a[i] < 0.05 * top:
                 continue
             hp = half_power(grid, a, peak_index=int(i))

@@ -42,6 +42,7 @@ import numpy as np
 
 from rundash.analysis.amplification import half_power
 from rundash.analysis.transient import TransientFit
+from rundash.dsp.peaks import peaks_with_prominence
 from rundash.errors import AnalysisError, invalid_value
 
 __all__ = ["Orbit", "orbit", "ModeDirection", "mode_direction", "MajorAxisReading",
@@ -196,18 +197,15 @@ def major_axis_readings(fit: TransientFit, probe_x: int, probe_y: int, *, angle_
     half-power AF of that curve (never extrapolated beyond ``band_rpm``, default the
     fitted band).
     """
-    from scipy.signal import find_peaks
-
     band = band_rpm or fit.band_rpm
     grid = np.linspace(band[0], band[1], n_grid)
     H = fit.steady(grid)
     o = orbit(H[probe_x], H[probe_y], angle_x_deg=angle_x_deg, angle_y_deg=angle_y_deg)
     a = o.major
     top = float(a.max())
-    idx, props = find_peaks(a, prominence=0.0)
     pk = np.array([m.peak_speed_rpm or m.fn_rpm for m in fit.modes]) if fit.modes else np.zeros(0)
     out = []
-    for i, prom in zip(idx, props["prominences"]):
+    for i, prom in zip(*peaks_with_prominence(a)):
         if prom < 0.05 * a[i] or a[i] < 0.05 * top:
             continue
         hp = half_power(grid, a, peak_index=int(i))

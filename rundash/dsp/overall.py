@@ -33,7 +33,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import signal
 
 from rundash.dsp.orders import first_samples
 from rundash.dsp.speed import SpeedProfile
@@ -139,6 +138,8 @@ def band_sos(band: OverallBand, fs: float, *, order: int = BAND_ORDER) -> np.nda
     alone when ``band.low_pass`` is False), shape (n_sections, 6)."""
     if not band.applied:
         raise DspError(invalid_value("band", band.label(), "a band that can be applied"))
+    from scipy import signal  # here: scipy.signal is slow to import, few runs need it
+
     if band.low_pass:
         return signal.butter(order, [band.lo_hz, band.hi_hz], btype="bandpass", fs=fs,
                              output="sos")
@@ -217,6 +218,8 @@ class BandOverall:
         self._next = int(start_index) + n
         if n == 0:
             return
+        from scipy import signal
+
         if self._zi is None:  # the steady state of the first sample held since ever
             self._zi = signal.sosfilt_zi(self.sos)[:, None, :] * x[:, 0][None, :, None]
         y, self._zi = signal.sosfilt(self.sos, x, axis=-1, zi=self._zi)

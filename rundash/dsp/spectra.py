@@ -24,7 +24,6 @@ from typing import Literal
 
 import numpy as np
 from scipy.fft import rfft, rfftfreq
-from scipy.signal import get_window
 
 from rundash.dsp.speed import SpeedProfile
 from rundash.errors import DspError, invalid_value
@@ -128,7 +127,14 @@ def _check_window(window, n_fft):
 def _window(window: str, n_fft: int) -> np.ndarray:
     """The window of ``n_fft`` samples, computed once per kind and length (the pipeline
     asks for the same one for every row of every channel), read-only."""
-    w = get_window(window, n_fft, fftbins=True)
+    if window == "hann":  # periodic; the sum scipy.signal.get_window forms (tested)
+        w = 0.5 + 0.5 * np.cos(np.linspace(-np.pi, np.pi, n_fft + 1)[:-1])
+    elif window == "boxcar":
+        w = np.ones(n_fft)
+    else:
+        from scipy.signal import get_window  # here: scipy.signal is slow to import
+
+        w = get_window(window, n_fft, fftbins=True)
     w.flags.writeable = False
     return w
 

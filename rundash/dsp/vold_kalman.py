@@ -62,7 +62,6 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.linalg import solveh_banded
-from scipy.signal import firwin, resample_poly
 
 from rundash.dsp.speed import SpeedProfile
 from rundash.errors import DspError, invalid_value
@@ -213,6 +212,8 @@ def vold_kalman(x, fs: float, speed, orders, *, bandwidth_hz: float | None = Non
             f"Order frequency {f_top:.1f} Hz is above the flat band of the decimated rate "
             f"({_FLAT_FRACTION * fs_d:.1f} Hz at decimate={q}); use a smaller decimate")
     if q > 1:
+        from scipy.signal import firwin, resample_poly  # here: scipy.signal is slow to import
+
         # anti-alias FIR (Kaiser window, beta 7.86): measured flat within 5e-5 up to
         # 0.3 fs_d, 80 dB down at fs_d / 2
         h = firwin(40 * q + 1, 0.375 * fs_d, window=("kaiser", 7.86), fs=fs)
