@@ -102,3 +102,21 @@ class TestTablesStayTables:
         assert main(["runs", "--db", str(db_path), "--json"]) == 0  # JSON keeps the full text
         runs = json.loads(capsys.readouterr().out)
         assert {r["machine"] for r in runs} == {"K-101\nsecond line\r", "L" * 100_000}
+
+
+def test_collector_frozen_only_when_the_command_line_is_the_program(db_path, machine_file,
+                                                                     csv_file, capsys):
+    # gc.freeze (settle_imports) keeps a caller's own collector as it was when main() runs
+    # inside its process; as the program, the import and what it imported are frozen
+    import gc
+    import subprocess
+    import sys
+
+    before = gc.get_freeze_count()
+    assert main(["import", str(csv_file), "--machine", str(machine_file), "--db", str(db_path),
+                 "--quiet"]) == 0
+    assert gc.get_freeze_count() == before
+    code = ("import gc, sys; from rundash.cli import main; sys.argv[1:] = ['runs', '--db', "
+            f"{str(db_path)!r}]; main(); print(gc.get_freeze_count() > 10000, file=sys.stderr)")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert done.stderr.strip().splitlines()[-1] == "True"

@@ -194,6 +194,16 @@ COMMANDS = {"import": cmd_import, "record": cmd_record, "process": cmd_process, 
 
 
 def main(argv: Sequence[str] | None = None) -> int:
+    from rundash.cli import common
+
+    common.AS_PROGRAM = argv is None
+    try:
+        return _main(argv)
+    finally:
+        common.settle_imports()  # nothing is left to collect: exit without walking it all
+
+
+def _main(argv: Sequence[str] | None) -> int:
     parser = build_parser()
     argv = list(sys.argv[1:] if argv is None else argv)
     command = next((a for a in argv if a in COMMANDS), "")

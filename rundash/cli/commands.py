@@ -7,7 +7,7 @@ import sys
 from datetime import datetime, timezone
 from pathlib import Path
 
-from rundash.cli.common import DEMO_DB, open_db, print_table, progress_bar
+from rundash.cli.common import DEMO_DB, open_db, print_table, progress_bar, settle_imports
 from rundash import CAUTION
 from rundash.errors import InputError, RundashError
 
@@ -17,6 +17,8 @@ def cmd_import(*, db: str | None, data: str, machine: str, label: str, cycle: st
                ) -> int:
     from rundash.ingest.importer import import_run, split_import_kind
     from rundash.ingest.machine_file import load_machine_description
+
+    settle_imports()
 
     kind, test_kind = split_import_kind(kind)
     desc, text = load_machine_description(machine)
@@ -98,6 +100,8 @@ def cmd_process(*, db: str | None, run: int, orders: tuple[float, ...], revs_per
                 slow_roll: tuple[float, float] | None, quiet: bool, timings: bool = False,
                 tracker: str | None = None) -> int:
     from rundash.workflows.pipeline import ProcessingParams, process_run
+
+    settle_imports()
 
     params = ProcessingParams(orders=orders, revs_per_block=revs_per_block,
                               slow_roll_rpm=slow_roll, tracker=tracker)
@@ -283,6 +287,8 @@ def cmd_compare(*, db: str | None, runs: list[int], as_json: bool, boot: int,
     from rundash import presentation as pr
     from rundash.workflows.comparison import compare_runs
 
+    settle_imports()
+
     if output and not fmt and not as_json:
         from rundash.workflows.export import format_of
         fmt = format_of(output)
@@ -340,6 +346,8 @@ def cmd_report(*, db: str | None, run: int, compare: list[int] | None, output: s
                reviewer: str, role: str, decision: str, remarks: str, boot: int) -> int:
     from rundash.report import write_report
 
+    settle_imports()
+
     path = write_report(open_db(db), run, output, compare=compare or (), reviewer=reviewer,
                         role=role, decision=decision, remarks=remarks, n_boot=boot)
     print(path)
@@ -383,6 +391,8 @@ def cmd_reprocess(*, db: str | None, machine: str | None, all_runs: bool, worker
     from rundash.workflows.batch import reprocess
     from rundash.errors import NotFoundError
     from rundash.storage import queries as q
+
+    settle_imports()
 
     if not machine and not all_runs:
         raise InputError("say which runs: --machine NAME or --all")
