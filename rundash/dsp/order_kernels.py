@@ -176,9 +176,10 @@ def direct_levels(seg: np.ndarray, starts: np.ndarray, pp: np.ndarray, rms: np.n
     the last entry is the first sample after them) over their own samples, ``seg`` the
     samples from ``starts[0]`` on and ``sq`` a work array of its shape."""
     offs = starts[:-1] - starts[0]
-    pp[...] = np.maximum.reduceat(seg, offs, axis=1)
-    pp -= np.minimum.reduceat(seg, offs, axis=1)
+    # the square first, while the work array ``sq`` is still in cache for its sums
     np.square(seg, out=sq)
     rms[...] = np.add.reduceat(sq, offs, axis=1)
     rms /= np.diff(starts)
     np.sqrt(rms, out=rms)
+    pp[...] = np.maximum.reduceat(seg, offs, axis=1)
+    pp -= np.minimum.reduceat(seg, offs, axis=1)

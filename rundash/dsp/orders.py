@@ -404,11 +404,15 @@ class OrderTracker:
             e = int(np.searchsorted(starts, starts[b] + GROUP_SAMPLES, side="right")) - 1
             e = min(max(e, b + 1), nblk)
             r, re = b * R, e * R
-            self._products(data, base, na[r:re + 1], coef[:, r:re], ends[:, r:re],
-                           core[r:re], quad[r:re])
+            # the direct levels first: their streaming reductions bring the group's
+            # samples into cache for the per-revolution products; their squares are
+            # done with before the products fill the grid, so both use one buffer
+            # (less in cache)
             seg = data[:, int(starts[b]) - base:int(starts[e]) - base]
             kern.direct_levels(seg, starts[b:e + 1], pp[:, b:e], rms[:, b:e],
-                               self._work("sq", seg.shape, work))
+                               self._work("grid", seg.shape, work))
+            self._products(data, base, na[r:re + 1], coef[:, r:re], ends[:, r:re],
+                           core[r:re], quad[r:re])
             b = e
         # rows hold W cos and W sin: W exp(-j m ph) = W cos - j W sin
         D = core[:, 2 * n_o].astype(np.float64)  # (nr, n_ch)
@@ -467,7 +471,7 @@ class OrderTracker:
         ii = self._ii[:stride]  # window positions 0, 1, ...
         # rows x revolutions x window: each row's grid is contiguous (fast element-wise
         # work); VT[:, r, :lw] is revolution r's (rows x window) matrix for BLAS
-        VT = self._work("VT", (2 * n_o + 1, nr, stride), work)
+        VT = self._work("grid", (2 * n_o + 1, nr, stride), work)
         W = VT[2 * n_o]  # order 0: the weights themselves
         ph = self._work("ph", (nr, stride), work)
         kern.weights_and_phase(A, ends, L, ii, self._base_order, W, ph)
