@@ -162,6 +162,8 @@ def find_holds(time_s, speed_rpm, *, tolerance_pct: float, min_duration_s: float
     n = s.size
     ratio = 1.0 + 2.0 * tolerance_pct / 100.0
     out: list[Hold] = []
+    # the scan reads one value at a time: Python floats (exact), not numpy scalars
+    v, tl = s.tolist(), t.tolist()
     qmax: deque[int] = deque()
     qmin: deque[int] = deque()
     i = j = 0  # window [i, j)
@@ -171,18 +173,18 @@ def find_holds(time_s, speed_rpm, *, tolerance_pct: float, min_duration_s: float
             qmax.clear()
             qmin.clear()
         while j < n:
-            hi = max(s[qmax[0]] if qmax else s[j], s[j])
-            lo = min(s[qmin[0]] if qmin else s[j], s[j])
+            hi = max(v[qmax[0]] if qmax else v[j], v[j])
+            lo = min(v[qmin[0]] if qmin else v[j], v[j])
             if hi > ratio * lo:
                 break
-            while qmax and s[qmax[-1]] <= s[j]:
+            while qmax and v[qmax[-1]] <= v[j]:
                 qmax.pop()
             qmax.append(j)
-            while qmin and s[qmin[-1]] >= s[j]:
+            while qmin and v[qmin[-1]] >= v[j]:
                 qmin.pop()
             qmin.append(j)
             j += 1
-        if j - 1 > i and t[j - 1] - t[i] >= min_duration_s:
+        if j - 1 > i and tl[j - 1] - tl[i] >= min_duration_s:
             # the window may take in the ends of the ramps either side: keep the points
             # within half the tolerance of its median
             med = float(np.median(s[i:j]))

@@ -32,6 +32,8 @@ __all__ = ["Cascade", "cascade", "cascade_plan", "cascade_rows"]
 
 Window = Literal["hann", "flattop", "boxcar"]
 _WINDOWS = ("hann", "flattop", "boxcar")
+# threads of one FFT call over many rows (pocketfft runs them without the interpreter lock)
+_FFT_WORKERS = 2
 
 
 @dataclass(frozen=True)
@@ -139,13 +141,20 @@ def _window(window: str, n_fft: int) -> np.ndarray:
     return w
 
 
+@lru_cache(maxsize=16)
 def _bins(fs: float, n_fft: int, f_max_hz: float | None, max_bins: int):
+    """The rfft bins, how many are kept, their grouping and the groups' first bins, and
+    the groups' centre frequencies (read-only; the pipeline asks for the same every row)."""
     freq = rfftfreq(n_fft, 1.0 / fs)
     n_keep = freq.size if f_max_hz is None else int(np.searchsorted(freq, f_max_hz, "right"))
     n_keep = max(2, min(n_keep, freq.size))
     g = int(np.ceil(n_keep / max_bins))
     n_out = int(np.ceil(n_keep / g))
-    return freq, n_keep, g, n_out
+    f_out = freq[:n_keep]
+    if g > 1:
+        f_out = np.pad(f_out, (0, n_out * g - n_keep), mode="edge").reshape(n_out, g).mean(axis=1)
+    f_out.flags.writeable = False
+    return n_keep, g, n_out, np.arange(0, n_keep, g), f_out
 
 
 def cascade_rows(x_block, fs: float, start_index: int, times_s, *, n_fft: int = 4096,
@@ -155,8 +164,9 @@ def cascade_rows(x_block, fs: float, start_index: int, times_s, *, n_fft: int = 
 
     Parameters
     ----------
-    x_block : array_like, shape (n_samples,)
-        One channel's samples; the first has record index ``start_index``.
+    x_block : array_like, shape (n_samples,) or (n_channels, n_samples)
+        One channel's samples, or several channels' sampled together; the first has
+        record index ``start_index``.
     fs : float
         Sample rate in Hz.
     start_index : int
@@ -170,38 +180,45 @@ def cascade_rows(x_block, fs: float, start_index: int, times_s, *, n_fft: int = 
     done : ndarray of bool, shape (n_rows,)
         Rows computed from this block.
     freq_hz : ndarray, shape (n_freq,)
-    amplitude_peak : ndarray of float32, shape (n_rows, n_freq)
-        Zero for rows not computed here.
+    amplitude_peak : ndarray of float32, shape (n_rows, n_freq), or (n_channels, n_rows,
+        n_freq) for several channels
+        Zero for rows not computed here. Each channel's rows are the same numbers
+        whether it is passed alone or with others.
     """
     x = np.asarray(x_block)
-    if x.ndim != 1:
-        raise DspError(invalid_value("x_block", f"array of shape {x.shape}", "a 1-D channel"))
+    if x.ndim not in (1, 2):
+        raise DspError(invalid_value("x_block", f"array of shape {x.shape}",
+                                     "a 1-D channel or a 2-D (channels, samples) block"))
     if not (np.isfinite(fs) and fs > 0):
         raise DspError(invalid_value("fs", fs, "a positive sample rate in Hz"))
     if isinstance(max_bins, bool) or int(max_bins) != max_bins or max_bins < 2:
         raise DspError(invalid_value("max_bins", max_bins, "an integer >= 2"))
     w = _check_window(window, n_fft)
     n_fft = int(n_fft)
+    x2 = x[None] if x.ndim == 1 else x
     times = np.asarray(times_s, dtype=np.float64).ravel()
-    freq, n_keep, g, n_out = _bins(fs, n_fft, f_max_hz, int(max_bins))
+    n_keep, g, n_out, group_starts, f_out = _bins(float(fs), n_fft, f_max_hz, int(max_bins))
     first = np.round(times * fs).astype(np.int64) - n_fft // 2 - int(start_index)
-    done = (first >= 0) & (first + n_fft <= x.size)
-    amp = np.zeros((times.size, n_out), np.float32)
+    done = (first >= 0) & (first + n_fft <= x2.shape[1])
+    amp = np.zeros((x2.shape[0], times.size, n_out), np.float32)
     idx = np.flatnonzero(done)
     if idx.size:
         # only the rows' samples, in float64 (a float32 record is not converted whole)
-        frames = x[first[idx][:, None] + np.arange(n_fft)[None, :]].astype(np.float64)
-        frames -= frames.mean(axis=1, keepdims=True)  # DC would only smear the first bins
+        frames = np.empty((x2.shape[0], idx.size, n_fft))
+        for r, f0 in enumerate(first[idx].tolist()):
+            frames[:, r] = x2[:, f0:f0 + n_fft]
+        frames -= frames.mean(axis=2, keepdims=True)  # DC would only smear the first bins
         frames *= w
-        spec = np.abs(rfft(frames, axis=1))[:, :n_keep] * (2.0 / np.sum(w))
-        pad = n_out * g - n_keep
-        if pad:
-            spec = np.pad(spec, ((0, 0), (0, pad)))
-        amp[idx] = spec.reshape(idx.size, n_out, g).max(axis=2)
-    f_out = freq[:n_keep]
-    if g > 1:
-        f_out = np.pad(f_out, (0, n_out * g - n_keep), mode="edge").reshape(n_out, g).mean(axis=1)
-    return done, f_out, amp
+        spec = np.abs(rfft(frames, axis=2, workers=_FFT_WORKERS)[:, :, :n_keep])
+        spec *= 2.0 / _window_sum(window, n_fft)
+        # the largest bin of each group (the last group may be short)
+        amp[:, idx] = np.maximum.reduceat(spec, group_starts, axis=2) if g > 1 else spec
+    return done, f_out, (amp[0] if x.ndim == 1 else amp)
+
+
+@lru_cache(maxsize=16)
+def _window_sum(window: str, n_fft: int) -> float:
+    return float(np.sum(_window(window, n_fft)))
 
 
 def cascade(x, fs: float, profile: SpeedProfile, *, speed_step_rpm: float = 50.0,

@@ -432,7 +432,6 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
     if band is not None and band.note:
         notes.append(band.note)
     tail = None
-    tail_start = 0
     total = max(tach_ch.n_samples, 1)
     for start, block in _prefetched(db, [c.id for c in probes], timer):
         with timer("tracking"):
@@ -442,27 +441,30 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
             if band_rms is not None:
                 band_rms.feed(block[vel], start)
         with timer("cascade"):
-            # cascade rows need n_fft samples around their time: keep an overlap
-            if tail is not None:
-                buf = np.concatenate([tail, block], axis=1)
-                buf_start = tail_start
-            else:
-                buf, buf_start = block, start
+            # cascade rows need n_fft samples around their time: the last n_fft samples of
+            # the chunk before are kept, and joined to this chunk only where a row needs them
+            n_tail = 0 if tail is None else tail.shape[1]
+            buf_start = start - n_tail
             todo = np.flatnonzero(~casc_done & (row_first >= buf_start)
-                                  & (row_first + n_fft <= buf_start + buf.shape[1]))
-            if todo.size:  # only the samples the rows due here need
+                                  & (row_first + n_fft <= start + block.shape[1]))
+            if todo.size:  # only the samples the rows due here need, all probes at once
                 a = int(row_first[todo].min()) - buf_start
                 b = int(row_first[todo].max()) + n_fft - buf_start
+                seg = (block[:, a - n_tail:b - n_tail] if a >= n_tail else
+                       np.concatenate([tail[:, a:], block[:, :max(b - n_tail, 0)]], axis=1))
+                done, freq_hz, amp = spectra.cascade_rows(
+                    seg, fs, buf_start + a, row_t[todo], n_fft=n_fft,
+                    f_max_hz=f_max, max_bins=params.cascade_max_bins)
                 for i in range(len(probes)):
-                    done, freq_hz, amp = spectra.cascade_rows(
-                        buf[i, a:b], fs, buf_start + a, row_t[todo], n_fft=n_fft,
-                        f_max_hz=f_max, max_bins=params.cascade_max_bins)
                     if casc_amp[i] is None:
-                        casc_amp[i] = np.zeros((row_t.size, amp.shape[1]), np.float32)
-                    casc_amp[i][todo[done]] = amp[done]
+                        casc_amp[i] = np.zeros((row_t.size, amp.shape[2]), np.float32)
+                    casc_amp[i][todo[done]] = amp[i, done]
                 casc_done[todo[done]] = True
-            keep = min(n_fft, buf.shape[1])
-            tail, tail_start = buf[:, -keep:].copy(), buf_start + buf.shape[1] - keep
+            if block.shape[1] >= n_fft:
+                tail = block[:, -n_fft:].copy()
+            else:  # a chunk shorter than a window (the record's last): add to the tail
+                tail = (block.copy() if tail is None
+                        else np.concatenate([tail, block], axis=1)[:, -n_fft:])
         progress((start + block.shape[1]) / total, "order tracking")
     with timer("tracking"):
         tracker.finish()

@@ -67,6 +67,22 @@ def test_chunked_rows_equal_whole():
     assert_allclose(combined, whole, rtol=1e-6)
 
 
+def test_several_channels_at_once_equal_each_alone():
+    # the pipeline passes all probes of a chunk in one call: each channel's rows are the
+    # same numbers as when it is passed alone
+    _, prof, x = _record(10.0)
+    block = np.stack([x, 0.5 * x[::-1], np.roll(x, 300)]).astype(np.float32)
+    times, _ = cascade_plan(prof, speed_step_rpm=50.0, margin_s=0.25)
+    done, f, amp = cascade_rows(block, FS, 0, times, n_fft=1024, f_max_hz=500.0, max_bins=64)
+    assert amp.shape == (3, times.size, f.size) and done.all()
+    for k in range(3):
+        d1, f1, a1 = cascade_rows(block[k], FS, 0, times, n_fft=1024, f_max_hz=500.0,
+                                  max_bins=64)
+        np.testing.assert_array_equal(d1, done)
+        np.testing.assert_array_equal(f1, f)
+        np.testing.assert_array_equal(a1, amp[k])
+
+
 def test_bad_options():
     _, prof, x = _record(5.0)
     with pytest.raises(DspError, match="Invalid value for 'window'"):
