@@ -263,6 +263,22 @@ def _hermite_times(span: float, k: float, fa: float, fb: float) -> np.ndarray:
     return out
 
 
+def _conjugate_pair(z: np.ndarray) -> bool:
+    """Whether the two rows of ``z`` are complex conjugates (an underdamped mode's poles)."""
+    return z.shape[0] == 2 and bool(np.array_equal(z[1], np.conj(z[0])))
+
+
+def _exp_rows(z: np.ndarray, pair: bool) -> np.ndarray:
+    """``np.exp(z)``; of a conjugate pair of rows only the first is computed (the
+    exponential of a conjugate is the conjugate of the exponential)."""
+    if not pair:
+        return np.exp(z)
+    out = np.empty_like(z)
+    np.exp(z[0], out=out[0])
+    np.conjugate(out[0], out=out[1])
+    return out
+
+
 def _recursion(lamh: np.ndarray, g: np.ndarray, u0: np.ndarray) -> np.ndarray:
     """``u[:, k+1] = exp(lamh[:, k]) u[:, k] + g[:, k]``, ``u[:, 0] = u0``, rows at once.
 
@@ -273,6 +289,7 @@ def _recursion(lamh: np.ndarray, g: np.ndarray, u0: np.ndarray) -> np.ndarray:
     latest terms).
     """
     rows, n = g.shape
+    pair = _conjugate_pair(lamh)
     L = np.concatenate([np.zeros((rows, 1), np.complex128), np.cumsum(lamh, axis=1)], axis=1)
     decay = np.max(-L.real, axis=0)  # non-decreasing
     u = np.empty((rows, n + 1), np.complex128)
@@ -285,8 +302,9 @@ def _recursion(lamh: np.ndarray, g: np.ndarray, u0: np.ndarray) -> np.ndarray:
             u[:, e] = np.exp(lamh[:, s]) * u[:, s] + g[:, s]
         else:
             loc = L[:, s + 1:e + 1] - L[:, s:s + 1]
-            acc = np.cumsum(g[:, s:e] * np.exp(-loc), axis=1)
-            u[:, s + 1:e + 1] = np.exp(loc) * (u[:, s:s + 1] + acc)
+            grow = _exp_rows(loc, pair)
+            acc = np.cumsum(g[:, s:e] / grow, axis=1)
+            u[:, s + 1:e + 1] = grow * (u[:, s:s + 1] + acc)
         s = e
     return u
 
@@ -301,7 +319,7 @@ def _pole_means(hist: SweepHistory, lo: int, hi: int, lam: np.ndarray):
     mu = lam - 1j * om
     alpha = -F / mu  # steady state of u in each step
     lamh = lam * h
-    E = np.exp(lamh)
+    E = _exp_rows(lamh, _conjugate_pair(lamh))
     u = _recursion(lamh, alpha * (1.0 - E), alpha[:, 0])
     beta = u[:, :-1] - alpha
     ubar = alpha + beta * (E - 1.0) / (mu * h)

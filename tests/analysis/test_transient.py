@@ -480,3 +480,26 @@ class TestSameShapeIsNotASplit:
         assert len(rm.modes) == 1 and not cl.unresolved_split
         assert any("same shape across the probes" in x for x in cl.tried), cl.tried
         assert_allclose(rm.modes[0].fn_rpm, 3000.0, rtol=5e-3)
+
+
+@pytest.mark.parametrize("zeta", [0.02, 0.3, 1.5])
+def test_pole_recursion_equals_its_definition_step_by_step(zeta):
+    # u[k+1] = exp(lam h_k) u[k] + g[k], looped one step at a time (the definition), against
+    # the chunked cumulative sums; an underdamped mode's two poles are a conjugate pair
+    # (one exponential serves both), an overdamped one's are two real poles
+    from rundash.analysis.transient_model import _poles, _recursion
+
+    rng = np.random.default_rng(5)
+    n = 3000
+    lam = np.array(_poles(40.0, zeta))
+    h = 0.002 * (1.0 + 0.2 * rng.random(n))
+    lamh = lam[:, None] * h[None, :]
+    g = rng.standard_normal((2, n)) + 1j * rng.standard_normal((2, n))
+    u0 = np.array([1.0 - 2.0j, 0.5 + 1.0j])
+    want = np.empty((2, n + 1), complex)
+    want[:, 0] = u0
+    for k in range(n):
+        want[:, k + 1] = np.exp(lamh[:, k]) * want[:, k] + g[:, k]
+    got = _recursion(lamh, g, u0)
+    # rounding: eps / zeta of the response (the docstring's bound), with room
+    assert_allclose(got, want, rtol=0, atol=1e-12 / min(zeta, 1.0) * np.abs(want).max())
