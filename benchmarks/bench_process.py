@@ -198,7 +198,9 @@ def bench(minutes: float, keep: Path | None, reuse: bool) -> float | None:
         print(f"  {'startup':<12} {wall - inner:7.2f} {100 * (wall - inner) / wall:5.1f} %")
         for name, (sec, cpu) in stages.items():
             print(f"  {name:<12} {sec:7.2f} {100 * sec / wall:5.1f} %  {cpu:6.2f}"
-                  + ("  (in the reader thread, beside tracking)" if name == "read" else ""))
+                  + {"read": "  (in the reader thread, beside tracking)",
+                     "save": "  (in the writer thread, beside findings and modal fits)"
+                     }.get(name, ""))
     peak = usage.ru_maxrss / 1024
     print(f"peak RSS of the processing child: {peak:.0f} MB for a {minutes:g}-minute run "
           f"(target < 1536 MB at 120 minutes; {usage.ru_maxrss * 1024 / (N_CH * n * 4):.3f} x "

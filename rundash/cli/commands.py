@@ -125,8 +125,9 @@ def cmd_process(*, db: str | None, run: int, orders: tuple[float, ...], revs_per
         print(f"note: {rv['sign_off']['note']} ('rundash review {run}' shows what was signed)",
               file=sys.stderr)
     if timings:
-        print(f"stage times, wall and CPU s ('read' runs beside 'tracking' in a second "
-              f"thread), wall {res.wall_s:.2f} s:")
+        print(f"stage times, wall and CPU s ('read' runs beside 'tracking', 'save' beside "
+              f"'findings' and 'modal fits', each in a thread of its own), wall "
+              f"{res.wall_s:.2f} s:")
         for stage, sec in res.stage_s.items():
             print(f"  {stage:<12} {sec:7.2f} {res.stage_cpu_s.get(stage, 0.0):7.2f}")
     return 0

@@ -6,8 +6,11 @@ channel is held in memory between the two only when it is short), builds the
 once-per-rev reference and the speed profile, then streams every probe channel chunk by
 chunk through the order tracker and the cascade (a reader thread decodes the next chunks
 while the current one is tracked), compensates slow roll on proximity probes (velocity probes'
-overall is band-limited on the way, :mod:`rundash.dsp.overall`), finds the critical speeds and judges them, and replaces the run's results in one write
-transaction.
+overall is band-limited on the way, :mod:`rundash.dsp.overall`), finds the critical
+speeds and judges them, and replaces the run's results in one write transaction. That
+transaction is held by a writer thread (:class:`_ResultWriter`) that writes the vector
+tracks and cascades while the findings are computed, then adds the findings and commits;
+an error on either side rolls it all back.
 
 Memory: the samples are never held whole (a few chunks of every channel at a time), and
 neither are the per-revolution results of every order: each channel's vectors and direct
@@ -27,6 +30,7 @@ stage (:data:`STAGES`); ``rundash process --timings`` prints them.
 
 from __future__ import annotations
 
+import contextvars
 import tempfile
 import threading
 import time
@@ -367,6 +371,92 @@ class _RowView:
         return x[rest] if rest else x
 
 
+def _write_tracks(conn, run_id, probes, orders, is_prox, vectors_of, time_s, speed_rpm, edges,
+                 opr, profile, casc_amp, casc_done, row_rpm, row_t, freq_hz) -> None:
+    """The bulk of a run's results, in the writer's transaction: the old results cleared,
+    tach events, the speed profile, every probe's vector tracks and cascade."""
+    q.clear_results(conn, run_id)
+    q.save_tach(conn, run_id, "edges", edges)
+    q.save_tach(conn, run_id, "once_per_rev", opr.times_s)
+    rev_mid = 0.5 * (opr.times_s[:-1] + opr.times_s[1:])
+    q.save_speed_profile(conn, run_id, rev_mid, profile.rpm(rev_mid))
+    for i, ch in enumerate(probes):
+        afac = vector_amplitude_factor(ch.kind)
+        vec, comp, level = vectors_of(i)
+        for k, order in enumerate(orders):
+            for compensated, vv in ((False, vec), (True, comp)):
+                if compensated and not is_prox[i]:
+                    continue
+                v = vv[k].astype(np.complex128)
+                q.save_track(conn, run_id, ch.id, float(order), compensated,
+                             time_s, speed_rpm, afac * np.abs(v), lag_deg_from_phasor(v), level)
+        if casc_amp[i] is not None and casc_done.any():
+            q.save_cascade(conn, run_id, ch.id, row_rpm[casc_done], row_t[casc_done],
+                           freq_hz, casc_amp[i][casc_done])
+        del vec, comp, level, vv, v  # freed before the next channel's are read
+
+
+class _ResultWriter:
+    """One write transaction of a run's results, held by a second thread: :meth:`start`
+    writes the bulk (tracks, cascade) while the caller computes the findings, which
+    :meth:`finish` adds before the commit and waits for; an error on either side rolls
+    the whole transaction back (:meth:`abandoned_on_error`), so nothing half-written
+    stays. The thread's seconds in the database are the 'save' stage (its wait for the
+    findings is not)."""
+
+    class _Abandoned(Exception):
+        pass
+
+    def __init__(self, db: Database, run_id: int, timer: StageTimer):
+        self.db, self.run_id, self.timer = db, run_id, timer
+        self._handed = threading.Event()
+        self._last = None  # callable(conn) run before the commit; None: abandon
+        self._error: BaseException | None = None
+        self._thread: threading.Thread | None = None
+
+    def start(self, bulk) -> None:
+        ctx = contextvars.copy_context()  # the caller's lock-wait listener, if any
+        self._thread = threading.Thread(target=ctx.run, args=(self._run, bulk),
+                                        name="rundash-save", daemon=True)
+        self._thread.start()
+
+    def _run(self, bulk) -> None:
+        t0, c0 = time.perf_counter(), time.thread_time()
+        waited = 0.0
+        try:
+            with self.db.write() as conn:
+                bulk(conn)
+                w0 = time.perf_counter()
+                self._handed.wait()
+                waited = time.perf_counter() - w0
+                if self._last is None:
+                    raise self._Abandoned()
+                self._last(conn)
+        except self._Abandoned:
+            pass
+        except BaseException as exc:  # re-raised in the caller's thread by finish()
+            self._error = exc
+        finally:
+            self.timer.add("save", time.perf_counter() - t0 - waited, time.thread_time() - c0)
+
+    @contextmanager
+    def abandoned_on_error(self):
+        try:
+            yield
+        except BaseException:
+            self._handed.set()  # no findings: the writer rolls back
+            self._thread.join()
+            raise
+
+    def finish(self, last) -> None:
+        """Hand over the last part, wait for the commit; the writer's error, if any."""
+        self._last = last
+        self._handed.set()
+        self._thread.join()
+        if self._error is not None:
+            raise self._error
+
+
 def process_run(db: Database, run_id: int, *, params: ProcessingParams | None = None,
                 progress: Progress = no_progress) -> ProcessResult:
     """Process a stored run and replace its results in one transaction."""
@@ -562,19 +652,6 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
         result = ProcessResult(run_id=run_id, run_kind=kind, n_revs=opr.n_revs,
                                n_blocks=n_blocks, slow_roll_rpm=window, warnings=notes)
 
-        findings = findings_mod.build_findings(
-            desc=desc, run=run, probes=probes, track=track, compensated=rows.rows("comp", True),
-            segments=segments, slow_roll_rpm=window, processing_notes=notes,
-            slow_roll_basis=slow_roll_basis,
-            angle_bound_rad=tq.angle_bound_rad(speed_rpm),
-            revs_per_block=tracker.revs_per_block, stage=timer,
-            conjugate_part=tracker_name == "order", velocity_band=band)
-        findings["processing"]["tracker"] = tracker_name
-        result.findings = findings
-        del track, direct
-
-    progress(0.0, "saving")
-    with timer("save"):
         tach_report = dict(
             pulses_per_rev=opr.pulses_per_rev, n_edges=int(edges.size), n_revs=opr.n_revs,
             n_missing_filled=opr.n_missing_filled, n_extra_removed=opr.n_extra_removed,
@@ -582,34 +659,35 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
             notes=list(opr.notes))
         seg_list = [dict(kind=s.kind, t_start_s=s.t_start_s, t_end_s=s.t_end_s,
                          rpm_start=s.rpm_start, rpm_end=s.rpm_end) for s in segments]
-        rev_mid = 0.5 * (opr.times_s[:-1] + opr.times_s[1:])
-        with db.write() as conn:
-            q.clear_results(conn, run_id)
-            q.save_tach(conn, run_id, "edges", edges)
-            q.save_tach(conn, run_id, "once_per_rev", opr.times_s)
+
+        def finish(conn) -> None:  # the findings' part of the transaction, before its commit
             q.save_processing(conn, run_id, version=__version__, params=params.to_dict(),
                               slow_roll_rpm=window, tach_report=tach_report,
                               segments=seg_list, warnings=notes)
-            q.save_speed_profile(conn, run_id, rev_mid, profile.rpm(rev_mid))
-            for i, ch in enumerate(probes):
-                afac = vector_amplitude_factor(ch.kind)
-                vec, comp, level = vectors_of(i)
-                for k, order in enumerate(orders):
-                    for compensated, vv in ((False, vec), (True, comp)):
-                        if compensated and not is_prox[i]:
-                            continue
-                        v = vv[k].astype(np.complex128)
-                        q.save_track(conn, run_id, ch.id, float(order), compensated,
-                                     time_s, speed_rpm, afac * np.abs(v),
-                                     lag_deg_from_phasor(v), level)
-                if casc_amp[i] is not None and casc_done.any():
-                    q.save_cascade(conn, run_id, ch.id, row_rpm[casc_done], row_t[casc_done],
-                                   freq_hz, casc_amp[i][casc_done])
-                del vec, comp, level, vv, v  # freed before the next channel's are read
-                progress((i + 1) / len(probes), "saving")
             q.save_findings_json(conn, run_id, findings)
             q.save_finding_rows(conn, run_id, findings_mod.finding_rows(findings))
             q.update_run(conn, run_id, kind=kind)
+
+        # the results are written in a second thread while the findings are computed here:
+        # the database's work (SQLite, outside the interpreter lock) beside the analysis
+        writer = _ResultWriter(db, run_id, timer)
+        writer.start(lambda conn: _write_tracks(
+            conn, run_id, probes, orders, is_prox, vectors_of, time_s, speed_rpm, edges, opr,
+            profile, casc_amp, casc_done, row_rpm, row_t, freq_hz))
+        with writer.abandoned_on_error():
+            findings = findings_mod.build_findings(
+                desc=desc, run=run, probes=probes, track=track,
+                compensated=rows.rows("comp", True), segments=segments, slow_roll_rpm=window,
+                processing_notes=notes, slow_roll_basis=slow_roll_basis,
+                angle_bound_rad=tq.angle_bound_rad(speed_rpm),
+                revs_per_block=tracker.revs_per_block, stage=timer,
+                conjugate_part=tracker_name == "order", velocity_band=band)
+            findings["processing"]["tracker"] = tracker_name
+            result.findings = findings
+        del track, direct
+
+    progress(0.0, "saving")
+    writer.finish(finish)
     progress(1.0, "saving")
     result.stage_s = timer.ordered()
     result.stage_cpu_s = timer.ordered_cpu()

@@ -160,3 +160,49 @@ class TestProcessRun:
             tracks = q.load_tracks(conn, run_id)
         assert {t.order for t in tracks} == {1.0}
         assert len(tracks) == 3  # A-X raw + compensated, A-V raw
+
+
+@pytest.mark.parametrize("side", ["findings", "writer"])
+def test_a_failure_on_either_side_of_the_save_leaves_the_run_as_it_was(tmp_path, monkeypatch,
+                                                                       side):
+    # the results are written by a second thread while the findings are computed: an error
+    # in the analysis or in the database's writes rolls the one transaction back, the error
+    # reaches the caller, and the database takes the next write at once (no thread left
+    # holding its lock)
+    import threading
+
+    from rundash.storage.engine import open_database
+    from rundash.workflows import findings as findings_mod
+    from tests.conftest import db_fingerprint
+
+    gen = _processed(tmp_path, f"sqlite:///{tmp_path / 'r.sqlite'}")
+    db, run_id, _ = next(gen)
+    with db.read() as conn:
+        before = [(t.order, t.compensated, t.amplitude.copy()) for t in q.load_tracks(conn, run_id)]
+    fingerprint = db_fingerprint(db)
+
+    def broken(*args, **kwargs):
+        raise RuntimeError(f"injected failure on the {side} side")
+
+    if side == "findings":
+        monkeypatch.setattr(findings_mod, "build_findings", broken)
+    else:
+        monkeypatch.setattr(q, "save_cascade", broken)
+    with pytest.raises(RuntimeError, match=f"injected failure on the {side} side"):
+        process_run(db, run_id, params=ProcessingParams(slow_roll_rpm=(300.0, 360.0)))
+    assert not [t for t in threading.enumerate() if t.name == "rundash-save"]
+    assert db_fingerprint(db) == fingerprint  # nothing of the failed write stayed
+    with db.read() as conn:
+        after = [(t.order, t.compensated, t.amplitude) for t in q.load_tracks(conn, run_id)]
+    assert len(after) == len(before)
+    for (o1, c1, a1), (o2, c2, a2) in zip(before, after):
+        assert (o1, c1) == (o2, c2)
+        np.testing.assert_array_equal(a1, a2)
+    monkeypatch.undo()
+    out = process_run(db, run_id, params=ProcessingParams(slow_roll_rpm=(300.0, 360.0)))
+    assert out.run_kind == "run-up"
+    db.dispose()
+    reopened = open_database(f"sqlite:///{tmp_path / 'r.sqlite'}")
+    with reopened.read() as conn:
+        assert len(q.load_tracks(conn, run_id)) == len(before)
+    reopened.dispose()
