@@ -286,7 +286,8 @@ def identify_modes(time_s, speed_rpm, vectors, *, candidates: Sequence[tuple[flo
     time_s, speed_rpm : array_like, shape (n,)
         Block times and speeds of the whole run (every segment).
     vectors : array_like of complex, shape (P, n)
-        1X phasors of every probe (slow-roll compensated where that applies).
+        1X phasors of every probe (slow-roll compensated where that applies); complex64
+        is kept so, each fit taking its own blocks' vectors as complex128 (the same fit).
     candidates : sequence of (speed_rpm, zeta or None)
         Quasi-steady readings; zeta None means 0.05.
     revs_per_block, rev_index :
@@ -310,7 +311,9 @@ def identify_modes(time_s, speed_rpm, vectors, *, candidates: Sequence[tuple[flo
     """
     t = np.asarray(time_s, dtype=float)
     s = np.asarray(speed_rpm, dtype=float)
-    v = np.asarray(vectors, dtype=complex)
+    v = np.asarray(vectors)
+    if v.dtype != np.complex64:  # complex64 is held so (each fit takes its blocks' vectors)
+        v = v.astype(complex, copy=False)
     if v.ndim == 1:
         v = v[None, :]
     n_cols = t.size if blocks is None else len(blocks)

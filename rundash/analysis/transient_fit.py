@@ -48,6 +48,7 @@ from rundash.analysis.amplification import half_power
 from rundash.analysis.transient_model import (
     PRE_ROLL_DECAYS, ProbeReading, TransientFit, TransientMode, integration_intervals,
     mode_means, sweep_history, unbalance_half_power_af, unbalance_peak_ratio,
+    windowed_history,
 )
 from rundash.dsp.peaks import peaks_with_prominence
 from rundash.errors import AnalysisError, invalid_value
@@ -66,6 +67,12 @@ def _noise_sigma(v: np.ndarray) -> np.ndarray:
     d2 = v[:, :-2] - 2 * v[:, 1:-1] + v[:, 2:]
     both = np.concatenate([d2.real, d2.imag], axis=1)
     return 1.4826 * np.median(np.abs(both), axis=1) / math.sqrt(6.0)
+
+
+def _pre_roll_s(fn_rpm: float, zeta: float) -> float:
+    """Seconds integrated before a mode's first fitted block: ``PRE_ROLL_DECAYS`` decay
+    times, at most 300 s."""
+    return min(PRE_ROLL_DECAYS / (zeta * 2 * np.pi * fn_rpm / 60.0), 300.0)
 
 
 class _Problem:
@@ -99,7 +106,7 @@ class _Problem:
         # modes held at given (fn, zeta): their columns are computed once
         self.fixed_cols = []
         for fn, z in fixed:
-            iv = integration_intervals(hist, steps, min(PRE_ROLL_DECAYS / (z * 2 * np.pi * fn / 60.0), 300.0))
+            iv = integration_intervals(hist, steps, _pre_roll_s(fn, z))
             self.fixed_cols += self._columns(iv, fn, z)
 
     def _columns(self, iv, fn: float, z: float) -> list[np.ndarray]:
@@ -376,7 +383,9 @@ def fit_transient(time_s, speed_rpm, vectors, *, initial: Sequence[tuple[float, 
     """
     t = np.asarray(time_s, dtype=float)
     s = np.asarray(speed_rpm, dtype=float)
-    v = np.asarray(vectors, dtype=complex)
+    v = np.asarray(vectors)
+    if v.dtype != np.complex64:  # complex64 stays so until the fitted blocks are taken
+        v = v.astype(complex, copy=False)
     if v.ndim == 1:
         v = v[None, :]
     cols = None if blocks is None else np.asarray(blocks, dtype=np.int64)
@@ -392,7 +401,6 @@ def fit_transient(time_s, speed_rpm, vectors, *, initial: Sequence[tuple[float, 
     init = [(float(f), float(z)) for f, z in initial]
     if not init or len(init) > 6 or any(not (f > 0 and 0 < z < 1) for f, z in init):
         raise AnalysisError(invalid_value("initial", initial, "1 to 6 (fn_rpm > 0, 0 < zeta < 1) pairs"))
-    hist = sweep_history(t, s, revs_per_block=revs_per_block, rev_index=rev_index)
     band = tuple(float(b) for b in (band_rpm or _default_band(init, s)))
     finite = np.isfinite(v).all(axis=0)
     if cols is not None:
@@ -402,7 +410,18 @@ def fit_transient(time_s, speed_rpm, vectors, *, initial: Sequence[tuple[float, 
     if select is not None:
         ok &= np.asarray(select, dtype=bool)
     idx = np.flatnonzero(ok)
-    idx = idx[np.argsort(hist.data_step[idx], kind="stable")]
+    f_ref = float(np.mean([f for f, _ in init]))
+    z_lo = max(min(z for _, z in init) / 3.0, 0.005)
+    f_lo = min(f for f, _ in init)
+    pre_s = _pre_roll_s(f_lo, z_lo)
+    # the history of the fitted blocks and their pre-rolls only (the same steps as the
+    # whole run's: what the fit holds does not grow with the run's length)
+    pre_max = max([pre_s] + [_pre_roll_s(float(f), float(z)) for f, z in fixed])
+    i0, hist = (windowed_history(t, s, int(idx[0]), int(idx[-1]), pre_max,
+                                 revs_per_block=revs_per_block, rev_index=rev_index)
+                if idx.size else
+                (0, sweep_history(t, s, revs_per_block=revs_per_block, rev_index=rev_index)))
+    idx = idx[np.argsort(hist.data_step[idx - i0], kind="stable")]
     K = len(init)
     n_lin = 2 * K + 2 * len(fixed) + {"none": 0, "constant": 2, "linear": 4}[residual]
     if idx.size < max(3 * n_lin, 20):
@@ -410,18 +429,14 @@ def fit_transient(time_s, speed_rpm, vectors, *, initial: Sequence[tuple[float, 
                                           f"{max(3 * n_lin, 20)} blocks (got {idx.size})"))
     if idx.size > max_blocks:
         idx = idx[np.linspace(0, idx.size - 1, max_blocks).round().astype(int)]
-    vi = v[:, idx if cols is None else np.searchsorted(cols, idx)]
+    vi = v[:, idx if cols is None else np.searchsorted(cols, idx)].astype(complex, copy=False)
     data = vi.T  # (M, P)
     noise0 = _noise_sigma(vi)
     scale = np.where(np.isfinite(noise0) & (noise0 > 0), noise0,
                      np.maximum(np.sqrt(np.mean(np.abs(data) ** 2, axis=0)), 1e-300) * 1e-3)
     weights = 1.0 / scale
-    f_ref = float(np.mean([f for f, _ in init]))
-    z_lo = max(min(z for _, z in init) / 3.0, 0.005)
-    f_lo = min(f for f, _ in init)
-    pre_s = min(PRE_ROLL_DECAYS / (z_lo * 2 * np.pi * f_lo / 60.0), 300.0)
     group = max(1, int(math.ceil(idx.size / max_groups)))
-    prob = _Problem(hist, hist.data_step[idx], s[idx], data, weights, residual, conjugate_part,
+    prob = _Problem(hist, hist.data_step[idx - i0], s[idx], data, weights, residual, conjugate_part,
                     pre_s, f_ref, group, [(float(f), float(z)) for f, z in fixed])
     lo = np.array([v_ for _ in range(K) for v_ in (0.5 * band[0] / f_ref, math.log(ZETA_BOUNDS[0]))])
     hi = np.array([v_ for _ in range(K) for v_ in (2.0 * band[1] / f_ref, math.log(ZETA_BOUNDS[1]))])

@@ -69,7 +69,8 @@ from rundash.analysis.amplification import unbalance_response
 from rundash.errors import AnalysisError, invalid_value
 
 __all__ = [
-    "SweepHistory", "sweep_history", "mode_response", "mode_means", "integration_intervals",
+    "SweepHistory", "sweep_history", "windowed_history", "mode_response", "mode_means",
+    "integration_intervals",
     "unbalance_peak_ratio", "unbalance_half_power_af", "TransientMode", "ProbeReading",
     "TransientFit", "PRE_ROLL_DECAYS",
 ]
@@ -157,27 +158,9 @@ class SweepHistory:
         return int(self.h_s.size)
 
 
-def sweep_history(time_s, speed_rpm, *, revs_per_block: int = 1,
-                  rev_index=None) -> SweepHistory:
-    """Integration steps from the blocks of an order track.
-
-    Parameters
-    ----------
-    time_s : array_like, shape (n,)
-        Block times in s: the midpoint between the block's first and last reference event
-        (:class:`rundash.dsp.OrderTrack`).
-    speed_rpm : array_like, shape (n,)
-        Block mean speeds in rpm (``60 R / block duration``).
-    revs_per_block : int
-        Revolutions per block R.
-    rev_index : array_like of int, shape (n,), optional
-        First revolution of each block; gaps (revolutions not tracked) are taken from it.
-        Without it, a gap is a time gap of at least half a revolution.
-
-    Returns
-    -------
-    SweepHistory
-    """
+def _checked_blocks(time_s, speed_rpm, revs_per_block, rev_index):
+    """The blocks of :func:`sweep_history` in time order, checked (its errors), with their
+    durations, start and end times, time gaps and untracked revolutions between them."""
     t = np.asarray(time_s, dtype=float)
     s = np.asarray(speed_rpm, dtype=float)
     if t.ndim != 1 or t.size < 2 or s.shape != t.shape:
@@ -207,6 +190,32 @@ def sweep_history(time_s, speed_rpm, *, revs_per_block: int = 1,
         mean_rate = 0.5 * (ss[1:] + ss[:-1]) / 60.0
         gap_revs = np.where(gap_t * mean_rate >= 0.5,
                             np.maximum(np.round(gap_t * mean_rate), 1), 0).astype(np.int64)
+    return R, order, ts, ss, h, ta, tb, gap_t, gap_revs
+
+
+def sweep_history(time_s, speed_rpm, *, revs_per_block: int = 1,
+                  rev_index=None) -> SweepHistory:
+    """Integration steps from the blocks of an order track.
+
+    Parameters
+    ----------
+    time_s : array_like, shape (n,)
+        Block times in s: the midpoint between the block's first and last reference event
+        (:class:`rundash.dsp.OrderTrack`).
+    speed_rpm : array_like, shape (n,)
+        Block mean speeds in rpm (``60 R / block duration``).
+    revs_per_block : int
+        Revolutions per block R.
+    rev_index : array_like of int, shape (n,), optional
+        First revolution of each block; gaps (revolutions not tracked) are taken from it.
+        Without it, a gap is a time gap of at least half a revolution.
+
+    Returns
+    -------
+    SweepHistory
+    """
+    R, order, ts, ss, h, ta, tb, gap_t, gap_revs = _checked_blocks(
+        time_s, speed_rpm, revs_per_block, rev_index)
     n = ts.size
     # a gap of k untracked revolutions becomes k one-revolution steps on a cubic
     # (Hermite) angle through the gap: k revolutions in the gap's time, with the speeds
@@ -236,6 +245,34 @@ def sweep_history(time_s, speed_rpm, *, revs_per_block: int = 1,
     data_step = np.empty(n, np.int64)
     data_step[order] = step_of
     return SweepHistory(t0, hh, revs, omega, omega * omega - 1j * alpha, data_step)
+
+
+def windowed_history(time_s, speed_rpm, first: int, last: int, pre_s: float, *,
+                     revs_per_block: int = 1, rev_index=None,
+                     margin: int = 4) -> tuple[int, SweepHistory]:
+    """The sweep history of only the blocks an integration of blocks ``first`` to ``last``
+    (with a pre-roll of ``pre_s`` before ``first``) needs: ``(i0, history)``, the history
+    of blocks ``i0`` onwards (its ``data_step[k]`` is block ``i0 + k``'s step).
+
+    The history is local: a block's steps, speed and gap fill depend on its own block and
+    its neighbours (the gradients of speed), so the blocks from ``margin`` before the first
+    whose start lies within ``pre_s`` of ``first``'s start to ``margin`` after ``last`` give
+    the steps of the pre-roll and of the blocks ``first`` to ``last`` the same values as the
+    whole run's history: an integration over them has the same result whatever the run's
+    length, and holds only them. The whole run is checked as :func:`sweep_history` checks
+    it (its errors); blocks not in ascending time order give the whole run's history."""
+    t = np.asarray(time_s, dtype=float)
+    n = t.size
+    if n < 2 or not bool(np.all(t[1:] > t[:-1])):
+        return 0, sweep_history(time_s, speed_rpm, revs_per_block=revs_per_block,
+                                rev_index=rev_index)
+    _R, _o, _ts, _ss, _h, ta, *_ = _checked_blocks(t, speed_rpm, revs_per_block, rev_index)
+    j = int(np.searchsorted(ta, ta[first] - pre_s, side="left"))
+    i0, i1 = max(j - margin, 0), min(int(last) + 1 + margin, n)
+    del _o, _ts, _ss, _h, ta
+    s = np.asarray(speed_rpm, dtype=float)
+    ri = None if rev_index is None else np.asarray(rev_index)[i0:i1]
+    return i0, sweep_history(t[i0:i1], s[i0:i1], revs_per_block=revs_per_block, rev_index=ri)
 
 
 def _hermite_times(span: float, k: float, fa: float, fb: float) -> np.ndarray:

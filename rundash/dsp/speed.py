@@ -180,7 +180,7 @@ class SpeedProfile:
     ``[t_start, t_end]`` angle and speed are NaN.
     """
 
-    __slots__ = ("_t", "_c", "model", "_spline", "_measured", "jitter_s", "jitter_deg",
+    __slots__ = ("_t", "_c", "model", "_measured", "jitter_s", "jitter_deg",
                  "fit_lambda", "worst_jitter_deg")
 
     def __init__(self, rev_times_s: np.ndarray, model: Literal["cubic", "pchip"] = "cubic", *,
@@ -196,8 +196,7 @@ class SpeedProfile:
         if model == "pchip":
             spline = PchipInterpolator(t, k)
         self._t = t
-        self._spline = spline
-        c = np.array(spline.c)
+        c = np.array(spline.c)  # the coefficients alone are kept (not the spline: a copy)
         c[3] = k[:-1]  # exact integer angle at every reference event
         self._c = np.ascontiguousarray(c)
         self.model = model

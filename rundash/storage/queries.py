@@ -352,14 +352,31 @@ def load_speed_profile(conn: Connection, run_id: int) -> tuple[np.ndarray, np.nd
     return None if r is None else (decode_f64(r.time_s), decode_f64(r.speed_rpm))
 
 
+@dataclass(frozen=True)
+class EncodedAxes:
+    """Block times and speeds encoded once for the tracks of a run (:func:`encoded_axes`)."""
+
+    n: int
+    time_s: bytes
+    speed_rpm: bytes
+
+
+def encoded_axes(time_s, speed_rpm) -> EncodedAxes:
+    """Block times and speeds as the float64 blobs :func:`save_track` stores, for every
+    track of a run at once (instead of encoding them again for each)."""
+    return EncodedAxes(int(len(time_s)), encode_f64(time_s), encode_f64(speed_rpm))
+
+
 def save_track(conn: Connection, run_id: int, channel_id: int, order: float, compensated: bool,
                time_s, speed_rpm, amplitude, phase_lag_deg, direct) -> None:
     """One vector track. Times and speeds are stored as float64; amplitude, phase lag and
     direct level as float32 (7 significant digits, finer than the float32 samples they
-    come from; half the bytes to write and read). :func:`load_tracks` reads either."""
+    come from; half the bytes to write and read). :func:`load_tracks` reads either.
+    ``time_s`` may be :func:`encoded_axes` of the times and speeds (``speed_rpm`` None)."""
+    axes = time_s if isinstance(time_s, EncodedAxes) else encoded_axes(time_s, speed_rpm)
     conn.execute(insert(V).values(
         run_id=run_id, channel_id=channel_id, order=float(order), compensated=compensated,
-        source="processed", seq=0, n=int(len(time_s)), time_s=encode_f64(time_s), speed_rpm=encode_f64(speed_rpm),
+        source="processed", seq=0, n=axes.n, time_s=axes.time_s, speed_rpm=axes.speed_rpm,
         amplitude=encode_f32(amplitude), phase_lag_deg=encode_f32(phase_lag_deg),
         direct=encode_f32(direct)))
 

@@ -391,12 +391,18 @@ def identify_run(*, track, compensated, probes, k1, directions, per_probe, spec_
         return rm
     with stage("modal fits"):
         s = np.asarray(track.speed_rpm, dtype=np.float64)
-        # only the blocks a band of the fit can take, one probe at a time (complex128)
+        # only the blocks a band of the fit can take, one probe at a time, as stored
+        # (complex64: each fit takes its own blocks' vectors as complex128)
         lo, hi = fit_speed_range(cands)
         blocks = np.flatnonzero((s >= lo) & (s <= hi))
-        V = np.empty((len(use), blocks.size), np.complex128)
+        V = None
         for r, i in enumerate(use):
-            V[r] = np.asarray(compensated[i, k1], dtype=np.complex128)[blocks]
+            row = np.asarray(compensated[i, k1])
+            if V is None:
+                V = np.empty((len(use), blocks.size),
+                             np.complex64 if prox and row.dtype == np.complex64 else np.complex128)
+            V[r] = row[blocks]
+            del row
         if not prox:
             rm.k_int = [1 if probes[i].kind == "velocity" else 2 for i in use]
             k_int = np.array(rm.k_int)[:, None]

@@ -380,6 +380,8 @@ def _write_tracks(conn, run_id, probes, orders, is_prox, vectors_of, time_s, spe
     q.save_tach(conn, run_id, "once_per_rev", opr.times_s)
     rev_mid = 0.5 * (opr.times_s[:-1] + opr.times_s[1:])
     q.save_speed_profile(conn, run_id, rev_mid, profile.rpm(rev_mid))
+    axes = q.encoded_axes(time_s, speed_rpm)  # encoded once, the same bytes in every track
+    amp, lag = np.empty(time_s.size, np.float32), np.empty(time_s.size, np.float32)
     for i, ch in enumerate(probes):
         afac = vector_amplitude_factor(ch.kind)
         vec, comp, level = vectors_of(i)
@@ -387,13 +389,27 @@ def _write_tracks(conn, run_id, probes, orders, is_prox, vectors_of, time_s, spe
             for compensated, vv in ((False, vec), (True, comp)):
                 if compensated and not is_prox[i]:
                     continue
-                v = vv[k].astype(np.complex128)
+                _amplitude_and_lag(vv[k], afac, amp, lag)
                 q.save_track(conn, run_id, ch.id, float(order), compensated,
-                             time_s, speed_rpm, afac * np.abs(v), lag_deg_from_phasor(v), level)
+                             axes, None, amp, lag, level)
         if casc_amp[i] is not None and casc_done.any():
             q.save_cascade(conn, run_id, ch.id, row_rpm[casc_done], row_t[casc_done],
                            freq_hz, casc_amp[i][casc_done])
-        del vec, comp, level, vv, v  # freed before the next channel's are read
+        del vec, comp, level, vv  # freed before the next channel's are read
+
+
+#: Vectors converted to amplitude and phase lag at a time by :func:`_amplitude_and_lag`.
+CONVERT_BLOCKS = 1 << 15
+
+
+def _amplitude_and_lag(v, afac: float, amp: np.ndarray, lag: np.ndarray) -> None:
+    """``afac |v|`` and the phase lag (degrees) of vectors ``v`` into the float32 arrays
+    ``amp`` and ``lag``, computed in float64 and rounded once, :data:`CONVERT_BLOCKS` at a
+    time (the same values as the whole track at once, without its float64 copies)."""
+    for a in range(0, v.size, CONVERT_BLOCKS):
+        c = v[a:a + CONVERT_BLOCKS].astype(np.complex128)
+        amp[a:a + c.size] = afac * np.abs(c)
+        lag[a:a + c.size] = lag_deg_from_phasor(c)
 
 
 class _ResultWriter:

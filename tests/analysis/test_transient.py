@@ -205,6 +205,42 @@ class TestSingleMode:
             identify_modes(tr.time_s, tr.speed_rpm, tr.vectors[:, blocks], candidates=cands,
                            rev_index=tr.rev_index, n_boot=0)
 
+    def test_history_of_the_fitted_blocks_only(self, monkeypatch):
+        # each fit integrates only the blocks of its band and their pre-roll, so it builds
+        # the sweep history of those blocks alone: the same model, to the bit, as from the
+        # whole run's history (no outside reference: the same computation over fewer
+        # steps), on a run with a long stretch outside the fit range at each end; the
+        # complex64 vectors the pipeline holds give the same model as complex128 ones
+        from rundash.analysis import transient_fit
+        from rundash.analysis.transient_model import windowed_history
+
+        rot = sweep_sim.sdof_rotor(self.FN, self.ZETA)
+        tr = sweep_sim.simulate(rot, _linear(300, 7500, 200.0), FS, snr_db=30.0, seed=4)
+        v = tr.vectors.astype(np.complex64)
+        cands, _ = _quasi_steady(tr)
+        held = []
+
+        def window(*a, **kw):
+            i0, hist = windowed_history(*a, **kw)
+            held.append(hist.n_steps)
+            return i0, hist
+
+        def whole(t, s, first, last, pre_s, *, revs_per_block=1, rev_index=None):
+            return 0, sweep_history(t, s, revs_per_block=revs_per_block, rev_index=rev_index)
+
+        monkeypatch.setattr(transient_fit, "windowed_history", window)
+        part = identify_modes(tr.time_s, tr.speed_rpm, v, candidates=cands,
+                              rev_index=tr.rev_index, n_boot=5)
+        monkeypatch.setattr(transient_fit, "windowed_history", whole)
+        full = identify_modes(tr.time_s, tr.speed_rpm, v.astype(complex), candidates=cands,
+                              rev_index=tr.rev_index, n_boot=5)
+        assert full.fit is not None and full.clusters
+        assert held and max(held) < 0.75 * tr.speed_rpm.size
+        assert [(m.fn_rpm, m.zeta, m.fn_std_rpm, m.zeta_std, m.af) for m in part.modes] == \
+            [(m.fn_rpm, m.zeta, m.fn_std_rpm, m.zeta_std, m.af) for m in full.modes]
+        assert part.readings(0) == full.readings(0)
+        assert part.fit.misfit_ratio == full.fit.misfit_ratio
+
     def test_run_up_and_coast_down_jointly(self):
         # one record: run-up at 300 rpm/s, a 5 s hold at 4500 rpm, coast-down at 300 rpm/s;
         # both directions fitted alone agree, the joint reading within 0.5 %
