@@ -10,6 +10,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from rundash.analysis.criticals import find_criticals
+from rundash.dsp.slowroll import is_vector_rows
 from rundash.errors import AnalysisError, invalid_value
 
 __all__ = ["RisingAtTop", "rising_at_top", "first_candidate_rpm"]
@@ -118,7 +119,8 @@ def first_candidate_rpm(speed_rpm, vectors, *, amplitude_factor: float = 2.0) ->
     Parameters
     ----------
     speed_rpm : array_like, shape (n,)
-    vectors : array_like of complex, shape (n_channels, n) or (n,)
+    vectors : array_like of complex, shape (n_channels, n) or (n,), or
+        :class:`rundash.dsp.slowroll.VectorRows` (read a row at a time)
 
     Returns
     -------
@@ -126,8 +128,11 @@ def first_candidate_rpm(speed_rpm, vectors, *, amplitude_factor: float = 2.0) ->
         None when no channel shows a confirmed critical (or the data are too few).
     """
     s = np.asarray(speed_rpm, dtype=float).ravel()
-    v = np.asarray(vectors)  # rows taken to complex one at a time (the whole run's)
-    v = v[None, :] if v.ndim == 1 else v
+    if is_vector_rows(vectors):  # read a row at a time
+        v = (vectors[i] for i in range(len(vectors)))
+    else:
+        v = np.asarray(vectors)  # rows taken to complex one at a time (the whole run's)
+        v = v[None, :] if v.ndim == 1 else v
     best = None
     for row in v:
         row = np.asarray(row, dtype=complex)

@@ -39,6 +39,7 @@ time.
 
 from __future__ import annotations
 
+from array import array
 from collections import deque
 from dataclasses import dataclass
 
@@ -162,8 +163,11 @@ def find_holds(time_s, speed_rpm, *, tolerance_pct: float, min_duration_s: float
     n = s.size
     ratio = 1.0 + 2.0 * tolerance_pct / 100.0
     out: list[Hold] = []
-    # the scan reads one value at a time: Python floats (exact), not numpy scalars
-    v, tl = s.tolist(), t.tolist()
+    # the scan reads one value at a time: Python floats (exact), not numpy scalars, from
+    # arrays of doubles (8 bytes a value, where a list holds 40: a long run's blocks)
+    v, tl = array("d"), array("d")
+    v.frombytes(np.ascontiguousarray(s, dtype=np.float64).tobytes())
+    tl.frombytes(np.ascontiguousarray(t, dtype=np.float64).tobytes())
     qmax: deque[int] = deque()
     qmin: deque[int] = deque()
     i = j = 0  # window [i, j)

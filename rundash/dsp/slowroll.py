@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Protocol
 
 import numpy as np
 
@@ -49,6 +50,56 @@ class SlowRollChoice:
     note: str
 
 
+class VectorRows(Protocol):
+    """Rows of vectors read one at a time (e.g. from a file, by whoever holds them):
+    ``len(rows)`` channels, ``rows[i]`` channel i's vectors."""
+
+    def __len__(self) -> int: ...
+
+    def __getitem__(self, i: int) -> np.ndarray: ...
+
+
+def is_vector_rows(vectors) -> bool:
+    """Whether ``vectors`` is a :class:`VectorRows` (not an array, list or tuple)."""
+    return (not isinstance(vectors, (np.ndarray, list, tuple)) and hasattr(vectors, "__len__")
+            and hasattr(vectors, "__getitem__"))
+
+
+def vector_rows(vectors, n: int):
+    """``vectors`` as rows of ``n`` complex values: an array (complex as given, 1-D taken
+    as one row) or a :class:`VectorRows` (each row read when it is used, not held)."""
+    if is_vector_rows(vectors):
+        return _CheckedRows(vectors, n)
+    v = np.asarray(vectors)
+    if not np.iscomplexobj(v):
+        v = v.astype(np.complex128)
+    v = v[None, :] if v.ndim == 1 else v
+    if v.ndim != 2 or v.shape[1] != n:
+        raise DspError(invalid_value("vectors", f"shape {np.shape(vectors)}",
+                                     f"(n_channels, {n}) like speed_rpm"))
+    return v
+
+
+class _CheckedRows:
+    """A :class:`VectorRows` whose rows are checked to hold ``n`` values as they are read."""
+
+    def __init__(self, rows, n: int):
+        self._rows, self._n = rows, n
+
+    def __len__(self) -> int:
+        return len(self._rows)
+
+    def __getitem__(self, i: int) -> np.ndarray:
+        row = np.asarray(self._rows[i]).ravel()
+        if row.size != self._n:
+            raise DspError(invalid_value(f"vectors row {i}", f"{row.size} values",
+                                         f"{self._n} like speed_rpm"))
+        return row if np.iscomplexobj(row) else row.astype(np.complex128)
+
+    def __iter__(self):
+        return (self[i] for i in range(len(self)))
+
+
 def choose_slow_roll_window(speed_rpm, vectors, *, first_critical_rpm: float | None = None,
                             max_fraction: float = 0.15, below_critical: float = SLOW_ROLL_BELOW_CRITICAL,
                             width_fraction: float = 0.05, min_speed_rpm: float = 0.0,
@@ -73,8 +124,9 @@ def choose_slow_roll_window(speed_rpm, vectors, *, first_critical_rpm: float | N
     Parameters
     ----------
     speed_rpm : array_like, shape (n_blocks,)
-    vectors : array_like of complex, shape (n_channels, n_blocks) or (n_blocks,)
-        Uncompensated 1X vectors of the channels to be compensated (proximity probes).
+    vectors : array_like of complex, shape (n_channels, n_blocks) or (n_blocks,), or VectorRows
+        Uncompensated 1X vectors of the channels to be compensated (proximity probes);
+        rows given as :class:`VectorRows` are read one at a time.
     first_critical_rpm : float, optional
         Lowest candidate critical speed (e.g. from the uncompensated 1X); None when the
         run shows none.
@@ -90,13 +142,7 @@ def choose_slow_roll_window(speed_rpm, vectors, *, first_critical_rpm: float | N
     s = np.asarray(speed_rpm, dtype=np.float64).ravel()
     # complex64 input stays so (the whole run's vectors of every channel); the rows are
     # taken to complex128 one at a time, and the band's vectors as a whole
-    v = np.asarray(vectors)
-    if not np.iscomplexobj(v):
-        v = v.astype(np.complex128)
-    v = v[None, :] if v.ndim == 1 else v
-    if v.ndim != 2 or v.shape[1] != s.size:
-        raise DspError(invalid_value("vectors", f"shape {np.shape(vectors)}",
-                                     f"(n_channels, {s.size}) like speed_rpm"))
+    v = vector_rows(vectors, s.size)
     for name, val in (("max_fraction", max_fraction), ("width_fraction", width_fraction),
                       ("below_critical", below_critical)):
         if not (np.isfinite(val) and 0 < val <= 1):
@@ -126,8 +172,9 @@ def choose_slow_roll_window(speed_rpm, vectors, *, first_critical_rpm: float | N
         return none
     order = np.argsort(s[keep], kind="stable")
     c = s[keep][order]
-    vv = v[:, keep][:, order].astype(np.complex128)
-    scale = np.array([np.max(np.abs(row[good].astype(np.complex128))) for row in v])
+    vv = np.stack([np.asarray(row)[keep] for row in v])[:, order].astype(np.complex128)
+    scale = np.array([np.max(np.abs(np.asarray(row)[good].astype(np.complex128)))
+                      for row in v])
     x = c - c.mean()
 
     def cum(a):

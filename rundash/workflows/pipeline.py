@@ -20,9 +20,11 @@ time, into files of their own that the save reads back; what the analysis reads 
 probes (the 1X, uncompensated and compensated, and one direct level: 20 bytes per block
 and probe) is one more temporary file (:class:`_ProbeRows`) that findings read a probe
 at a time, and the modal fit holds the compensated 1X of only the blocks in the speed
-range its bands can take (:func:`rundash.analysis.transient.fit_speed_range`). What
-still grows with the run's length is per block, shared by every probe (block times,
-speeds, the tach events and the speed profile), and one probe's results at a time.
+range its bands can take (:func:`rundash.analysis.transient.fit_speed_range`), each fit
+the sweep history of its own blocks and their pre-roll only. The save holds one order of
+one probe at a time. What still grows with the run's length is per block, shared by every
+probe (block times, speeds, the tach events and the speed profile), and one probe's
+results at a time in the findings.
 
 ``ProcessResult.stage_s`` and ``stage_cpu_s`` hold the wall and CPU seconds spent per
 stage (:data:`STAGES`); ``rundash process --timings`` prints them.
@@ -273,6 +275,29 @@ class _Results:
         return (np.ascontiguousarray(rec["v"].T), np.ascontiguousarray(rec["pp"]),
                 np.ascontiguousarray(rec["rms"]) if rms is None else rms.copy())
 
+    def order_row(self, i: int, k: int) -> np.ndarray:
+        """Channel ``i``'s vectors of order ``k`` (complex64, shape (n,)), read
+        :data:`CONVERT_BLOCKS` blocks at a time (what the save holds of a channel)."""
+        return self._field(i, lambda rec: rec["v"][:, k], np.complex64)
+
+    def level(self, i: int, proximity: bool) -> np.ndarray:
+        """Channel ``i``'s direct level: p-p for a proximity probe, else rms (float32)."""
+        if not proximity and i in self._rms:
+            return self._rms[i].copy()
+        name = "pp" if proximity else "rms"
+        return self._field(i, lambda rec: rec[name], np.float32)
+
+    def _field(self, i: int, take, dtype) -> np.ndarray:
+        fh = self._files[i]
+        fh.flush()
+        fh.seek(0)
+        out = np.empty(self.n, dtype)
+        for a in range(0, self.n, CONVERT_BLOCKS):
+            m = min(CONVERT_BLOCKS, self.n - a)
+            out[a:a + m] = take(np.frombuffer(fh.read(m * self.dtype.itemsize), self.dtype))
+        fh.seek(0, 2)
+        return out
+
     def replace_rms(self, i: int, rms) -> None:
         """Channel ``i``'s direct rms from now on (e.g. a band-limited overall), float32."""
         self._rms[i] = np.asarray(rms, dtype=np.float32)
@@ -301,13 +326,13 @@ class _Results:
         fh.seek(0)
         fh.write(np.ascontiguousarray(vectors, dtype=np.complex64).tobytes())
 
-    def compensated(self, i: int) -> np.ndarray | None:
-        """Channel ``i``'s compensated vectors (None: none were set)."""
+    def compensated_row(self, i: int, k: int) -> np.ndarray | None:
+        """Channel ``i``'s compensated vectors of order ``k`` (None: none were set)."""
         fh = self._comp.get(i)
         if fh is None:
             return None
-        fh.seek(0)
-        return _read_array(fh, np.complex64, self.orders.size * self.n).reshape(-1, self.n)
+        fh.seek(8 * k * self.n)
+        return _read_array(fh, np.complex64, self.n)
 
     def close(self) -> None:
         for fh in [*self._files, *self._comp.values()]:
@@ -353,6 +378,20 @@ class _ProbeRows:
         self._fh.close()
 
 
+class _Selected:
+    """One quantity of some probes of :class:`_ProbeRows` as
+    :class:`rundash.dsp.slowroll.VectorRows`: ``sel[r]`` reads probe ``probes[r]``'s row."""
+
+    def __init__(self, rows: _ProbeRows, name: str, probes):
+        self._rows, self._name, self._probes = rows, name, [int(i) for i in probes]
+
+    def __len__(self) -> int:
+        return len(self._probes)
+
+    def __getitem__(self, r: int) -> np.ndarray:
+        return self._rows.get(self._probes[r], self._name)
+
+
 class _RowView:
     """One quantity of :class:`_ProbeRows`, indexed like an array."""
 
@@ -371,8 +410,8 @@ class _RowView:
         return x[rest] if rest else x
 
 
-def _write_tracks(conn, run_id, probes, orders, is_prox, vectors_of, time_s, speed_rpm, edges,
-                 opr, profile, casc_amp, casc_done, row_rpm, row_t, freq_hz) -> None:
+def _write_tracks(conn, run_id, probes, orders, is_prox, results: _Results, time_s, speed_rpm,
+                 edges, opr, profile, casc_amp, casc_done, row_rpm, row_t, freq_hz) -> None:
     """The bulk of a run's results, in the writer's transaction: the old results cleared,
     tach events, the speed profile, every probe's vector tracks and cascade."""
     q.clear_results(conn, run_id)
@@ -382,20 +421,23 @@ def _write_tracks(conn, run_id, probes, orders, is_prox, vectors_of, time_s, spe
     q.save_speed_profile(conn, run_id, rev_mid, profile.rpm(rev_mid))
     axes = q.encoded_axes(time_s, speed_rpm)  # encoded once, the same bytes in every track
     amp, lag = np.empty(time_s.size, np.float32), np.empty(time_s.size, np.float32)
-    for i, ch in enumerate(probes):
+    for i, ch in enumerate(probes):  # one order of one channel held at a time
         afac = vector_amplitude_factor(ch.kind)
-        vec, comp, level = vectors_of(i)
+        level = results.level(i, ch.kind == "proximity")
         for k, order in enumerate(orders):
-            for compensated, vv in ((False, vec), (True, comp)):
+            for compensated in (False, True):
                 if compensated and not is_prox[i]:
                     continue
-                _amplitude_and_lag(vv[k], afac, amp, lag)
+                v = results.compensated_row(i, k) if compensated else None
+                v = results.order_row(i, k) if v is None else v
+                _amplitude_and_lag(v, afac, amp, lag)
+                del v
                 q.save_track(conn, run_id, ch.id, float(order), compensated,
                              axes, None, amp, lag, level)
         if casc_amp[i] is not None and casc_done.any():
             q.save_cascade(conn, run_id, ch.id, row_rpm[casc_done], row_t[casc_done],
                            freq_hz, casc_amp[i][casc_done])
-        del vec, comp, level, vv  # freed before the next channel's are read
+        del level
 
 
 #: Vectors converted to amplitude and phase lag at a time by :func:`_amplitude_and_lag`.
@@ -632,12 +674,9 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
                            "[processing] slow_roll_rpm of the machine description" if window
                            else "")
         if window is None and is_prox.any() and k1.size:
-            raw1 = np.empty((int(is_prox.sum()), n_blocks), np.complex64)
-            for r, i in enumerate(np.flatnonzero(is_prox)):
-                raw1[r] = rows.get(i, "raw")
+            raw1 = _Selected(rows, "raw", np.flatnonzero(is_prox))  # read a probe at a time
             choice = slowroll.choose_slow_roll_window(
                 speed_rpm, raw1, first_critical_rpm=first_candidate_rpm(speed_rpm, raw1))
-            del raw1
             window, slow_roll_basis = choice.window, choice.note
             if window is None:
                 notes.append(choice.note)
@@ -651,13 +690,6 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
                 del vec, comp
             else:
                 rows.put(i, "comp", rows.get(i, "raw"))
-
-        def vectors_of(i: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-            """Channel i's vectors, slow-roll-compensated vectors and direct level."""
-            vec, pp, rms = results.channel(i)
-            comp = results.compensated(i)
-            return vec, vec if comp is None else comp, \
-                pp if probes[i].kind == "proximity" else rms
 
         direct = rows.rows("direct", False)
         track = dsp_orders.OrderTrack(
@@ -688,7 +720,7 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
         # the database's work (SQLite, outside the interpreter lock) beside the analysis
         writer = _ResultWriter(db, run_id, timer)
         writer.start(lambda conn: _write_tracks(
-            conn, run_id, probes, orders, is_prox, vectors_of, time_s, speed_rpm, edges, opr,
+            conn, run_id, probes, orders, is_prox, results, time_s, speed_rpm, edges, opr,
             profile, casc_amp, casc_done, row_rpm, row_t, freq_hz))
         with writer.abandoned_on_error():
             findings = findings_mod.build_findings(

@@ -144,3 +144,36 @@ class TestChooseBySteadiness:
         # spread wider than any band; the dwell rule failed with IndexError
         s = np.array([3000.0] * 50 + [40.0, 120.0, 200.0, 280.0, 360.0, 440.0])
         assert auto_slow_roll_window(s, np.arange(s.size) * 0.1, width_fraction=0.02) is None
+
+
+def test_rows_read_one_at_a_time_choose_the_same_window():
+    # the pipeline gives the proximity probes' 1X as rows read from a file one at a time
+    # (a VectorRows): the same window, note and first candidate as from the array (the
+    # same computation, no outside reference); a row of the wrong length is named
+    from rundash.analysis.run_edges import first_candidate_rpm
+    from rundash.dsp import choose_slow_roll_window
+
+    speed, vec = TestChooseBySteadiness._run()
+    read = []
+
+    class Rows:
+        def __len__(self):
+            return vec.shape[0]
+
+        def __getitem__(self, i):
+            read.append(i)
+            return vec[i].astype(np.complex64)
+
+    v64 = vec.astype(np.complex64)
+    assert first_candidate_rpm(speed, Rows()) == first_candidate_rpm(speed, v64)
+    a = choose_slow_roll_window(speed, v64, first_critical_rpm=3007.5)
+    b = choose_slow_roll_window(speed, Rows(), first_critical_rpm=3007.5)
+    assert a == b and a.window is not None
+    assert set(read) == {0, 1}
+
+    class Short(Rows):
+        def __getitem__(self, i):
+            return vec[i, :-1]
+
+    with pytest.raises(DspError, match="vectors row 0"):
+        choose_slow_roll_window(speed, Short())
