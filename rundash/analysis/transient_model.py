@@ -266,10 +266,9 @@ def windowed_history(time_s, speed_rpm, first: int, last: int, pre_s: float, *,
     if n < 2 or not bool(np.all(t[1:] > t[:-1])):
         return 0, sweep_history(time_s, speed_rpm, revs_per_block=revs_per_block,
                                 rev_index=rev_index)
-    _R, _o, _ts, _ss, _h, ta, *_ = _checked_blocks(t, speed_rpm, revs_per_block, rev_index)
+    ta = _checked_blocks(t, speed_rpm, revs_per_block, rev_index)[5]  # block start times
     j = int(np.searchsorted(ta, ta[first] - pre_s, side="left"))
     i0, i1 = max(j - margin, 0), min(int(last) + 1 + margin, n)
-    del _o, _ts, _ss, _h, ta
     s = np.asarray(speed_rpm, dtype=float)
     ri = None if rev_index is None else np.asarray(rev_index)[i0:i1]
     return i0, sweep_history(t[i0:i1], s[i0:i1], revs_per_block=revs_per_block, rev_index=ri)

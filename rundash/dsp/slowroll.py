@@ -172,9 +172,13 @@ def choose_slow_roll_window(speed_rpm, vectors, *, first_critical_rpm: float | N
         return none
     order = np.argsort(s[keep], kind="stable")
     c = s[keep][order]
-    vv = np.stack([np.asarray(row)[keep] for row in v])[:, order].astype(np.complex128)
-    scale = np.array([np.max(np.abs(np.asarray(row)[good].astype(np.complex128)))
-                      for row in v])
+    band, scale = [], []
+    for row in v:  # the band's vectors and each channel's largest 1X, one read of each row
+        row = np.asarray(row)
+        band.append(row[keep])
+        scale.append(np.max(np.abs(row[good].astype(np.complex128))))
+    vv = np.stack(band)[:, order].astype(np.complex128)
+    scale = np.array(scale)
     x = c - c.mean()
 
     def cum(a):
