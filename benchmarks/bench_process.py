@@ -17,7 +17,13 @@ Several run lengths (``--minutes 10 30 120``) are processed one after the other 
 summed up in one table: the peak RSS of each, and how much it grew per minute of run
 from the length before (the growth that a longer run would add).
 
+The machine's own speed changes when other jobs share it: ``--repeat N`` processes each
+run N times and prints the median run (with its stages), the fastest and the slowest;
+before each processing a fixed piece of numpy work is timed ("machine check"), so a slow
+repeat shows beside a slow check.
+
 Usage: python benchmarks/bench_process.py [--minutes 10 [30 ...]] [--keep DIR] [--reuse]
+[--repeat N]
 (``--reuse`` with ``--keep``: process the run already imported in DIR again; with several
 lengths each has its own folder ``DIR/<M>min``.)
 """
@@ -123,6 +129,9 @@ def main() -> int:
     ap.add_argument("--keep", help="folder to keep the files in (default: a temp folder)")
     ap.add_argument("--reuse", action="store_true",
                     help="with --keep: process the run already imported there again")
+    ap.add_argument("--repeat", type=int, default=1,
+                    help="process each run this many times (fresh processes) and print the "
+                         "median, fastest and slowest")
     a = ap.parse_args()
     rows = []
     for minutes in a.minutes:
@@ -131,7 +140,7 @@ def main() -> int:
         td = None
         if a.keep:
             td = Path(a.keep) / f"{minutes:g}min" if len(a.minutes) > 1 else Path(a.keep)
-        peak = bench(minutes, td, a.reuse)
+        peak = bench(minutes, td, a.reuse, max(a.repeat, 1))
         if peak is None:
             return 1
         rows.append((minutes, peak))
@@ -146,7 +155,49 @@ def main() -> int:
     return 0
 
 
-def bench(minutes: float, keep: Path | None, reuse: bool) -> float | None:
+def machine_check() -> float:
+    """Seconds of a fixed piece of numpy work (sums, a sort and an FFT of 4 M float32
+    samples; best of three): measured before each processing, so that a slow repeat on a
+    machine shared with other jobs shows as a slow check beside it."""
+    x = np.random.default_rng(1).standard_normal(1 << 22).astype(np.float32)
+    best = float("inf")
+    for _ in range(3):
+        t0 = time.perf_counter()
+        np.sum(x * x)
+        np.sort(x)
+        np.fft.rfft(x)
+        best = min(best, time.perf_counter() - t0)
+    return best
+
+
+def process_once(db: Path, run_id: str, echo: bool = False):
+    """``rundash process --timings`` of the run in a child process: (wall s, the wall of
+    process_run, {stage: (wall s, CPU s)}, the child's rusage, its peak RSS in MB, the
+    load average before and after); None when it failed."""
+    load0 = os.getloadavg()[0]
+    t0 = time.perf_counter()
+    proc = subprocess.Popen([sys.executable, "-m", "rundash.cli", "process", run_id, "--db",
+                             str(db), "--quiet", "--timings"], stdout=subprocess.PIPE, text=True)
+    _, status, usage = os.wait4(proc.pid, 0)  # this child's own peak RSS
+    wall = time.perf_counter() - t0
+    out = proc.stdout.read().strip()
+    if status != 0:
+        print(out)
+        print("rundash process failed")
+        return None
+    stages, inner = {}, None
+    for line in out.splitlines():
+        if line.startswith("stage times"):
+            inner = float(line.rsplit("wall", 1)[1].split()[0])
+        elif line.startswith("  ") and inner is not None:
+            name, sec, cpu = line.rsplit(None, 2)
+            stages[name.strip()] = (float(sec), float(cpu))
+        elif echo:
+            print(line)
+    return wall, inner, stages, usage, usage.ru_maxrss / 1024, load0, os.getloadavg()[0]
+
+
+def bench(minutes: float, keep: Path | None, reuse: bool, repeat: int = 1) -> float | None:
     """One run length: synthesise, import, process; the peak RSS in MB (None: failed)."""
     td = keep or Path(tempfile.mkdtemp())
     td.mkdir(parents=True, exist_ok=True)
@@ -168,31 +219,34 @@ def bench(minutes: float, keep: Path | None, reuse: bool) -> float | None:
         print(f"import: {time.perf_counter() - t0:.1f} s")
         if keep is None:
             wav.unlink()
-    load0 = os.getloadavg()[0]
-    t0 = time.perf_counter()
-    proc = subprocess.Popen([sys.executable, "-m", "rundash.cli", "process", run_id, "--db",
-                             str(db), "--quiet", "--timings"], stdout=subprocess.PIPE, text=True)
-    _, status, usage = os.wait4(proc.pid, 0)  # this child's own peak RSS
-    wall = time.perf_counter() - t0
-    out = proc.stdout.read().strip()
-    if status != 0:
-        print(out)
-        print("rundash process failed")
-        return None
-    stages, inner = {}, None
-    for line in out.splitlines():
-        if line.startswith("stage times"):
-            inner = float(line.rsplit("wall", 1)[1].split()[0])
-        elif line.startswith("  ") and inner is not None:
-            name, sec, cpu = line.rsplit(None, 2)
-            stages[name.strip()] = (float(sec), float(cpu))
-        else:
-            print(line)
+    runs = []
+    for k in range(repeat):
+        check = machine_check()
+        one = process_once(db, run_id, echo=k == 0)
+        if one is None:
+            return None
+        runs.append((check, one))
+        if repeat > 1:
+            wall, _, _, _, peak_k, load0, load1 = one
+            print(f"  repeat {k + 1}: {wall:.2f} s wall, {N_CH * n / wall / 1e6:.1f} M "
+                  f"channel-samples/s, peak RSS {peak_k:.0f} MB, load average {load0:.1f} -> "
+                  f"{load1:.1f}; machine check {check * 1e3:.1f} ms")
+    best_check = min(c for c, _ in runs)
+    # the median run by wall time (the lower middle one of an even number)
+    check, (wall, inner, stages, usage, peak, load0, load1) = \
+        sorted(runs, key=lambda r: r[1][0])[(len(runs) - 1) // 2]
     rate = N_CH * n / wall / 1e6
-    print(f"rundash process: {wall:.2f} s wall, {rate:.1f} M channel-samples/s "
+    what = f"median of {repeat} runs" if repeat > 1 else "one run"
+    print(f"rundash process ({what}): {wall:.2f} s wall, {rate:.1f} M channel-samples/s "
           f"({rate / 40.0:.2f} x the 40 M/s target); load average {load0:.1f} -> "
-          f"{os.getloadavg()[0]:.1f} on {os.cpu_count()} cores; CPU {usage.ru_utime:.1f} s user "
-          f"+ {usage.ru_stime:.1f} s system")
+          f"{load1:.1f} on {os.cpu_count()} cores; CPU {usage.ru_utime:.1f} s user "
+          f"+ {usage.ru_stime:.1f} s system; machine check {check * 1e3:.1f} ms "
+          f"({check / best_check:.2f} x the fastest check of this benchmark)")
+    if repeat > 1:
+        walls = sorted(w for _, (w, *_rest) in runs)
+        print(f"  wall over the {repeat} runs: fastest {walls[0]:.2f} s "
+              f"({N_CH * n / walls[0] / 1e6:.1f} M/s), slowest {walls[-1]:.2f} s "
+              f"({N_CH * n / walls[-1] / 1e6:.1f} M/s)")
     if inner is not None:
         print(f"  {'stage':<12} {'wall s':>7} {'share':>6}  {'CPU s':>6}")
         print(f"  {'startup':<12} {wall - inner:7.2f} {100 * (wall - inner) / wall:5.1f} %")
@@ -201,9 +255,9 @@ def bench(minutes: float, keep: Path | None, reuse: bool) -> float | None:
                   + {"read": "  (in the reader thread, beside tracking)",
                      "save": "  (in the writer thread, beside findings and modal fits)"
                      }.get(name, ""))
-    peak = usage.ru_maxrss / 1024
+    peak = max(one[4] for _, one in runs)
     print(f"peak RSS of the processing child: {peak:.0f} MB for a {minutes:g}-minute run "
-          f"(target < 1536 MB at 120 minutes; {usage.ru_maxrss * 1024 / (N_CH * n * 4):.3f} x "
+          f"(target < 1536 MB at 120 minutes; {peak * 1024 * 1024 / (N_CH * n * 4):.3f} x "
           f"the run's float32 samples)")
     if keep is None:
         shutil.rmtree(td, ignore_errors=True)

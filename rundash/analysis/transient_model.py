@@ -158,6 +158,12 @@ class SweepHistory:
         return int(self.h_s.size)
 
 
+def _revs_per_block(revs_per_block) -> int:
+    if isinstance(revs_per_block, bool) or int(revs_per_block) != revs_per_block or revs_per_block < 1:
+        raise AnalysisError(invalid_value("revs_per_block", revs_per_block, "an integer >= 1"))
+    return int(revs_per_block)
+
+
 def _checked_blocks(time_s, speed_rpm, revs_per_block, rev_index):
     """The blocks of :func:`sweep_history` in time order, checked (its errors), with their
     durations, start and end times, time gaps and untracked revolutions between them."""
@@ -169,9 +175,7 @@ def _checked_blocks(time_s, speed_rpm, revs_per_block, rev_index):
     if not (np.all(np.isfinite(t)) and np.all(np.isfinite(s)) and np.all(s > 0)):
         raise AnalysisError(invalid_value("speed_rpm", "non-finite or non-positive values",
                                           "finite positive block speeds"))
-    if isinstance(revs_per_block, bool) or int(revs_per_block) != revs_per_block or revs_per_block < 1:
-        raise AnalysisError(invalid_value("revs_per_block", revs_per_block, "an integer >= 1"))
-    R = int(revs_per_block)
+    R = _revs_per_block(revs_per_block)
     order = np.argsort(t, kind="stable")
     ts, ss = t[order], s[order]
     h = 60.0 * R / ss
@@ -259,17 +263,28 @@ def windowed_history(time_s, speed_rpm, first: int, last: int, pre_s: float, *,
     whose start lies within ``pre_s`` of ``first``'s start to ``margin`` after ``last`` give
     the steps of the pre-roll and of the blocks ``first`` to ``last`` the same values as the
     whole run's history: an integration over them has the same result whatever the run's
-    length, and holds only them. The whole run is checked as :func:`sweep_history` checks
-    it (its errors); blocks not in ascending time order give the whole run's history."""
+    length, and holds only them. The blocks of the window are checked as
+    :func:`sweep_history` checks them (its errors), and only they: the blocks before the
+    pre-roll and after ``last`` take no part. Blocks not in ascending time order give the
+    whole run's history."""
     t = np.asarray(time_s, dtype=float)
     n = t.size
     if n < 2 or not bool(np.all(t[1:] > t[:-1])):
         return 0, sweep_history(time_s, speed_rpm, revs_per_block=revs_per_block,
                                 rev_index=rev_index)
-    ta = _checked_blocks(t, speed_rpm, revs_per_block, rev_index)[5]  # block start times
-    j = int(np.searchsorted(ta, ta[first] - pre_s, side="left"))
-    i0, i1 = max(j - margin, 0), min(int(last) + 1 + margin, n)
+    first, last = int(first), int(last)
     s = np.asarray(speed_rpm, dtype=float)
+    # the first block whose start lies within pre_s of block first's start: block starts
+    # (t - 30 R / s, ascending for blocks that do not overlap) are computed from the
+    # first block whose centre time reaches that start, since a block starts before its
+    # centre (the same values as the whole run's, found among the pre-roll's blocks only)
+    R = _revs_per_block(revs_per_block)
+    target = (t[first] - 0.5 * (60.0 * R / s[first])) - pre_s
+    k0 = int(np.searchsorted(t, target, side="left"))
+    ts = t[k0:first + 1]
+    ta = ts - 0.5 * (60.0 * R / s[k0:first + 1])
+    j = k0 + int(np.searchsorted(ta, target, side="left"))
+    i0, i1 = max(j - margin, 0), min(last + 1 + margin, n)
     ri = None if rev_index is None else np.asarray(rev_index)[i0:i1]
     return i0, sweep_history(t[i0:i1], s[i0:i1], revs_per_block=revs_per_block, rev_index=ri)
 

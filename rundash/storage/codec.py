@@ -19,5 +19,18 @@ def encode_f64(x) -> bytes:
     return np.ascontiguousarray(x, dtype="<f8").tobytes()
 
 
+def f32_view(x) -> memoryview:
+    """The bytes :func:`encode_f32` gives, as a view of ``x`` itself when it already is
+    contiguous little-endian float32 (no copy; a copy only otherwise): a blob value for
+    an insert, read by the driver while the array lives."""
+    return memoryview(np.ascontiguousarray(x, dtype="<f4")).cast("B")
+
+
+def f64_view(x) -> memoryview:
+    """The bytes :func:`encode_f64` gives, as a view of ``x`` when it already is
+    contiguous little-endian float64 (see :func:`f32_view`)."""
+    return memoryview(np.ascontiguousarray(x, dtype="<f8")).cast("B")
+
+
 def decode_f64(b: bytes) -> np.ndarray:
     return np.frombuffer(b, dtype="<f8")

@@ -17,7 +17,7 @@ from rundash.model import (
     ChannelInfo, MachineDescription, MachineInfo, MachineSpec, ProbeSpec, RunInfo, TachSpec,
 )
 from rundash.storage import orm
-from rundash.storage.codec import decode_f32, decode_f64, encode_f32, encode_f64
+from rundash.storage.codec import decode_f32, decode_f64, f32_view, f64_view
 from rundash.storage.engine import lock_key
 
 CHUNK_SAMPLES = 1 << 16
@@ -154,7 +154,7 @@ def write_chunks(conn: Connection, rows: Sequence[tuple[int, int, int, np.ndarra
     """Insert waveform chunks: rows of (channel_id, chunk_index, start_index, samples)."""
     conn.execute(insert(W), [
         dict(channel_id=cid, chunk_index=ci, start_index=si, n_samples=int(x.size),
-             sample_rate_hz=sample_rate_hz, data=encode_f32(x)) for cid, ci, si, x in rows])
+             sample_rate_hz=sample_rate_hz, data=f32_view(x)) for cid, ci, si, x in rows])
 
 
 def set_run_sample_rate(conn: Connection, run_id: int, sample_rate_hz: float) -> None:
@@ -310,7 +310,7 @@ def clear_results(conn: Connection, run_id: int) -> None:
 def save_tach(conn: Connection, run_id: int, kind: str, times_s: np.ndarray) -> None:
     conn.execute(delete(T).where(T.c.run_id == run_id, T.c.kind == kind))
     conn.execute(insert(T).values(run_id=run_id, kind=kind, n=int(len(times_s)),
-                                  times=encode_f64(times_s)))
+                                  times=f64_view(times_s)))
 
 
 def load_tach(conn: Connection, run_id: int, kind: str = "once_per_rev") -> np.ndarray | None:
@@ -343,8 +343,8 @@ def load_processing(conn: Connection, run_id: int) -> StoredProcessing | None:
 
 
 def save_speed_profile(conn: Connection, run_id: int, time_s, speed_rpm) -> None:
-    conn.execute(insert(SP).values(run_id=run_id, n=int(len(time_s)), time_s=encode_f64(time_s),
-                                   speed_rpm=encode_f64(speed_rpm)))
+    conn.execute(insert(SP).values(run_id=run_id, n=int(len(time_s)), time_s=f64_view(time_s),
+                                   speed_rpm=f64_view(speed_rpm)))
 
 
 def load_speed_profile(conn: Connection, run_id: int) -> tuple[np.ndarray, np.ndarray] | None:
@@ -357,14 +357,15 @@ class EncodedAxes:
     """Block times and speeds encoded once for the tracks of a run (:func:`encoded_axes`)."""
 
     n: int
-    time_s: bytes
-    speed_rpm: bytes
+    time_s: memoryview
+    speed_rpm: memoryview
 
 
 def encoded_axes(time_s, speed_rpm) -> EncodedAxes:
     """Block times and speeds as the float64 blobs :func:`save_track` stores, for every
-    track of a run at once (instead of encoding them again for each)."""
-    return EncodedAxes(int(len(time_s)), encode_f64(time_s), encode_f64(speed_rpm))
+    track of a run at once (instead of encoding them again for each): views of the arrays
+    themselves when they are float64 already (:func:`~rundash.storage.codec.f64_view`)."""
+    return EncodedAxes(int(len(time_s)), f64_view(time_s), f64_view(speed_rpm))
 
 
 def save_track(conn: Connection, run_id: int, channel_id: int, order: float, compensated: bool,
@@ -377,8 +378,8 @@ def save_track(conn: Connection, run_id: int, channel_id: int, order: float, com
     conn.execute(insert(V).values(
         run_id=run_id, channel_id=channel_id, order=float(order), compensated=compensated,
         source="processed", seq=0, n=axes.n, time_s=axes.time_s, speed_rpm=axes.speed_rpm,
-        amplitude=encode_f32(amplitude), phase_lag_deg=encode_f32(phase_lag_deg),
-        direct=encode_f32(direct)))
+        amplitude=f32_view(amplitude), phase_lag_deg=f32_view(phase_lag_deg),
+        direct=f32_view(direct)))
 
 
 def _decode_n(b: bytes, n: int) -> np.ndarray:
@@ -411,8 +412,8 @@ def save_cascade(conn: Connection, run_id: int, channel_id: int, speed_rpm, time
     a = np.asarray(amplitude, dtype=np.float32)
     conn.execute(insert(CA).values(
         run_id=run_id, channel_id=channel_id, n_rows=a.shape[0], n_freq=a.shape[1],
-        speed_rpm=encode_f64(speed_rpm), time_s=encode_f64(time_s), freq_hz=encode_f64(freq_hz),
-        amplitude=encode_f32(a)))
+        speed_rpm=f64_view(speed_rpm), time_s=f64_view(time_s), freq_hz=f64_view(freq_hz),
+        amplitude=f32_view(a)))
 
 
 def load_cascades(conn: Connection, run_id: int) -> list[StoredCascade]:

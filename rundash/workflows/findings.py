@@ -40,6 +40,17 @@ SCHEMA = "rundash.findings/1"
 _MEASURE = {"proximity": "displacement", "velocity": "velocity", "acceleration": "acceleration"}
 
 
+def _taken(a: np.ndarray, mask: np.ndarray) -> np.ndarray:
+    """``a[mask]``, as a read-only view of ``a`` when the mask is one stretch of blocks
+    (a direction of a plain run-up or coast-down: no copy of the run's speeds and times)."""
+    idx = np.flatnonzero(mask)
+    if idx.size and idx[-1] - idx[0] + 1 == idx.size:
+        view = np.asarray(a)[idx[0]:idx[-1] + 1]
+        view.flags.writeable = False
+        return view
+    return np.asarray(a)[mask]
+
+
 def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[ChannelInfo],
                    track, compensated: np.ndarray, segments, slow_roll_rpm,
                    processing_notes: Sequence[str] = (),
@@ -88,7 +99,8 @@ def build_findings(*, desc: MachineDescription, run: RunInfo, probes: Sequence[C
     # are read again where they are needed (held_1x: the pipeline gives them from a
     # temporary file) and taken to complex128 there (_c128): what is held stays small on
     # a long run
-    by_dir = {d: (track.speed_rpm[sel], track.time_s[sel]) for d, sel in directions.items()}
+    by_dir = {d: (_taken(track.speed_rpm, sel), _taken(track.time_s, sel))
+              for d, sel in directions.items()}
 
     def held_1x(i: int, d: str) -> np.ndarray:
         """Probe i's compensated 1X in direction d, complex128."""

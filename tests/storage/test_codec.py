@@ -1,7 +1,8 @@
 import numpy as np
 from numpy.testing import assert_array_equal
 
-from rundash.storage.codec import decode_f32, decode_f64, encode_f32, encode_f64
+from rundash.storage.codec import (decode_f32, decode_f64, encode_f32, encode_f64, f32_view,
+                                   f64_view)
 from rundash.storage import queries as q
 
 
@@ -16,6 +17,16 @@ class TestCodec:
     def test_f64_round_trip_is_bit_exact(self):
         x = np.random.default_rng(2).standard_normal(999)
         assert_array_equal(x.view(np.uint64), decode_f64(encode_f64(x)).view(np.uint64))
+
+    def test_views_hold_the_same_bytes_and_copy_only_other_dtypes(self):
+        x32 = np.random.default_rng(4).standard_normal(777).astype(np.float32)
+        x64 = x32.astype(np.float64)
+        assert bytes(f32_view(x32)) == encode_f32(x32)
+        assert bytes(f64_view(x64)) == encode_f64(x64)
+        assert bytes(f32_view(x64)) == encode_f32(x64)  # converted, as encode_f32 does
+        assert bytes(f64_view(x32[::2])) == encode_f64(x32[::2])  # strided: copied
+        assert np.shares_memory(np.frombuffer(f32_view(x32), np.float32), x32)  # no copy
+        assert np.shares_memory(np.frombuffer(f64_view(x64), np.float64), x64)
 
 
 class TestChunksInDatabase:
