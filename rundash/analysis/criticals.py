@@ -283,10 +283,12 @@ def find_criticals(speed_rpm, vector, *, time_s=None, amplitude_factor: float = 
     good = np.isfinite(s) & np.isfinite(v.real) & np.isfinite(v.imag) & (s > 0)
     if t is not None:
         good &= np.isfinite(t)
-        t = t[good]
-    s, v = s[good], v[good]
-    if floor is not None:
-        floor = floor[good]
+    if not good.all():  # a copy of the points only when some are dropped
+        t = None if t is None else t[good]
+        s, v = s[good], v[good]
+        if floor is not None:
+            floor = floor[good]
+    del good
     if s.size < 20 or np.ptp(s) <= 0:
         raise AnalysisError(invalid_value("speed_rpm", f"{s.size} finite points", "at least 20 finite points over a speed range"))
     if measure not in _INTEGRATIONS:
