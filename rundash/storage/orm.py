@@ -225,13 +225,28 @@ class SpeedProfileRow(RunPart, Base):
     speed_rpm: Mapped[blob] = mapped_column(comment="float64")
 
 
+class BlockAxes(RunPart, Base):
+    """The block centre times and mean speeds every processed vector track of a run
+    shares, stored once for the run (a processed track's own ``time_s`` and
+    ``speed_rpm`` are empty; tracks written before revision 0007 carry theirs)."""
+
+    __tablename__ = "block_axes"
+
+    n: Mapped[int] = mapped_column(Integer)
+    time_s: Mapped[blob] = mapped_column(comment="float64, block centre times")
+    speed_rpm: Mapped[blob] = mapped_column(comment="float64, block mean speeds")
+
+
 class VectorTrack(RunChild, Base):
     """The nX vectors of a run per channel and order: one store for both sources.
 
     ``source`` 'processed': what ``process_run`` found (one row per channel, order and
     compensation, ``seq`` 0; replaced on re-processing). ``source`` 'live': what the live
     monitor found while the run was recorded, appended batch by batch (``seq`` the batch
-    number, never compensated; kept when the run is processed)."""
+    number, never compensated; kept when the run is processed).
+
+    A processed track's ``time_s`` and ``speed_rpm`` are empty since revision 0007: the
+    tracks of a run share one time and speed axis, stored once in ``block_axes``."""
 
     __tablename__ = "vector_track"
     __table_args__ = (UniqueConstraint("run_id", "channel_id", "order", "compensated",

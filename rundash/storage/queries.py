@@ -12,7 +12,7 @@ from typing import Any, Iterator, Sequence
 import numpy as np
 from sqlalchemy import Connection, delete, func, insert, select, update
 
-from rundash.errors import NotFoundError
+from rundash.errors import NotFoundError, StorageError
 from rundash.model import (
     ChannelInfo, MachineDescription, MachineInfo, MachineSpec, ProbeSpec, RunInfo, TachSpec,
 )
@@ -27,6 +27,9 @@ M, P, R, C, W = orm.Machine.__table__, orm.Probe.__table__, orm.Run.__table__, \
 T, PR, SP, V, CA, F = orm.TachPulses.__table__, orm.Processing.__table__, \
     orm.SpeedProfileRow.__table__, orm.VectorTrack.__table__, orm.CascadeRow.__table__, \
     orm.Finding.__table__
+BA = orm.BlockAxes.__table__
+#: derived results: what processing writes and replaces (:func:`clear_results`)
+RESULT_TABLES = (T, PR, SP, BA, V, CA, F)
 # the rows of vector_track that processing writes and replaces (the live monitor's stay)
 PROCESSED = V.c.source == "processed"
 
@@ -302,7 +305,7 @@ class StoredProcessing:
 
 def clear_results(conn: Connection, run_id: int) -> None:
     """Delete every derived result of a run (inside the caller's transaction)."""
-    for table in (F, V, CA, SP, T, PR):
+    for table in (F, V, CA, BA, SP, T, PR):
         rows = table.c.run_id == run_id
         conn.execute(delete(table).where(rows & PROCESSED if table is V else rows))
 
@@ -353,19 +356,30 @@ def load_speed_profile(conn: Connection, run_id: int) -> tuple[np.ndarray, np.nd
 
 
 @dataclass(frozen=True)
-class EncodedAxes:
-    """Block times and speeds encoded once for the tracks of a run (:func:`encoded_axes`)."""
+class SharedAxes:
+    """The run's block times and speeds, stored once (:func:`save_block_axes`): the
+    tracks saved with it leave their own axes empty and read these."""
 
     n: int
-    time_s: memoryview
-    speed_rpm: memoryview
 
 
-def encoded_axes(time_s, speed_rpm) -> EncodedAxes:
-    """Block times and speeds as the float64 blobs :func:`save_track` stores, for every
-    track of a run at once (instead of encoding them again for each): views of the arrays
-    themselves when they are float64 already (:func:`~rundash.storage.codec.f64_view`)."""
-    return EncodedAxes(int(len(time_s)), f64_view(time_s), f64_view(speed_rpm))
+def save_block_axes(conn: Connection, run_id: int, time_s, speed_rpm) -> SharedAxes:
+    """Store the block times and speeds every processed track of the run shares (float64,
+    written from views of the arrays, :func:`~rundash.storage.codec.f64_view`): once per
+    run instead of once per track (two fifths of a 16-probe run's track bytes).
+    Pass the result to :func:`save_track` as its ``time_s``."""
+    if len(time_s) != len(speed_rpm):
+        raise ValueError(f"{len(time_s)} block times but {len(speed_rpm)} speeds")
+    conn.execute(delete(BA).where(BA.c.run_id == run_id))
+    conn.execute(insert(BA).values(run_id=run_id, n=int(len(time_s)), time_s=f64_view(time_s),
+                                   speed_rpm=f64_view(speed_rpm)))
+    return SharedAxes(int(len(time_s)))
+
+
+def load_block_axes(conn: Connection, run_id: int) -> tuple[np.ndarray, np.ndarray] | None:
+    """The run's shared block times and speeds (read-only arrays), None if not stored."""
+    r = conn.execute(select(BA.c.time_s, BA.c.speed_rpm).where(BA.c.run_id == run_id)).first()
+    return None if r is None else (decode_f64(r.time_s), decode_f64(r.speed_rpm))
 
 
 def save_track(conn: Connection, run_id: int, channel_id: int, order: float, compensated: bool,
@@ -373,11 +387,17 @@ def save_track(conn: Connection, run_id: int, channel_id: int, order: float, com
     """One vector track. Times and speeds are stored as float64; amplitude, phase lag and
     direct level as float32 (7 significant digits, finer than the float32 samples they
     come from; half the bytes to write and read). :func:`load_tracks` reads either.
-    ``time_s`` may be :func:`encoded_axes` of the times and speeds (``speed_rpm`` None)."""
-    axes = time_s if isinstance(time_s, EncodedAxes) else encoded_axes(time_s, speed_rpm)
+    ``time_s`` may be the :class:`SharedAxes` of :func:`save_block_axes` (``speed_rpm``
+    None): the track's own axes are then left empty."""
+    if isinstance(time_s, SharedAxes):
+        n, t_blob, s_blob = time_s.n, b"", b""
+    else:
+        n, t_blob, s_blob = int(len(time_s)), f64_view(time_s), f64_view(speed_rpm)
+    if len(amplitude) != n:
+        raise ValueError(f"a track of {len(amplitude)} vectors on an axis of {n} blocks")
     conn.execute(insert(V).values(
         run_id=run_id, channel_id=channel_id, order=float(order), compensated=compensated,
-        source="processed", seq=0, n=axes.n, time_s=axes.time_s, speed_rpm=axes.speed_rpm,
+        source="processed", seq=0, n=n, time_s=t_blob, speed_rpm=s_blob,
         amplitude=f32_view(amplitude), phase_lag_deg=f32_view(phase_lag_deg),
         direct=f32_view(direct)))
 
@@ -399,12 +419,25 @@ def load_tracks(conn: Connection, run_id: int, *, order: float | None = None,
     if probe_name is not None:
         q = q.where(C.c.probe_name == probe_name)
     q = q.order_by(C.c.position, V.c.order, V.c.compensated)
-    return [StoredTrack(channel_id=r.channel_id, probe_name=r.probe_name, kind=r.kind,
-                        order=r.order, compensated=r.compensated, time_s=decode_f64(r.time_s),
-                        speed_rpm=decode_f64(r.speed_rpm), amplitude=_decode_n(r.amplitude, r.n),
-                        phase_lag_deg=_decode_n(r.phase_lag_deg, r.n),
-                        direct=_decode_n(r.direct, r.n))
-            for r in conn.execute(q).all()]
+    rows = conn.execute(q).all()
+    shared = None  # the run's block axes, decoded once for all its tracks that share them
+    out = []
+    for r in rows:
+        if len(r.time_s) == 0 and r.n > 0:
+            shared = shared or load_block_axes(conn, run_id)
+            if shared is None or shared[0].size != r.n:
+                raise StorageError(f"run {run_id}: the track of channel {r.channel_id}, order "
+                                   f"{r.order:g} has {r.n} vectors but the run's block axes "
+                                   f"{'are missing' if shared is None else f'hold {shared[0].size}'}")
+            t, s = shared
+        else:
+            t, s = decode_f64(r.time_s), decode_f64(r.speed_rpm)
+        out.append(StoredTrack(channel_id=r.channel_id, probe_name=r.probe_name, kind=r.kind,
+                               order=r.order, compensated=r.compensated, time_s=t, speed_rpm=s,
+                               amplitude=_decode_n(r.amplitude, r.n),
+                               phase_lag_deg=_decode_n(r.phase_lag_deg, r.n),
+                               direct=_decode_n(r.direct, r.n)))
+    return out
 
 
 def save_cascade(conn: Connection, run_id: int, channel_id: int, speed_rpm, time_s, freq_hz,

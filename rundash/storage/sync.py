@@ -52,7 +52,7 @@ from rundash.storage.engine import Database, lock_key
 M, P, R, C, W = q.M, q.P, q.R, q.C, q.W
 PR = q.PR
 # derived results: what processing replaces (the tables queries.clear_results empties)
-RESULT_TABLES: tuple[Table, ...] = (q.T, q.PR, q.SP, q.V, q.CA, q.F)
+RESULT_TABLES: tuple[Table, ...] = q.RESULT_TABLES
 # the machine columns compared to tell whether two databases describe a machine alike
 _MACHINE_COLS = [c.name for c in M.c if c.name not in ("id", "created_at")]
 _PROBE_COLS = [c.name for c in P.c if c.name not in ("id", "machine_id")]

@@ -419,7 +419,7 @@ def _write_tracks(conn, run_id, probes, orders, is_prox, results: _Results, time
     q.save_tach(conn, run_id, "once_per_rev", opr.times_s)
     rev_mid = 0.5 * (opr.times_s[:-1] + opr.times_s[1:])
     q.save_speed_profile(conn, run_id, rev_mid, profile.rpm(rev_mid))
-    axes = q.encoded_axes(time_s, speed_rpm)  # encoded once, the same bytes in every track
+    axes = q.save_block_axes(conn, run_id, time_s, speed_rpm)  # once, shared by every track
     amp, lag = np.empty(time_s.size, np.float32), np.empty(time_s.size, np.float32)
     for i, ch in enumerate(probes):  # one order of one channel held at a time
         afac = vector_amplitude_factor(ch.kind)
