@@ -85,14 +85,20 @@ def bin_sums(bins: SpeedBins, vectors: np.ndarray):
     """Per row of ``vectors`` (rows, points) the sum of the vectors and of their squared
     magnitudes in each bin, added in speed order: (rows, bins) complex and real."""
     n_bins = bins.count.size
-    v = vectors[:, bins.order]
-    rows = v.shape[0]
-    kr = (np.arange(rows)[:, None] * n_bins + bins.index).ravel()
-
-    def total(x):
-        return np.bincount(kr, x.ravel(), minlength=rows * n_bins).reshape(rows, n_bins)
-
-    return total(v.real) + 1j * total(v.imag), total(np.abs(v) ** 2)
+    rows = vectors.shape[0]
+    sums = np.empty((rows, n_bins), np.complex128)
+    power = np.empty((rows, n_bins))
+    # a row at a time: the work arrays are a few copies of one row, not of all rows
+    # (each bin's points are added in the same order either way: the same sums)
+    for r in range(rows):
+        v = vectors[r, bins.order]
+        sums[r].real = np.bincount(bins.index, np.ascontiguousarray(v.real), minlength=n_bins)
+        sums[r].imag = np.bincount(bins.index, np.ascontiguousarray(v.imag), minlength=n_bins)
+        a = np.abs(v)
+        del v
+        a *= a
+        power[r] = np.bincount(bins.index, a, minlength=n_bins)
+    return sums, power
 
 
 def _bin_means(bins: SpeedBins, sums: np.ndarray, power: np.ndarray):
