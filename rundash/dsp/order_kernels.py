@@ -13,7 +13,7 @@ grouping or the chunks fed.
 - :func:`revolution_cubics`: the local angle ``u = theta - k`` as a cubic in ``i`` and
   the trapezoid weights of the window's two ends (float64, per revolution);
 - :func:`weights_and_phase`: the quadrature weights ``W`` and the base order's phase
-  ``2 pi base u`` on the grid;
+  ``2 pi base u`` on the grid (each a sum of products with the powers of ``i``);
 - :func:`exponentials`: ``W cos`` and ``W sin`` of every order, by recurrence from the
   base order;
 - :func:`window_products`: per revolution one small matrix product straight on the
@@ -76,24 +76,30 @@ def weights_and_phase(A: np.ndarray, ends: np.ndarray, L: np.ndarray, ii: np.nda
     cubic ``A`` and end weights ``ends`` (:func:`revolution_cubics`), ``L`` its samples.
     Positions past a window (``i >= L + 2``) hold finite values that are never used."""
     work = W.dtype.type
+    nr, stride = W.shape
+    # the powers (i^3, i^2, i, 1) of the window positions: both cubics are then one
+    # sum of products per grid point (einsum: no broadcast passes over the grid; each
+    # point's sum runs over its own row's four terms in order, whatever the grid's size)
+    iid = ii[:stride].astype(np.float64)
+    pw = np.empty((4, stride), work)
+    pw[0] = iid * iid * iid
+    pw[1] = iid * iid
+    pw[2] = iid
+    pw[3] = 1.0
     # interior 0.5 (u(i+1) - u(i-1)) = 3 A3 i^2 + 2 A2 i + A1 + A3, exact for a cubic
-    np.multiply((3.0 * A[0]).astype(work)[:, None], ii, out=W)
-    W += (2.0 * A[1].astype(work))[:, None]
-    W *= ii
-    W += (A[2] + A[0]).astype(work)[:, None]
-    rows = np.arange(L.size)
-    W[rows, 0] = ends[0]
-    W[rows, 1] = ends[1]
+    cw = np.empty((nr, 3), work)
+    cw[:, 0] = 3.0 * A[0]
+    cw[:, 1] = 2.0 * A[1]
+    cw[:, 2] = A[2] + A[0]
+    np.einsum("rk,ki->ri", cw, pw[1:], out=W)
+    W[:, 0] = ends[0]
+    W[:, 1] = ends[1]
+    rows = np.arange(nr)
     W[rows, L] = ends[2]
     W[rows, L + 1] = ends[3]
-    # phase of the base order, 2 pi base u, in the working precision (Horner)
-    P = ((2.0 * np.pi * base_order) * A).astype(work)
-    np.multiply(P[0][:, None], ii, out=ph)
-    ph += P[1][:, None]
-    ph *= ii
-    ph += P[2][:, None]
-    ph *= ii
-    ph += P[3][:, None]
+    # phase of the base order, 2 pi base u, in the working precision
+    P = np.ascontiguousarray(((2.0 * np.pi * base_order) * A).T.astype(work))
+    np.einsum("rk,ki->ri", P, pw, out=ph)
 
 
 def exponentials(ph: np.ndarray, W: np.ndarray, VT: np.ndarray, orders: np.ndarray,
