@@ -166,8 +166,11 @@ def window_products(VT: np.ndarray, data: np.ndarray, first: np.ndarray, Lw: np.
     the samples in place (the window is a strided view for BLAS); the row sums are
     exact-window reductions (``reduceat`` over pairs of indices: a window, then the
     unused tail to skip), so neither depends on the grid's width."""
-    for r, (p, lw) in enumerate(zip(first.tolist(), Lw.tolist())):
-        np.matmul(VT[:, r, :lw], data[:, p:p + lw].T, out=core[r])
+    matmul = np.matmul
+    dT = data.T  # (samples, channels): a window is one slice of it
+    for v, out, p, e, lw in zip(VT.transpose(1, 0, 2), core, first.tolist(),
+                                (first + Lw).tolist(), Lw.tolist()):
+        matmul(v[:, :lw], dT[p:e], out)
     n_rows, nr, stride = VT.shape
     idx = np.empty(2 * nr, np.intp)
     idx[0::2] = np.arange(nr) * stride
