@@ -414,19 +414,26 @@ class OrderTracker:
             self._products(data, base, na[r:re + 1], coef[:, r:re], ends[:, r:re],
                            core[r:re], quad[r:re])
             b = e
-        # rows hold W cos and W sin: W exp(-j m ph) = W cos - j W sin
-        D = core[:, 2 * n_o].astype(np.float64)  # (nr, n_ch)
+        # rows hold W cos and W sin: W exp(-j m ph) = W cos - j W sin; the last row
+        # (W itself) gives the block mean D
         if self._rev_phase is None and R == 1:
             # The rule's own error on a constant: quad = quadrature of exp(-j 2 pi m
             # theta) alone (zero exactly); removing D * quad, D the block mean, cancels
             # the leakage of a large DC offset (a probe's gap) into the orders.
+            # (the small float32 arrays are transposed to the output's order first: the
+            # float64 arithmetic and the complex result are then written in order)
+            ct = np.ascontiguousarray(core.transpose(2, 1, 0))  # (n_ch, rows, nr)
+            qt = np.ascontiguousarray(quad.T)  # (rows, nr)
+            Dt = ct[:, 2 * n_o].astype(np.float64)  # (n_ch, nr)
+            v_re = ct[:, 0:2 * n_o:2] - Dt[:, None, :] * qt[0:2 * n_o:2]  # (n_ch, n_o, nr)
+            v_im = Dt[:, None, :] * qt[1:2 * n_o:2] - ct[:, 1:2 * n_o:2]
+            v_re *= 2.0
+            v_im *= 2.0
             vectors = np.empty((n_ch, n_o, nblk), np.complex128)
-            for part, rows in ((vectors.real, slice(0, 2 * n_o, 2)),
-                               (vectors.imag, slice(1, 2 * n_o, 2))):
-                v = core[:, rows] - D[:, None, :] * quad[:, rows, None]  # (nr, n_o, n_ch)
-                v *= 2.0 if rows.start == 0 else -2.0
-                part[...] = v.transpose(2, 1, 0)
+            vectors.real = v_re
+            vectors.imag = v_im
         else:
+            D = core[:, 2 * n_o].astype(np.float64)  # (nr, n_ch)
             Q = core[:, 0:2 * n_o:2] - 1j * core[:, 1:2 * n_o:2]  # (nr, n_o, n_ch)
             Lq = quad[:, 0:2 * n_o:2] - 1j * quad[:, 1:2 * n_o:2]  # (nr, n_o)
             if self._rev_phase is not None:  # exp(-j 2 pi m k) for orders m k not whole
