@@ -159,8 +159,9 @@ def window_products(VT: np.ndarray, data: np.ndarray, first: np.ndarray, Lw: np.
                     core: np.ndarray, quad: np.ndarray) -> None:
     """Per revolution ``r``: ``core[r] = VT[:, r, :Lw[r]] @ data[:, w].T`` (rows x
     channels), ``w`` its window of ``Lw[r]`` samples from ``data`` column ``first[r]``,
-    and ``quad[r]`` the sum of each row over the window alone (the quadrature of that
-    row's function, e.g. of ``exp(-j m theta)``; zero exactly for an exact rule).
+    and ``quad[r]`` the sum of each of the first ``quad.shape[1]`` rows over the window
+    alone (the quadrature of that row's function, e.g. of ``exp(-j m theta)``; zero
+    exactly for an exact rule).
 
     ``VT`` (rows, revolutions, stride) needs ``stride > max(Lw)``. The product reads
     the samples in place (the window is a strided view for BLAS); the row sums are
@@ -171,11 +172,12 @@ def window_products(VT: np.ndarray, data: np.ndarray, first: np.ndarray, Lw: np.
     for v, out, p, e, lw in zip(VT.transpose(1, 0, 2), core, first.tolist(),
                                 (first + Lw).tolist(), Lw.tolist()):
         matmul(v[:, :lw], dT[p:e], out)
-    n_rows, nr, stride = VT.shape
+    _, nr, stride = VT.shape
+    n_q = quad.shape[1]
     idx = np.empty(2 * nr, np.intp)
     idx[0::2] = np.arange(nr) * stride
     idx[1::2] = idx[0::2] + Lw
-    sums = np.add.reduceat(VT.reshape(n_rows, nr * stride), idx, axis=1)
+    sums = np.add.reduceat(VT[:n_q].reshape(n_q, nr * stride), idx, axis=1)
     quad[...] = sums[:, 0::2].T
 
 

@@ -394,7 +394,7 @@ class OrderTracker:
         # per revolution: rows x channels, and each row's quadrature alone (summed over
         # the same window, so it does not depend on how the revolutions are grouped)
         core = np.empty((nr, n_rows, n_ch), work)
-        quad = np.empty((nr, n_rows), work)
+        quad = np.empty((nr, 2 * n_o), work)  # the orders' rows (not W's)
         pp = np.empty((n_ch, nblk))
         rms = np.empty((n_ch, nblk))
         # groups of whole blocks of about GROUP_SAMPLES samples (work arrays in cache)
@@ -463,7 +463,7 @@ class OrderTracker:
         """For the revolutions with first samples ``na`` (the last entry the first
         sample after them), local-angle coefficients ``A`` and end weights ``ends``
         (:func:`~rundash.dsp.order_kernels.revolution_cubics`): ``core[r] = VT_r @
-        window_r.T`` (rows x channels) and ``quad[r]`` the rows' own quadratures, where
+        window_r.T`` (rows x channels) and ``quad[r]`` the order rows' own quadratures, where
         the rows of ``VT_r`` are ``W cos`` and ``W sin`` of each order's phase and ``W``
         itself, ``W`` the quadrature weights over the revolution's window of samples
         (read in place from ``data``, whose first sample is record index ``base``)."""
