@@ -271,6 +271,11 @@ class OrderTracker:
     def feed(self, block, start_index: int) -> OrderTrack:
         """Process a chunk ``block`` (n_channels, n_samples) whose first sample has index
         ``start_index`` in the record; return the blocks completed so far."""
+        return self._joined(self._parts(block, start_index))
+
+    def _parts(self, block, start_index: int) -> list[OrderTrack]:
+        """:meth:`feed` without the join: the non-empty tracks of its pieces, in order
+        (a caller that joins many chunks' tracks copies them once)."""
         x = np.asarray(block)
         if x.ndim == 1 and self.n_channels == 1:
             x = x[None, :]
@@ -296,13 +301,12 @@ class OrderTracker:
         if x.shape[1] > SUB_SAMPLES:
             # work through long chunks in pieces (bounds the per-piece arrays); the
             # results do not depend on it
-            parts = [self._feed(x[:, a:a + SUB_SAMPLES], start_index + a)
-                     for a in range(0, x.shape[1], SUB_SAMPLES)]
-            return self._joined([p for p in parts if p.n_blocks])
+            return [p for a in range(0, x.shape[1], SUB_SAMPLES)
+                    for p in self._feed(x[:, a:a + SUB_SAMPLES], start_index + a)]
         return self._feed(x, start_index)
 
-    def _feed(self, x: np.ndarray, start_index: int) -> OrderTrack:
-        """:meth:`feed` on a validated piece in the working precision."""
+    def _feed(self, x: np.ndarray, start_index: int) -> list[OrderTrack]:
+        """:meth:`_parts` on a validated piece in the working precision."""
         parts = []
         pos = self._tail_start  # record index of the first sample still needed
         if self._tail.shape[1]:
@@ -322,14 +326,14 @@ class OrderTracker:
             if keep < start_index:  # the whole chunk went into the head, still no block
                 self._tail = joined[:, keep - self._tail_start:].copy()
                 self._tail_start = keep
-                return self._joined(parts)
+                return parts
         off = pos - start_index
         tr, keep = self._process(x[:, off:], pos)
         if tr.n_blocks:
             parts.append(tr)
         self._tail = x[:, keep - start_index:].copy()
         self._tail_start = keep
-        return self._joined(parts)
+        return parts
 
     def finish(self) -> OrderTrack:
         """End of the record: release the tail (no block can complete without more data)."""
@@ -538,6 +542,6 @@ def track_orders(x, fs: float, profile: SpeedProfile, *, orders=(1, 2, 3, 4),
     tracker = OrderTracker(profile, fs, x.shape[0], orders=orders, revs_per_block=revs_per_block)
     parts = []
     for a in range(0, x.shape[1], CHUNK_SAMPLES):
-        parts.append(tracker.feed(x[:, a:a + CHUNK_SAMPLES], start_index + a))
+        parts.extend(tracker._parts(x[:, a:a + CHUNK_SAMPLES], start_index + a))
     parts.append(tracker.finish())
     return concat_tracks(parts)
