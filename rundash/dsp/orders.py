@@ -91,8 +91,10 @@ __all__ = ["OrderTrack", "OrderTracker", "track_orders", "concat_tracks", "first
 CHUNK_SAMPLES = 1 << 18
 #: Samples per piece inside :meth:`OrderTracker.feed`.
 SUB_SAMPLES = 1 << 18
-#: Samples per group of blocks computed together (keeps the work arrays in cache).
-GROUP_SAMPLES = 1 << 14
+#: Samples per group of blocks computed together (keeps the work arrays in cache; each
+#: group also costs a fixed number of numpy calls: on the benchmark's 16 channels 24576
+#: was faster than 16384 and 49152, see benchmarks/bench_orders.py).
+GROUP_SAMPLES = 3 << 13
 #: Highest multiple of the base order built by recurrence (see ``_exponentials``).
 MAX_POWER = 8
 
