@@ -47,8 +47,8 @@ from scipy import linalg, optimize
 from rundash.analysis.amplification import half_power
 from rundash.analysis.transient_model import (
     PRE_ROLL_DECAYS, ProbeReading, TransientFit, TransientMode, integration_intervals,
-    mode_means, sweep_history, unbalance_half_power_af, unbalance_peak_ratio,
-    windowed_history,
+    mode_means, mode_means_derivatives, sweep_history, unbalance_half_power_af,
+    unbalance_peak_ratio, windowed_history,
 )
 from rundash.dsp.peaks import peaks_with_prominence
 from rundash.errors import AnalysisError, invalid_value
@@ -103,6 +103,8 @@ class _Problem:
         self.res_cols = {"none": [], "constant": [np.ones_like(x) + 0j, 1j * np.ones_like(x)],
                          "linear": [np.ones_like(x) + 0j, 1j * np.ones_like(x), x + 0j, 1j * x]}[residual]
         self._cache: dict = {}
+        self._last = None  # the last linear least squares (see _lsq)
+        self._states: dict = {}  # (fn, zeta) -> the mode means' pass at the last design
         # modes held at given (fn, zeta): their columns are computed once
         self.fixed_cols = []
         for fn, z in fixed:
@@ -114,14 +116,38 @@ class _Problem:
         hit = self._cache.get(key)
         if hit is not None:
             return hit
-        a, b = mode_means(self.hist, iv, fn / 60.0, z)
+        keep = None
+        if iv is self.iv:  # the pass's values, for the derivatives at these parameters
+            keep = self._states[(fn, z)] = {}
+        a, b = mode_means(self.hist, iv, fn / 60.0, z, keep=keep)
+        return self._store(key, self._mode_cols(a, b))
+
+    def _mode_cols(self, a: np.ndarray, b: np.ndarray) -> list[np.ndarray]:
         a, b = self._avg(a[self.steps]), self._avg(b[self.steps])
-        cols = [a + b, 1j * (a - b)] if self.conj else [a, 1j * a]
+        return [a + b, 1j * (a - b)] if self.conj else [a, 1j * a]
+
+    def _store(self, key, val):
         # a finite-difference Jacobian moves one mode at a time: keep the others' columns
         if len(self._cache) > 64:
             self._cache.clear()
-        self._cache[key] = cols
-        return cols
+        self._cache[key] = val
+        return val
+
+    def _column_derivatives(self, fn: float, z: float) -> list[list[np.ndarray]]:
+        """The derivatives of a mode's two columns with respect to its two parameters
+        ``x = (fn / f_ref, ln zeta)``: ``[[dcol0, dcol1] per parameter]``."""
+        key = ("d", fn, z)
+        hit = self._cache.get(key)
+        if hit is not None:
+            return hit
+        a, b, daf, dbf, daz, dbz = mode_means_derivatives(self.hist, self.iv, fn / 60.0, z,
+                                                          keep=self._states.pop((fn, z), None))
+        if (fn, z, True) not in self._cache:  # the same values as mode_means's
+            self._store((fn, z, True), self._mode_cols(a, b))
+        # d/dx0 = f_ref / 60 d/dfn_hz; d/dx1 = zeta d/dzeta
+        cf = self.f_ref / 60.0
+        return self._store(key, [self._mode_cols(cf * daf, cf * dbf),
+                                 self._mode_cols(z * daz, z * dbz)])
 
     def _avg(self, a: np.ndarray) -> np.ndarray:
         if self.starts.size == self.steps.size:
@@ -139,8 +165,13 @@ class _Problem:
 
     def design(self, x: np.ndarray) -> np.ndarray:
         cols = []
-        for fn, z in self.params(x):
+        pars = self.params(x)
+        for fn, z in pars:
             cols += self._columns(self.iv, fn, z)
+        # the passes of the modes at x only (the Jacobian is asked for where the residuals
+        # were last evaluated): what is held does not grow with the evaluations
+        for key in [k for k in self._states if k not in pars]:
+            del self._states[key]
         cols += self.fixed_cols + self.res_cols
         d = np.column_stack(cols)
         return np.vstack([d.real, d.imag])
@@ -152,27 +183,76 @@ class _Problem:
         equations of the column-equilibrated design (Cholesky), with an SVD fallback when
         they are ill conditioned (measured here: 0.7 ms against 16 ms for numpy's QR and
         56 ms for ``lstsq`` on 9000 x 6 with 15 probes)."""
+        ls = self._lsq(x, Y)
+        return ls["D"], ls["coef"], ls["e"]
+
+    def _lsq(self, x: np.ndarray, Y: np.ndarray | None):
+        """The linear least squares at ``x`` (see :meth:`solve`) with its factorisation;
+        the last one is kept (the optimiser asks for the Jacobian where it last evaluated
+        the residuals)."""
+        last = self._last
+        if (last is not None and last["Y"] is Y and last["rw"] is self.rw
+                and np.array_equal(last["x"], x)):
+            return last
         D = self.design(x)
-        Y = self.Y if Y is None else Y
+        Yd = self.Y if Y is None else Y
         rw = np.concatenate([self.rw, self.rw])[:, None]  # row weights (local noise)
         Dw = D * rw
         norm = np.sqrt(np.einsum("ij,ij->j", Dw, Dw))
         norm[norm == 0] = 1.0
         Ds = Dw / norm
         G = Ds.T @ Ds
+        cf = None
         try:
             if np.linalg.cond(G) > 1e10:
                 raise np.linalg.LinAlgError("ill conditioned")
             cf = linalg.cho_factor(G, check_finite=False)
-            coef = linalg.cho_solve(cf, Ds.T @ (Y * rw), check_finite=False) / norm[:, None]
+            coef = linalg.cho_solve(cf, Ds.T @ (Yd * rw), check_finite=False) / norm[:, None]
         except (np.linalg.LinAlgError, linalg.LinAlgError):
-            coef, *_ = linalg.lstsq(Dw, Y * rw, check_finite=False)
-        return D, coef, Y - D @ coef
+            cf = None
+            coef, *_ = linalg.lstsq(Dw, Yd * rw, check_finite=False)
+        self._last = dict(x=np.array(x, dtype=float), Y=Y, rw=self.rw, D=D, coef=coef,
+                          e=Yd - D @ coef, Dw=Dw, Ds=Ds, norm=norm, cf=cf)
+        return self._last
 
     def fun(self, x: np.ndarray, Y: np.ndarray | None = None) -> np.ndarray:
         _, _, e = self.solve(x, Y)
         rw = np.concatenate([self.rw, self.rw])[:, None]
         return (e * rw * self.w[None, :]).ravel()
+
+    def jac(self, x: np.ndarray, Y: np.ndarray | None = None) -> np.ndarray:
+        """The Jacobian of :meth:`fun`, analytic: the derivative of the variable-projection
+        residual ``r = P_perp y`` of Golub and Pereyra (1973), in full,
+        ``dr = -P_perp dD c - D^+T dD^T r`` (``c`` the linear coefficients, ``D^+`` the
+        pseudo-inverse of the weighted design), with the mode columns' derivatives from
+        :func:`mode_means_derivatives`."""
+        ls = self._lsq(x, Y)
+        coef, Dw, Ds, norm, cf = ls["coef"], ls["Dw"], ls["Ds"], ls["norm"], ls["cf"]
+        rw = np.concatenate([self.rw, self.rw])[:, None]
+        ew = ls["e"] * rw  # weighted residual (2M, P)
+        n_col = Dw.shape[1]
+        if cf is not None:
+            def gsolve(v):  # (Dw^T Dw)^-1 v through the equilibrated factorisation
+                return linalg.cho_solve(cf, v / norm[:, None], check_finite=False) / norm[:, None]
+        else:
+            U, sv, Vt = linalg.svd(Dw, full_matrices=False, check_finite=False)
+            keep = sv > sv[0] * np.finfo(float).eps * max(Dw.shape) if sv.size else sv > 0
+            inv2 = np.where(keep, 1.0 / np.where(keep, sv, 1.0) ** 2, 0.0)
+
+            def gsolve(v):
+                return Vt.T @ (inv2[:, None] * (Vt @ v))
+        J = np.empty((ew.size, x.size))
+        for k, (fn, z) in enumerate(self.params(x)):
+            for j, (d0, d1) in enumerate(self._column_derivatives(fn, z)):
+                dd = np.column_stack([d0, d1])
+                dw = np.vstack([dd.real, dd.imag]) * rw  # (2M, 2) weighted
+                t1 = dw @ coef[2 * k:2 * k + 2]  # dD c, (2M, P)
+                v = np.zeros((n_col, ew.shape[1]))
+                v[2 * k:2 * k + 2] = dw.T @ ew  # dD^T r
+                # -P_perp dD c - D G^-1 dD^T r = -dD c + D G^-1 (D^T dD c - dD^T r)
+                dr = Dw @ gsolve(Dw.T @ t1 - v) - t1
+                J[:, 2 * k + j] = (dr * self.w[None, :]).ravel()
+        return J
 
     def local_noise(self, e: np.ndarray, window: int = 31):
         """Noise of the group means from second differences of the residuals ``e`` (2G, P).
@@ -207,7 +287,7 @@ def _fit_x(prob: _Problem, x0: np.ndarray, lo: np.ndarray, hi: np.ndarray, Y=Non
     x0 = np.clip(x0, lo + 1e-9, hi - 1e-9)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        return optimize.least_squares(prob.fun, x0, bounds=(lo, hi), args=(Y,),
+        return optimize.least_squares(prob.fun, x0, jac=prob.jac, bounds=(lo, hi), args=(Y,),
                                       x_scale="jac", max_nfev=max_nfev, xtol=1e-9, ftol=1e-9)
 
 

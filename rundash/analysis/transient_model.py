@@ -70,7 +70,7 @@ from rundash.errors import AnalysisError, invalid_value
 
 __all__ = [
     "SweepHistory", "sweep_history", "windowed_history", "mode_response", "mode_means",
-    "integration_intervals",
+    "mode_means_derivatives", "integration_intervals",
     "unbalance_peak_ratio", "unbalance_half_power_af", "TransientMode", "ProbeReading",
     "TransientFit", "PRE_ROLL_DECAYS",
 ]
@@ -330,7 +330,7 @@ def _exp_rows(z: np.ndarray, pair: bool) -> np.ndarray:
     return out
 
 
-def _recursion(lamh: np.ndarray, g: np.ndarray, u0: np.ndarray) -> np.ndarray:
+def _recursion(lamh: np.ndarray, g: np.ndarray, u0: np.ndarray, chunks: list | None = None) -> np.ndarray:
     """``u[:, k+1] = exp(lamh[:, k]) u[:, k] + g[:, k]``, ``u[:, 0] = u0``, rows at once.
 
     Chunked cumulative sums: inside a chunk ``u_k = e^{L_k} (u_s + sum_j g_j e^{-L_{j+1}})``
@@ -338,44 +338,91 @@ def _recursion(lamh: np.ndarray, g: np.ndarray, u0: np.ndarray) -> np.ndarray:
     reaches ``_CHUNK_DECAY`` e-folds, far from overflow. The rounding error stays at
     ``eps / zeta`` of the response whatever the chunk length (the sum is dominated by its
     latest terms).
+
+    ``chunks``: an empty list receives the chunks and their growth factors ``e^{L_k}``,
+    which depend on ``lamh`` only; a filled one (from the same ``lamh``) is used instead of
+    computing them again (another ``g`` through the same poles).
     """
     rows, n = g.shape
+    u = np.empty((rows, n + 1), np.complex128)
+    u[:, 0] = u0
+    if not chunks:
+        chunks = _chunks(lamh, chunks)
+    for s, e, grow in chunks:
+        if e == s + 1:
+            u[:, e] = grow * u[:, s] + g[:, s]
+        else:
+            acc = np.cumsum(g[:, s:e] / grow, axis=1)
+            u[:, s + 1:e + 1] = grow * (u[:, s:s + 1] + acc)
+    return u
+
+
+def _chunks(lamh: np.ndarray, out: list | None = None) -> list:
+    """The chunks ``(s, e, e^{L})`` of :func:`_recursion` (appended to ``out`` if given)."""
+    out = [] if out is None else out
+    rows, n = lamh.shape
     pair = _conjugate_pair(lamh)
     L = np.concatenate([np.zeros((rows, 1), np.complex128), np.cumsum(lamh, axis=1)], axis=1)
     decay = np.max(-L.real, axis=0)  # non-decreasing
-    u = np.empty((rows, n + 1), np.complex128)
-    u[:, 0] = u0
     s = 0
     while s < n:
         e = int(np.searchsorted(decay, decay[s] + _CHUNK_DECAY, side="right")) - 1
         e = min(max(e, s + 1), n)
         if e == s + 1:
-            u[:, e] = np.exp(lamh[:, s]) * u[:, s] + g[:, s]
+            out.append((s, e, np.exp(lamh[:, s])))
         else:
             loc = L[:, s + 1:e + 1] - L[:, s:s + 1]
-            grow = _exp_rows(loc, pair)
-            acc = np.cumsum(g[:, s:e] / grow, axis=1)
-            u[:, s + 1:e + 1] = grow * (u[:, s:s + 1] + acc)
+            out.append((s, e, _exp_rows(loc, pair)))
         s = e
-    return u
+    return out
 
 
-def _pole_means(hist: SweepHistory, lo: int, hi: int, lam: np.ndarray):
+def _pole_means(hist: SweepHistory, lo: int, hi: int, lam: np.ndarray, deriv: bool = False,
+                state: dict | None = None):
     """Block means of ``u`` and of ``conj(u) e^{-2i Omega tau}`` for steps lo..hi-1, one
-    row per pole in ``lam``."""
+    row per pole in ``lam``.
+
+    With ``deriv``, also their derivatives with respect to the pole: ``d ubar / d lambda``
+    and ``dq / d lambda`` where ``cbar = conj(q)`` (``ubar`` and ``q`` are analytic in
+    ``lambda``), from the derivative of the recursion,
+    ``u'[k+1] = E u'[k] + h E beta + alpha' (1 - E)``, ``alpha' = -alpha / mu``.
+
+    ``state``: a dict that keeps the pass's intermediate values (without ``deriv``), or
+    that holds them from a pass through the same steps and poles (with ``deriv``: the
+    derivatives then take them instead of repeating the pass)."""
     lam = np.asarray(lam, np.complex128)[:, None]
     om = hist.omega[None, lo:hi]
     h = hist.h_s[None, lo:hi]
-    F = hist.force[None, lo:hi]
-    mu = lam - 1j * om
-    alpha = -F / mu  # steady state of u in each step
-    lamh = lam * h
-    E = _exp_rows(lamh, _conjugate_pair(lamh))
-    u = _recursion(lamh, alpha * (1.0 - E), alpha[:, 0])
-    beta = u[:, :-1] - alpha
+    kept = (deriv and state is not None and state.get("key") == (lo, hi)
+            and np.array_equal(state.get("lam"), lam))
+    if kept:
+        mu, alpha, lamh, E, beta, chunks = (state[k] for k in ("mu", "alpha", "lamh", "E", "beta",
+                                                                "chunks"))
+    else:
+        F = hist.force[None, lo:hi]
+        mu = lam - 1j * om
+        alpha = -F / mu  # steady state of u in each step
+        lamh = lam * h
+        E = _exp_rows(lamh, _conjugate_pair(lamh))
+        chunks = []
+        u = _recursion(lamh, alpha * (1.0 - E), alpha[:, 0], chunks)
+        beta = u[:, :-1] - alpha
+        if state is not None and not deriv:
+            state.update(key=(lo, hi), lam=lam, mu=mu, alpha=alpha, lamh=lamh, E=E, beta=beta,
+                         chunks=chunks)
     ubar = alpha + beta * (E - 1.0) / (mu * h)
     cbar = np.conj(beta) * (np.conj(E) - 1.0) / ((np.conj(lam) - 1j * om) * h)
-    return ubar, cbar
+    if not deriv:
+        return ubar, cbar
+    r = (E - 1.0) / (mu * h)
+    nu = lam + 1j * om  # conj(conj(lambda) - i Omega)
+    s = (E - 1.0) / (nu * h)
+    dalpha = -alpha / mu
+    du = _recursion(lamh, h * E * beta + dalpha * (1.0 - E), dalpha[:, 0], chunks)
+    dbeta = du[:, :-1] - dalpha
+    dubar = dalpha + dbeta * r + beta * (E - r) / mu
+    dq = dbeta * s + beta * (E - s) / nu
+    return ubar, cbar, dubar, dq
 
 
 def _poles(fn_hz: float, zeta: float) -> tuple[complex, complex]:
@@ -398,17 +445,52 @@ def integration_intervals(hist: SweepHistory, steps: np.ndarray, pre_s: float) -
     return [(int(lo[a]), int(hi[b])) for a, b in zip(first, last)]
 
 
-def mode_means(hist: SweepHistory, intervals, fn_hz: float, zeta: float):
-    """``A`` and ``B`` block means of one mode over the steps of ``intervals``."""
+def mode_means(hist: SweepHistory, intervals, fn_hz: float, zeta: float,
+               keep: dict | None = None):
+    """``A`` and ``B`` block means of one mode over the steps of ``intervals``.
+
+    ``keep``: a dict that receives each interval's intermediate values, for
+    :func:`mode_means_derivatives` at the same ``(fn_hz, zeta)``."""
     lp, lm = _poles(fn_hz, zeta)
     d = lp - lm
     a = np.zeros(hist.n_steps, np.complex128)
     b = np.zeros(hist.n_steps, np.complex128)
     for lo, hi in intervals:
-        ub, cb = _pole_means(hist, lo, hi, np.array([lp, lm]))
+        st = None if keep is None else keep.setdefault((lo, hi), {})
+        ub, cb = _pole_means(hist, lo, hi, np.array([lp, lm]), state=st)
         a[lo:hi] = (ub[0] - ub[1]) / d
         b[lo:hi] = (cb[0] - cb[1]) / np.conj(d)
     return a, b
+
+
+def mode_means_derivatives(hist: SweepHistory, intervals, fn_hz: float, zeta: float,
+                           keep: dict | None = None):
+    """:func:`mode_means` and its derivatives with respect to ``fn_hz`` and ``zeta``:
+    ``(a, b, da/dfn, db/dfn, da/dzeta, db/dzeta)`` (zero outside ``intervals``).
+
+    From the poles ``lambda = 2 pi fn (-zeta +- sqrt(zeta^2 - 1))``: ``d lambda / d fn =
+    lambda / fn``, ``d lambda / d zeta = 2 pi fn (-1 +- zeta / sqrt(zeta^2 - 1))``, and the
+    pole means' derivatives (:func:`_pole_means`); ``a = (ubar+ - ubar-) / d`` and
+    ``b = conj((q+ - q-) / d)`` with ``d = lambda+ - lambda-``. ``keep``: the dict a
+    :func:`mode_means` call at the same ``(fn_hz, zeta)`` filled (its pass is not repeated)."""
+    lp, lm = _poles(fn_hz, zeta)
+    w = 2.0 * np.pi * fn_hz
+    root = np.sqrt(complex(zeta * zeta - 1.0))
+    d = lp - lm
+    # (d lambda+, d lambda-) per parameter: fn_hz, zeta
+    dl = ((lp / fn_hz, lm / fn_hz), (w * (-1.0 + zeta / root), w * (-1.0 - zeta / root)))
+    out = [np.zeros(hist.n_steps, np.complex128) for _ in range(6)]
+    for lo, hi in intervals:
+        st = None if keep is None else keep.get((lo, hi))
+        ub, cb, dub, dq = _pole_means(hist, lo, hi, np.array([lp, lm]), deriv=True, state=st)
+        a = (ub[0] - ub[1]) / d
+        b = (cb[0] - cb[1]) / np.conj(d)
+        out[0][lo:hi], out[1][lo:hi] = a, b
+        for j, (dp, dm) in enumerate(dl):
+            dd = (dp - dm) / d
+            out[2 + 2 * j][lo:hi] = (dub[0] * dp - dub[1] * dm) / d - a * dd
+            out[3 + 2 * j][lo:hi] = np.conj((dq[0] * dp - dq[1] * dm) / d) - b * np.conj(dd)
+    return tuple(out)
 
 
 def mode_response(time_s, speed_rpm, fn_rpm: float, zeta: float, residue=1.0 + 0j, *,
