@@ -396,8 +396,8 @@ def _pole_means(hist: SweepHistory, lo: int, hi: int, lam: np.ndarray, deriv: bo
     kept = (deriv and state is not None and state.get("key") == (lo, hi)
             and np.array_equal(state.get("lam"), lam))
     if kept:
-        mu, alpha, lamh, E, beta, chunks = (state[k] for k in ("mu", "alpha", "lamh", "E", "beta",
-                                                                "chunks"))
+        mu, alpha, lamh, E, beta, chunks, ubar, cbar = (
+            state[k] for k in ("mu", "alpha", "lamh", "E", "beta", "chunks", "ubar", "cbar"))
     else:
         F = hist.force[None, lo:hi]
         mu = lam - 1j * om
@@ -407,11 +407,11 @@ def _pole_means(hist: SweepHistory, lo: int, hi: int, lam: np.ndarray, deriv: bo
         chunks = []
         u = _recursion(lamh, alpha * (1.0 - E), alpha[:, 0], chunks)
         beta = u[:, :-1] - alpha
+        ubar = alpha + beta * (E - 1.0) / (mu * h)
+        cbar = np.conj(beta) * (np.conj(E) - 1.0) / ((np.conj(lam) - 1j * om) * h)
         if state is not None and not deriv:
             state.update(key=(lo, hi), lam=lam, mu=mu, alpha=alpha, lamh=lamh, E=E, beta=beta,
-                         chunks=chunks)
-    ubar = alpha + beta * (E - 1.0) / (mu * h)
-    cbar = np.conj(beta) * (np.conj(E) - 1.0) / ((np.conj(lam) - 1j * om) * h)
+                         chunks=chunks, ubar=ubar, cbar=cbar)
     if not deriv:
         return ubar, cbar
     r = (E - 1.0) / (mu * h)
