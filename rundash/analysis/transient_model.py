@@ -362,8 +362,15 @@ def _chunks(lamh: np.ndarray, out: list | None = None) -> list:
     out = [] if out is None else out
     rows, n = lamh.shape
     pair = _conjugate_pair(lamh)
-    L = np.concatenate([np.zeros((rows, 1), np.complex128), np.cumsum(lamh, axis=1)], axis=1)
-    decay = np.max(-L.real, axis=0)  # non-decreasing
+    L = np.empty((rows, n + 1), np.complex128)
+    L[:, 0] = 0.0
+    if pair:  # the sums of a conjugate row are the conjugates of the sums
+        np.cumsum(lamh[0], out=L[0, 1:])
+        np.conjugate(L[0], out=L[1])
+        decay = -L[0].real  # non-decreasing
+    else:
+        np.cumsum(lamh, axis=1, out=L[:, 1:])
+        decay = np.max(-L.real, axis=0)  # non-decreasing
     s = 0
     while s < n:
         e = int(np.searchsorted(decay, decay[s] + _CHUNK_DECAY, side="right")) - 1
@@ -400,15 +407,19 @@ def _pole_means(hist: SweepHistory, lo: int, hi: int, lam: np.ndarray, deriv: bo
             state[k] for k in ("mu", "alpha", "lamh", "E", "beta", "chunks", "ubar", "cbar"))
     else:
         F = hist.force[None, lo:hi]
-        mu = lam - 1j * om
+        iom = 1j * om
+        mu = lam - iom
         alpha = -F / mu  # steady state of u in each step
         lamh = lam * h
         E = _exp_rows(lamh, _conjugate_pair(lamh))
         chunks = []
         u = _recursion(lamh, alpha * (1.0 - E), alpha[:, 0], chunks)
         beta = u[:, :-1] - alpha
-        ubar = alpha + beta * (E - 1.0) / (mu * h)
-        cbar = np.conj(beta) * (np.conj(E) - 1.0) / ((np.conj(lam) - 1j * om) * h)
+        bm = beta * (E - 1.0)
+        ubar = alpha + bm / (mu * h)
+        # conj(beta) (conj(E) - 1) / ((conj(lambda) - i Omega) h), as the conjugate (the
+        # same rounding: conjugation commutes with complex arithmetic)
+        cbar = np.conj(bm / ((lam + iom) * h))
         if state is not None and not deriv:
             state.update(key=(lo, hi), lam=lam, mu=mu, alpha=alpha, lamh=lamh, E=E, beta=beta,
                          chunks=chunks, ubar=ubar, cbar=cbar)
