@@ -8,9 +8,10 @@ frequencies, damping ratios and complex participations from measured 1X vectors
 Given the natural frequencies and damping ratios, the model is linear in the complex
 participations and residual terms; they are eliminated by linear least squares (the
 variable projection method of Golub and Pereyra), and only ``(omega_k, zeta_k)`` are
-searched by :func:`scipy.optimize.least_squares`. All probes of a run share one design
-matrix, so one set of modes costs one factorisation per evaluation whatever the number of
-probes. Probes are weighted by their own noise level (re-estimated from the residuals).
+searched by :func:`scipy.optimize.least_squares`, with the analytic Jacobian of the
+projected residual (Golub and Pereyra, in full) from the derivatives of the mode columns
+with respect to the poles. All probes of a run share one design matrix, so one set of
+modes costs one factorisation per evaluation whatever the number of probes. Probes are weighted by their own noise level (re-estimated from the residuals).
 
 Readings
 --------
@@ -127,7 +128,7 @@ class _Problem:
         return [a + b, 1j * (a - b)] if self.conj else [a, 1j * a]
 
     def _store(self, key, val):
-        # a finite-difference Jacobian moves one mode at a time: keep the others' columns
+        # columns (and derivatives) of recent parameters: a mode held, a repeated point
         if len(self._cache) > 64:
             self._cache.clear()
         self._cache[key] = val
