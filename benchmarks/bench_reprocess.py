@@ -41,8 +41,12 @@ N_RUNS, SECONDS, FS = 12, 120, 8192
 
 
 def _warm_up(path: str) -> None:
+    """A worker's one-time start-up, before the clock: the pipeline's imports, scipy.signal
+    among them (imported by the first run with velocity probes, for the band filter of the
+    velocity overall: about 0.3 s once per process), and the database opened."""
     from rundash.workflows.batch import _database
     import rundash.workflows.findings, rundash.workflows.pipeline  # noqa: F401
+    import scipy.signal  # noqa: F401
     _database(path)
 
 
