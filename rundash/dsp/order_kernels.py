@@ -182,15 +182,22 @@ def window_products(VT: np.ndarray, data: np.ndarray, first: np.ndarray, Lw: np.
 
 
 def direct_levels(seg: np.ndarray, starts: np.ndarray, pp: np.ndarray, rms: np.ndarray,
-                  sq: np.ndarray) -> None:
+                  sq: np.ndarray, *, want_pp: bool = True, want_rms: bool = True) -> None:
     """Direct p-p and rms of the blocks with first samples ``starts`` (record indices;
     the last entry is the first sample after them) over their own samples, ``seg`` the
-    samples from ``starts[0]`` on and ``sq`` a work array of its shape."""
+    samples from ``starts[0]`` on and ``sq`` a work array of its shape. A level not
+    wanted is set to NaN (its passes over the samples are not made)."""
     offs = starts[:-1] - starts[0]
-    # the square first, while the work array ``sq`` is still in cache for its sums
-    np.square(seg, out=sq)
-    rms[...] = np.add.reduceat(sq, offs, axis=1)
-    rms /= np.diff(starts)
-    np.sqrt(rms, out=rms)
-    pp[...] = np.maximum.reduceat(seg, offs, axis=1)
-    pp -= np.minimum.reduceat(seg, offs, axis=1)
+    if want_rms:
+        # the square first, while the work array ``sq`` is still in cache for its sums
+        np.square(seg, out=sq)
+        rms[...] = np.add.reduceat(sq, offs, axis=1)
+        rms /= np.diff(starts)
+        np.sqrt(rms, out=rms)
+    else:
+        rms[...] = np.nan
+    if want_pp:
+        pp[...] = np.maximum.reduceat(seg, offs, axis=1)
+        pp -= np.minimum.reduceat(seg, offs, axis=1)
+    else:
+        pp[...] = np.nan

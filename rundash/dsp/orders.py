@@ -115,9 +115,11 @@ class OrderTrack:
         Complex phasors ``c`` (:mod:`rundash.conventions`): ``|c|`` is the peak
         amplitude in the channel's units, ``lag_deg_from_phasor(c)`` the phase lag.
     direct_pp : ndarray, shape (n_channels, n_blocks)
-        Direct (unfiltered) peak-to-peak (max - min) of the samples in the block.
+        Direct (unfiltered) peak-to-peak (max - min) of the samples in the block (NaN
+        for a channel whose tracker was asked for its rms alone, ``direct="rms"``).
     direct_rms : ndarray, shape (n_channels, n_blocks)
-        Direct rms of the samples in the block.
+        Direct rms of the samples in the block (NaN for a channel asked for its p-p
+        alone, ``direct="pp"``).
     rev_index : ndarray of int64, shape (n_blocks,)
         Revolution (reference event index) where each block starts.
     """
@@ -205,6 +207,27 @@ def first_samples(t_k, fs: float) -> np.ndarray:
     return n.astype(np.int64)
 
 
+#: What :class:`OrderTracker`'s ``direct`` may ask of a channel.
+DIRECT_LEVELS = ("both", "pp", "rms")
+
+
+def _level_runs(direct, n_channels: int) -> list[tuple[int, int, str]]:
+    """``direct`` (one of :data:`DIRECT_LEVELS`, or one per channel) as runs of adjacent
+    channels that ask for the same levels: ``(first, end, levels)``."""
+    per = [direct] * n_channels if isinstance(direct, str) else list(direct)
+    if len(per) != n_channels or any(not isinstance(d, str) or d not in DIRECT_LEVELS
+                                     for d in per):
+        raise DspError(invalid_value("direct", direct, f"one of {DIRECT_LEVELS}, or one of "
+                                     f"them for each of the {n_channels} channels"))
+    runs: list[tuple[int, int, str]] = []
+    for i, d in enumerate(per):
+        if runs and runs[-1][2] == d:
+            runs[-1] = (runs[-1][0], i + 1, d)
+        else:
+            runs.append((i, i + 1, d))
+    return runs
+
+
 class OrderTracker:
     """Streaming computed order tracking over consecutive chunks of a record.
 
@@ -220,6 +243,11 @@ class OrderTracker:
         Orders to track (positive; see the module doc for half orders).
     revs_per_block : int
         Whole revolutions per block.
+    direct : str or sequence of str
+        The direct levels to compute, for every channel or one entry per channel:
+        ``"both"`` (default), ``"pp"`` (peak-to-peak alone, e.g. a proximity probe's
+        level) or ``"rms"`` (alone, e.g. a seismic probe's). A level not asked for is
+        NaN in the track; the p-p alone saves two of the four passes over the samples.
 
     Notes
     -----
@@ -229,7 +257,7 @@ class OrderTracker:
     """
 
     def __init__(self, profile: SpeedProfile, fs: float, n_channels: int, *,
-                 orders=(1, 2, 3, 4), revs_per_block: int = 1):
+                 orders=(1, 2, 3, 4), revs_per_block: int = 1, direct="both"):
         if not isinstance(profile, SpeedProfile):
             raise DspError(invalid_value("profile", type(profile).__name__, "a SpeedProfile"))
         if not (np.isfinite(fs) and fs > 0):
@@ -240,6 +268,7 @@ class OrderTracker:
         self.profile = profile
         self.fs = float(fs)
         self.n_channels = int(n_channels)
+        self._level_runs = _level_runs(direct, self.n_channels)
         rev_t = profile._t
         min_rev_s = float(np.min(np.diff(rev_t)))
         samples_per_cycle = fs * min_rev_s / float(np.max(self.orders))
@@ -415,8 +444,11 @@ class OrderTracker:
             # done with before the products fill the grid, so both use one buffer
             # (less in cache)
             seg = data[:, int(starts[b]) - base:int(starts[e]) - base]
-            kern.direct_levels(seg, starts[b:e + 1], pp[:, b:e], rms[:, b:e],
-                               self._work("grid", seg.shape, work))
+            for c0, c1, want in self._level_runs:  # channels asking for the same levels
+                sq = self._work("grid", (c1 - c0, seg.shape[1]), work)
+                kern.direct_levels(seg[c0:c1], starts[b:e + 1], pp[c0:c1, b:e],
+                                   rms[c0:c1, b:e], sq, want_pp=want != "rms",
+                                   want_rms=want != "pp")
             self._products(data, base, na[r:re + 1], coef[:, r:re], ends[:, r:re],
                            core[r:re], quad[r:re])
             b = e
@@ -498,7 +530,7 @@ class OrderTracker:
 
 
 def track_orders(x, fs: float, profile: SpeedProfile, *, orders=(1, 2, 3, 4),
-                 revs_per_block: int = 1, start_index: int = 0) -> OrderTrack:
+                 revs_per_block: int = 1, start_index: int = 0, direct="both") -> OrderTrack:
     """Computed order tracking of one or more channels.
 
     Parameters
@@ -515,6 +547,8 @@ def track_orders(x, fs: float, profile: SpeedProfile, *, orders=(1, 2, 3, 4),
         Whole revolutions per block.
     start_index : int
         Record index of the first sample of ``x`` (its time is ``start_index / fs``).
+    direct : str or sequence of str
+        The direct levels to compute (see :class:`OrderTracker`).
 
     Returns
     -------
@@ -541,7 +575,8 @@ def track_orders(x, fs: float, profile: SpeedProfile, *, orders=(1, 2, 3, 4),
     if x.ndim != 2:
         raise DspError(invalid_value("x", f"array of shape {x.shape}",
                                      "shape (n_channels, n_samples)"))
-    tracker = OrderTracker(profile, fs, x.shape[0], orders=orders, revs_per_block=revs_per_block)
+    tracker = OrderTracker(profile, fs, x.shape[0], orders=orders, revs_per_block=revs_per_block,
+                           direct=direct)
     parts = []
     for a in range(0, x.shape[1], CHUNK_SAMPLES):
         parts.extend(tracker._parts(x[:, a:a + CHUNK_SAMPLES], start_index + a))

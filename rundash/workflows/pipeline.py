@@ -558,8 +558,11 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
         notes.append(profile.note)
     progress(1.0, "tach")
 
-    tracker = dsp_orders.OrderTracker(profile, fs, len(probes), orders=params.orders,
-                                      revs_per_block=params.revs_per_block)
+    # each probe's direct level only: p-p of a proximity probe, rms of the others (what
+    # the findings judge and the tracks keep; the p-p alone saves two passes)
+    tracker = dsp_orders.OrderTracker(
+        profile, fs, len(probes), orders=params.orders, revs_per_block=params.revs_per_block,
+        direct=["pp" if c.kind == "proximity" else "rms" for c in probes])
     with timer("cascade"):
         row_t, row_rpm = spectra.cascade_plan(profile, speed_step_rpm=params.cascade_speed_step_rpm,
                                               max_rows=params.cascade_max_rows)

@@ -73,6 +73,35 @@ class TestTrackOrdersConstantSpeed:
         rms_ac_dc = np.sqrt(2.0 ** 2 / 2 + 1.0)
         assert_allclose(tr.direct_rms[0], rms_ac_dc, rtol=2.0 / spr)
 
+    def test_direct_levels_asked_for_per_channel(self):
+        # direct="pp" / "rms" / per channel: the levels asked for are the same values as
+        # with both computed (the same reductions over the same samples), the others NaN;
+        # checked against the closed form of the sine test above as well.
+        fs, spr = 4000.0, 160
+        prof = speed_profile(np.arange(31) * spr / fs)
+        theta = np.arange(30 * spr + 1) / spr
+        x = np.stack([synth.probe_signal(theta, a, 33.0, offset=1.0) for a in (2.0, 1.0, 3.0)])
+        both = track_orders(x, fs, prof, orders=(1, 2))
+        assert np.all(np.abs(both.direct_pp[0] - 4.0) <= 4.0 * (1 - np.cos(np.pi / spr)) + 1e-12)
+        pp = track_orders(x, fs, prof, orders=(1, 2), direct="pp")
+        assert np.array_equal(pp.direct_pp, both.direct_pp)
+        assert np.all(np.isnan(pp.direct_rms))
+        assert np.array_equal(pp.vectors, both.vectors)
+        mixed = track_orders(x, fs, prof, orders=(1, 2), direct=["pp", "rms", "pp"])
+        assert np.array_equal(mixed.direct_pp[[0, 2]], both.direct_pp[[0, 2]])
+        assert np.array_equal(mixed.direct_rms[1], both.direct_rms[1])
+        assert np.all(np.isnan(mixed.direct_rms[[0, 2]])) and np.all(np.isnan(mixed.direct_pp[1]))
+        assert np.array_equal(mixed.vectors, both.vectors)
+        rms = track_orders(x, fs, prof, orders=(1, 2), direct="rms")
+        assert np.array_equal(rms.direct_rms, both.direct_rms)
+        assert_allclose(rms.direct_rms[2], np.sqrt(3.0 ** 2 / 2 + 1.0), rtol=2.0 / spr)
+
+    @pytest.mark.parametrize("direct", ["peak", ["pp", "rms"], ["pp", "rms", 3]])
+    def test_direct_levels_asked_wrongly(self, direct):
+        prof = speed_profile(np.arange(31) * 160 / 4000.0)
+        with pytest.raises(DspError, match="direct.*one of"):
+            OrderTracker(prof, 4000.0, 3, direct=direct)
+
     def test_large_dc_offset_does_not_leak(self):
         # A gap voltage 1000 x the vibration: leakage of DC into 1X stays at rounding
         # level in float64 (common practice, no source: proximity probes ride on a large
