@@ -120,11 +120,12 @@ class _Problem:
         keep = None
         if iv is self.iv:  # the pass's values, for the derivatives at these parameters
             keep = self._states[(fn, z)] = {}
-        a, b = mode_means(self.hist, iv, fn / 60.0, z, keep=keep)
+        a, b = mode_means(self.hist, iv, fn / 60.0, z, keep=keep, at=self.steps)
         return self._store(key, self._mode_cols(a, b))
 
     def _mode_cols(self, a: np.ndarray, b: np.ndarray) -> list[np.ndarray]:
-        a, b = self._avg(a[self.steps]), self._avg(b[self.steps])
+        """The two columns of a mode from its means at the fitted steps."""
+        a, b = self._avg(a), self._avg(b)
         return [a + b, 1j * (a - b)] if self.conj else [a, 1j * a]
 
     def _store(self, key, val):
@@ -142,7 +143,8 @@ class _Problem:
         if hit is not None:
             return hit
         a, b, daf, dbf, daz, dbz = mode_means_derivatives(self.hist, self.iv, fn / 60.0, z,
-                                                          keep=self._states.pop((fn, z), None))
+                                                          keep=self._states.pop((fn, z), None),
+                                                          at=self.steps)
         if (fn, z, True) not in self._cache:  # the same values as mode_means's
             self._store((fn, z, True), self._mode_cols(a, b))
         # d/dx0 = f_ref / 60 d/dfn_hz; d/dx1 = zeta d/dzeta

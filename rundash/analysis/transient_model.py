@@ -78,6 +78,8 @@ __all__ = [
 #: Decay times integrated before the first fitted block (steady start, error e^-10).
 PRE_ROLL_DECAYS = 10.0
 _CHUNK_DECAY = 500.0  # e-folds per cumulative-sum chunk (e^500 x |g| stays below 1e300)
+_PIECE_STEPS = 8192  # steps the mode means pass through at once (see _pieces)
+_KEEP_STEPS = 16384  # steps whose pass mode_means keeps for its derivatives
 
 
 # --------------------------------------------------------------------------- closed forms
@@ -385,14 +387,19 @@ def _chunks(lamh: np.ndarray, out: list | None = None) -> list:
 
 
 def _pole_means(hist: SweepHistory, lo: int, hi: int, lam: np.ndarray, deriv: bool = False,
-                state: dict | None = None):
+                state: dict | None = None, u0=None, du0=None):
     """Block means of ``u`` and of ``conj(u) e^{-2i Omega tau}`` for steps lo..hi-1, one
-    row per pole in ``lam``.
+    row per pole in ``lam``, and ``u`` after the last step (to carry into the next steps).
+
+    ``u0``: ``u`` at the start of step lo (default: the steady state of step lo, the
+    start of an integration interval).
 
     With ``deriv``, also their derivatives with respect to the pole: ``d ubar / d lambda``
     and ``dq / d lambda`` where ``cbar = conj(q)`` (``ubar`` and ``q`` are analytic in
     ``lambda``), from the derivative of the recursion,
-    ``u'[k+1] = E u'[k] + h E beta + alpha' (1 - E)``, ``alpha' = -alpha / mu``.
+    ``u'[k+1] = E u'[k] + h E beta + alpha' (1 - E)``, ``alpha' = -alpha / mu``, and
+    ``u'`` after the last step (``du0``: at the start, default its steady state).
+    Returns ``(ubar, cbar, u_end)`` or ``(ubar, cbar, dubar, dq, u_end, du_end)``.
 
     ``state``: a dict that keeps the pass's intermediate values (without ``deriv``), or
     that holds them from a pass through the same steps and poles (with ``deriv``: the
@@ -403,8 +410,9 @@ def _pole_means(hist: SweepHistory, lo: int, hi: int, lam: np.ndarray, deriv: bo
     kept = (deriv and state is not None and state.get("key") == (lo, hi)
             and np.array_equal(state.get("lam"), lam))
     if kept:
-        mu, alpha, lamh, E, beta, chunks, ubar, cbar = (
-            state[k] for k in ("mu", "alpha", "lamh", "E", "beta", "chunks", "ubar", "cbar"))
+        mu, alpha, lamh, E, beta, chunks, ubar, cbar, u_end = (
+            state[k] for k in ("mu", "alpha", "lamh", "E", "beta", "chunks", "ubar", "cbar",
+                               "u_end"))
     else:
         F = hist.force[None, lo:hi]
         iom = 1j * om
@@ -413,8 +421,10 @@ def _pole_means(hist: SweepHistory, lo: int, hi: int, lam: np.ndarray, deriv: bo
         lamh = lam * h
         E = _exp_rows(lamh, _conjugate_pair(lamh))
         chunks = []
-        u = _recursion(lamh, alpha * (1.0 - E), alpha[:, 0], chunks)
+        u = _recursion(lamh, alpha * (1.0 - E), alpha[:, 0] if u0 is None else u0, chunks)
+        u_end = u[:, -1].copy()
         beta = u[:, :-1] - alpha
+        del u
         bm = beta * (E - 1.0)
         ubar = alpha + bm / (mu * h)
         # conj(beta) (conj(E) - 1) / ((conj(lambda) - i Omega) h), as the conjugate (the
@@ -422,18 +432,52 @@ def _pole_means(hist: SweepHistory, lo: int, hi: int, lam: np.ndarray, deriv: bo
         cbar = np.conj(bm / ((lam + iom) * h))
         if state is not None and not deriv:
             state.update(key=(lo, hi), lam=lam, mu=mu, alpha=alpha, lamh=lamh, E=E, beta=beta,
-                         chunks=chunks, ubar=ubar, cbar=cbar)
+                         chunks=chunks, ubar=ubar, cbar=cbar, u_end=u_end)
     if not deriv:
-        return ubar, cbar
+        return ubar, cbar, u_end
     r = (E - 1.0) / (mu * h)
     nu = lam + 1j * om  # conj(conj(lambda) - i Omega)
     s = (E - 1.0) / (nu * h)
     dalpha = -alpha / mu
-    du = _recursion(lamh, h * E * beta + dalpha * (1.0 - E), dalpha[:, 0], chunks)
+    du = _recursion(lamh, h * E * beta + dalpha * (1.0 - E),
+                    dalpha[:, 0] if du0 is None else du0, chunks)
+    du_end = du[:, -1].copy()
     dbeta = du[:, :-1] - dalpha
+    del du
     dubar = dalpha + dbeta * r + beta * (E - r) / mu
     dq = dbeta * s + beta * (E - s) / nu
-    return ubar, cbar, dubar, dq
+    return ubar, cbar, dubar, dq, u_end, du_end
+
+
+def _pieces(intervals):
+    """The steps of ``intervals`` in pieces ``(lo, hi, first)`` of at most
+    ``_PIECE_STEPS`` steps (``first``: the piece starts its interval). The mode means run
+    through one piece at a time with the state carried across, so that what they hold at
+    once does not grow with the number of steps (a long slow sweep has 10^5 in a band)."""
+    for lo, hi in intervals:
+        for s in range(int(lo), int(hi), _PIECE_STEPS):
+            yield s, min(s + _PIECE_STEPS, int(hi)), s == lo
+
+
+class _Out:
+    """Where a piece's values go: every step (``at`` None, zero outside the intervals) or
+    the steps ``at`` only (ascending)."""
+
+    def __init__(self, n_steps: int, at, count: int):
+        self.at = None if at is None else np.asarray(at, dtype=np.int64)
+        n = n_steps if self.at is None else self.at.size
+        self.arrays = [np.zeros(n, np.complex128) for _ in range(count)]
+
+    def put(self, lo: int, hi: int, values) -> None:
+        if self.at is None:
+            for arr, v in zip(self.arrays, values):
+                arr[lo:hi] = v
+            return
+        j0, j1 = np.searchsorted(self.at, [lo, hi])
+        if j1 > j0:
+            sel = self.at[j0:j1] - lo
+            for arr, v in zip(self.arrays, values):
+                arr[j0:j1] = v[sel]
 
 
 def _poles(fn_hz: float, zeta: float) -> tuple[complex, complex]:
@@ -457,51 +501,64 @@ def integration_intervals(hist: SweepHistory, steps: np.ndarray, pre_s: float) -
 
 
 def mode_means(hist: SweepHistory, intervals, fn_hz: float, zeta: float,
-               keep: dict | None = None):
+               keep: dict | None = None, at=None):
     """``A`` and ``B`` block means of one mode over the steps of ``intervals``.
 
-    ``keep``: a dict that receives each interval's intermediate values, for
-    :func:`mode_means_derivatives` at the same ``(fn_hz, zeta)``."""
+    ``keep``: a dict that receives the intermediate values of the first ``_KEEP_STEPS``
+    steps, for :func:`mode_means_derivatives` at the same ``(fn_hz, zeta)`` (it passes
+    through the others again). ``at``: ascending step indices; the means at these steps
+    only are returned (default: every step, zero outside ``intervals``)."""
     lp, lm = _poles(fn_hz, zeta)
+    lam = np.array([lp, lm])
     d = lp - lm
-    a = np.zeros(hist.n_steps, np.complex128)
-    b = np.zeros(hist.n_steps, np.complex128)
-    for lo, hi in intervals:
-        st = None if keep is None else keep.setdefault((lo, hi), {})
-        ub, cb = _pole_means(hist, lo, hi, np.array([lp, lm]), state=st)
-        a[lo:hi] = (ub[0] - ub[1]) / d
-        b[lo:hi] = (cb[0] - cb[1]) / np.conj(d)
-    return a, b
+    out = _Out(hist.n_steps, at, 2)
+    budget = _KEEP_STEPS
+    u = None
+    for lo, hi, first in _pieces(intervals):
+        st = None
+        if keep is not None and hi - lo <= budget:
+            st = keep.setdefault((lo, hi), {})
+            budget -= hi - lo
+        ub, cb, u = _pole_means(hist, lo, hi, lam, state=st, u0=None if first else u)
+        out.put(lo, hi, ((ub[0] - ub[1]) / d, (cb[0] - cb[1]) / np.conj(d)))
+    return tuple(out.arrays)
 
 
 def mode_means_derivatives(hist: SweepHistory, intervals, fn_hz: float, zeta: float,
-                           keep: dict | None = None):
+                           keep: dict | None = None, at=None):
     """:func:`mode_means` and its derivatives with respect to ``fn_hz`` and ``zeta``:
-    ``(a, b, da/dfn, db/dfn, da/dzeta, db/dzeta)`` (zero outside ``intervals``).
+    ``(a, b, da/dfn, db/dfn, da/dzeta, db/dzeta)`` (zero outside ``intervals``; at the
+    steps ``at`` only if given).
 
     From the poles ``lambda = 2 pi fn (-zeta +- sqrt(zeta^2 - 1))``: ``d lambda / d fn =
     lambda / fn``, ``d lambda / d zeta = 2 pi fn (-1 +- zeta / sqrt(zeta^2 - 1))``, and the
     pole means' derivatives (:func:`_pole_means`); ``a = (ubar+ - ubar-) / d`` and
     ``b = conj((q+ - q-) / d)`` with ``d = lambda+ - lambda-``. ``keep``: the dict a
-    :func:`mode_means` call at the same ``(fn_hz, zeta)`` filled (its pass is not repeated)."""
+    :func:`mode_means` call at the same ``(fn_hz, zeta)`` filled (the steps it kept are
+    not passed through again)."""
     lp, lm = _poles(fn_hz, zeta)
+    lam = np.array([lp, lm])
     w = 2.0 * np.pi * fn_hz
     root = np.sqrt(complex(zeta * zeta - 1.0))
     d = lp - lm
     # (d lambda+, d lambda-) per parameter: fn_hz, zeta
     dl = ((lp / fn_hz, lm / fn_hz), (w * (-1.0 + zeta / root), w * (-1.0 - zeta / root)))
-    out = [np.zeros(hist.n_steps, np.complex128) for _ in range(6)]
-    for lo, hi in intervals:
+    out = _Out(hist.n_steps, at, 6)
+    u = du = None
+    for lo, hi, first in _pieces(intervals):
         st = None if keep is None else keep.get((lo, hi))
-        ub, cb, dub, dq = _pole_means(hist, lo, hi, np.array([lp, lm]), deriv=True, state=st)
+        ub, cb, dub, dq, u, du = _pole_means(hist, lo, hi, lam, deriv=True, state=st,
+                                             u0=None if first else u,
+                                             du0=None if first else du)
         a = (ub[0] - ub[1]) / d
         b = (cb[0] - cb[1]) / np.conj(d)
-        out[0][lo:hi], out[1][lo:hi] = a, b
-        for j, (dp, dm) in enumerate(dl):
+        vals = [a, b]
+        for dp, dm in dl:
             dd = (dp - dm) / d
-            out[2 + 2 * j][lo:hi] = (dub[0] * dp - dub[1] * dm) / d - a * dd
-            out[3 + 2 * j][lo:hi] = np.conj((dq[0] * dp - dq[1] * dm) / d) - b * np.conj(dd)
-    return tuple(out)
+            vals.append((dub[0] * dp - dub[1] * dm) / d - a * dd)
+            vals.append(np.conj((dq[0] * dp - dq[1] * dm) / d) - b * np.conj(dd))
+        out.put(lo, hi, vals)
+    return tuple(out.arrays)
 
 
 def mode_response(time_s, speed_rpm, fn_rpm: float, zeta: float, residue=1.0 + 0j, *,
