@@ -159,6 +159,39 @@ def fit_event_times(rev_times_s, jitter_s) -> tuple[np.ndarray, float]:
     return best + t0, 10.0 ** lo
 
 
+#: Knots per piece of the spline's coefficients, and the knots each piece's solve reaches
+#: beyond it on either side. The not-a-knot spline is one global tridiagonal solve, but
+#: its matrix is diagonally dominant (diagonal 2 (h_i + h_(i+1)), off-diagonals h_i and
+#: h_(i+1)), so a knot's influence falls by at least half per knot (about 0.27 on even
+#: knots): 64 knots of overlap leave a piece's coefficients within rounding of the whole
+#: solve's (checked in tests/dsp/test_speed.py), with work arrays of one piece instead of
+#: the whole record (a 2-hour run holds 740 000 revolutions). PCHIP is local (three knots)
+#: and is the same to the bit.
+_SPLINE_PIECE = 1 << 16
+_SPLINE_OVERLAP = 64
+
+
+def _piecewise_coefficients(t: np.ndarray, model: str) -> tuple[np.ndarray, str]:
+    """Coefficients (scipy's layout, shape (4, n - 1), ``c[3]`` the exact integer angle)
+    of the spline of angle against the times ``t``, computed piece by piece; ``model``
+    is the one used (``'cubic'`` falls back to ``'pchip'`` when any piece falls)."""
+    n = t.size
+    c = np.empty((4, n - 1))
+    for a in range(0, n - 1, _SPLINE_PIECE):
+        b = min(a + _SPLINE_PIECE, n - 1)  # intervals a .. b - 1
+        lo, hi = max(a - _SPLINE_OVERLAP, 0), min(b + 1 + _SPLINE_OVERLAP, n)
+        k = np.arange(hi - lo, dtype=np.float64)  # steps of exactly 1: the same slopes
+        if model == "cubic":
+            spline = CubicSpline(t[lo:hi], k, bc_type="not-a-knot")
+            if not _monotone(spline.c[:, a - lo:b - lo], np.diff(t[a:b + 1])):
+                return _piecewise_coefficients(t, "pchip")
+        else:
+            spline = PchipInterpolator(t[lo:hi], k)
+        c[:3, a:b] = spline.c[:3, a - lo:b - lo]
+    c[3] = np.arange(n - 1, dtype=np.float64)  # exact integer angle at every event
+    return c, model
+
+
 def _monotone(c: np.ndarray, h: np.ndarray) -> bool:
     """True when every cubic piece ``c`` (scipy layout, local variable in [0, h]) rises."""
     a3, a2, a1 = 3.0 * c[0], 2.0 * c[1], c[2]
@@ -187,19 +220,9 @@ class SpeedProfile:
                  measured_s: np.ndarray | None = None, jitter: tuple[float, float] | None = None,
                  fit_lambda: float = 0.0, worst_jitter_deg: float | None = None):
         t = np.asarray(rev_times_s, dtype=np.float64)
-        k = np.arange(t.size, dtype=np.float64)
-        spline = None
-        if model == "cubic":
-            spline = CubicSpline(t, k, bc_type="not-a-knot")
-            if not _monotone(spline.c, np.diff(t)):
-                model = "pchip"
-        if model == "pchip":
-            spline = PchipInterpolator(t, k)
         self._t = t
-        c = np.array(spline.c)  # the coefficients alone are kept (not the spline: a copy)
-        c[3] = k[:-1]  # exact integer angle at every reference event
-        self._c = np.ascontiguousarray(c)
-        self.model = model
+        # the coefficients alone are kept (not a spline object), computed in pieces
+        self._c, self.model = _piecewise_coefficients(t, model)
         self._measured = t if measured_s is None else measured_s
         #: estimated rms timing jitter of the measured events, s and deg of rotation
         self.jitter_s, self.jitter_deg = jitter if jitter is not None else (None, None)
@@ -406,11 +429,6 @@ def _windowed_slope(rev_times_s: np.ndarray, tg: np.ndarray, window_s: float,
     (and, with ``clip_s = (t_from, t_to)`` per grid point, within those times)."""
     rt = np.asarray(rev_times_s, dtype=np.float64)
     tm = 0.5 * (rt[1:] + rt[:-1])
-    r = 60.0 / np.diff(rt)
-    # centred on the record for conditioning; cumulative sums give every window at once
-    tc = tm - tm.mean()
-    cs = [np.concatenate([[0.0], np.cumsum(v)]) for v in (np.ones_like(tc), tc, r, tc * tc,
-                                                           tc * r)]
     lo = np.searchsorted(tm, tg - window_s / 2, side="left")
     hi = np.searchsorted(tm, tg + window_s / 2, side="right")
     if clip_s is not None:
@@ -422,7 +440,26 @@ def _windowed_slope(rev_times_s: np.ndarray, tg: np.ndarray, window_s: float,
         mid = np.clip(np.searchsorted(tm, tg[short]), 1, tm.size - 2)
         lo[short] = np.maximum(mid - 1, 0)
         hi[short] = np.minimum(mid + 2, tm.size)
-    n, st, sr, stt, str_ = (c[hi] - c[lo] for c in cs)
+    # sums over each window of tc, r, tc^2 and tc r (tc the times centred on the record,
+    # for conditioning; r the revolution's mean speed) from cumulative sums read at the
+    # windows' ends only, accumulated piece by piece with the running sums carried (the
+    # same sequential sums as over the whole record, without arrays of every revolution)
+    centre = tm.mean()
+    idx = np.concatenate([lo, hi])
+    at = np.empty((4, idx.size))
+    carry = np.zeros(4)
+    m = tm.size
+    for a in range(0, m, _SPLINE_PIECE):
+        b = min(a + _SPLINE_PIECE, m)
+        tc = tm[a:b] - centre
+        r = 60.0 / np.diff(rt[a:b + 1])
+        sel = np.flatnonzero((idx >= a) & (idx <= b))
+        for j, v in enumerate((tc, r, tc * tc, tc * r)):
+            cs = np.cumsum(np.concatenate([carry[j:j + 1], v]))  # sums before a .. b
+            at[j, sel] = cs[idx[sel] - a]
+            carry[j] = cs[-1]
+    n = (hi - lo).astype(np.float64)
+    st, sr, stt, str_ = (x[lo.size:] - x[:lo.size] for x in at)
     den = n * stt - st * st
     with np.errstate(invalid="ignore", divide="ignore"):
         slope = np.where(den > 0, (n * str_ - st * sr) / den, 0.0)
@@ -513,7 +550,7 @@ def _slow_sweeps(runs: list, profile: SpeedProfile, tg: np.ndarray, rpm: np.ndar
             continue
         t_from = np.full(e - s, tg[s])
         t_to = np.full(e - s, tg[min(e, n - 1)])
-        acc = _windowed_slope(profile.rev_times_s, tg[s:e], hold_window_s, (t_from, t_to))
+        acc = _windowed_slope(profile._t, tg[s:e], hold_window_s, (t_from, t_to))
         moving = np.abs(acc) * hold_window_s > steady_tol_pct / 100.0 * seg
         code[s:e] = np.where(moving, np.sign(acc), 0).astype(code.dtype)
     return code
@@ -569,7 +606,7 @@ def segment(
     n = max(3, int(np.floor((t1 - t0) / dt)) + 1)
     tg = np.linspace(t0, t1, n)
     rpm = profile.rpm(tg)
-    acc = _windowed_slope(profile.rev_times_s, tg, max(smooth_s, 2 * dt))
+    acc = _windowed_slope(profile._t, tg, max(smooth_s, 2 * dt))
     code = np.where(acc > steady_tol_rpm_s, 1, np.where(acc < -steady_tol_rpm_s, -1, 0))
     runs = _runs(code)
     _merge_short(runs, tg, min_duration_s)

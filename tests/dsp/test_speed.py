@@ -262,3 +262,66 @@ class TestSegmentRelative:
         assert np.sqrt(np.mean(err ** 2)) < 0.1
         with pytest.raises(DspError, match="Invalid value for 'jitter_floor_s'"):
             speed_profile(q, jitter_floor_s=-1.0)
+
+
+def _long_record(n: int, seed: int) -> np.ndarray:
+    """Event times of an invented run-up, hold and coast-down of n revolutions."""
+    rng = np.random.default_rng(seed)
+    q = n // 4
+    rpm = np.concatenate([np.linspace(300.0, 6000.0, 2 * q), np.full(q, 6000.0),
+                          np.linspace(6000.0, 250.0, n - 3 * q)])
+    return np.concatenate([[0.0], np.cumsum(60.0 / rpm)]) + rng.normal(0.0, 1e-6, n + 1)
+
+
+def test_spline_in_pieces_is_the_whole_spline():
+    # Reference: scipy.interpolate.CubicSpline (not-a-knot) over every event in one solve.
+    # The profile solves pieces of 65 536 intervals, each reaching 64 knots beyond its
+    # ends; a knot's influence falls by at least half per knot (the tridiagonal matrix is
+    # diagonally dominant; de Boor, A Practical Guide to Splines, rev. ed. 2001, ch. 4,
+    # from memory), so the pieces agree with the one solve to rounding (measured: to the
+    # bit on this record).
+    from scipy.interpolate import CubicSpline, PchipInterpolator
+    t = _long_record(150_000, 1)
+    prof = speed_profile(t, fit="never")
+    assert prof.model == "cubic"
+    whole = CubicSpline(t, np.arange(t.size, dtype=float), bc_type="not-a-knot").c
+    scale = np.max(np.abs(whole[:3]), axis=1, keepdims=True)
+    assert np.max(np.abs(prof._c[:3] - whole[:3]) / scale) < 1e-12
+    assert np.array_equal(prof._c[3], np.arange(t.size - 1, dtype=float))
+    tg = np.linspace(t[1], t[-2], 100_001)
+    ref_rpm = 60.0 * CubicSpline(t, np.arange(t.size, dtype=float),
+                                 bc_type="not-a-knot")(tg, 1)
+    assert_allclose(prof.rpm(tg), ref_rpm, rtol=1e-12)
+    # an abrupt stop makes the cubic overshoot: PCHIP, local (three knots), to the bit
+    rpm = np.linspace(300.0, 6000.0, 140_000)
+    rpm[70_000:] = 30.0
+    t2 = np.concatenate([[0.0], np.cumsum(60.0 / rpm)])
+    prof2 = speed_profile(t2, fit="never")
+    assert prof2.model == "pchip"
+    assert np.array_equal(prof2._c[:3], PchipInterpolator(t2, np.arange(t2.size, dtype=float)).c[:3])
+
+
+def test_windowed_slope_is_least_squares_slope():
+    # Reference: numpy.polyfit (degree 1) of the per-revolution mean speeds within each
+    # window. The slopes come from running sums carried across pieces of 65 536
+    # revolutions (windows straddling a piece's end are included); they are the same to
+    # the bit as running sums over the whole record in one pass. Tolerance against
+    # polyfit: differences of running sums lose about (distance from the record's
+    # centre / a window's spread)^2 x eps of the slope (here up to 1e-3 relative); the
+    # segmentation compares slopes with 10 rpm/s, so 0.01 rpm/s is far inside it.
+    from rundash.dsp.speed import _windowed_slope
+    t = _long_record(140_000, 2)
+    tm = 0.5 * (t[1:] + t[:-1])
+    r = 60.0 / np.diff(t)
+    tg = np.concatenate([np.linspace(t[0] + 1.0, t[-1] - 1.0, 40), tm[[65_530, 65_536, 131_072]]])
+    got = _windowed_slope(t, tg, 0.8)
+    lo = np.searchsorted(tm, tg - 0.4, side="left")
+    hi = np.searchsorted(tm, tg + 0.4, side="right")
+    tc = tm - tm.mean()
+    cs = [np.concatenate([[0.0], np.cumsum(v)]) for v in (np.ones_like(tc), tc, r, tc * tc, tc * r)]
+    n, st, sr, stt, str_ = (c[hi] - c[lo] for c in cs)
+    assert np.array_equal(got, (n * str_ - st * sr) / (n * stt - st * st))
+    for g, s in zip(tg, got):
+        w = (tm >= g - 0.4) & (tm <= g + 0.4)
+        ref = np.polyfit(tm[w] - g, r[w], 1)[0]
+        assert s == pytest.approx(ref, rel=1e-2, abs=1e-2)
