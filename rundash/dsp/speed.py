@@ -55,11 +55,15 @@ def _whittaker(t: np.ndarray, lam: float, w: np.ndarray | None = None) -> np.nda
     """Whittaker-Henderson smoothing with third differences: the ``u`` minimising
     ``sum w (u - t)^2 + lam |D3 u|^2``, as ``t - W^-1 D3' z`` with
     ``(I/lam + D3 W^-1 D3') z = D3 t`` (a banded solve on the small third differences,
-    well conditioned for large lam)."""
+    well conditioned for large lam). The work arrays are made in place (the banded
+    matrix in LAPACK's column order, solved where it lies): a few arrays of the events'
+    size, not a dozen."""
     m = t.size - 3
     a = (-1.0, 3.0, -3.0, 1.0)
-    d3 = t[3:] - 3.0 * t[2:-1] + 3.0 * t[1:-2] - t[:-3]
-    ab = np.zeros((4, m))
+    d3 = t[3:] - 3.0 * t[2:-1]
+    d3 += 3.0 * t[1:-2]
+    d3 -= t[:-3]
+    ab = np.zeros((4, m), order="F")
     if w is None:
         ab[0], ab[1], ab[2], ab[3] = -1.0, 6.0, -15.0, 20.0
         iw = None
@@ -70,14 +74,20 @@ def _whittaker(t: np.ndarray, lam: float, w: np.ndarray | None = None) -> np.nda
             for p in range(lag, 4):
                 band += a[p] * a[p - lag] * iw[p:p + m - lag]
             ab[3 - lag, lag:] = band
+            del band
     ab[3] += 1.0 / lam
-    z = solveh_banded(ab, d3, check_finite=False)
+    z = solveh_banded(ab, d3, overwrite_ab=True, overwrite_b=True, check_finite=False)
+    del ab, d3
     r = np.zeros(t.size)
     r[:m] -= z
     r[1:m + 1] += 3.0 * z
     r[2:m + 2] -= 3.0 * z
     r[3:] += z
-    return t - (r if iw is None else r * iw)
+    del z
+    if iw is not None:
+        r *= iw
+    np.subtract(t, r, out=r)
+    return r
 
 
 def fit_event_times(rev_times_s, jitter_s) -> tuple[np.ndarray, float]:

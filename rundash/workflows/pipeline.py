@@ -317,14 +317,14 @@ class _Results:
         n = self.n
         return self.time_s[:n], self.speed_rpm[:n], self.rev_index[:n]
 
-    def set_compensated(self, i: int, vectors: np.ndarray) -> None:
-        """Channel ``i``'s slow-roll-compensated vectors (complex64, shape (n_orders, n)),
-        kept in a temporary file of their own for :meth:`compensated`."""
+    def set_compensated_row(self, i: int, k: int, row: np.ndarray) -> None:
+        """Order ``k`` of channel ``i``'s slow-roll-compensated vectors (complex64, shape
+        (n,)), kept in a temporary file of the channel's own for :meth:`compensated_row`."""
         fh = self._comp.get(i)
         if fh is None:
             fh = self._comp[i] = tempfile.TemporaryFile(prefix="rundash-comp-")
-        fh.seek(0)
-        fh.write(np.ascontiguousarray(vectors, dtype=np.complex64).tobytes())
+        fh.seek(8 * k * self.n)
+        fh.write(np.ascontiguousarray(row, dtype=np.complex64).tobytes())
 
     def compensated_row(self, i: int, k: int) -> np.ndarray | None:
         """Channel ``i``'s compensated vectors of order ``k`` (None: none were set)."""
@@ -418,7 +418,11 @@ def _write_tracks(conn, run_id, probes, orders, is_prox, results: _Results, time
     q.save_tach(conn, run_id, "edges", edges)
     q.save_tach(conn, run_id, "once_per_rev", opr.times_s)
     rev_mid = 0.5 * (opr.times_s[:-1] + opr.times_s[1:])
-    q.save_speed_profile(conn, run_id, rev_mid, profile.rpm(rev_mid))
+    rpm = np.empty_like(rev_mid)
+    for a in range(0, rev_mid.size, CONVERT_BLOCKS):  # the same values, small temporaries
+        rpm[a:a + CONVERT_BLOCKS] = profile.rpm(rev_mid[a:a + CONVERT_BLOCKS])
+    q.save_speed_profile(conn, run_id, rev_mid, rpm)
+    del rpm
     axes = q.save_block_axes(conn, run_id, time_s, speed_rpm)  # once, shared by every track
     amp, lag = np.empty(time_s.size, np.float32), np.empty(time_s.size, np.float32)
     for i, ch in enumerate(probes):  # one order of one channel held at a time
@@ -665,11 +669,9 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
         ka = int(k1[0]) if k1.size else 0
         rows = _ProbeRows(len(probes), n_blocks)
         stack.callback(rows.close)
-        for i, ch in enumerate(probes):  # one channel at a time
-            vec, pp, rms = results.channel(i)
-            rows.put(i, "raw", vec[ka])
-            rows.put(i, "direct", pp if ch.kind == "proximity" else rms)
-            del vec, pp, rms
+        for i, ch in enumerate(probes):  # one row of one channel at a time
+            rows.put(i, "raw", results.order_row(i, ka))
+            rows.put(i, "direct", results.level(i, ch.kind == "proximity"))
         # slow-roll compensation: proximity probes only, never seismic channels
         is_prox = np.array([c.kind == "proximity" for c in probes])
         window = params.slow_roll_rpm or desc.processing.slow_roll_rpm
@@ -685,12 +687,14 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
                 notes.append(choice.note)
         for i in range(len(probes)):  # compensated once, kept for the save
             if window is not None and is_prox[i]:
-                vec = results.channel(i)[0]
-                sr = slowroll.slow_roll_vector(speed_rpm, vec, window)
-                comp = slowroll.compensate(vec, sr).astype(np.complex64, copy=False)
-                results.set_compensated(i, comp)
-                rows.put(i, "comp", comp[ka])
-                del vec, comp
+                for k in range(orders.size):  # an order at a time (the same values)
+                    vec = results.order_row(i, k)
+                    sr = slowroll.slow_roll_vector(speed_rpm, vec, window)
+                    comp = slowroll.compensate(vec, sr).astype(np.complex64, copy=False)
+                    results.set_compensated_row(i, k, comp)
+                    if k == ka:
+                        rows.put(i, "comp", comp)
+                    del vec, comp
             else:
                 rows.put(i, "comp", rows.get(i, "raw"))
 
