@@ -182,11 +182,12 @@ _SPLINE_OVERLAP = 64
 
 
 def _piecewise_coefficients(t: np.ndarray, model: str) -> tuple[np.ndarray, str]:
-    """Coefficients (scipy's layout, shape (4, n - 1), ``c[3]`` the exact integer angle)
-    of the spline of angle against the times ``t``, computed piece by piece; ``model``
-    is the one used (``'cubic'`` falls back to ``'pchip'`` when any piece falls)."""
+    """The cubic, quadratic and linear coefficients (scipy's layout, shape (3, n - 1)) of
+    the spline of angle against the times ``t``, computed piece by piece (the constant
+    term of interval k is k itself, exactly, and is not stored); ``model`` is the one
+    used (``'cubic'`` falls back to ``'pchip'`` when any piece falls)."""
     n = t.size
-    c = np.empty((4, n - 1))
+    c = np.empty((3, n - 1))
     for a in range(0, n - 1, _SPLINE_PIECE):
         b = min(a + _SPLINE_PIECE, n - 1)  # intervals a .. b - 1
         lo, hi = max(a - _SPLINE_OVERLAP, 0), min(b + 1 + _SPLINE_OVERLAP, n)
@@ -197,8 +198,7 @@ def _piecewise_coefficients(t: np.ndarray, model: str) -> tuple[np.ndarray, str]
                 return _piecewise_coefficients(t, "pchip")
         else:
             spline = PchipInterpolator(t[lo:hi], k)
-        c[:3, a:b] = spline.c[:3, a - lo:b - lo]
-    c[3] = np.arange(n - 1, dtype=np.float64)  # exact integer angle at every event
+        c[:, a:b] = spline.c[:3, a - lo:b - lo]
     return c, model
 
 
@@ -312,11 +312,11 @@ class SpeedProfile:
             u *= s
             u += np.repeat(c[2], counts)
             u *= s
-            u += np.repeat(c[3], counts)
+            u += np.repeat(np.arange(self.n_revs, dtype=np.float64), counts)  # the integer angle
         else:
             k, s = self._piece(t)
             u = ((c[0, k] * s + c[1, k]) * s + c[2, k]) * s
-            u += c[3, k]
+            u += k  # the exact integer angle at the interval's event
         if extrapolate:
             u[(u < -0.5) | (u > self.n_revs + 0.5)] = np.nan
         else:
@@ -343,7 +343,7 @@ class SpeedProfile:
         h = self._t[k + 1] - self._t[k]
         s = (flat - k) * h
         for _ in range(_NEWTON_ITERATIONS + 2):
-            f = ((c[0, k] * s + c[1, k]) * s + c[2, k]) * s + c[3, k] - flat
+            f = ((c[0, k] * s + c[1, k]) * s + c[2, k]) * s + k - flat
             df = (3.0 * c[0, k] * s + 2.0 * c[1, k]) * s + c[2, k]
             s = np.clip(s - f / df, 0.0, h)
         out = self._t[k] + s
