@@ -310,10 +310,34 @@ def clear_results(conn: Connection, run_id: int) -> None:
         conn.execute(delete(table).where(rows & PROCESSED if table is V else rows))
 
 
+#: Blob values of at least this many bytes are written in place on SQLite (see
+#: :func:`_insert_row`).
+BLOB_IN_PLACE_BYTES = 1 << 20
+
+
+def _insert_row(conn: Connection, table, **values) -> None:
+    """Insert one row of ``table``. On SQLite, each blob value (a memoryview) of at least
+    :data:`BLOB_IN_PLACE_BYTES` is inserted as zeros of its size and then written into
+    the row in place by SQLite's incremental blob I/O, in the same transaction: bound
+    to the insert, SQLite would copy the value and assemble the whole row in memory (a
+    2-hour run's track holds 9 MB of blobs, its speed profile 12 MB)."""
+    big = {}
+    if conn.dialect.name == "sqlite":
+        big = {k: v for k, v in values.items()
+               if isinstance(v, memoryview) and v.nbytes >= BLOB_IN_PLACE_BYTES}
+    row = {k: (func.zeroblob(v.nbytes) if k in big else v) for k, v in values.items()}
+    res = conn.execute(insert(table).values(**row))
+    if big:
+        rowid = int(res.inserted_primary_key[0])  # the integer id is SQLite's rowid
+        raw = conn.connection.driver_connection
+        for k, v in big.items():
+            with raw.blobopen(table.name, k, rowid) as blob:
+                blob.write(v)
+
+
 def save_tach(conn: Connection, run_id: int, kind: str, times_s: np.ndarray) -> None:
     conn.execute(delete(T).where(T.c.run_id == run_id, T.c.kind == kind))
-    conn.execute(insert(T).values(run_id=run_id, kind=kind, n=int(len(times_s)),
-                                  times=f64_view(times_s)))
+    _insert_row(conn, T, run_id=run_id, kind=kind, n=int(len(times_s)), times=f64_view(times_s))
 
 
 def load_tach(conn: Connection, run_id: int, kind: str = "once_per_rev") -> np.ndarray | None:
@@ -346,8 +370,8 @@ def load_processing(conn: Connection, run_id: int) -> StoredProcessing | None:
 
 
 def save_speed_profile(conn: Connection, run_id: int, time_s, speed_rpm) -> None:
-    conn.execute(insert(SP).values(run_id=run_id, n=int(len(time_s)), time_s=f64_view(time_s),
-                                   speed_rpm=f64_view(speed_rpm)))
+    _insert_row(conn, SP, run_id=run_id, n=int(len(time_s)), time_s=f64_view(time_s),
+                speed_rpm=f64_view(speed_rpm))
 
 
 def load_speed_profile(conn: Connection, run_id: int) -> tuple[np.ndarray, np.ndarray] | None:
@@ -371,8 +395,8 @@ def save_block_axes(conn: Connection, run_id: int, time_s, speed_rpm) -> SharedA
     if len(time_s) != len(speed_rpm):
         raise ValueError(f"{len(time_s)} block times but {len(speed_rpm)} speeds")
     conn.execute(delete(BA).where(BA.c.run_id == run_id))
-    conn.execute(insert(BA).values(run_id=run_id, n=int(len(time_s)), time_s=f64_view(time_s),
-                                   speed_rpm=f64_view(speed_rpm)))
+    _insert_row(conn, BA, run_id=run_id, n=int(len(time_s)), time_s=f64_view(time_s),
+                speed_rpm=f64_view(speed_rpm))
     return SharedAxes(int(len(time_s)))
 
 
@@ -395,11 +419,10 @@ def save_track(conn: Connection, run_id: int, channel_id: int, order: float, com
         n, t_blob, s_blob = int(len(time_s)), f64_view(time_s), f64_view(speed_rpm)
     if len(amplitude) != n:
         raise ValueError(f"a track of {len(amplitude)} vectors on an axis of {n} blocks")
-    conn.execute(insert(V).values(
-        run_id=run_id, channel_id=channel_id, order=float(order), compensated=compensated,
-        source="processed", seq=0, n=n, time_s=t_blob, speed_rpm=s_blob,
-        amplitude=f32_view(amplitude), phase_lag_deg=f32_view(phase_lag_deg),
-        direct=f32_view(direct)))
+    _insert_row(conn, V, run_id=run_id, channel_id=channel_id, order=float(order),
+                compensated=compensated, source="processed", seq=0, n=n, time_s=t_blob,
+                speed_rpm=s_blob, amplitude=f32_view(amplitude),
+                phase_lag_deg=f32_view(phase_lag_deg), direct=f32_view(direct))
 
 
 def _decode_n(b: bytes, n: int) -> np.ndarray:
@@ -443,10 +466,9 @@ def load_tracks(conn: Connection, run_id: int, *, order: float | None = None,
 def save_cascade(conn: Connection, run_id: int, channel_id: int, speed_rpm, time_s, freq_hz,
                  amplitude) -> None:
     a = np.asarray(amplitude, dtype=np.float32)
-    conn.execute(insert(CA).values(
-        run_id=run_id, channel_id=channel_id, n_rows=a.shape[0], n_freq=a.shape[1],
-        speed_rpm=f64_view(speed_rpm), time_s=f64_view(time_s), freq_hz=f64_view(freq_hz),
-        amplitude=f32_view(a)))
+    _insert_row(conn, CA, run_id=run_id, channel_id=channel_id, n_rows=a.shape[0],
+                n_freq=a.shape[1], speed_rpm=f64_view(speed_rpm), time_s=f64_view(time_s),
+                freq_hz=f64_view(freq_hz), amplitude=f32_view(a))
 
 
 def load_cascades(conn: Connection, run_id: int) -> list[StoredCascade]:
