@@ -33,6 +33,7 @@ stage (:data:`STAGES`); ``rundash process --timings`` prints them.
 from __future__ import annotations
 
 import contextvars
+import ctypes
 import tempfile
 import threading
 import time
@@ -227,6 +228,25 @@ def _edges(db: Database, tach_ch, desc: MachineDescription,
             spans.append(tach.edge_spans(x, fs, parts[-1], t0=start / fs, max_events=200))
     parts.append(det.finish())
     return np.concatenate(parts), tach.edge_samples(None, fs, None, spans=np.concatenate(spans))
+
+
+def _return_free_memory() -> None:
+    """Hand the C allocator's free pages back to the operating system (glibc's
+    ``malloc_trim``; nothing elsewhere). After a stage's large temporaries are freed,
+    glibc keeps most of them in its heap (its mmap threshold rises with every large block
+    freed), so the process's resident size would stay at the stage's peak: measured on
+    a 2-hour run, 250 MB resident after the speed stage instead of 166."""
+    global _TRIM
+    if _TRIM is None:
+        try:
+            _TRIM = ctypes.CDLL(None).malloc_trim
+        except (OSError, AttributeError, TypeError):
+            _TRIM = False
+    if _TRIM:
+        _TRIM(0)
+
+
+_TRIM: Any = None
 
 
 class _Results:
@@ -561,6 +581,7 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
     if profile.note:
         notes.append(profile.note)
     progress(1.0, "tach")
+    _return_free_memory()
 
     # each probe's direct level only: p-p of a proximity probe, rms of the others (what
     # the findings judge and the tracks keep; the p-p alone saves two passes)
@@ -660,6 +681,7 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
                                  f"kept there")
                 progress((i + 1) / len(probes), "Vold-Kalman filter")
     progress(1.0, "order tracking")
+    _return_free_memory()
 
     with timer("findings"):
         # analysis reads one order of each channel (1X, else the first tracked) and one
