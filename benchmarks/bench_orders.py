@@ -4,8 +4,9 @@ Plain script, not part of the test suite. 16 channels x 4 orders, float32 at 25.
 an invented run-up 1200 -> 9000 rpm. Prints samples/s of:
 
 - rundash's tracker (``track_orders``, chunked internally like the pipeline), with both
-  direct levels (p-p and rms) of every channel, and with the p-p alone (``direct="pp"``:
-  what `rundash process` asks of proximity probes, the rms what it asks of the others);
+  direct levels (p-p and rms) of every channel, with the p-p alone (``direct="pp"``:
+  what `rundash process` asks of proximity probes) and with the rms alone
+  (``direct="rms"``: what it asks of the others);
 - the memory-read limit: ``numpy.sum`` over the same float32 array;
 - a hand-written baseline: ``np.interp`` of each channel to a uniform angle grid, then
   ``rfft`` per revolution, with two grid sizes:
@@ -85,6 +86,8 @@ def main(duration_s: float = 20.0) -> None:
                                                        orders=ORDERS)),
         ("rundash track_orders, p-p", lambda: track_orders(x, FS, speed_profile(rev_times),
                                                             orders=ORDERS, direct="pp")),
+        ("rundash track_orders, rms", lambda: track_orders(x, FS, speed_profile(rev_times),
+                                                            orders=ORDERS, direct="rms")),
         (f"baseline lossless {lossless}/rev", lambda: baseline(x, FS, rev_times, lossless)),
         ("baseline coarse 64/rev", lambda: baseline(x, FS, rev_times, 64)),
     ]
@@ -123,6 +126,12 @@ def main(duration_s: float = 20.0) -> None:
           f"{t_mem / t_pp:.3f} x memory read (CPU {c_mem / c_pp:.3f}), "
           f"{t_coarse / t_pp:.2f} x the coarse baseline (CPU {c_coarse / c_pp:.2f}); "
           f"the same vectors: {np.array_equal(track_pp.vectors, track.vectors)}")
+    t_rms, track_rms = best["rundash track_orders, rms"]
+    c_rms = best_cpu["rundash track_orders, rms"]
+    print(f"with the rms alone (velocity and acceleration probes in rundash process): "
+          f"{t_mem / t_rms:.3f} x memory read (CPU {c_mem / c_rms:.3f}), "
+          f"{t_coarse / t_rms:.2f} x the coarse baseline (CPU {c_coarse / c_rms:.2f}); "
+          f"the same vectors: {np.array_equal(track_rms.vectors, track.vectors)}")
 
     # accuracy of 1X on the same signal, all channels, all revolutions both have
     def errors(vec, rev_index):

@@ -181,6 +181,10 @@ def window_products(VT: np.ndarray, data: np.ndarray, first: np.ndarray, Lw: np.
     quad[...] = sums[:, 0::2].T
 
 
+#: Channels squared and summed together by :func:`direct_levels`.
+SQUARE_ROWS = 4
+
+
 def direct_levels(seg: np.ndarray, starts: np.ndarray, pp: np.ndarray, rms: np.ndarray,
                   sq: np.ndarray, *, want_pp: bool = True, want_rms: bool = True) -> None:
     """Direct p-p and rms of the blocks with first samples ``starts`` (record indices;
@@ -189,9 +193,14 @@ def direct_levels(seg: np.ndarray, starts: np.ndarray, pp: np.ndarray, rms: np.n
     wanted is set to NaN (its passes over the samples are not made)."""
     offs = starts[:-1] - starts[0]
     if want_rms:
-        # the square first, while the work array ``sq`` is still in cache for its sums
-        np.square(seg, out=sq)
-        rms[...] = np.add.reduceat(sq, offs, axis=1)
+        # the squares a few channels at a time, each summed while its rows of ``sq`` are
+        # still in the core's cache (a whole group's squares outgrow it)
+        n_ch = seg.shape[0]
+        for c0 in range(0, n_ch, SQUARE_ROWS):
+            c1 = min(c0 + SQUARE_ROWS, n_ch)
+            q = sq[:c1 - c0]
+            np.square(seg[c0:c1], out=q)
+            rms[c0:c1] = np.add.reduceat(q, offs, axis=1)
         rms /= np.diff(starts)
         np.sqrt(rms, out=rms)
     else:
