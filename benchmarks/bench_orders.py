@@ -120,18 +120,15 @@ def main(duration_s: float = 20.0) -> None:
           f"(CPU {c_coarse / c_ours:.2f} x; target >= 1)")
     print(f"speed-up tracker vs lossless baseline: {t_base / t_ours:.1f} x  "
           f"(CPU {c_base / c_ours:.1f} x)")
-    t_pp, track_pp = best["rundash track_orders, p-p"]
-    c_pp = best_cpu["rundash track_orders, p-p"]
-    print(f"with the p-p alone (proximity probes in rundash process): "
-          f"{t_mem / t_pp:.3f} x memory read (CPU {c_mem / c_pp:.3f}), "
-          f"{t_coarse / t_pp:.2f} x the coarse baseline (CPU {c_coarse / c_pp:.2f}); "
-          f"the same vectors: {np.array_equal(track_pp.vectors, track.vectors)}")
-    t_rms, track_rms = best["rundash track_orders, rms"]
-    c_rms = best_cpu["rundash track_orders, rms"]
-    print(f"with the rms alone (velocity and acceleration probes in rundash process): "
-          f"{t_mem / t_rms:.3f} x memory read (CPU {c_mem / c_rms:.3f}), "
-          f"{t_coarse / t_rms:.2f} x the coarse baseline (CPU {c_coarse / c_rms:.2f}); "
-          f"the same vectors: {np.array_equal(track_rms.vectors, track.vectors)}")
+    for level, who in (("p-p", "proximity probes"),
+                       ("rms", "velocity and acceleration probes")):
+        name = f"rundash track_orders, {level}"
+        t_one, track_one = best[name]
+        c_one = best_cpu[name]
+        print(f"with the {level} alone ({who} in rundash process): "
+              f"{t_mem / t_one:.3f} x memory read (CPU {c_mem / c_one:.3f}), "
+              f"{t_coarse / t_one:.2f} x the coarse baseline (CPU {c_coarse / c_one:.2f}); "
+              f"the same vectors: {np.array_equal(track_one.vectors, track.vectors)}")
 
     # accuracy of 1X on the same signal, all channels, all revolutions both have
     def errors(vec, rev_index):
