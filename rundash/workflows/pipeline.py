@@ -709,7 +709,7 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
                 notes.append(choice.note)
         for i in range(len(probes)):  # compensated once, kept for the save
             if window is not None and is_prox[i]:
-                for k in range(orders.size):  # an order at a time (the same values)
+                for k in range(orders.size):  # an order at a time (its mean a pairwise sum)
                     vec = results.order_row(i, k)
                     sr = slowroll.slow_roll_vector(speed_rpm, vec, window)
                     comp = slowroll.compensate(vec, sr).astype(np.complex64, copy=False)
