@@ -169,7 +169,8 @@ def fit_event_times(rev_times_s, jitter_s) -> tuple[np.ndarray, float]:
     return best + t0, 10.0 ** lo
 
 
-#: Knots per piece of the spline's coefficients, and the knots each piece's solve reaches
+#: Revolutions per piece of the work over every revolution (the spline's coefficients,
+#: the segmentation's running sums), and the knots each spline piece's solve reaches
 #: beyond it on either side. The not-a-knot spline is one global tridiagonal solve, but
 #: its matrix is diagonally dominant (diagonal 2 (h_i + h_(i+1)), off-diagonals h_i and
 #: h_(i+1)), so a knot's influence falls by at least half per knot (about 0.27 on even
@@ -177,7 +178,7 @@ def fit_event_times(rev_times_s, jitter_s) -> tuple[np.ndarray, float]:
 #: solve's (checked in tests/dsp/test_speed.py), with work arrays of one piece instead of
 #: the whole record (a 2-hour run holds 740 000 revolutions). PCHIP is local (three knots)
 #: and is the same to the bit.
-_SPLINE_PIECE = 1 << 16
+_PIECE_REVS = 1 << 16
 _SPLINE_OVERLAP = 64
 
 
@@ -188,8 +189,8 @@ def _piecewise_coefficients(t: np.ndarray, model: str) -> tuple[np.ndarray, str]
     used (``'cubic'`` falls back to ``'pchip'`` when any piece falls)."""
     n = t.size
     c = np.empty((3, n - 1))
-    for a in range(0, n - 1, _SPLINE_PIECE):
-        b = min(a + _SPLINE_PIECE, n - 1)  # intervals a .. b - 1
+    for a in range(0, n - 1, _PIECE_REVS):
+        b = min(a + _PIECE_REVS, n - 1)  # intervals a .. b - 1
         lo, hi = max(a - _SPLINE_OVERLAP, 0), min(b + 1 + _SPLINE_OVERLAP, n)
         k = np.arange(hi - lo, dtype=np.float64)  # steps of exactly 1: the same slopes
         if model == "cubic":
@@ -459,8 +460,8 @@ def _windowed_slope(rev_times_s: np.ndarray, tg: np.ndarray, window_s: float,
     at = np.empty((4, idx.size))
     carry = np.zeros(4)
     m = tm.size
-    for a in range(0, m, _SPLINE_PIECE):
-        b = min(a + _SPLINE_PIECE, m)
+    for a in range(0, m, _PIECE_REVS):
+        b = min(a + _PIECE_REVS, m)
         tc = tm[a:b] - centre
         r = 60.0 / np.diff(rt[a:b + 1])
         sel = np.flatnonzero((idx >= a) & (idx <= b))
