@@ -6,7 +6,8 @@ UTF-8 byte-order mark, quoted names and spaces around names are accepted (the he
 parsed with the standard library's csv module). Only the columns in use (the time column
 and the channels :meth:`CsvReader.select` names) are converted to numbers, so text or gaps
 in other columns do not matter, and the file is parsed in pieces of a few megabytes with
-pandas' C parser, so memory stays bounded however many rows or columns the file has. Rows
+pandas' C parser, two pieces at once on two threads (the parser lets go of the interpreter
+lock), so memory stays bounded however many rows or columns the file has. Rows
 with more fields than the header are refused, naming the row (pandas does not check rows
 when it converts only some columns, so the reader counts the delimiters itself).
 
@@ -21,6 +22,7 @@ from __future__ import annotations
 
 import csv
 import io
+import os
 import re
 from collections import deque
 from typing import Iterator
@@ -32,8 +34,17 @@ from rundash.ingest.base import DEFAULT_BLOCK, Reader, listing
 from rundash.ingest.timebase import FIT_ROWS, TimeBase, parse_time_name
 
 MAX_HEADER_BYTES = 1 << 20
-#: Bytes of text handed to pandas' parser at a time (its tokenizer holds every field).
-PARSE_BYTES = 16 << 20
+#: Fields handed to pandas' parser at a time: its tokenizer keeps about 16 bytes per field
+#: beside the text, so a piece is sized by its fields (about 5 MB of text of a 16-column
+#: file, 1 MB of a 1000-column one), never more than PIECE_BYTES.
+PIECE_FIELDS = 1 << 19
+PIECE_BYTES = 8 << 20
+MIN_PIECE_BYTES = 1 << 18
+#: Pieces parsed at once, each on its own thread (two cores are what a site laptop has):
+#: pandas' C parser lets go of the interpreter lock while it tokenizes and converts.
+PARSE_THREADS = max(1, min(2, os.cpu_count() or 1))
+#: Pieces in memory at once (parsed or being parsed).
+AHEAD = PARSE_THREADS + 1
 #: Rows whose time stamps are checked when the file is opened.
 HEAD_ROWS = 4096
 _DELIMITERS = (",", ";", "\t")
@@ -113,7 +124,9 @@ class CsvReader(Reader):
             raise self.fail("no data columns besides the time column")
         row_bytes = (np.mean([len(s.encode("utf-8")) + 1 for s in sample]) if sample
                      else len(header) + 1)
-        self._parse_rows = int(np.clip(PARSE_BYTES // max(row_bytes, 1), 256, 1 << 16))
+        self._piece_bytes = int(np.clip(PIECE_FIELDS * row_bytes / self._n_fields,
+                                        MIN_PIECE_BYTES, PIECE_BYTES))
+        self._head_bytes = int(min(self._piece_bytes, HEAD_ROWS * row_bytes))
         self._tb: TimeBase | None = None
         self._pending: deque = deque()
         self._gen = None
@@ -127,7 +140,7 @@ class CsvReader(Reader):
         """Check the time column of the first rows at once (the full fit waits until the
         channels in use are known, so the first rows are parsed with them only once)."""
         pos = self._names.index(self._tcol)
-        gen = self._pieces([pos], max_rows=min(HEAD_ROWS, self._parse_rows))
+        gen = self._pieces([pos], first_bytes=self._head_bytes)
         self._trow, self._crows = 0, []
         piece = next(gen, None)
         gen.close()
@@ -220,23 +233,21 @@ class CsvReader(Reader):
                 break
         if n == 0:
             raise self.fail("header only: no data rows")
-        tb.feed(np.concatenate(times))
+        _feed(tb, np.concatenate(times))
         self._tb = tb
         self.start_time = tb.start_time
         self.warnings = list(tb.warnings)
         self.time_note = tb.note()
 
     # ------------------------------------------------------------------ parsing
-    def _read(self, fields: list[int], *, dtype=np.float64, chunksize=None, skiprows=1,
-              nrows=None, source=None):
-        kw = dict(sep=self._delim, decimal=self._decimal, header=None, skiprows=skiprows,
-                  names=list(range(self._n_fields)), usecols=fields, engine="c",
-                  encoding="utf-8", skipinitialspace=True, dtype=dtype)
-        if chunksize:
-            kw["chunksize"] = chunksize
-        if nrows:
-            kw["nrows"] = nrows
-        return self._pd.read_csv(self.path if source is None else source, **kw)
+    def _read(self, fields: list[int], source, *, dtype=np.float64, quoted: bool = True):
+        """pandas' C parser on ``source`` (a piece of the data rows: no header). Spaces
+        around numbers are read either way; skipping the spaces before each field (a
+        quarter of the parse) matters only to a quote after them."""
+        return self._pd.read_csv(source, sep=self._delim, decimal=self._decimal, header=None,
+                                 names=list(range(self._n_fields)), usecols=fields,
+                                 engine="c", encoding="utf-8", skipinitialspace=quoted,
+                                 dtype=dtype)
 
     def _parsed(self):
         """A generator of ``(array (n_fields_used, m) float64, fraction)`` per parsed piece,
@@ -244,60 +255,113 @@ class CsvReader(Reader):
         fields, self._trow, self._crows = self._columns()
         return self._pieces(fields)
 
-    def _pieces(self, fields, max_rows: int | None = None):
-        pd = self._pd
-        names = {k: self._names[f] for k, f in enumerate(fields)}
-        counter = _CountingFile(self, self._data_offset, self._n_fields)
+    def _pieces(self, fields, first_bytes: int | None = None):
+        """Parse the data rows in pieces of about :data:`PIECE_FIELDS` fields, each cut
+        after a line end, on :data:`PARSE_THREADS` threads at once (pandas' C parser lets go of
+        the interpreter lock while it tokenizes and converts, and so does numpy), and
+        yield each piece's values in file order. A piece's rows are numbered once the
+        pieces before it are known, so every message names the row as a serial read
+        would. ``first_bytes`` makes the first piece shorter (the opening check of the
+        time column)."""
+        from concurrent.futures import ThreadPoolExecutor
+
+        fd = os.open(self.path, os.O_RDONLY)
+        cuts = _cuts(fd, self._data_offset, self.size_bytes, self._piece_bytes,
+                     first_bytes)
+        pool = ThreadPoolExecutor(PARSE_THREADS, thread_name_prefix="rundash-csv")
+        ahead: deque = deque()
         start = 0
+        def top_up(n: int) -> None:
+            while len(ahead) < n and (cut := next(cuts, None)) is not None:
+                ahead.append((cut, pool.submit(self._parse_piece, fd, fields, *cut)))
+
         try:
-            try:
-                reader = self._read(fields, chunksize=max_rows or self._parse_rows,
-                                    source=counter)
-            except (ValueError, pd.errors.ParserError) as exc:  # pandas reads the first row
-                raise counter.problem or self.fail(
-                    f"row 2: {_short(exc)}; expected {self._n_fields} columns per row, as the "
-                    "header row") from None
-            with reader:
-                while True:
-                    try:
-                        df = next(reader)
-                    except StopIteration:
-                        break
-                    except UnicodeDecodeError as exc:  # a ValueError: caught first
-                        raise self.fail(f"near row {start + 2}: not UTF-8 text (byte "
-                                        f"{exc.start})") from None
-                    except ValueError as exc:
-                        raise counter.problem or self._locate(fields, names, start, exc
-                                                              ) from None
-                    except pd.errors.ParserError as exc:
-                        raise counter.problem or self.fail(
-                            f"near row {start + 2}: {_short(exc)}; expected numbers only, "
-                            f"{self._n_fields} columns per row") from None
-                    if counter.problem is not None:
-                        raise counter.problem
-                    m = len(df)
-                    arr = df.to_numpy(np.float64).T
-                    bad = ~np.isfinite(arr)
-                    if bad.any():
-                        k, idx = np.argwhere(bad)[0]
-                        what = ("time column" if k == self._trow else "channel")
-                        raise self.fail(f"{what} {names[k]!r}, row {start + 2 + idx}: value is "
-                                        "not a finite number (empty, NaN, infinite or missing)")
-                    start += m
-                    yield arr, min(1.0, counter.tell() / self.size_bytes)
-            if counter.problem is not None:
-                raise counter.problem
-        except UnicodeDecodeError as exc:
-            raise self.fail(f"near row {start + 2}: not UTF-8 text (byte {exc.start})") from None
+            top_up(1 if first_bytes else AHEAD)  # a short first piece alone
+            while ahead:
+                (a, b), fut = ahead.popleft()
+                arr, problem = fut.result()
+                if problem is not None:
+                    raise problem(start)
+                top_up(AHEAD)
+                if arr.shape[1]:
+                    start += arr.shape[1]
+                    yield arr, min(1.0, b / self.size_bytes)
         finally:
-            counter.close()
+            for _, fut in ahead:
+                fut.cancel()
+            pool.shutdown(wait=True)
+            os.close(fd)
         self.n_samples = start
 
-    def _locate(self, fields, names, start, exc) -> InputError:
-        """Name the cell that is not a number in the piece starting at ``start``."""
+    def _parse_piece(self, fd: int, fields, a: int, b: int):
+        """``(array (n_fields_used, m) float64, None)`` of the bytes ``[a, b)`` of the
+        file, or ``(None, problem)`` where ``problem(rows_before)`` is the error naming
+        the row (in a worker thread: nothing here may raise)."""
+        pd = self._pd
+        names = {k: self._names[f] for k, f in enumerate(fields)}
+        try:
+            data = os.pread(fd, b - a, a)
+            delim, expect = self._delim.encode(), self._n_fields - 1
+            lines, delims, quoted = _totals(data, delim)
+            checked = False
+            if quoted or delims != expect * lines:
+                if (long_row := _long_row(data, delim, expect)) is not None:
+                    return None, self._long_problem(*long_row)
+                checked = True
+            if not data or data.isspace():
+                return np.empty((len(fields), 0)), None
+            try:
+                df = self._read(fields, io.BytesIO(data), quoted=quoted)
+            except UnicodeDecodeError:  # a ValueError: caught first
+                try:
+                    data.decode("utf-8")
+                    at = 0
+                except UnicodeDecodeError as exc:
+                    at = exc.start
+                i = data.count(b"\n", 0, at)
+                return None, lambda s: self.fail(f"near row {s + 2 + i}: not UTF-8 text (byte "
+                                                 f"{a + at} of the file)")
+            except ValueError as exc:
+                found = self._locate(fields, names, data)
+                if found is not None:
+                    i, k, text = found
+                    return None, lambda s: self.fail(
+                        f"column {names[k]!r}, row {s + 2 + i}: {text!r} is not a number; "
+                        "expected numbers only in the columns used")
+                return None, lambda s: self.fail(
+                    f"near row {s + 2}: {_short(exc)}; expected numbers only, "
+                    f"{self._n_fields} columns per row")
+            except pd.errors.ParserError as exc:
+                return None, lambda s: self.fail(
+                    f"near row {s + 2}: {_short(exc)}; expected numbers only, "
+                    f"{self._n_fields} columns per row")
+            if len(df) != lines and not checked:  # blank lines: the totals do not settle it
+                if (long_row := _long_row(data, delim, expect)) is not None:
+                    return None, self._long_problem(*long_row)
+            arr = np.ascontiguousarray(df.to_numpy(np.float64).T)
+            del df
+            bad = ~np.isfinite(arr)
+            if bad.any():
+                k, idx = (int(v) for v in np.argwhere(bad)[0])
+                what = "time column" if k == self._trow else "channel"
+                return None, lambda s: self.fail(
+                    f"{what} {names[k]!r}, row {s + 2 + idx}: value is not a finite number "
+                    "(empty, NaN, infinite or missing)")
+            return arr, None
+        except BaseException as exc:  # pragma: no cover - an unforeseen failure, raised
+            return None, lambda s, exc=exc: _reraise(exc)
+
+    def _long_problem(self, i: int, n: int):
+        return lambda s: self.fail(
+            f"row {s + 2 + i} has {n} columns; expected {self._n_fields} columns, as the "
+            f"header row ({_SHOWN[self._delim]}-separated)")
+
+    def _locate(self, fields, names, data: bytes) -> tuple[int, int, str] | None:
+        """(row in the piece, column, text) of the first cell of ``data`` that is not a
+        number, or None."""
         pd = self._pd
         try:
-            df = self._read(fields, dtype=str, skiprows=1 + start, nrows=self._parse_rows)
+            df = self._read(fields, io.BytesIO(data), dtype=str)
             for k, col in enumerate(df.columns):
                 s = df[col]
                 txt = s.str.replace(",", ".") if self._decimal == "," else s
@@ -305,13 +369,10 @@ class CsvReader(Reader):
                 bad = np.flatnonzero(s.notna().to_numpy() & num.isna().to_numpy())
                 if bad.size:
                     i = int(bad[0])
-                    return self.fail(f"column {names[k]!r}, row {start + 2 + i}: "
-                                     f"{str(s.iloc[i])[:40]!r} is not a number; expected "
-                                     "numbers only in the columns used")
+                    return i, k, str(s.iloc[i])[:40]
         except (ValueError, pd.errors.ParserError):
             pass
-        return self.fail(f"near row {start + 2}: {_short(exc)}; expected numbers only, "
-                         f"{self._n_fields} columns per row")
+        return None
 
     def blocks(self, block_size: int = DEFAULT_BLOCK) -> Iterator[tuple[np.ndarray, float]]:
         if self._tcol is not None and self._tb is None:
@@ -336,7 +397,7 @@ class CsvReader(Reader):
                     break
                 arr, frac = arr
                 if tb is not None:
-                    tb.feed(arr[self._trow])
+                    _feed(tb, arr[self._trow])
             any_rows = True
             m = arr.shape[1]
             pos = 0
@@ -359,105 +420,80 @@ class CsvReader(Reader):
             self.warnings = list(tb.warnings)
 
 
-class _CountingFile(io.RawIOBase):
-    """The file as pandas reads it, counting delimiters line by line on the way through,
-    to refuse rows longer than the header (a decimal comma in a comma-separated file, a
-    stray delimiter): pandas ignores extra fields when it converts only some columns. Rows
-    with fewer fields are left to pandas, which gives their missing values as NaN (refused
-    in used columns).
+def _cuts(fd: int, start: int, size: int, step: int, first: int | None = None):
+    """Byte ranges ``(a, b)`` covering ``[start, size)`` of the file, each about ``step``
+    long (the first ``first``) and each but the last ending just after a line end."""
+    a, want = start, first or step
+    while a < size:
+        b = a + want
+        while b < size:
+            window = os.pread(fd, 1 << 16, b)
+            nl = window.find(b"\n")
+            if nl >= 0:
+                b += nl + 1
+                break
+            b += len(window)
+        b = min(b, size)
+        yield a, b
+        a, want = b, step
 
-    Each piece pandas reads is first checked by its totals (``bytes.count``, fast); a piece
-    whose totals do not add up, or that holds quotes, is checked line by line with numpy.
-    A problem found is kept in :attr:`problem` (raised by the reader after the piece that
-    pandas returns: an exception inside ``read`` would reach pandas' C parser)."""
 
-    def __init__(self, reader: CsvReader, offset: int, n_fields: int):
-        super().__init__()
-        self.r = reader
-        self.f = open(reader.path, "rb", buffering=0)
-        self.offset = offset
-        self.delim = reader._delim.encode()
-        self.expect = n_fields - 1
-        self.rows = 0
-        self.pos = 0
-        self.tail = b""
-        self.problem: InputError | None = None
+def _totals(body: bytes, delim: bytes) -> tuple[int, int, bool]:
+    """(lines, delimiters, holds a quote) of a piece: numpy's counts, off the
+    interpreter lock, a megabyte at a time (no temporary the size of the piece)."""
+    a = np.frombuffer(body, dtype=np.uint8)
+    step = 1 << 20
+    hit = np.empty(min(step, a.size), dtype=bool)
+    lines = delims = 0
+    for k in range(0, a.size, step):
+        part = a[k:k + step]
+        h = hit[:part.size]
+        lines += int(np.count_nonzero(np.equal(part, 10, out=h)))
+        delims += int(np.count_nonzero(np.equal(part, delim[0], out=h)))
+    return lines + (0 if body.endswith(b"\n") else 1), delims, body.find(b'"') >= 0
 
-    def readable(self) -> bool:
-        return True
 
-    def readinto(self, b) -> int:
-        n = self.f.readinto(b)
-        if n is None:  # pragma: no cover - non-blocking files only
-            return 0
-        data = bytes(memoryview(b)[:n])
-        skip = max(0, min(n, self.offset - self.pos))
-        self.pos += n
-        if self.problem is None:
-            try:
-                self._see(data[skip:] if skip else data, end=(n == 0))
-            except InputError as exc:
-                self.problem = exc
-        return n
+def _long_row(body: bytes, delim: bytes, expect: int) -> tuple[int, int] | None:
+    """``(row in the piece, its number of fields)`` of the first row of ``body`` with more
+    than ``expect + 1`` fields (blank lines not counted as rows, quoted lines not judged:
+    a quoted field may hold the delimiter), or None. pandas ignores extra fields when it
+    converts only some columns, and takes them as an index in a piece's first row, so the
+    reader counts the delimiters itself, line by line here (the piece's totals, which
+    settle the usual case, are :func:`_totals`)."""
+    a = np.frombuffer(body, dtype=np.uint8)
+    quoted = body.find(b'"') >= 0
+    if not body.endswith(b"\n"):
+        a = np.frombuffer(body + b"\n", dtype=np.uint8)
+    nl = np.flatnonzero(a == 10)
+    starts = np.concatenate(([0], nl[:-1] + 1))
+    lens = nl - starts
+    first = a[np.minimum(starts, a.size - 1)]
+    is_blank = (lens == 0) | ((lens == 1) & (first == 13))
 
-    def tell(self) -> int:
-        return self.pos
+    def per_line(byte: int) -> np.ndarray:
+        pos = np.flatnonzero(a == byte)
+        return np.diff(np.concatenate(([0], np.searchsorted(pos, nl))))
 
-    def close(self) -> None:
-        self.f.close()
-        super().close()
+    count = per_line(delim[0])
+    if quoted:
+        count[per_line(34) > 0] = 0
+    count = count[~is_blank]
+    bad = np.flatnonzero(count > expect)
+    if bad.size:
+        i = int(bad[0])
+        return i, int(count[i]) + 1
+    return None
 
-    def _see(self, data: bytes, *, end: bool) -> None:
-        buf = self.tail + data if self.tail else data
-        if end:
-            self.tail = b""
-            if buf.strip():
-                self._check(buf + b"\n")
-            return
-        cut = buf.rfind(b"\n")
-        if cut < 0:
-            self.tail = buf
-            return
-        self.tail = buf[cut + 1:]
-        stop = cut + 1
-        if buf.find(b'"', 0, stop) < 0:
-            lines = buf.count(b"\n", 0, stop)
-            if buf.count(self.delim, 0, stop) == self.expect * lines:
-                self.rows += lines  # the usual case: two counts, no copy
-                return
-        self._check(buf[:stop])
 
-    def _check(self, body: bytes) -> None:
-        lines = body.count(b"\n")
-        if b'"' not in body:
-            delims = body.count(self.delim)
-            blank = (body.count(b"\n\n") + body.count(b"\n\r\n")
-                     + (1 if body.startswith((b"\n", b"\r\n")) else 0))
-            if delims <= self.expect * (lines - blank):
-                self.rows += lines - blank
-                return
-        a = np.frombuffer(body, dtype=np.uint8)
-        nl = np.flatnonzero(a == 10)
-        starts = np.concatenate(([0], nl[:-1] + 1))
-        lens = nl - starts
-        first = a[np.minimum(starts, a.size - 1)]
-        is_blank = (lens == 0) | ((lens == 1) & (first == 13))
+def _feed(tb: TimeBase, t: np.ndarray) -> None:
+    """Feed time stamps in blocks of FIT_ROWS: the first fit sees the first FIT_ROWS rows
+    (a piece may hold more), and each block's last rows give its resolution."""
+    for k in range(0, t.size, FIT_ROWS):
+        tb.feed(t[k:k + FIT_ROWS])
 
-        def per_line(byte: int) -> np.ndarray:
-            pos = np.flatnonzero(a == byte)
-            return np.diff(np.concatenate(([0], np.searchsorted(pos, nl))))
 
-        count = per_line(self.delim[0])
-        if b'"' in body:
-            count[per_line(34) > 0] = 0  # quoted fields may hold the delimiter: not judged
-        count = count[~is_blank]
-        bad = np.flatnonzero(count > self.expect)
-        if bad.size:
-            i = int(bad[0])
-            raise self.r.fail(f"row {self.rows + 2 + i} has {int(count[i]) + 1} columns; "
-                              f"expected {self.expect + 1} columns, as the header row "
-                              f"({_SHOWN[self.r._delim]}-separated)")
-        self.rows += count.size
+def _reraise(exc: BaseException):
+    raise exc
 
 
 def _short(exc: Exception) -> str:

@@ -352,3 +352,45 @@ class TestReaderTimeBase:
             assert n == c["i"].size
             assert r.sample_rate_hz == pytest.approx(fs, rel=1e-8)
             assert any("coarser than its sample interval" in w for w in r.warnings)
+
+
+class TestPieces:
+    """The reader parses a file in pieces cut at line ends, several on threads at once;
+    what it returns and the rows its messages name must not depend on where the cuts
+    fall. Checked against numpy's own text reader (``np.loadtxt``) of the same file."""
+
+    @pytest.fixture
+    def small_pieces(self, monkeypatch):
+        import rundash.ingest.csv_reader as cr
+        monkeypatch.setattr(cr, "PIECE_FIELDS", 600)  # about 250 rows a piece here
+        monkeypatch.setattr(cr, "PIECE_BYTES", 1 << 12)
+        monkeypatch.setattr(cr, "MIN_PIECE_BYTES", 1 << 10)
+
+    def test_values_match_a_whole_read(self, tmp_path, small_pieces):
+        fs = 1000.0
+        c = columns(fs, 20.0)
+        p = pandas_csv(tmp_path / "r.csv", "time_s", c["i"] / fs, c, float_format="%.6f")
+        text = p.read_text().splitlines()
+        for k in (777, 3001, 15000):  # blank lines, which the reader skips as pandas does
+            text.insert(k, "")
+        p.write_text("\n".join(text))  # no line end after the last row
+        want = np.loadtxt(p, delimiter=",", skiprows=1)
+        with open_reader(p, DataSpec(signal_units="engineering")) as r:
+            assert r._piece_bytes <= 1 << 12
+            r.select(["tach", "x1"])
+            got = np.concatenate([b.copy() for b, _ in r.blocks(4096)], axis=1)
+        np.testing.assert_array_equal(got, want[:, 1:].T)  # bit for bit: the same parse
+
+    @pytest.mark.parametrize("bad_row", [2, 257, 9876, 19500])
+    def test_a_bad_cell_is_named_by_its_row_in_any_piece(self, tmp_path, capsys, bad_row,
+                                                         small_pieces):
+        fs = 1000.0
+        c = columns(fs, 20.0)
+        p = pandas_csv(tmp_path / "r.csv", "time_s", c["i"] / fs, c, float_format="%.6f")
+        lines = p.read_text().splitlines()  # lines[k] is row k + 1 (the header is row 1)
+        lines[bad_row - 1] = lines[bad_row - 1].rsplit(",", 1)[0] + ",1.2.3"
+        long_row = min(bad_row + 500, len(lines)) - 1
+        lines[long_row] += ",1"  # a later long row: the first problem is the one named
+        p.write_text("\n".join(lines) + "\n")
+        err = TestRefused.run_cli(None, tmp_path, capsys, p)
+        assert f"column 'x1', row {bad_row}: '1.2.3' is not a number" in err
