@@ -431,18 +431,24 @@ class _RowView:
 
 
 def _write_tracks(conn, run_id, probes, orders, is_prox, results: _Results, time_s, speed_rpm,
-                 edges, opr, profile, casc_amp, casc_done, row_rpm, row_t, freq_hz) -> None:
+                 held: dict, casc_amp, casc_done, row_rpm, row_t, freq_hz) -> None:
     """The bulk of a run's results, in the writer's transaction: the old results cleared,
-    tach events, the speed profile, every probe's vector tracks and cascade."""
+    tach events, the speed profile, every probe's vector tracks and cascade. ``held``
+    hands over the tach ``edges``, the once-per-rev ``opr`` and the speed ``profile``;
+    each is let go (taken out of ``held``) once written."""
     q.clear_results(conn, run_id)
-    q.save_tach(conn, run_id, "edges", edges)
+    q.save_tach(conn, run_id, "edges", held.pop("edges"))
+    opr = held.pop("opr")
     q.save_tach(conn, run_id, "once_per_rev", opr.times_s)
     rev_mid = 0.5 * (opr.times_s[:-1] + opr.times_s[1:])
+    del opr
+    profile = held.pop("profile")
     rpm = np.empty_like(rev_mid)
     for a in range(0, rev_mid.size, CONVERT_BLOCKS):  # the same values, small temporaries
         rpm[a:a + CONVERT_BLOCKS] = profile.rpm(rev_mid[a:a + CONVERT_BLOCKS])
+    del profile
     q.save_speed_profile(conn, run_id, rev_mid, rpm)
-    del rpm
+    del rpm, rev_mid
     axes = q.save_block_axes(conn, run_id, time_s, speed_rpm)  # once, shared by every track
     amp, lag = np.empty(time_s.size, np.float32), np.empty(time_s.size, np.float32)
     for i, ch in enumerate(probes):  # one order of one channel held at a time
@@ -748,16 +754,22 @@ def _process(db: Database, run_id: int, params: ProcessingParams | None, progres
         # the results are written in a second thread while the findings are computed here:
         # the database's work (SQLite, outside the interpreter lock) beside the analysis
         writer = _ResultWriter(db, run_id, timer)
+        # the per-revolution arrays only the save needs (tach events, fitted times, the
+        # speed profile's coefficients) go to the writer, which lets each go once it is
+        # written: they are not held through the findings and modal fits
+        held = dict(edges=edges, opr=opr, profile=profile)
+        revs_per_block = tracker.revs_per_block
+        del edges, opr, profile, tracker, band_rms
         writer.start(lambda conn: _write_tracks(
-            conn, run_id, probes, orders, is_prox, results, time_s, speed_rpm, edges, opr,
-            profile, casc_amp, casc_done, row_rpm, row_t, freq_hz))
+            conn, run_id, probes, orders, is_prox, results, time_s, speed_rpm, held,
+            casc_amp, casc_done, row_rpm, row_t, freq_hz))
         with writer.abandoned_on_error():
             findings = findings_mod.build_findings(
                 desc=desc, run=run, probes=probes, track=track,
                 compensated=rows.rows("comp", True), segments=segments, slow_roll_rpm=window,
                 processing_notes=notes, slow_roll_basis=slow_roll_basis,
                 angle_bound_rad=tq.angle_bound_rad(speed_rpm),
-                revs_per_block=tracker.revs_per_block, stage=timer,
+                revs_per_block=revs_per_block, stage=timer,
                 conjugate_part=tracker_name == "order", velocity_band=band)
             findings["processing"]["tracker"] = tracker_name
             result.findings = findings
