@@ -257,9 +257,9 @@ class CsvReader(Reader):
 
     def _pieces(self, fields, first_bytes: int | None = None):
         """Parse the data rows in pieces of about :data:`PIECE_FIELDS` fields, each cut
-        after a line end, on :data:`PARSE_THREADS` threads at once (pandas' C parser lets go of
-        the interpreter lock while it tokenizes and converts, and so does numpy), and
-        yield each piece's values in file order. A piece's rows are numbered once the
+        after a line end, on :data:`PARSE_THREADS` threads at once (pandas' C parser lets
+        go of the interpreter lock while it tokenizes and converts, and so does numpy),
+        and yield each piece's values in file order. A piece's rows are numbered once the
         pieces before it are known, so every message names the row as a serial read
         would. ``first_bytes`` makes the first piece shorter (the opening check of the
         time column)."""
@@ -271,6 +271,7 @@ class CsvReader(Reader):
         pool = ThreadPoolExecutor(PARSE_THREADS, thread_name_prefix="rundash-csv")
         ahead: deque = deque()
         start = 0
+
         def top_up(n: int) -> None:
             while len(ahead) < n and (cut := next(cuts, None)) is not None:
                 ahead.append((cut, pool.submit(self._parse_piece, fd, fields, *cut)))
@@ -428,6 +429,9 @@ def _cuts(fd: int, start: int, size: int, step: int, first: int | None = None):
         b = a + want
         while b < size:
             window = os.pread(fd, 1 << 16, b)
+            if not window:  # the file ends sooner than its size said (cut short meanwhile)
+                b = size
+                break
             nl = window.find(b"\n")
             if nl >= 0:
                 b += nl + 1
